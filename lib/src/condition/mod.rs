@@ -1,0 +1,1 @@
+//! Frame conditioning: dark subtraction, co-adding, bad pixels, saturation, gain, integration time.

@@ -1,0 +1,1 @@
+//! Peak finding: baseline removal, noise estimate, detection, sub-pixel centroids.
