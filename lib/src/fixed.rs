@@ -20,7 +20,11 @@ pub const fn mul_div_u128(a: u128, b: u128, c: u128) -> Option<u128> {
     if hi == 0 {
         // Same result as the long division below, through the native 128-bit divide.
         let (q, r) = (lo / c, lo % c);
-        return if r >= c - r { q.checked_add(1) } else { Some(q) };
+        return if r >= c - r {
+            q.checked_add(1)
+        } else {
+            Some(q)
+        };
     }
     // Schoolbook long division of (hi, lo) by c, one bit at a time; `rem < c` holds between steps.
     let mut rem = hi;
@@ -135,7 +139,10 @@ mod tests {
         }
         assert_eq!(mul_div_u128(1, 1, 0), None);
         assert_eq!(mul_div_u128(u128::MAX, u128::MAX, 1), None);
-        assert_eq!(mul_div_u128(u128::MAX, u128::MAX, u128::MAX), Some(u128::MAX));
+        assert_eq!(
+            mul_div_u128(u128::MAX, u128::MAX, u128::MAX),
+            Some(u128::MAX)
+        );
     }
 
     #[test]
@@ -147,7 +154,19 @@ mod tests {
 
     #[test]
     fn isqrt_is_floor_root() {
-        for x in [0u128, 1, 2, 3, 4, 15, 16, 17, 1 << 100, u128::MAX, 999_999_999_999] {
+        for x in [
+            0u128,
+            1,
+            2,
+            3,
+            4,
+            15,
+            16,
+            17,
+            1 << 100,
+            u128::MAX,
+            999_999_999_999,
+        ] {
             let r = isqrt_u128(x);
             assert!(r * r <= x);
             let r1 = r + 1;

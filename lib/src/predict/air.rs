@@ -48,7 +48,11 @@ pub struct AirConditions {
 impl AirConditions {
     /// Air at `temperature_mc` (milli-degrees Celsius, −20 000 … 50 000), `pressure_pa` (50 000 …
     /// 120 000 Pa) and relative humidity `humidity_permille` (0 … 1000 ‰).
-    pub fn new(temperature_mc: i32, pressure_pa: u32, humidity_permille: u16) -> Result<Self, PredictError> {
+    pub fn new(
+        temperature_mc: i32,
+        pressure_pa: u32,
+        humidity_permille: u16,
+    ) -> Result<Self, PredictError> {
         if !(SVP_MIN_C * 1000..=SVP_MAX_C * 1000).contains(&temperature_mc) {
             return Err(PredictError::AirTemperatureOutOfRange);
         }
@@ -163,8 +167,17 @@ mod tests {
 
     #[test]
     fn absurd_air_is_refused() {
-        assert_eq!(AirConditions::new(90_000, 101_325, 0), Err(PredictError::AirTemperatureOutOfRange));
-        assert_eq!(AirConditions::new(20_000, 10, 0), Err(PredictError::AirPressureOutOfRange));
-        assert_eq!(AirConditions::new(20_000, 101_325, 1001), Err(PredictError::AirHumidityOutOfRange));
+        assert_eq!(
+            AirConditions::new(90_000, 101_325, 0),
+            Err(PredictError::AirTemperatureOutOfRange)
+        );
+        assert_eq!(
+            AirConditions::new(20_000, 10, 0),
+            Err(PredictError::AirPressureOutOfRange)
+        );
+        assert_eq!(
+            AirConditions::new(20_000, 101_325, 1001),
+            Err(PredictError::AirHumidityOutOfRange)
+        );
     }
 }

@@ -1,7 +1,7 @@
 //! The fine-structure components n l j → m l' j' of one line, with their share of the emitted photons.
 use super::air::Air;
 use super::error::PredictError;
-use super::level::level_energy_q80;
+use super::level::{recoil_term_q80, Atom};
 use super::nucleus::Nucleus;
 use super::strength::{angular_components, Channel, Channels};
 use super::units::{check_pair, wavelength_fm};
@@ -41,21 +41,24 @@ pub(crate) struct RawComponent {
 /// Walks channels and their angular components; yields strengths S on a common scale (no σ³ yet).
 /// At most 3 (2m − 1) items for lower level m.
 pub(crate) struct RawComponents {
-    nucleus: Nucleus,
-    upper: u8,
-    lower: u8,
+    upper: LevelSide,
+    lower: LevelSide,
     channels: Channels,
     current: Option<(Channel, [(u8, u8, u32); 3], u32)>,
     slot: usize,
 }
 
 impl RawComponents {
-    pub(crate) fn new(nucleus: Nucleus, lower: u8, upper: u8) -> Result<RawComponents, PredictError> {
+    pub(crate) fn new(
+        nucleus: Nucleus,
+        lower: u8,
+        upper: u8,
+    ) -> Result<RawComponents, PredictError> {
         check_pair(lower, upper)?;
+        let atom = Atom::new(nucleus.z(), nucleus.mass_ratio_e9()).ok_or(PredictError::Overflow)?;
         Ok(RawComponents {
-            nucleus,
-            upper,
-            lower,
+            upper: LevelSide::new(atom, upper)?,
+            lower: LevelSide::new(atom, lower)?,
             channels: Channels::new(upper, lower),
             current: None,
             slot: 0,
@@ -92,12 +95,62 @@ impl Iterator for RawComponents {
     }
 }
 
+/// Level energies of one principal level n, with the few most recent Dirac values kept: channels walk
+/// j upward, so four slots spare almost every recomputation.
+struct LevelSide {
+    atom: Atom,
+    n: u8,
+    recoil_scale_q80: u128,
+    slots: [(u8, i128); 4],
+    next_slot: usize,
+}
+
+impl LevelSide {
+    fn new(atom: Atom, n: u8) -> Result<LevelSide, PredictError> {
+        Ok(LevelSide {
+            atom,
+            n,
+            recoil_scale_q80: atom.recoil_scale_q80(n).ok_or(PredictError::Overflow)?,
+            slots: [(0, 0); 4],
+            next_slot: 0,
+        })
+    }
+
+    /// ε(n, l, j) in Q80.
+    fn energy(&mut self, l: u8, j2: u8) -> Result<i128, PredictError> {
+        let dirac = match self.slots.iter().find(|(j, _)| *j == j2) {
+            Some(&(_, e)) => e,
+            None => {
+                let e = self
+                    .atom
+                    .dirac_q80(self.n, j2)
+                    .ok_or(PredictError::Overflow)?;
+                if let Some(slot) = self.slots.get_mut(self.next_slot) {
+                    *slot = (j2, e);
+                }
+                self.next_slot = (self.next_slot + 1) % 4;
+                e
+            }
+        };
+        Ok(dirac + recoil_term_q80(self.recoil_scale_q80, l, j2))
+    }
+}
+
 impl RawComponents {
-    fn build(&self, ch: Channel, uj2: u8, lj2: u8, share: u32, total: u32) -> Result<RawComponent, PredictError> {
-        let (z, m) = (self.nucleus.z(), self.nucleus.mass_ratio_e9());
-        let eu = level_energy_q80(z, m, self.upper, ch.upper_l, uj2).ok_or(PredictError::Overflow)?;
-        let el = level_energy_q80(z, m, self.lower, ch.lower_l, lj2).ok_or(PredictError::Overflow)?;
-        let gap = eu.checked_sub(el).filter(|g| *g > 0).ok_or(PredictError::Overflow)? as u128;
+    fn build(
+        &mut self,
+        ch: Channel,
+        uj2: u8,
+        lj2: u8,
+        share: u32,
+        total: u32,
+    ) -> Result<RawComponent, PredictError> {
+        let eu = self.upper.energy(ch.upper_l, uj2)?;
+        let el = self.lower.energy(ch.lower_l, lj2)?;
+        let gap = eu
+            .checked_sub(el)
+            .filter(|g| *g > 0)
+            .ok_or(PredictError::Overflow)? as u128;
         let strength = mul_div_u128(ch.weight as u128 * share as u128, 1 << 24, total as u128)
             .ok_or(PredictError::Overflow)?;
         Ok(RawComponent {
@@ -132,7 +185,12 @@ impl Components {
     /// Components of `nucleus` m → n (`lower` = m, `upper` = n), in channel order.
     ///
     /// Work: two passes over at most 3 (2m − 1) ≤ 231 components.
-    pub fn new(nucleus: Nucleus, lower: u8, upper: u8, air: &Air) -> Result<Components, PredictError> {
+    pub fn new(
+        nucleus: Nucleus,
+        lower: u8,
+        upper: u8,
+        air: &Air,
+    ) -> Result<Components, PredictError> {
         let (ref_gap_q80, total_weight) = reference_and_total(nucleus, lower, upper)?;
         Ok(Components {
             raw: RawComponents::new(nucleus, lower, upper)?,
@@ -144,7 +202,11 @@ impl Components {
 }
 
 /// First component's gap and the sum of photon weights of all components.
-pub(crate) fn reference_and_total(nucleus: Nucleus, lower: u8, upper: u8) -> Result<(u128, u128), PredictError> {
+pub(crate) fn reference_and_total(
+    nucleus: Nucleus,
+    lower: u8,
+    upper: u8,
+) -> Result<(u128, u128), PredictError> {
     let mut ref_gap = 0;
     let mut total: u128 = 0;
     for raw in RawComponents::new(nucleus, lower, upper)? {

@@ -19,12 +19,102 @@ const Q56_ONE: u128 = 1 << 56;
 /// (Zα)² in the scale `one` (Q56 or Q80).
 const fn z_alpha_squared(z: u8, one: u128) -> Option<u128> {
     let z2 = (z as u128) * (z as u128);
-    mul_div_u128(z2 * ALPHA_E13 * ALPHA_E13, one, 100_000_000_000_000_000_000_000_000)
+    mul_div_u128(
+        z2 * ALPHA_E13 * ALPHA_E13,
+        one,
+        100_000_000_000_000_000_000_000_000,
+    )
 }
 
-/// ε(n, l, j) = E / (mₑc²) in Q80 (raw / 2^80) for nuclear charge `z` and nuclear/electron mass ratio × 10^9; `j2` is 2j. `None` for a level that does not exist or a range failure.
+/// Per-nucleus quantities shared by all its levels, computed once.
+#[derive(Clone, Copy)]
+pub(crate) struct Atom {
+    za2: u128,
+    za2_56: u128,
+    mass_ratio_e9: u128,
+    total_e9: u128,
+    mu: u128,
+}
+
+impl Atom {
+    /// `z` nuclear charge, `mass_ratio_e9` nuclear / electron mass × 10^9.
+    pub(crate) fn new(z: u8, mass_ratio_e9: u64) -> Option<Atom> {
+        if z == 0 || mass_ratio_e9 == 0 {
+            return None;
+        }
+        let r = mass_ratio_e9 as u128;
+        let total_e9 = r + 1_000_000_000; // M / mₑ × 10^9
+        Some(Atom {
+            za2: z_alpha_squared(z, Q80_ONE)?,
+            za2_56: z_alpha_squared(z, Q56_ONE)?,
+            mass_ratio_e9: r,
+            total_e9,
+            mu: mul_div_u128(r, Q80_ONE, total_e9)?, // m_r / mₑ
+        })
+    }
+
+    /// Dirac + recoil part of ε for level n with 2j = `j2` (l-independent), Q80.
+    pub(crate) fn dirac_q80(&self, n: u8, j2: u8) -> Option<i128> {
+        if n == 0 || n > MAX_N || j2 % 2 == 0 || j2 >= 2 * n {
+            return None;
+        }
+        let k = (j2 as u128 + 1) / 2;
+        // √(k² − (Zα)²) in Q56, then δ = (Zα)² / (k + √…) — the sum form avoids cancellation.
+        let radicand = (k * k * Q56_ONE).checked_sub(self.za2_56)?;
+        let root56 = isqrt_u128(radicand.checked_shl(56)?);
+        let delta = mul_div_u128(self.za2, Q80_ONE, k * Q80_ONE + (root56 << 24))?;
+        let nd = (n as u128 * Q80_ONE).checked_sub(delta)?;
+        let nd2 = mul_div_u128(nd, nd, Q80_ONE)?;
+        let x = mul_div_u128(self.za2, Q80_ONE, nd2)?;
+        // f − 1 = −x / (s (1 + s)), s = √(1 + x): again no cancellation for small x.
+        let s56 = isqrt_u128((Q56_ONE + (x >> 24)).checked_shl(56)?);
+        let s = s56 << 24;
+        let den = mul_div_u128(s, Q80_ONE + s, Q80_ONE)?;
+        let g = mul_div_u128(x, Q80_ONE, den)?; // g = 1 − f > 0
+        let t1 = mul_div_u128(self.mu, g, Q80_ONE)?; // m_r (1 − f) / mₑ
+        let t2 = mul_div_u128(
+            mul_div_u128(t1, t1, Q80_ONE)?,
+            1_000_000_000,
+            2 * self.total_e9,
+        )?;
+        Some(-((t1 + t2) as i128))
+    }
+
+    /// (Zα)⁴ μ³ / (2 n³ (m_N/mₑ)²) in Q80: the Barker–Glover scale of level n.
+    pub(crate) fn recoil_scale_q80(&self, n: u8) -> Option<u128> {
+        let za4 = mul_div_u128(self.za2, self.za2, Q80_ONE)?;
+        let mu3 = mul_div_u128(mul_div_u128(self.mu, self.mu, Q80_ONE)?, self.mu, Q80_ONE)?;
+        let a = mul_div_u128(za4, mu3, Q80_ONE)?;
+        let n3 = (n as u128) * (n as u128) * (n as u128);
+        let r = self.mass_ratio_e9;
+        mul_div_u128(a, 1_000_000_000_000_000_000, 2 * n3 * r * r)
+    }
+}
+
+/// Barker–Glover term of level l, 2j = `j2`, given the level's [`Atom::recoil_scale_q80`]:
+/// scale / (κ (2l+1)) with κ = −(l+1) for j = l+½ and κ = l for j = l−½; zero for s levels.
+pub(crate) fn recoil_term_q80(scale_q80: u128, l: u8, j2: u8) -> i128 {
+    if l == 0 {
+        return 0;
+    }
+    let two_l1 = 2 * l as u128 + 1;
+    let (kappa_abs, negative) = if j2 == 2 * l + 1 {
+        (l as u128 + 1, true)
+    } else {
+        (l as u128, false)
+    };
+    let bg = (scale_q80 / (kappa_abs * two_l1)) as i128;
+    if negative {
+        -bg
+    } else {
+        bg
+    }
+}
+
+/// ε(n, l, j) = E / (mₑc²) in Q80 (raw / 2^80) for nuclear charge `z` and nuclear / electron mass ratio
+/// × 10^9; `j2` is 2j. `None` for a level that does not exist.
 pub fn level_energy_q80(z: u8, mass_ratio_e9: u64, n: u8, l: u8, j2: u8) -> Option<i128> {
-    if n == 0 || n > MAX_N || l >= n || z == 0 {
+    if n == 0 || n > MAX_N || l >= n {
         return None;
     }
     // j = l ± ½ and j ≥ ½.
@@ -32,44 +122,9 @@ pub fn level_energy_q80(z: u8, mass_ratio_e9: u64, n: u8, l: u8, j2: u8) -> Opti
     if !valid_j {
         return None;
     }
-    let za2 = z_alpha_squared(z, Q80_ONE)?;
-    let za2_56 = z_alpha_squared(z, Q56_ONE)?;
-    let k = (j2 as u128 + 1) / 2;
-    // √(k² − (Zα)²) in Q56, then δ = (Zα)² / (k + √…) — the sum form avoids cancellation.
-    let radicand = (k * k * Q56_ONE).checked_sub(za2_56)?;
-    let root56 = isqrt_u128(radicand.checked_shl(56)?);
-    let delta = mul_div_u128(za2, Q80_ONE, k * Q80_ONE + (root56 << 24))?;
-    let nd = (n as u128 * Q80_ONE).checked_sub(delta)?;
-    let nd2 = mul_div_u128(nd, nd, Q80_ONE)?;
-    let x = mul_div_u128(za2, Q80_ONE, nd2)?;
-    // f − 1 = −x / (s (1 + s)), s = √(1 + x): again no cancellation for small x.
-    let s56 = isqrt_u128((Q56_ONE + (x >> 24)).checked_shl(56)?);
-    let s = s56 << 24;
-    let den = mul_div_u128(s, Q80_ONE + s, Q80_ONE)?;
-    let g = mul_div_u128(x, Q80_ONE, den)?; // g = 1 − f > 0
-    let r = mass_ratio_e9 as u128;
-    let total_e9 = r + 1_000_000_000; // M / mₑ × 10^9
-    let mu = mul_div_u128(r, Q80_ONE, total_e9)?; // m_r / mₑ
-    let t1 = mul_div_u128(mu, g, Q80_ONE)?; // m_r (1 − f) / mₑ
-    let t2 = mul_div_u128(mul_div_u128(t1, t1, Q80_ONE)?, 1_000_000_000, 2 * total_e9)?;
-    let mut eps = -((t1 + t2) as i128);
-    if l > 0 {
-        // (Zα)⁴ μ³ / (2 n³ (m_N/mₑ)²) / (|κ| (2l+1)), sign of κ: j = l+½ → κ = −(l+1); j = l−½ → κ = l.
-        let za4 = mul_div_u128(za2, za2, Q80_ONE)?;
-        let mu3 = mul_div_u128(mul_div_u128(mu, mu, Q80_ONE)?, mu, Q80_ONE)?;
-        let a = mul_div_u128(za4, mu3, Q80_ONE)?;
-        let n3 = (n as u128) * (n as u128) * (n as u128);
-        let b = mul_div_u128(a, 1_000_000_000_000_000_000, 2 * n3 * r * r)?;
-        let two_l1 = 2 * l as u128 + 1;
-        let (kappa_abs, negative) = if j2 == 2 * l + 1 {
-            (l as u128 + 1, true)
-        } else {
-            (l as u128, false)
-        };
-        let bg = mul_div_u128(b, 1, kappa_abs * two_l1)? as i128;
-        eps += if negative { -bg } else { bg };
-    }
-    Some(eps)
+    let atom = Atom::new(z, mass_ratio_e9)?;
+    let scale = atom.recoil_scale_q80(n)?;
+    Some(atom.dirac_q80(n, j2)? + recoil_term_q80(scale, l, j2))
 }
 
 #[cfg(test)]

@@ -6,7 +6,7 @@
 //! usual convention for unresolved hydrogen lines, counting photons as a sensor does). The centroid is
 //! taken in vacuum wavelength; wavenumber and energy are the weighted mean of the components'.
 use super::air::Air;
-use super::component::{photon_weight, reference_and_total, RawComponents};
+use super::component::{photon_weight, RawComponents};
 use super::error::PredictError;
 use super::nucleus::Nucleus;
 use super::units::{energy_nev, wavelength_fm, wavenumber_nk};
@@ -34,28 +34,39 @@ pub struct Line {
 
 /// Predicts the line `upper` → `lower` of `nucleus`.
 ///
-/// Work: three passes over at most 3 (2·lower − 1) components, each two level energies.
+/// Work: one pass over at most 3 (2·lower − 1) ≤ 231 components; about 2 (upper + lower) level energies.
 pub fn line(nucleus: Nucleus, lower: u8, upper: u8, air: &Air) -> Result<Line, PredictError> {
-    let (ref_gap, total) = reference_and_total(nucleus, lower, upper)?;
-    let ref_fm = wavelength_fm(ref_gap)? as i128;
-    let total = i128::try_from(total).map_err(|_| PredictError::Overflow)?;
-    // Offsets from the first component keep the weighted sums small.
-    let mut sum_dfm: i128 = 0;
-    let mut sum_dgap: i128 = 0;
+    const OVERFLOW: PredictError = PredictError::Overflow;
+    // Offsets from the first component keep the weighted sums small: w < 2^51, |Δλ| < 2^40 fm,
+    // |Δε| < 2^70, at most 231 terms.
+    let mut reference: Option<(u128, i128)> = None;
+    let (mut sum_w, mut sum_dfm, mut sum_dgap): (i128, i128, i128) = (0, 0, 0);
     for raw in RawComponents::new(nucleus, lower, upper)? {
         let raw = raw?;
+        let (ref_gap, ref_fm) = match reference {
+            Some(r) => r,
+            None => {
+                let r = (raw.gap_q80, wavelength_fm(raw.gap_q80)? as i128);
+                reference = Some(r);
+                r
+            }
+        };
         let w = photon_weight(&raw, ref_gap)? as i128;
         let dfm = wavelength_fm(raw.gap_q80)? as i128 - ref_fm;
         let dgap = raw.gap_q80 as i128 - ref_gap as i128;
-        sum_dfm = sum_dfm.checked_add(w.checked_mul(dfm).ok_or(PredictError::Overflow)?).ok_or(PredictError::Overflow)?;
+        sum_w = sum_w.checked_add(w).ok_or(OVERFLOW)?;
+        sum_dfm = sum_dfm
+            .checked_add(w.checked_mul(dfm).ok_or(OVERFLOW)?)
+            .ok_or(OVERFLOW)?;
         sum_dgap = sum_dgap
-            .checked_add(mul_div_i128(w, dgap, total).ok_or(PredictError::Overflow)?)
-            .ok_or(PredictError::Overflow)?;
+            .checked_add(w.checked_mul(dgap).ok_or(OVERFLOW)?)
+            .ok_or(OVERFLOW)?;
     }
-    let vacuum = ref_fm + mul_div_i128(sum_dfm, 1, total).ok_or(PredictError::Overflow)?;
-    let vacuum_fm = u64::try_from(vacuum).map_err(|_| PredictError::Overflow)?;
-    let gap = u128::try_from(ref_gap as i128 + sum_dgap).map_err(|_| PredictError::Overflow)?;
-    let wavenumber = wavenumber_nk(gap)?;
+    let (ref_gap, ref_fm) = reference.ok_or(OVERFLOW)?;
+    let vacuum = ref_fm + mul_div_i128(sum_dfm, 1, sum_w).ok_or(OVERFLOW)?;
+    let vacuum_fm = u64::try_from(vacuum).map_err(|_| OVERFLOW)?;
+    let gap = ref_gap as i128 + mul_div_i128(sum_dgap, 1, sum_w).ok_or(OVERFLOW)?;
+    let wavenumber = wavenumber_nk(u128::try_from(gap).map_err(|_| OVERFLOW)?)?;
     Ok(Line {
         nucleus,
         lower,
@@ -86,10 +97,22 @@ mod tests {
 
     #[test]
     fn bad_pairs_are_refused() {
-        assert_eq!(line(Nucleus::H1, 3, 3, &Air::Vacuum), Err(PredictError::UpperNotAboveLower));
-        assert_eq!(line(Nucleus::H1, 3, 2, &Air::Vacuum), Err(PredictError::UpperNotAboveLower));
-        assert_eq!(line(Nucleus::H1, 0, 2, &Air::Vacuum), Err(PredictError::LevelOutOfRange));
-        assert_eq!(line(Nucleus::H1, 2, 41, &Air::Vacuum), Err(PredictError::LevelOutOfRange));
+        assert_eq!(
+            line(Nucleus::H1, 3, 3, &Air::Vacuum),
+            Err(PredictError::UpperNotAboveLower)
+        );
+        assert_eq!(
+            line(Nucleus::H1, 3, 2, &Air::Vacuum),
+            Err(PredictError::UpperNotAboveLower)
+        );
+        assert_eq!(
+            line(Nucleus::H1, 0, 2, &Air::Vacuum),
+            Err(PredictError::LevelOutOfRange)
+        );
+        assert_eq!(
+            line(Nucleus::H1, 2, 41, &Air::Vacuum),
+            Err(PredictError::LevelOutOfRange)
+        );
     }
 
     #[test]

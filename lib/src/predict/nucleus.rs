@@ -171,7 +171,10 @@ mod tests {
             assert_eq!(Nucleus::from_symbol(n.symbol()), Ok(n));
         }
         assert_eq!(Nucleus::from_symbol("d"), Ok(Nucleus::H2));
-        assert_eq!(Nucleus::from_symbol("Xx"), Err(PredictError::UnknownNucleus));
+        assert_eq!(
+            Nucleus::from_symbol("Xx"),
+            Err(PredictError::UnknownNucleus)
+        );
     }
 
     #[test]

@@ -35,7 +35,11 @@ pub(crate) struct Channels {
 
 impl Channels {
     pub(crate) fn new(upper: u8, lower: u8) -> Channels {
-        let row_n = if upper > EXACT_MAX_N { EXACT_MAX_N } else { upper };
+        let row_n = if upper > EXACT_MAX_N {
+            EXACT_MAX_N
+        } else {
+            upper
+        };
         let row = if lower < row_n {
             let n = row_n as usize;
             ROW_START
@@ -62,7 +66,11 @@ impl Iterator for Channels {
         // Bounded: lower_l < lower ≤ 39, two steps each.
         while self.lower_l < self.lower {
             let k = self.lower_l;
-            let candidate = if self.step == 0 { k.checked_sub(1) } else { Some(k + 1) };
+            let candidate = if self.step == 0 {
+                k.checked_sub(1)
+            } else {
+                Some(k + 1)
+            };
             self.step += 1;
             if self.step == 2 {
                 self.step = 0;

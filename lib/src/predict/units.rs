@@ -29,8 +29,12 @@ pub(crate) fn wavelength_fm(gap_q80: u128) -> Result<u64, PredictError> {
 /// Vacuum wavenumber in nanokayser (1 nK = 10⁻⁹ cm⁻¹) of a gap Δε (Q80).
 pub(crate) fn wavenumber_nk(gap_q80: u128) -> Result<u64, PredictError> {
     // σ = 2 R∞ Δε / α²; R_e6 · 10^-6 m⁻¹ = R_e6 · 10^-8 cm⁻¹ = R_e6 · 10 nK; α² = α_e13² · 10^-26.
-    let a = mul_div_u128(gap_q80, 2 * RYDBERG_PER_M_E6 * 10_000_000_000_000, ALPHA_E13 * ALPHA_E13)
-        .ok_or(PredictError::Overflow)?;
+    let a = mul_div_u128(
+        gap_q80,
+        2 * RYDBERG_PER_M_E6 * 10_000_000_000_000,
+        ALPHA_E13 * ALPHA_E13,
+    )
+    .ok_or(PredictError::Overflow)?;
     let nk = mul_div_u128(a, 100_000_000_000_000, Q80_ONE).ok_or(PredictError::Overflow)?;
     u64::try_from(nk).map_err(|_| PredictError::Overflow)
 }
@@ -39,7 +43,8 @@ pub(crate) fn wavenumber_nk(gap_q80: u128) -> Result<u64, PredictError> {
 pub(crate) fn energy_nev(wavenumber_nk: u64) -> Result<u64, PredictError> {
     // h c / e = c · h_e42 / e_e28 · 10^-14 eV m; σ = nk · 10^-7 m⁻¹; result × 10^9 nev.
     let num = SPEED_OF_LIGHT_M_PER_S * PLANCK_E42;
-    let a = mul_div_u128(wavenumber_nk as u128, num, ELEMENTARY_CHARGE_E28).ok_or(PredictError::Overflow)?;
+    let a = mul_div_u128(wavenumber_nk as u128, num, ELEMENTARY_CHARGE_E28)
+        .ok_or(PredictError::Overflow)?;
     let nev = div_round_u128(a, 1_000_000_000_000).ok_or(PredictError::Overflow)?;
     u64::try_from(nev).map_err(|_| PredictError::Overflow)
 }

@@ -30,7 +30,12 @@ impl Lines {
     ///
     /// Work: every line in the window is predicted twice; lines outside it are mostly skipped by a
     /// Bohr estimate, at most 780 such estimates per full pass.
-    pub fn new(nucleus: Nucleus, from_fm: u64, to_fm: u64, air: &Air) -> Result<Lines, PredictError> {
+    pub fn new(
+        nucleus: Nucleus,
+        from_fm: u64,
+        to_fm: u64,
+        air: &Air,
+    ) -> Result<Lines, PredictError> {
         if to_fm < from_fm {
             return Err(PredictError::InvertedWindow);
         }
@@ -49,7 +54,9 @@ impl Lines {
     fn settle(&mut self, idx: usize) -> Result<(), PredictError> {
         let m = idx as u8 + 1;
         loop {
-            let Some(&n) = self.next_upper.get(idx) else { return Ok(()) };
+            let Some(&n) = self.next_upper.get(idx) else {
+                return Ok(());
+            };
             if n <= m || self.head_fm.get(idx).copied().unwrap_or(0) != 0 {
                 return Ok(());
             }
@@ -97,7 +104,11 @@ fn bohr_fm(nucleus: Nucleus, m: u8, n: u8) -> Option<u64> {
     let z2 = (nucleus.z() as u128) * (nucleus.z() as u128);
     let r = nucleus.mass_ratio_e9() as u128;
     // 1/R∞ in fm: 10^15 · 10^6 / R_e6.
-    let a = mul_div_u128(n2 * m2 * 1_000_000_000_000_000_000_000, r + 1_000_000_000, r)?;
+    let a = mul_div_u128(
+        n2 * m2 * 1_000_000_000_000_000_000_000,
+        r + 1_000_000_000,
+        r,
+    )?;
     let fm = a / (RYDBERG_PER_M_E6 * z2 * (n2 - m2));
     u64::try_from(fm).ok()
 }
@@ -138,13 +149,14 @@ mod tests {
 
     #[test]
     fn visible_hydrogen_is_the_balmer_series_in_order() {
-        let got: heapless::Vec<(u8, u8), 64> = Lines::new(Nucleus::H1, 380_000_000, 700_000_000, &Air::Standard)
-            .unwrap()
-            .map(|l| {
-                let l = l.unwrap();
-                (l.lower, l.upper)
-            })
-            .collect();
+        let got: heapless::Vec<(u8, u8), 64> =
+            Lines::new(Nucleus::H1, 380_000_000, 700_000_000, &Air::Standard)
+                .unwrap()
+                .map(|l| {
+                    let l = l.unwrap();
+                    (l.lower, l.upper)
+                })
+                .collect();
         // Balmer lines from Hα (656 nm) down to H9 (383.6 nm vacuum); H10 lies at 379.9 nm.
         assert_eq!(got.first(), Some(&(2, 9)));
         assert_eq!(got.last(), Some(&(2, 3)));
@@ -176,6 +188,9 @@ mod tests {
 
     #[test]
     fn inverted_window_is_refused() {
-        assert!(matches!(Lines::new(Nucleus::H1, 2, 1, &Air::Vacuum), Err(PredictError::InvertedWindow)));
+        assert!(matches!(
+            Lines::new(Nucleus::H1, 2, 1, &Air::Vacuum),
+            Err(PredictError::InvertedWindow)
+        ));
     }
 }
