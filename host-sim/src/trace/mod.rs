@@ -13,6 +13,7 @@
 //! integration_us: 100000
 //! sensor_temp_mc: 25000
 //! wavelength_nm: 340.0 0.18 -6e-6
+//! electrons_per_count: 2.0
 //! coadded: 1
 //! note: deuterium lamp, bench 2
 //! synth.seed: 7
@@ -32,6 +33,7 @@
 //!    - `sensor_temp_mc`: sensor temperature in milli-degrees Celsius (whole number, may be negative).
 //!    - `wavelength_nm`: nominal wavelength map, 1 to 4 numbers c0 c1 c2 c3 separated by spaces:
 //!      λ(p) = c0 + c1·p + c2·p² + c3·p³ in nm, p the pixel index (0 = first count of a frame).
+//!    - `electrons_per_count`: sensor conversion gain (a number > 0), for shot-noise models.
 //!    - `coadded`: how many reads were summed into each stored frame (default 1). Counts may reach
 //!      `coadded` × full scale.
 //!    - `note`: free text; may repeat, order kept.
@@ -104,6 +106,8 @@ pub struct Trace {
     pub sensor_temp_mc: Option<i64>,
     /// Nominal wavelength map c0..c3 (nm/px^k), 1 to 4 coefficients.
     pub wavelength_nm: Option<Vec<f64>>,
+    /// Conversion gain in electrons per count.
+    pub electrons_per_count: Option<f64>,
     /// Reads summed into each frame.
     pub coadded: u32,
     /// Free notes in order.
@@ -123,6 +127,7 @@ impl Trace {
             integration_us: None,
             sensor_temp_mc: None,
             wavelength_nm: None,
+            electrons_per_count: None,
             coadded: 1,
             notes: Vec::new(),
             extras: Vec::new(),

@@ -56,6 +56,9 @@ pub fn to_text(t: &Trace) -> Result<String, TraceError> {
         let words: Vec<String> = c.iter().map(|x| format!("{x:?}")).collect();
         let _ = writeln!(s, "wavelength_nm: {}", words.join(" "));
     }
+    if let Some(g) = t.electrons_per_count {
+        let _ = writeln!(s, "electrons_per_count: {g:?}");
+    }
     if t.coadded != 1 {
         let _ = writeln!(s, "coadded: {}", t.coadded);
     }
@@ -93,6 +96,11 @@ fn check(t: &Trace) -> Result<(), TraceError> {
     }
     if t.coadded == 0 {
         return Err(TraceError::file("coadded must be at least 1"));
+    }
+    if t.electrons_per_count
+        .is_some_and(|g| !(g.is_finite() && g > 0.0))
+    {
+        return Err(TraceError::file("electrons_per_count must be a number > 0"));
     }
     if let Some(c) = &t.wavelength_nm {
         if c.is_empty() || c.len() > 4 || c.iter().any(|x| !x.is_finite()) {
@@ -407,6 +415,19 @@ fn header_line<'a>(
             }
             t.wavelength_nm = Some(c);
         }
+        "electrons_per_count" => {
+            let g: f64 = v
+                .parse()
+                .ok()
+                .filter(|g: &f64| g.is_finite() && *g > 0.0)
+                .ok_or_else(|| {
+                    TraceError::at(
+                        n,
+                        format!("expected a number > 0 for electrons_per_count, found {v:?}"),
+                    )
+                })?;
+            t.electrons_per_count = Some(g);
+        }
         "note" => t.notes.push(v.to_string()),
         k if k.contains('.') => t.extras.push((k.to_string(), v.to_string())),
         k => {
@@ -428,6 +449,7 @@ mod tests {
         t.adc_bits = Some(12);
         t.integration_us = Some(25_000);
         t.sensor_temp_mc = Some(-1500);
+        t.electrons_per_count = Some(1.7);
         t.wavelength_nm = Some(vec![340.123456789012, 0.18, -6.1e-6, 1e-10]);
         t.notes.push("two notes: the first".into());
         t.notes.push("the second".into());
