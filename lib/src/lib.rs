@@ -10,10 +10,12 @@
 //!   fine structure with recoil, blend centroids, vacuum-to-air refraction).
 //! - [`condition`]: raw sensor frame → clean, dark-corrected counts.
 //! - [`find`]: baseline removal, peak detection and sub-pixel centroids.
+//! - [`calibrate`]: the pixel → wavelength map: identification of lines, fit, uncertainty.
 #![cfg_attr(not(test), no_std)]
 #![forbid(unsafe_code)]
 #![deny(missing_docs)]
 
+pub mod calibrate;
 pub mod condition;
 pub mod find;
 pub mod fixed;

@@ -38,13 +38,16 @@ pub(crate) struct RawComponent {
     pub strength: u128,
 }
 
+/// A channel with its angular components and their common denominator.
+type ChannelParts = (Channel, [(u8, u8, u32); 3], u32);
+
 /// Walks channels and their angular components; yields strengths S on a common scale (no σ³ yet).
 /// At most 3 (2m − 1) items for lower level m.
 pub(crate) struct RawComponents {
     upper: LevelSide,
     lower: LevelSide,
     channels: Channels,
-    current: Option<(Channel, [(u8, u8, u32); 3], u32)>,
+    current: Option<ChannelParts>,
     slot: usize,
 }
 

@@ -1,0 +1,277 @@
+//! Weighted least-squares fit of a [`WavelengthMap`] to identified lines, with its covariance.
+//!
+//! Normal equations in the normalised pixel x ∈ [−1, 1] are well conditioned for degree ≤ 3, so a
+//! Gauss–Jordan solve in Q60 with 256-bit intermediate products loses nothing that matters (the
+//! coefficients come out to 1 fm). Weights are 1/σ² from the centroid uncertainties; the covariance
+//! is scaled by the Birge ratio χ²/dof when that exceeds 1 (common practice: the scatter, not only
+//! the centroid noise, sets the uncertainty).
+use super::error::CalibrateError;
+use super::map::{WavelengthMap, X_ONE_Q30};
+use crate::fixed::{isqrt_u128, mul_div_i128};
+
+/// Most points one fit takes.
+pub const MAX_FIT_POINTS: usize = 64;
+
+const Q60: i128 = 1 << 60;
+
+/// One identified line: where it was seen and where it should be.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub struct FitPoint {
+    /// Measured centre (px, Q16).
+    pub center_px_q16: i32,
+    /// Its 1-σ uncertainty (px, Q16, > 0).
+    pub sigma_px_q16: u32,
+    /// Predicted wavelength, femtometres.
+    pub wavelength_fm: i64,
+}
+
+/// A fitted map with what is known about its accuracy.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub struct MapFit {
+    /// The map.
+    pub map: WavelengthMap,
+    /// RMS of the fit residuals, femtometres.
+    pub rms_residual_fm: u64,
+    /// χ² per degree of freedom with the centroid σ as noise (Q8); 0 when there is no freedom left.
+    pub chi2_per_dof_q8: u32,
+    /// Points used.
+    pub points: u8,
+    /// Inverse of the normalised normal matrix (Q40) times σ_ref² × max(1, χ²/dof): see
+    /// [`sigma_fm_at`](Self::sigma_fm_at).
+    inverse_q40: [[i128; 4]; 4],
+    /// Variance scale of the inverse: σ_ref² (fm²) including the Birge factor.
+    variance_scale_fm2: u64,
+}
+
+impl MapFit {
+    /// 1-σ uncertainty of the map's wavelength at pixel p (px, Q16), femtometres.
+    pub fn sigma_fm_at(&self, p_px_q16: i32) -> u64 {
+        let x = self.map.x_q30(p_px_q16) as i128;
+        let d = self.map.degree as usize;
+        let mut v = [0i128; 4];
+        let mut xk: i128 = X_ONE_Q30 as i128;
+        for slot in v.iter_mut().take(d + 1) {
+            *slot = xk;
+            xk = (xk * x) >> 30;
+        }
+        // q = vᵀ M⁻¹ v: v in Q30, M⁻¹ in Q40 → Q100; bring to Q40 per term.
+        let mut q: i128 = 0;
+        for (r, vr) in v.iter().enumerate().take(d + 1) {
+            for (c, vc) in v.iter().enumerate().take(d + 1) {
+                let m = self.inverse_q40[r][c];
+                let t = mul_div_i128(mul_div_i128(m, *vr, 1 << 30).unwrap_or(0), *vc, 1 << 30)
+                    .unwrap_or(0);
+                q = q.saturating_add(t);
+            }
+        }
+        let var =
+            mul_div_i128(q.max(0), self.variance_scale_fm2 as i128, 1 << 40).unwrap_or(i128::MAX);
+        isqrt_u128(var.max(0) as u128) as u64
+    }
+}
+
+/// Fits a polynomial of `degree` (1…3) through `points` for a sensor of `pixels` pixels.
+///
+/// Work: one pass over the points (≤ [`MAX_FIT_POINTS`]) plus a fixed 4 × 9 elimination.
+pub fn fit_map(points: &[FitPoint], degree: u8, pixels: u16) -> Result<MapFit, CalibrateError> {
+    if !(1..=3).contains(&degree) || points.len() < degree as usize + 1 {
+        return Err(CalibrateError::TooFewPoints);
+    }
+    if points.len() > MAX_FIT_POINTS {
+        return Err(CalibrateError::TooManyPoints);
+    }
+    let d = degree as usize + 1;
+    let half = ((pixels.max(2) as i32 - 1) << 16) / 2;
+    let frame = WavelengthMap {
+        center_px_q16: half,
+        half_width_px_q16: half,
+        degree,
+        coeff_fm: [0; 4],
+    };
+    // Relative weights (σ_min / σ)² in Q30.
+    let sigma_min = points
+        .iter()
+        .map(|p| p.sigma_px_q16.max(1))
+        .min()
+        .unwrap_or(1) as i128;
+    let mut m = [[0i128; 9]; 4];
+    for pt in points {
+        let s = pt.sigma_px_q16.max(1) as i128;
+        let w =
+            mul_div_i128(sigma_min * sigma_min, 1 << 30, s * s).ok_or(CalibrateError::Overflow)?;
+        let x = frame.x_q30(pt.center_px_q16) as i128;
+        let mut pw = [0i128; 7]; // x^k in Q30
+        let mut xk: i128 = 1 << 30;
+        for slot in pw.iter_mut() {
+            *slot = xk;
+            xk = (xk * x) >> 30;
+        }
+        for (r, row) in m.iter_mut().enumerate().take(d) {
+            for (c, cell) in row.iter_mut().enumerate().take(d) {
+                *cell += w * pw.get(r + c).copied().unwrap_or(0); // Q60
+            }
+            let wx = w * pw.get(r).copied().unwrap_or(0);
+            row[4] += wx
+                .checked_mul(pt.wavelength_fm as i128)
+                .ok_or(CalibrateError::Overflow)?;
+        }
+    }
+    for (r, row) in m.iter_mut().enumerate().take(d) {
+        row[5 + r] = Q60;
+    }
+    gauss_jordan(&mut m, d)?;
+    let mut coeff = [0i64; 4];
+    let mut inverse = [[0i128; 4]; 4];
+    for r in 0..d {
+        let piv = m[r][r];
+        coeff[r] = i64::try_from(mul_div_i128(m[r][4], 1, piv).ok_or(CalibrateError::Overflow)?)
+            .map_err(|_| CalibrateError::Overflow)?;
+        for c in 0..d {
+            // (Q60 / Q60) → scale to Q40.
+            inverse[r][c] =
+                mul_div_i128(m[r][5 + c], 1 << 40, piv).ok_or(CalibrateError::Overflow)?;
+        }
+    }
+    let map = WavelengthMap::with_frame(half, half, degree, coeff, pixels)?;
+    // Residuals, χ² with σ in fm = σ_px · slope.
+    let mut sum_r2: i128 = 0;
+    let mut chi2_q8: i128 = 0;
+    for pt in points {
+        let r = (map.wavelength_fm(pt.center_px_q16)? - pt.wavelength_fm) as i128;
+        sum_r2 += r * r;
+        let slope = map.slope_fm_per_px_q16(pt.center_px_q16)?.unsigned_abs() as i128;
+        let s_fm = ((pt.sigma_px_q16.max(1) as i128 * slope) >> 32).max(1);
+        chi2_q8 += mul_div_i128(r * r, 256, s_fm * s_fm).ok_or(CalibrateError::Overflow)?;
+    }
+    let n = points.len() as i128;
+    let dof = n - d as i128;
+    let rms = isqrt_u128((sum_r2 / n) as u128) as u64;
+    let chi2_per_dof_q8 = if dof > 0 {
+        (chi2_q8 / dof).min(u32::MAX as i128) as u32
+    } else {
+        0
+    };
+    let slope_mid = map.slope_fm_per_px_q16(half)?.unsigned_abs() as i128;
+    let sref_fm = ((sigma_min * slope_mid) >> 32).max(1);
+    let birge_q8 = (chi2_per_dof_q8 as i128).max(256);
+    let variance_scale = (sref_fm * sref_fm * birge_q8) >> 8;
+    Ok(MapFit {
+        map,
+        rms_residual_fm: rms,
+        chi2_per_dof_q8,
+        points: points.len() as u8,
+        inverse_q40: inverse,
+        variance_scale_fm2: u64::try_from(variance_scale).map_err(|_| CalibrateError::Overflow)?,
+    })
+}
+
+/// In-place Gauss–Jordan with partial pivoting on the first `d` (≤ 4) columns of a 4 × 9 system.
+fn gauss_jordan(m: &mut [[i128; 9]; 4], d: usize) -> Result<(), CalibrateError> {
+    let d = d.min(4);
+    for col in 0..d {
+        let mut best = col;
+        for r in col + 1..d {
+            if m[r][col].unsigned_abs() > m[best][col].unsigned_abs() {
+                best = r;
+            }
+        }
+        m.swap(col, best);
+        let pivot_row = m[col];
+        let piv = pivot_row[col];
+        // A pivot below 2^-40 of the matrix scale means the points do not fix this coefficient.
+        if piv.unsigned_abs() < (1u128 << 20) {
+            return Err(CalibrateError::Degenerate);
+        }
+        for (r, row) in m.iter_mut().enumerate().take(d) {
+            let f = row[col];
+            if r == col || f == 0 {
+                continue;
+            }
+            for (cell, &p) in row.iter_mut().zip(pivot_row.iter()).skip(col) {
+                let delta = mul_div_i128(p, f, piv).ok_or(CalibrateError::Overflow)?;
+                *cell = cell.checked_sub(delta).ok_or(CalibrateError::Overflow)?;
+            }
+        }
+    }
+    Ok(())
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn truth(p: i64) -> i64 {
+        // 380 … 720 nm over 2048 px with curvature: λ = 380 nm + 0.17 nm·p − 1e-6 nm·p² (in fm).
+        380_000_000 + 170_000 * p - p * p
+    }
+
+    #[test]
+    fn exact_points_give_back_the_polynomial() {
+        let pts: heapless::Vec<FitPoint, 8> = [100i64, 400, 800, 1200, 1600, 1900]
+            .iter()
+            .map(|&p| FitPoint {
+                center_px_q16: (p << 16) as i32,
+                sigma_px_q16: 1 << 12,
+                wavelength_fm: truth(p),
+            })
+            .collect();
+        let fit = fit_map(&pts, 2, 2048).unwrap();
+        for p in [0i64, 333, 1024, 2047] {
+            let got = fit.map.wavelength_fm((p << 16) as i32).unwrap();
+            assert!((got - truth(p)).abs() <= 3, "p={p}: {got} vs {}", truth(p));
+        }
+        assert!(fit.rms_residual_fm <= 2);
+        // Uncertainty at the centre: σ 1/16 px × 0.17 nm/px / sqrt(6) ≈ 4.3 pm order; finite and small.
+        let s = fit.sigma_fm_at(1024 << 16);
+        assert!(s > 500 && s < 20_000, "{s}");
+    }
+
+    #[test]
+    fn too_few_or_coincident_points_are_refused() {
+        let one = [FitPoint {
+            center_px_q16: 0,
+            sigma_px_q16: 1 << 12,
+            wavelength_fm: 400_000_000,
+        }];
+        assert_eq!(
+            fit_map(&one, 1, 2048).unwrap_err(),
+            CalibrateError::TooFewPoints
+        );
+        let same = [one[0], one[0], one[0]];
+        assert_eq!(
+            fit_map(&same, 1, 2048).unwrap_err(),
+            CalibrateError::Degenerate
+        );
+    }
+
+    #[test]
+    fn noisy_points_report_their_scatter() {
+        let offs = [3_000i64, -2_000, 1_000, -4_000, 2_000, 0, -1_000, 1_500];
+        let pts: heapless::Vec<FitPoint, 8> = offs
+            .iter()
+            .enumerate()
+            .map(|(i, o)| {
+                let p = 100 + 250 * i as i64;
+                FitPoint {
+                    center_px_q16: (p << 16) as i32,
+                    sigma_px_q16: 1 << 10,
+                    wavelength_fm: truth(p) + o,
+                }
+            })
+            .collect();
+        let fit = fit_map(&pts, 2, 2048).unwrap();
+        assert!(
+            fit.rms_residual_fm > 1_000 && fit.rms_residual_fm < 3_000,
+            "{}",
+            fit.rms_residual_fm
+        );
+        // σ 1/64 px × 170 pm = 2.7 pm per point, scatter ~2 pm: χ²/dof of order 1.
+        assert!(
+            fit.chi2_per_dof_q8 > 64 && fit.chi2_per_dof_q8 < 1024,
+            "{}",
+            fit.chi2_per_dof_q8
+        );
+    }
+}

@@ -1,0 +1,521 @@
+//! Which peak is which line: a bounded robust search, then iterative refits.
+//!
+//! A hypothesis maps the pixel axis to wavelength as λ = a + b·u(p), where u is the nominal map's
+//! wavelength when one is given (so its curvature is kept and only offset and scale are searched)
+//! or the pixel itself when calibrating blind. Two peaks matched to two predicted lines fix a and b;
+//! the hypothesis scores by how many other peaks then land on a predicted line (consensus). The
+//! best one seeds a least-squares fit, which is refined by re-matching with tighter windows.
+//!
+//! Work bound: at most C(12,2) peak pairs × C(20,2) line pairs × 2 orientations = 25 080 hypotheses,
+//! each scoring ≤ 64 peaks with a binary search over ≤ 48 lines (and, for those that can still win,
+//! ≤ 48 lines against ≤ 64 peaks for missing strong lines); then 4 refit rounds.
+use super::error::CalibrateError;
+use super::fit::{fit_map, FitPoint, MapFit};
+use super::map::WavelengthMap;
+use crate::find::Peak;
+use heapless::Vec;
+
+/// Most predicted lines identification considers.
+pub const MAX_REFERENCE_LINES: usize = 48;
+/// Strongest peaks used to form hypotheses.
+const HYP_PEAKS: usize = 12;
+/// Strongest predicted lines used to form hypotheses.
+const HYP_LINES: usize = 20;
+
+/// A predicted line offered to identification (air or vacuum, matching the map's medium).
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub struct ReferenceLine {
+    /// Wavelength, femtometres.
+    pub wavelength_fm: i64,
+    /// Expected relative strength (any scale); picks the lines hypotheses are built from.
+    pub strength: u32,
+}
+
+/// How far from the nominal the search may go.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub struct IdentifyConfig {
+    /// Sensor pixel count.
+    pub pixels: u16,
+    /// Degree of the final map, 1…3.
+    pub degree: u8,
+    /// Nominal map, or `None` for a blind search.
+    pub nominal: Option<WavelengthMap>,
+    /// Largest offset from the nominal map, femtometres (e.g. 8 nm = 8 000 000).
+    pub max_offset_fm: i64,
+    /// Largest dispersion error relative to the nominal map, parts per million (e.g. 2 % = 20 000).
+    pub max_scale_error_ppm: u32,
+    /// Blind search: smallest and largest |dλ/dp|, femtometres per pixel.
+    pub blind_dispersion_fm_per_px: (i64, i64),
+    /// Consensus window of a hypothesis with a nominal map, px (Q8).
+    pub search_window_px_q8: u32,
+    /// Consensus window of a blind (straight-line) hypothesis, px (Q8): wide enough for the curvature
+    /// a straight line through two lines leaves elsewhere on the sensor.
+    pub blind_window_px_q8: u32,
+    /// Final match window in centroid σ (Q8), never below `min_window_px_q8`.
+    pub final_window_sigma_q8: u32,
+    /// Smallest final match window, px (Q8).
+    pub min_window_px_q8: u32,
+}
+
+impl IdentifyConfig {
+    /// Consensus window of the first search, px (Q8).
+    fn window_q8(&self) -> i64 {
+        if self.nominal.is_some() {
+            self.search_window_px_q8 as i64
+        } else {
+            self.blind_window_px_q8 as i64
+        }
+    }
+
+    /// Defaults for a sensor: ±8 nm, ±2 % around the nominal; blind 0.01–2 nm/px; windows 3 px search
+    /// (12 px blind), 5 σ (≥ 1 px) final.
+    pub const fn new(pixels: u16, degree: u8, nominal: Option<WavelengthMap>) -> IdentifyConfig {
+        IdentifyConfig {
+            pixels,
+            degree,
+            nominal,
+            max_offset_fm: 8_000_000,
+            max_scale_error_ppm: 20_000,
+            blind_dispersion_fm_per_px: (10_000, 2_000_000),
+            search_window_px_q8: 3 << 8,
+            blind_window_px_q8: 12 << 8,
+            final_window_sigma_q8: 5 << 8,
+            min_window_px_q8: 1 << 8,
+        }
+    }
+}
+
+/// The identification: the fitted map and which peak went with which line.
+#[derive(Clone, Debug, PartialEq, Eq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub struct Identified {
+    /// Map fitted to the identified lines.
+    pub fit: MapFit,
+    /// (peak index, reference-line index) pairs, by peak.
+    pub pairs: Vec<(u8, u8), 48>,
+}
+
+#[derive(Clone, Copy)]
+struct Hypothesis {
+    a_fm: i64,
+    /// b in Q30.
+    b_q30: i64,
+    /// Matched peaks minus strong lines that should be on the sensor but have no peak.
+    net: i32,
+    /// Kendall-style agreement between peak brightness and expected line strength over matched pairs.
+    concord: i32,
+    cost: i64,
+}
+
+/// Identifies peaks against `lines` (sorted by wavelength) and fits the map.
+///
+/// Peaks must be sorted by centre (as [`find_peaks`](crate::find::find_peaks) returns them).
+pub fn identify(
+    peaks: &[Peak],
+    lines: &[ReferenceLine],
+    cfg: &IdentifyConfig,
+) -> Result<Identified, CalibrateError> {
+    if lines.len() > MAX_REFERENCE_LINES || peaks.len() > 64 {
+        return Err(CalibrateError::TooManyPoints);
+    }
+    if lines.len() < 3 || peaks.len() < 3 {
+        return Err(CalibrateError::NoConsistentPattern);
+    }
+    // u(p) per peak: nominal wavelength (fm) or the pixel (Q16 → fm-like integer).
+    let mut u: Vec<i64, 64> = Vec::new();
+    for p in peaks {
+        let v = match &cfg.nominal {
+            Some(m) => m.wavelength_fm(p.center_px_q16)?,
+            None => p.center_px_q16 as i64,
+        };
+        u.push(v).map_err(|_| CalibrateError::TooManyPoints)?;
+    }
+    let strong_peaks = strongest(peaks.iter().map(|p| p.snr_q8), HYP_PEAKS);
+    let strong_lines = strongest(lines.iter().map(|l| l.strength), HYP_LINES);
+    let ends = match &cfg.nominal {
+        Some(m) => (
+            m.wavelength_fm(0)?,
+            m.wavelength_fm(((cfg.pixels.max(2) as i32) - 1) << 16)?,
+        ),
+        None => (0, ((cfg.pixels.max(2) as i64) - 1) << 16),
+    };
+    let mut best: Option<Hypothesis> = None;
+    for (ii, &i) in strong_peaks.iter().enumerate() {
+        for &j in strong_peaks.iter().skip(ii + 1) {
+            let (ui, uj) = (u[i as usize], u[j as usize]);
+            let du = uj - ui;
+            if du == 0 {
+                continue;
+            }
+            for (aa, &a) in strong_lines.iter().enumerate() {
+                for &b in strong_lines.iter().skip(aa + 1) {
+                    for (la, lb) in [(a, b), (b, a)] {
+                        let (wa, wb) = (
+                            lines[la as usize].wavelength_fm,
+                            lines[lb as usize].wavelength_fm,
+                        );
+                        let Some(h) = hypothesis(ui, du, wa, wb, cfg) else {
+                            continue;
+                        };
+                        let floor = best.map_or(1, |b| b.net);
+                        let Some(h) = score(h, peaks, &u, lines, cfg, ends, floor) else {
+                            continue;
+                        };
+                        if better(&h, &best) {
+                            best = Some(h);
+                        }
+                    }
+                }
+            }
+        }
+    }
+    let best = best
+        .filter(|h| h.net >= 3)
+        .ok_or(CalibrateError::NoConsistentPattern)?;
+    refine(best, peaks, &u, lines, cfg)
+}
+
+fn better(h: &Hypothesis, best: &Option<Hypothesis>) -> bool {
+    match best {
+        None => h.net > 0,
+        Some(b) => (h.net, h.concord, -h.cost) > (b.net, b.concord, -b.cost),
+    }
+}
+
+/// Indices of the `k` largest values (ties by index), largest first.
+fn strongest(values: impl Iterator<Item = u32>, k: usize) -> Vec<u8, 20> {
+    let mut out: Vec<(u32, u8), 20> = Vec::new();
+    for (i, v) in values.enumerate().take(255) {
+        let pos = out.iter().position(|&(w, _)| v > w).unwrap_or(out.len());
+        if pos < k.min(20) {
+            if out.len() == k.min(20) {
+                out.pop();
+            }
+            let _ = out.insert(pos, (v, i as u8));
+        }
+    }
+    out.iter().map(|&(_, i)| i).collect()
+}
+
+/// The hypothesis through (u_i, wa) and (u_i + du, wb), if it is within the search range.
+fn hypothesis(ui: i64, du: i64, wa: i64, wb: i64, cfg: &IdentifyConfig) -> Option<Hypothesis> {
+    let b_q30 = i64::try_from(((wb - wa) as i128) << 30).ok()? / du;
+    let a_fm = wa - (((b_q30 as i128) * ui as i128) >> 30) as i64;
+    match &cfg.nominal {
+        Some(_) => {
+            let dev = ((b_q30 - (1 << 30)).unsigned_abs() as u128 * 1_000_000) >> 30;
+            if dev > cfg.max_scale_error_ppm as u128 {
+                return None;
+            }
+            // Offset at the peak: wa − u_i, i.e. how far the nominal is off there.
+            if (wa - ui).abs() > cfg.max_offset_fm {
+                return None;
+            }
+        }
+        None => {
+            // b is fm per Q16 px: scale to fm/px.
+            let disp = (b_q30.unsigned_abs() as i128 * 65_536) >> 30;
+            let (lo, hi) = cfg.blind_dispersion_fm_per_px;
+            if disp < lo as i128 || disp > hi as i128 {
+                return None;
+            }
+        }
+    }
+    Some(Hypothesis {
+        a_fm,
+        b_q30,
+        net: 0,
+        concord: 0,
+        cost: 0,
+    })
+}
+
+/// Local dispersion of a hypothesis, fm per pixel.
+fn dispersion_fm_per_px(h: &Hypothesis, cfg: &IdentifyConfig, p_q16: i32) -> i64 {
+    let du_dp = match &cfg.nominal {
+        Some(m) => m.slope_fm_per_px_q16(p_q16).unwrap_or(0) >> 16,
+        None => 65_536,
+    };
+    ((h.b_q30 as i128 * du_dp as i128) >> 30).unsigned_abs() as i64
+}
+
+/// Scores a hypothesis; `None` when it cannot reach `floor` (the best net score so far).
+///
+/// Net score = peaks landing on a line − lines at least as strong as the weakest matched one that fall
+/// on the sensor with no peak there: a wrong scale that matches three faint lines by chance must
+/// explain why the strong ones are missing.
+fn score(
+    mut h: Hypothesis,
+    peaks: &[Peak],
+    u: &[i64],
+    lines: &[ReferenceLine],
+    cfg: &IdentifyConfig,
+    ends_u: (i64, i64),
+    floor: i32,
+) -> Option<Hypothesis> {
+    let mut votes = 0i32;
+    let mut cost = 0i64;
+    let mut weakest = u32::MAX;
+    let mut lam_of: Vec<(i64, i64), 64> = Vec::new();
+    let mut matched: Vec<(u32, u32), 64> = Vec::new();
+    for (p, &uk) in peaks.iter().zip(u) {
+        let lam = h.a_fm + (((h.b_q30 as i128) * uk as i128) >> 30) as i64;
+        let tol = (dispersion_fm_per_px(&h, cfg, p.center_px_q16) * cfg.window_q8()) >> 8;
+        let _ = lam_of.push((lam, tol));
+        let (idx, d) = nearest(lines, lam);
+        if d <= tol {
+            votes += 1;
+            cost += d * 256 / tol.max(1);
+            let strength = lines.get(idx).map_or(0, |l| l.strength);
+            weakest = weakest.min(strength);
+            let _ = matched.push((p.snr_q8, strength));
+        }
+    }
+    if votes < floor {
+        return None;
+    }
+    let lam_end = |uv: i64| h.a_fm + (((h.b_q30 as i128) * uv as i128) >> 30) as i64;
+    let (e0, e1) = (lam_end(ends_u.0), lam_end(ends_u.1));
+    let (lo, hi) = (e0.min(e1), e0.max(e1));
+    let mut misses = 0i32;
+    for l in lines
+        .iter()
+        .filter(|l| l.strength >= weakest && (lo..=hi).contains(&l.wavelength_fm))
+    {
+        let seen = lam_of
+            .iter()
+            .any(|&(lam, tol)| (lam - l.wavelength_fm).abs() <= tol);
+        if !seen {
+            misses += 1;
+        }
+    }
+    h.net = votes - misses;
+    h.cost = cost;
+    // Brighter peaks should sit on lines expected to be stronger (a tie-breaker: detector response
+    // and self-absorption bend this, but rarely reverse a whole series).
+    let mut concord = 0i32;
+    for (i, a) in matched.iter().enumerate() {
+        for b in matched.iter().skip(i + 1) {
+            let s1 = (a.0 as i64 - b.0 as i64).signum();
+            let s2 = (a.1 as i64 - b.1 as i64).signum();
+            concord += (s1 * s2) as i32;
+        }
+    }
+    h.concord = concord;
+    Some(h)
+}
+
+/// (index, |distance|) of the line nearest to `lam`.
+fn nearest(lines: &[ReferenceLine], lam: i64) -> (usize, i64) {
+    let pos = lines.partition_point(|l| l.wavelength_fm < lam);
+    let mut best = (0usize, i64::MAX);
+    for idx in [pos.wrapping_sub(1), pos] {
+        if let Some(l) = lines.get(idx) {
+            let d = (l.wavelength_fm - lam).abs();
+            if d < best.1 {
+                best = (idx, d);
+            }
+        }
+    }
+    best
+}
+
+/// Fits the hypothesis' inliers, then re-matches with the fitted map and tighter windows (4 rounds).
+fn refine(
+    h: Hypothesis,
+    peaks: &[Peak],
+    u: &[i64],
+    lines: &[ReferenceLine],
+    cfg: &IdentifyConfig,
+) -> Result<Identified, CalibrateError> {
+    let mut pairs: Vec<(u8, u8), 48> = Vec::new();
+    for (k, p) in peaks.iter().enumerate() {
+        let lam = h.a_fm + (((h.b_q30 as i128) * u[k] as i128) >> 30) as i64;
+        let tol = (dispersion_fm_per_px(&h, cfg, p.center_px_q16) * cfg.window_q8()) >> 8;
+        let (idx, d) = nearest(lines, lam);
+        if d <= tol {
+            push_unique(&mut pairs, k as u8, idx as u8, peaks)?;
+        }
+    }
+    let mut fit = fit_pairs(&pairs, peaks, lines, cfg)?;
+    for round in 0..4 {
+        let mut next: Vec<(u8, u8), 48> = Vec::new();
+        for (k, p) in peaks.iter().enumerate() {
+            let lam = fit.map.wavelength_fm(p.center_px_q16)?;
+            let disp = fit.map.slope_fm_per_px_q16(p.center_px_q16)?.abs() >> 16;
+            let sigma_win = (p.center_sigma_px_q16 as i64 * cfg.final_window_sigma_q8 as i64) >> 16;
+            // Windows shrink from the search width towards the final one over the rounds.
+            let search = cfg.window_q8() >> (round + 1);
+            let win_q8 = sigma_win.max(cfg.min_window_px_q8 as i64).max(search);
+            let tol = (disp * win_q8) >> 8;
+            let (idx, d) = nearest(lines, lam);
+            if d <= tol {
+                push_unique(&mut next, k as u8, idx as u8, peaks)?;
+            }
+        }
+        if next.len() < 3 {
+            break;
+        }
+        let refit = fit_pairs(&next, peaks, lines, cfg)?;
+        let same = next == pairs;
+        pairs = next;
+        fit = refit;
+        if same {
+            break;
+        }
+    }
+    Ok(Identified { fit, pairs })
+}
+
+/// Adds (peak, line); when the line is already claimed, the brighter peak keeps it (the fainter one is
+/// a neighbour or a foreign line).
+fn push_unique(
+    pairs: &mut Vec<(u8, u8), 48>,
+    k: u8,
+    idx: u8,
+    peaks: &[Peak],
+) -> Result<(), CalibrateError> {
+    let snr = |i: u8| peaks.get(i as usize).map_or(0, |p| p.snr_q8);
+    if let Some(slot) = pairs.iter_mut().find(|(_, l)| *l == idx) {
+        if snr(k) > snr(slot.0) {
+            *slot = (k, idx);
+        }
+        return Ok(());
+    }
+    pairs
+        .push((k, idx))
+        .map_err(|_| CalibrateError::TooManyPoints)
+}
+
+fn fit_pairs(
+    pairs: &[(u8, u8)],
+    peaks: &[Peak],
+    lines: &[ReferenceLine],
+    cfg: &IdentifyConfig,
+) -> Result<MapFit, CalibrateError> {
+    let mut pts: Vec<FitPoint, 48> = Vec::new();
+    for &(k, l) in pairs {
+        let p = &peaks[k as usize];
+        pts.push(FitPoint {
+            center_px_q16: p.center_px_q16,
+            sigma_px_q16: p.center_sigma_px_q16.max(64),
+            wavelength_fm: lines[l as usize].wavelength_fm,
+        })
+        .map_err(|_| CalibrateError::TooManyPoints)?;
+    }
+    // Fewer points than a full fit wants: drop the degree until the points just determine it.
+    let max_deg = (pts.len() as i32 - 1).clamp(1, 3) as u8;
+    fit_map(&pts, cfg.degree.min(max_deg), cfg.pixels)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// True instrument: 2048 px, 370 → 700 nm, slight curvature.
+    fn truth() -> WavelengthMap {
+        WavelengthMap::new(2048, 2, [535_000_000, 165_000_000, -1_500_000, 0]).unwrap()
+    }
+
+    fn peak(center_px_q16: i32, snr: u32) -> Peak {
+        Peak {
+            center_px_q16,
+            center_sigma_px_q16: 1 << 11,
+            fwhm_px_q16: 3 << 16,
+            height: 1000,
+            area: 3000,
+            snr_q8: snr << 8,
+            saturated: false,
+            blended: false,
+        }
+    }
+
+    /// Balmer α…η of H in standard air (handbook values, from memory) as reference lines.
+    fn balmer() -> Vec<ReferenceLine, 48> {
+        let air_nm_e6 = [
+            383_538_000i64,
+            388_905_000,
+            397_007_000,
+            410_174_000,
+            434_047_000,
+            486_133_000,
+            656_279_000,
+        ];
+        let strength = [5u32, 8, 12, 20, 40, 80, 200];
+        air_nm_e6
+            .iter()
+            .zip(strength)
+            .map(|(&w, s)| ReferenceLine {
+                wavelength_fm: w,
+                strength: s,
+            })
+            .collect()
+    }
+
+    fn frame(lines: &[ReferenceLine], visible: &[usize], foreign_nm_e6: &[i64]) -> Vec<Peak, 64> {
+        let t = truth();
+        let mut peaks: Vec<Peak, 64> = Vec::new();
+        for &i in visible {
+            let p = t.pixel_q16(lines[i].wavelength_fm).unwrap();
+            peaks.push(peak(p + 900, 50 + 10 * i as u32)).unwrap();
+        }
+        for &w in foreign_nm_e6 {
+            peaks.push(peak(t.pixel_q16(w).unwrap(), 120)).unwrap();
+        }
+        peaks.sort_unstable_by_key(|p| p.center_px_q16);
+        peaks
+    }
+
+    fn check(found: &Identified, peaks: &[Peak], lines: &[ReferenceLine], want: usize) {
+        assert_eq!(found.pairs.len(), want, "{:?}", found.pairs);
+        for &(k, l) in &found.pairs {
+            let p = peaks[k as usize].center_px_q16;
+            let expect = truth().pixel_q16(lines[l as usize].wavelength_fm).unwrap();
+            assert!((p - expect - 900).abs() < 10, "peak {k} matched line {l}");
+        }
+        // The fitted map agrees with the truth to well under a pixel (0.16 nm) across the sensor.
+        for px in [0, 512, 1024, 1536, 2047] {
+            let d = found.fit.map.wavelength_fm(px << 16).unwrap()
+                - truth().wavelength_fm(px << 16).unwrap();
+            assert!(d.abs() < 40_000, "px {px}: {d} fm");
+        }
+    }
+
+    #[test]
+    fn finds_the_map_from_a_nominal_several_nm_off() {
+        let lines = balmer();
+        let peaks = frame(&lines, &[0, 1, 2, 3, 4, 5, 6], &[589_000_000, 546_074_000]);
+        // Nominal: 5 nm off and 1.5 % wrong in dispersion.
+        let nominal =
+            WavelengthMap::new(2048, 2, [540_000_000, 167_475_000, -1_500_000, 0]).unwrap();
+        let cfg = IdentifyConfig::new(2048, 2, Some(nominal));
+        let found = identify(&peaks, &lines, &cfg).unwrap();
+        check(&found, &peaks, &lines, 7);
+    }
+
+    #[test]
+    fn finds_the_map_blind_from_three_balmer_lines_and_two_foreign_peaks() {
+        let lines = balmer();
+        let peaks = frame(&lines, &[4, 5, 6], &[589_000_000, 546_074_000]);
+        let cfg = IdentifyConfig::new(2048, 2, None);
+        let found = identify(&peaks, &lines, &cfg).unwrap();
+        assert_eq!(found.pairs.len(), 3);
+        for &(k, l) in &found.pairs {
+            let expect = truth().pixel_q16(lines[l as usize].wavelength_fm).unwrap();
+            assert!((peaks[k as usize].center_px_q16 - expect - 900).abs() < 10);
+        }
+    }
+
+    #[test]
+    fn noise_alone_gives_no_pattern() {
+        let lines = balmer();
+        let peaks: Vec<Peak, 64> = [100i32, 900, 1700]
+            .iter()
+            .map(|&p| peak(p << 16, 10))
+            .collect();
+        let cfg = IdentifyConfig::new(2048, 2, None);
+        assert!(identify(&peaks, &lines, &cfg).is_err());
+    }
+}
