@@ -550,7 +550,7 @@ pub fn run(args: &Args) -> Result<(), String> {
     );
     if args.out.as_os_str() == "-" {
         let text = crate::trace::native::to_text(&trace).map_err(|e| e.to_string())?;
-        print!("{text}");
+        crate::trace::write_stdout(&text)?;
         eprintln!("glowsim synth: {summary}");
     } else {
         trace.write_path(&args.out)?;

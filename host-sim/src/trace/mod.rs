@@ -178,3 +178,14 @@ impl Trace {
         std::fs::write(path, text).map_err(|e| format!("cannot write {}: {e}", path.display()))
     }
 }
+
+/// Writes to standard output; a reader that stops early (`| head`) is not an error.
+pub fn write_stdout(text: &str) -> Result<(), String> {
+    use std::io::Write as _;
+    let mut out = std::io::stdout().lock();
+    match out.write_all(text.as_bytes()).and_then(|()| out.flush()) {
+        Ok(()) => Ok(()),
+        Err(e) if e.kind() == std::io::ErrorKind::BrokenPipe => Ok(()),
+        Err(e) => Err(format!("cannot write to standard output: {e}")),
+    }
+}
