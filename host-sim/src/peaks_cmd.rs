@@ -368,3 +368,183 @@ pub fn run(args: &Args) -> Result<(), String> {
     };
     crate::trace::write_stdout(&text)
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::trace::Frame;
+    use clap::Parser;
+
+    #[derive(Parser)]
+    struct Cli {
+        #[command(flatten)]
+        args: Args,
+    }
+
+    fn args(extra: &[&str]) -> Args {
+        let mut v = vec!["peaks", "unused.trace"];
+        v.extend_from_slice(extra);
+        Cli::try_parse_from(v).unwrap().args
+    }
+
+    fn synth(extra: &[&str]) -> Trace {
+        #[derive(Parser)]
+        struct S {
+            #[command(flatten)]
+            args: crate::synth_cmd::Args,
+        }
+        let mut v = vec!["synth", "--out", "-"];
+        v.extend_from_slice(extra);
+        crate::synth_cmd::synthesize(&S::try_parse_from(v).unwrap().args).unwrap()
+    }
+
+    fn flat(pixels: usize, value: u32) -> Trace {
+        let mut t = Trace::new(pixels);
+        t.adc_bits = Some(12);
+        t.frames.push(Frame {
+            kind: FrameKind::Signal,
+            counts: vec![value; pixels],
+        });
+        t
+    }
+
+    /// The JSON has exactly the contract's keys, in the contract's order.
+    #[test]
+    fn json_contract_keys() {
+        let t = synth(&["--test-line", "500.3", "--snr", "100"]);
+        let o = analyse(&t, None, &args(&[])).unwrap();
+        let text = serde_json::to_string(&o.json).unwrap();
+        assert!(
+            text.starts_with("{\"pixels\":2048,\"noise_counts\":"),
+            "{text}"
+        );
+        let v: serde_json::Value = serde_json::from_str(&text).unwrap();
+        let top: Vec<&str> = v.as_object().unwrap().keys().map(|k| k.as_str()).collect();
+        let mut want = vec!["noise_counts", "peaks", "pixels", "truncated"];
+        want.sort();
+        let mut top_sorted = top.clone();
+        top_sorted.sort();
+        assert_eq!(top_sorted, want);
+        let peaks = v["peaks"].as_array().unwrap();
+        assert_eq!(peaks.len(), 1);
+        let keys: Vec<&str> = peaks[0]
+            .as_object()
+            .unwrap()
+            .keys()
+            .map(|k| k.as_str())
+            .collect();
+        let mut want = vec![
+            "center_px",
+            "center_sigma_px",
+            "fwhm_px",
+            "height_counts",
+            "area_counts",
+            "snr",
+            "saturated",
+            "blended",
+        ];
+        want.sort();
+        let mut keys = keys;
+        keys.sort();
+        assert_eq!(keys, want);
+        let order = [
+            "\"pixels\"",
+            "\"noise_counts\"",
+            "\"truncated\"",
+            "\"peaks\"",
+            "\"center_px\"",
+            "\"center_sigma_px\"",
+            "\"fwhm_px\"",
+            "\"height_counts\"",
+            "\"area_counts\"",
+            "\"snr\"",
+            "\"saturated\"",
+            "\"blended\"",
+        ];
+        let at: Vec<usize> = order.iter().map(|k| text.find(k).unwrap()).collect();
+        assert!(at.windows(2).all(|w| w[0] < w[1]), "{text}");
+        let p = &o.json.peaks[0];
+        assert!(
+            (p.center_px - 500.3).abs() < 5.0 * p.center_sigma_px.max(0.001),
+            "{p:?}"
+        );
+        assert!((p.fwhm_px - 3.0).abs() < 0.3, "{p:?}");
+        assert!(!p.saturated && !p.blended);
+    }
+
+    #[test]
+    fn saturated_line_is_flagged() {
+        let t = synth(&["--nucleus", "D", "--peak-e", "1e6", "--adc-bits", "12"]);
+        let o = analyse(&t, None, &args(&[])).unwrap();
+        assert!(o.saturated_pixels > 0);
+        let strongest = o
+            .json
+            .peaks
+            .iter()
+            .max_by(|a, b| a.height_counts.total_cmp(&b.height_counts))
+            .unwrap();
+        assert!(strongest.saturated, "{strongest:?}");
+        assert!(table(&o).contains("saturated"));
+    }
+
+    /// Dark frames from a second file subtract exactly as dark frames inside the trace.
+    #[test]
+    fn dark_file_equals_inline_darks() {
+        let both = synth(&[
+            "--nucleus",
+            "H",
+            "--darks",
+            "3",
+            "--hot-pixels",
+            "4",
+            "--seed",
+            "4",
+        ]);
+        let mut light = both.clone();
+        light.frames.retain(|f| f.kind == FrameKind::Signal);
+        let mut darks = both.clone();
+        darks.frames.retain(|f| f.kind == FrameKind::Dark);
+        let a = analyse(&both, None, &args(&[])).unwrap();
+        let b = analyse(&light, Some(&darks), &args(&[])).unwrap();
+        assert_eq!(a.json, b.json);
+        assert_eq!(a.dark_reads, 3);
+    }
+
+    #[test]
+    fn edge_frames_give_result_or_clear_error() {
+        let e = analyse(&flat(1, 5), None, &args(&[])).err().unwrap();
+        assert!(e.contains("too short"), "{e}");
+        let zero = analyse(&flat(2048, 0), None, &args(&[])).unwrap();
+        assert!(zero.json.peaks.is_empty());
+        let full = analyse(&flat(2048, 4095), None, &args(&[])).unwrap();
+        assert!(full.json.peaks.is_empty());
+        assert_eq!(full.saturated_pixels, 2048);
+        let big = synth(&[
+            "--pixels",
+            "4096",
+            "--nucleus",
+            "D",
+            "--wavelength-map",
+            "340,0.09",
+        ]);
+        assert!(!analyse(&big, None, &args(&[]))
+            .unwrap()
+            .json
+            .peaks
+            .is_empty());
+        let e = analyse(&flat(4097, 5), None, &args(&[])).err().unwrap();
+        assert!(e.contains("at most 4096"), "{e}");
+        let mut wide = flat(100, 5);
+        wide.adc_bits = Some(20);
+        let e = analyse(&wide, None, &args(&[])).err().unwrap();
+        assert!(e.contains("16-bit"), "{e}");
+    }
+
+    #[test]
+    fn csv_without_adc_says_so() {
+        let mut t = flat(64, 100);
+        t.adc_bits = None;
+        let o = analyse(&t, None, &args(&[])).unwrap();
+        assert!(table(&o).contains("saturation not checked"));
+    }
+}
