@@ -1,0 +1,435 @@
+//! Sub-pixel centre of one line: a weighted least-squares Gaussian fit in fixed point.
+//!
+//! Model `m(x) = A·exp(−(x−μ)²/2s²) + c` over a window of ±(2.5 s + 1) px. Each Gauss–Newton step
+//! weights pixels by the inverse of the modelled variance at baseline + line (read floor plus shot
+//! noise), which makes the fit the maximum-likelihood estimate for Gaussian noise and brings the centre
+//! scatter to the Cramér–Rao bound. The centre uncertainty comes from the inverse of the same normal
+//! matrix (the Fisher information of the noise model). Saturated and repaired pixels get no weight.
+//!
+//! Parameters are updated in relative form (ΔA/A, Δμ/s, Δs/s, Δc/A) so every matrix entry is O(1) in
+//! Q16 and a 4×4 Cramer solve in `i128` cannot overflow: entries ≤ 33 · 2^16 < 2^22 (weights ≤ 1), determinants
+//! < 24 · 2^88 < 2^93.
+
+use super::math::{exp_neg_q16, isqrt_u128, ONE_Q30};
+use super::noise::NoiseModel;
+use crate::condition::flags;
+
+/// Largest fit half-width (px); with FWHM ≤ 16 px, 2.5 s + 1 < 19 is capped here.
+pub const MAX_HALF: usize = 16;
+/// Gauss–Newton steps at most.
+pub const ITERATIONS: usize = 12;
+/// Fewest weighted pixels for a 4-parameter fit.
+const MIN_PIXELS: usize = 6;
+
+/// Result of one fit.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct Fit {
+    /// Centre (px, Q16).
+    pub center_q16: i64,
+    /// Centre 1-σ (px, Q16).
+    pub center_sigma_q16: i64,
+    /// Gaussian σ as sampled (px, Q16).
+    pub sigma_q16: i64,
+    /// Height (frame units, Q8).
+    pub height_q8: i64,
+    /// First and last pixel of the window.
+    pub lo: usize,
+    /// Last pixel of the window.
+    pub hi: usize,
+    /// Whether the Gauss–Newton steps settled within [`ITERATIONS`]; otherwise the last step is reported.
+    pub converged: bool,
+}
+
+/// Data the fit reads: the frame, its baseline, flags and noise model.
+#[derive(Clone, Copy)]
+pub struct FitData<'a> {
+    /// Frame values (frame units).
+    pub frame: &'a [i32],
+    /// Baseline under the frame (frame units).
+    pub base: &'a [i32],
+    /// Pixel flags.
+    pub flag: &'a [u8],
+    /// Noise model.
+    pub noise: &'a NoiseModel,
+    /// Already fitted neighbours whose profiles are taken out of the data first (≤ 2 are used).
+    pub neighbours: [Option<Fit>; 2],
+}
+
+impl FitData<'_> {
+    fn resid(&self, i: usize) -> i64 {
+        let y = self.frame.get(i).copied().unwrap_or(0);
+        let b = self.base.get(i).copied().unwrap_or(0);
+        let mut r = i64::from(y) - i64::from(b);
+        for f in self.neighbours.iter().flatten() {
+            r = r.saturating_sub(profile(f, i));
+        }
+        r
+    }
+
+    fn base_at(&self, i: usize) -> i64 {
+        i64::from(self.base.get(i).copied().unwrap_or(0))
+    }
+
+    fn usable(&self, i: usize) -> bool {
+        self.flag.get(i).is_some_and(|&f| !flags::is_untrusted(f))
+    }
+}
+
+#[derive(Clone, Copy)]
+struct Params {
+    a_q8: i64,
+    mu_q16: i64,
+    s_q16: i64,
+    c_q8: i64,
+}
+
+type Mat = [[i128; 4]; 4];
+
+/// Fits the line whose highest smoothed pixel is `peak`, starting from σ `s0_q16`; σ is kept within
+/// `s_min_q16 … s_max_q16`.
+///
+/// Loop bounds: ≤ [`ITERATIONS`] + 1 passes over ≤ 2 × [`MAX_HALF`] + 1 pixels.
+pub fn fit_line(d: &FitData<'_>, peak: usize, s0_q16: i64, s_min_q16: i64, s_max_q16: i64) -> Fit {
+    let n = d.frame.len();
+    let r0 = d.resid(peak);
+    let rl = peak.checked_sub(1).map_or(r0, |j| d.resid(j));
+    let rr = if peak + 1 < n { d.resid(peak + 1) } else { r0 };
+    // Parabola through three pixels: δ = (rl − rr) / (2 (rl − 2 r0 + rr)), within ±0.5 px.
+    let den = rl - 2 * r0 + rr;
+    let delta_q16 = if den < 0 {
+        (((rl - rr) << 16) / (2 * den)).clamp(-(1 << 15), 1 << 15)
+    } else {
+        0
+    };
+    let s0 = s0_q16.clamp(s_min_q16, s_max_q16).max(1 << 14);
+    let half = ((5 * s0) >> 17).saturating_add(2).clamp(2, MAX_HALF as i64) as usize;
+    let lo = peak.saturating_sub(half);
+    let hi = (peak + half).min(n.saturating_sub(1));
+    let start = Params {
+        a_q8: (r0 << 8).max(256),
+        mu_q16: ((peak as i64) << 16) + delta_q16,
+        s_q16: s0,
+        c_q8: 0,
+    };
+    // Weights are relative to the smallest variance in the window so none exceeds 1.
+    let vref = (lo..=hi)
+        .map(|i| d.noise.var_q8(d.base_at(i)))
+        .min()
+        .unwrap_or(1)
+        .max(1);
+    let mut p = start;
+    let mut converged = false;
+    for _ in 0..ITERATIONS {
+        let Some((m, b)) = normal(d, &p, lo, hi, vref) else {
+            break;
+        };
+        let Some(step) = solve(&m, &b) else {
+            break;
+        };
+        let [da, dmu, ds, dc] = step;
+        let da = da.clamp(-(1 << 15), 1 << 15);
+        let dmu = dmu.clamp(-(1 << 15), 1 << 15);
+        let ds = ds.clamp(-(1 << 14) - (1 << 12), 1 << 14);
+        let dc = dc.clamp(-(1 << 16), 1 << 16);
+        let before = p;
+        p.a_q8 = (p.a_q8 + ((p.a_q8 * da) >> 16)).max(16);
+        p.mu_q16 += (p.s_q16 * dmu) >> 16;
+        p.s_q16 = (p.s_q16 + ((p.s_q16 * ds) >> 16)).clamp(s_min_q16, s_max_q16);
+        p.c_q8 += (p.a_q8 * dc) >> 16;
+        // The centre must stay inside the window, or the fit has wandered onto something else.
+        if p.mu_q16 < (lo as i64) << 16 || p.mu_q16 > (hi as i64) << 16 {
+            p = start;
+            break;
+        }
+        // Settled: centre moved < 2^-14 px, height and σ by < 2^-12 relative.
+        let settled = (p.mu_q16 - before.mu_q16).abs() <= 4
+            && ((p.a_q8 - before.a_q8).abs() << 12) <= before.a_q8
+            && ((p.s_q16 - before.s_q16).abs() << 12) <= before.s_q16;
+        if settled {
+            converged = true;
+            break;
+        }
+    }
+    let center_sigma_q16 = normal(d, &p, lo, hi, vref)
+        .and_then(|(m, _)| center_sigma(&m, &p, vref))
+        .unwrap_or(p.s_q16);
+    Fit {
+        center_q16: p.mu_q16,
+        center_sigma_q16,
+        sigma_q16: p.s_q16,
+        height_q8: p.a_q8,
+        lo,
+        hi,
+        converged,
+    }
+}
+
+/// Normal matrix `Σ w J Jᵀ` and gradient `Σ w J e` in Q16, with weights `vref / var`.
+///
+/// Weights and Jacobian are Q30 and the sums are kept at full precision in `i128`, rounded to Q16 only
+/// once: per-term truncation would bias the centre when shot noise makes the core weights small.
+/// Magnitudes: w·J·J < 2^90 per pixel, w·J·e < 2^92 (e clamped to 2^16 relative), ≤ 33 pixels.
+fn normal(
+    d: &FitData<'_>,
+    p: &Params,
+    lo: usize,
+    hi: usize,
+    vref: i64,
+) -> Option<(Mat, [i128; 4])> {
+    let mut m: Mat = [[0; 4]; 4];
+    let mut b = [0i128; 4];
+    let mut used = 0usize;
+    let s = p.s_q16.max(1);
+    let a = p.a_q8.max(1);
+    for i in lo..=hi {
+        if !d.usable(i) {
+            continue;
+        }
+        let u = ((((i as i64) << 16) - p.mu_q16) << 16) / s;
+        let g30 = exp_neg_q16((u.saturating_mul(u)) >> 17);
+        let line_q8 = (i128::from(a) * i128::from(g30)) >> 30;
+        let gu = round_shift(i128::from(g30) * i128::from(u), 16);
+        let guu = round_shift(gu * i128::from(u), 16);
+        let model_q8 = line_q8 + i128::from(p.c_q8);
+        let level = d.base_at(i) + (line_q8 >> 8) as i64;
+        let var = i128::from(d.noise.var_q8(level).max(1));
+        let w = (i128::from(vref) << 30) / var;
+        let e = (i128::from(d.resid(i)) << 8) - model_q8;
+        let e_rel = ((e << 16) / i128::from(a)).clamp(-(1 << 32), 1 << 32);
+        let j = [i128::from(g30), gu, guu, 1 << 30];
+        for (row, &jr) in m.iter_mut().zip(&j) {
+            let wj = w * jr;
+            for (cell, &jc) in row.iter_mut().zip(&j) {
+                *cell += round_shift(wj, 30) * jc;
+            }
+        }
+        for (bv, &jr) in b.iter_mut().zip(&j) {
+            *bv += round_shift(w * jr, 30) * e_rel;
+        }
+        used += 1;
+    }
+    for row in m.iter_mut() {
+        for cell in row.iter_mut() {
+            *cell = round_shift(*cell, 44);
+        }
+    }
+    for bv in b.iter_mut() {
+        *bv = round_shift(*bv, 30);
+    }
+    (used >= MIN_PIXELS).then_some((m, b))
+}
+
+/// `v / 2^k` rounded to nearest, ties away from zero, so positive and negative terms err alike.
+fn round_shift(v: i128, k: u32) -> i128 {
+    let half = 1i128 << (k - 1);
+    if v >= 0 {
+        (v + half) >> k
+    } else {
+        -((-v + half) >> k)
+    }
+}
+
+fn det3(m: [[i128; 3]; 3]) -> i128 {
+    let [[a, b, c], [d, e, f], [g, h, i]] = m;
+    a * (e * i - f * h) - b * (d * i - f * g) + c * (d * h - e * g)
+}
+
+fn minor(m: &Mat, skip_r: usize, skip_c: usize) -> [[i128; 3]; 3] {
+    let mut out = [[0i128; 3]; 3];
+    let rows = m.iter().enumerate().filter(|(r, _)| *r != skip_r);
+    for (orow, (_, row)) in out.iter_mut().zip(rows) {
+        let cols = row.iter().enumerate().filter(|(c, _)| *c != skip_c);
+        for (o, (_, &v)) in orow.iter_mut().zip(cols) {
+            *o = v;
+        }
+    }
+    out
+}
+
+fn det4(m: &Mat) -> i128 {
+    let mut det = 0i128;
+    for (c, &v) in m[0].iter().enumerate() {
+        let term = v * det3(minor(m, 0, c));
+        det += if c % 2 == 0 { term } else { -term };
+    }
+    det
+}
+
+/// Solves `m x = b` by Cramer's rule; `x` in Q16. `None` when `m` is not positive definite enough.
+fn solve(m: &Mat, b: &[i128; 4]) -> Option<[i64; 4]> {
+    let det = det4(m);
+    if det <= 0 {
+        return None;
+    }
+    let mut x = [0i64; 4];
+    for (k, xk) in x.iter_mut().enumerate() {
+        let mut mk = *m;
+        for (row, &bv) in mk.iter_mut().zip(b) {
+            row[k] = bv;
+        }
+        let v = (det4(&mk) << 16) / det;
+        *xk = v.clamp(i128::from(i64::MIN), i128::from(i64::MAX)) as i64;
+    }
+    Some(x)
+}
+
+/// σ of the centre in px (Q16): `s · sqrt(vref · [M⁻¹]μμ) / A`.
+fn center_sigma(m: &Mat, p: &Params, vref: i64) -> Option<i64> {
+    let det = det4(m);
+    if det <= 0 {
+        return None;
+    }
+    let cof = det3(minor(m, 1, 1));
+    if cof <= 0 {
+        return None;
+    }
+    // [M⁻¹]μμ in Q32: M is Q16, so cof is Q48 and det Q64.
+    let inv_q32 = (cof << 48) / det;
+    // vref is Q8, so sqrt(vref · inv) is Q20 in frame units.
+    let sv_q20 = isqrt_u128((vref as u128).checked_mul(inv_q32 as u128)?) as i128;
+    let a = i128::from(p.a_q8.max(1));
+    let sig = (i128::from(p.s_q16) * sv_q20) / (a << 12);
+    Some(sig.clamp(1, i128::from(i64::MAX)) as i64)
+}
+
+/// A fitted line's height at pixel `i` (frame units); 0 beyond 6 σ.
+fn profile(f: &Fit, i: usize) -> i64 {
+    let dx = ((i as i64) << 16) - f.center_q16;
+    let s = f.sigma_q16.max(1);
+    if dx.abs() > 6 * s {
+        return 0;
+    }
+    let u = (dx << 16) / s;
+    let g30 = exp_neg_q16((u * u) >> 17);
+    ((i128::from(f.height_q8) * i128::from(g30)) >> 38) as i64
+}
+
+/// Height (Q8) × σ (Q16) × sqrt(2π) → area in frame units × px.
+pub fn area(fit: &Fit) -> i64 {
+    let v = i128::from(fit.height_q8)
+        * i128::from(fit.sigma_q16)
+        * i128::from(super::math::SQRT_2PI_Q16);
+    (v >> 40).clamp(i128::from(i64::MIN), i128::from(i64::MAX)) as i64
+}
+
+#[allow(dead_code)]
+const _: () = assert!(ONE_Q30 == 1 << 30);
+
+#[cfg(test)]
+mod tests {
+    use super::super::testkit::{pixel_gauss, Rng};
+    use super::*;
+
+    fn noise(sd: i64, k_q16: u32) -> NoiseModel {
+        NoiseModel {
+            floor_var_q8: sd * sd * 256,
+            shot_var_per_unit_q16: k_q16,
+            shot_from_data: false,
+        }
+    }
+
+    fn fit_one(frame: &[i32], nm: &NoiseModel, sigma0: i64) -> Fit {
+        let base = vec![0i32; frame.len()];
+        let fl = vec![0u8; frame.len()];
+        let peak = (0..frame.len()).max_by_key(|&i| frame[i]).unwrap();
+        let d = FitData {
+            frame,
+            base: &base,
+            flag: &fl,
+            noise: nm,
+            neighbours: [None, None],
+        };
+        fit_line(&d, peak, sigma0, 1 << 15, 8 << 16)
+    }
+
+    #[test]
+    fn noiseless_line_centre_is_exact() {
+        for (c, s) in [
+            (100i64 << 16, 70_000i64),
+            ((100 << 16) + 20_000, 100_000),
+            ((100 << 16) - 32_000, 222_000),
+        ] {
+            let frame: Vec<i32> = (0..200)
+                .map(|i| pixel_gauss(i, 50_000, c, s) as i32)
+                .collect();
+            let f = fit_one(&frame, &noise(10, 0), s);
+            assert!(f.converged);
+            let err = f.center_q16 - c;
+            // 0.002 px: pixel integration is symmetric, so only rounding is left.
+            assert!(err.abs() < 131, "centre off by {err} (Q16) for s={s}");
+            // Sampled σ² ≈ s² + 1/12 px² for a pixel-integrated Gaussian.
+            let want = isqrt_u128((s * s + (1i64 << 32) / 12) as u128) as i64;
+            assert!(
+                (f.sigma_q16 - want).abs() * 100 < want,
+                "σ {} want {want}",
+                f.sigma_q16
+            );
+        }
+    }
+
+    #[test]
+    fn saturated_core_is_skipped() {
+        let c = (60i64 << 16) + 9_000;
+        let s = 150_000;
+        let frame: Vec<i32> = (0..120)
+            .map(|i| pixel_gauss(i, 40_000, c, s).min(30_000) as i32)
+            .collect();
+        let base = vec![0i32; 120];
+        let fl: Vec<u8> = frame
+            .iter()
+            .map(|&v| if v >= 30_000 { flags::SATURATED } else { 0 })
+            .collect();
+        let nm = noise(10, 0);
+        let d = FitData {
+            frame: &frame,
+            base: &base,
+            flag: &fl,
+            noise: &nm,
+            neighbours: [None, None],
+        };
+        let f = fit_line(&d, 60, s, 1 << 15, 8 << 16);
+        assert!(f.converged);
+        assert!(
+            (f.center_q16 - c).abs() < 700,
+            "off by {}",
+            f.center_q16 - c
+        );
+        assert!(
+            f.height_q8 > 35_000 << 8,
+            "height should come back above the clip"
+        );
+    }
+
+    #[test]
+    fn scatter_matches_reported_sigma_and_read_noise_bound() {
+        // Read noise only, SNR 50, FWHM ≈ 4 px. Bound: σμ² = σn² · 2 s_e / (A² √π) with
+        // s_e² = s² + 1/12 (Gaussian Fisher information, standard result, from memory).
+        let s = 111_300i64; // 1.698 px
+        let (amp, sd) = (5_000i64, 100i64);
+        let mut rng = Rng::new(11);
+        let trials = 400;
+        let (mut sum_sq, mut sum_sig) = (0i128, 0i128);
+        for t in 0..trials {
+            let c = (64i64 << 16) + (t * 4093) % 65536 - 32768;
+            let frame: Vec<i32> = (0..128)
+                .map(|i| (pixel_gauss(i, amp, c, s) + rng.gauss(sd << 16)) as i32)
+                .collect();
+            let f = fit_one(&frame, &noise(sd, 0), s);
+            let e = (f.center_q16 - c) as i128;
+            sum_sq += e * e;
+            sum_sig += f.center_sigma_q16 as i128;
+        }
+        let rms = isqrt_u128((sum_sq / trials as i128) as u128) as i64;
+        let mean_sig = (sum_sig / trials as i128) as i64;
+        // s_e² in Q32, bound² = sd² · 2 · s_e / (A² · 1.7725) px².
+        let se_q16 = isqrt_u128((s * s + (1i64 << 32) / 12) as u128) as i64;
+        let bound_sq_q32 = (sd * sd) as i128 * 2 * (se_q16 as i128) * 65536 * 10_000
+            / ((amp * amp) as i128 * 17_725);
+        let bound = isqrt_u128(bound_sq_q32 as u128) as i64;
+        assert!(rms * 100 <= bound * 120, "rms {rms} vs bound {bound} (Q16)");
+        assert!(
+            mean_sig * 100 >= bound * 90 && mean_sig * 100 <= bound * 115,
+            "sigma {mean_sig} vs bound {bound}"
+        );
+    }
+}

@@ -1,0 +1,62 @@
+//! A one-bit-per-pixel mark of where lines are, so the noise estimate can look past them.
+
+use crate::condition::MAX_PIXELS;
+
+const WORDS: usize = MAX_PIXELS.div_ceil(64);
+
+/// Pixels set here are left out of the noise estimate. 512 bytes for the largest frame.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct LineMask {
+    bits: [u64; WORDS],
+}
+
+impl Default for LineMask {
+    fn default() -> Self {
+        Self::new()
+    }
+}
+
+impl LineMask {
+    /// Nothing masked.
+    pub const fn new() -> Self {
+        Self { bits: [0; WORDS] }
+    }
+
+    /// Masks pixels `center − half ..= center + half` (clipped to the frame size limit).
+    /// Loop bound: 2 × `half` + 1.
+    pub fn mark(&mut self, center: usize, half: usize) {
+        let lo = center.saturating_sub(half);
+        let hi = center.saturating_add(half).min(MAX_PIXELS - 1);
+        for i in lo..=hi {
+            if let Some(w) = self.bits.get_mut(i / 64) {
+                *w |= 1 << (i % 64);
+            }
+        }
+    }
+
+    /// Whether pixel `i` is masked; pixels past the limit are not.
+    pub fn is_set(&self, i: usize) -> bool {
+        self.bits
+            .get(i / 64)
+            .is_some_and(|w| w & (1 << (i % 64)) != 0)
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn marks_ranges_and_clips() {
+        let mut m = LineMask::new();
+        m.mark(10, 2);
+        assert!(!m.is_set(7));
+        assert!((8..=12).all(|i| m.is_set(i)));
+        assert!(!m.is_set(13));
+        m.mark(1, 5);
+        assert!(m.is_set(0));
+        m.mark(MAX_PIXELS - 1, 3);
+        assert!(m.is_set(MAX_PIXELS - 1));
+        assert!(!m.is_set(MAX_PIXELS + 5));
+    }
+}

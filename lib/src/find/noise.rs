@@ -1,0 +1,319 @@
+//! Noise estimated from the frame itself: a read/dark floor plus a shot term that grows with the signal.
+//!
+//! Second differences `y[i−1] − 2y[i] + y[i+1]` cancel any smooth continuum, leaving 6σ² of white noise.
+//! Each block of [`BLOCK_PX`] pixels gives a robust variance (median-guided, clipped mean square) and its
+//! median level; a weighted fit `var = floor + κ·level` over the blocks, rejecting blocks that lines
+//! inflate, gives the model used for thresholds and fit weights.
+
+use super::mask::LineMask;
+use super::math::{div_round_i128, isqrt_i64};
+use crate::condition::{flags, MAX_PIXELS};
+
+/// Pixels per noise block.
+pub const BLOCK_PX: usize = 64;
+/// Blocks in the largest frame.
+const MAX_BLOCKS: usize = MAX_PIXELS.div_ceil(BLOCK_PX);
+/// Fewest usable second differences for a block to count.
+const MIN_BLOCK_SAMPLES: usize = 12;
+/// Clip limit for the mean square: 3.5 σ (Q8 multiple of the median |d2|): 3.5 × 1.4826 = 5.189.
+const CLIP_PER_MEDIAN_Q8: i64 = 1328;
+/// Restores the variance removed by clipping a Gaussian at ±3.5 σ (Q16, 1 / 0.993888).
+const CLIP_VAR_FIX_Q16: i128 = 65_939;
+/// A block whose variance exceeds the model by this factor (Q8, 1.8) is taken as line-contaminated.
+const REJECT_ABOVE_Q8: i128 = 461;
+/// Refit rounds with rejection.
+pub const FIT_ROUNDS: usize = 4;
+
+/// Per-pixel noise variance `floor + κ·max(level, 0)`.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct NoiseModel {
+    /// Variance floor: read, dark and quantisation noise (frame units², Q8).
+    pub floor_var_q8: i64,
+    /// Shot variance per frame unit of signal (frame units, Q16).
+    pub shot_var_per_unit_q16: u32,
+    /// Whether κ came from the data rather than the configuration.
+    pub shot_from_data: bool,
+}
+
+impl NoiseModel {
+    /// Variance at a signal level (frame units), Q8.
+    pub fn var_q8(&self, level: i64) -> i64 {
+        let shot = (i128::from(level.max(0)) * i128::from(self.shot_var_per_unit_q16)) >> 8;
+        self.floor_var_q8
+            .saturating_add(shot.clamp(0, i128::from(i64::MAX)) as i64)
+            .max(1)
+    }
+
+    /// Noise σ at a signal level (frame units, rounded down, ≥ 0).
+    pub fn sigma(&self, level: i64) -> i64 {
+        isqrt_i64(self.var_q8(level) >> 8)
+    }
+}
+
+#[derive(Clone, Copy, Default)]
+struct Block {
+    var_q8: i64,
+    level: i64,
+    used: bool,
+}
+
+/// Estimates the noise model of `frame` from trusted pixels (see [`flags`]) outside `mask`.
+///
+/// `known_shot_q16` fixes κ; otherwise it is fitted and kept ≥ 0. When the block levels span too little
+/// to tell shot from read noise, κ is 0 and the floor absorbs the continuum's shot noise.
+/// Loop bounds: one pass over the pixels, a median select per block, [`FIT_ROUNDS`] × blocks.
+pub fn estimate(
+    frame: &[i32],
+    flag: &[u8],
+    mask: &LineMask,
+    known_shot_q16: Option<u32>,
+) -> Option<NoiseModel> {
+    let mut blocks = [Block::default(); MAX_BLOCKS];
+    let n = frame.len().min(MAX_PIXELS);
+    let mut nb = 0usize;
+    for (bi, blk) in blocks.iter_mut().enumerate() {
+        let start = bi * BLOCK_PX;
+        if start >= n {
+            break;
+        }
+        let end = (start + BLOCK_PX).min(n);
+        *blk = block_stats(frame, flag, mask, start, end);
+        nb = bi + 1;
+    }
+    let blocks = blocks.get_mut(..nb).unwrap_or(&mut []);
+    if !blocks.iter().any(|b| b.used) {
+        return None;
+    }
+    Some(fit(blocks, known_shot_q16))
+}
+
+/// Model for frames with no usable block (all saturated or too short): the smallest floor.
+pub fn fallback(known_shot_q16: Option<u32>) -> NoiseModel {
+    NoiseModel {
+        floor_var_q8: 0,
+        shot_var_per_unit_q16: known_shot_q16.unwrap_or(0),
+        shot_from_data: known_shot_q16.is_none(),
+    }
+}
+
+fn block_stats(frame: &[i32], flag: &[u8], mask: &LineMask, start: usize, end: usize) -> Block {
+    let trusted =
+        |i: usize| !mask.is_set(i) && flag.get(i).is_some_and(|&f| !flags::is_untrusted(f));
+    let mut d2 = [0i64; BLOCK_PX];
+    let mut lv = [0i64; BLOCK_PX];
+    let mut nd = 0usize;
+    let mut nl = 0usize;
+    for i in start..end {
+        let (Some(&y0), true) = (frame.get(i), trusted(i)) else {
+            continue;
+        };
+        if let Some(slot) = lv.get_mut(nl) {
+            *slot = i64::from(y0);
+            nl += 1;
+        }
+        let (Some(il), Some(ir)) = (i.checked_sub(1), i.checked_add(1)) else {
+            continue;
+        };
+        if let (Some(&yl), Some(&yr), true, true) =
+            (frame.get(il), frame.get(ir), trusted(il), trusted(ir))
+        {
+            if let Some(slot) = d2.get_mut(nd) {
+                *slot = (i64::from(yl) - 2 * i64::from(y0) + i64::from(yr)).abs();
+                nd += 1;
+            }
+        }
+    }
+    if nd < MIN_BLOCK_SAMPLES || nl == 0 {
+        return Block::default();
+    }
+    let level = median(lv.get_mut(..nl).unwrap_or(&mut []));
+    let d2 = d2.get_mut(..nd).unwrap_or(&mut []);
+    let med = median(d2);
+    let limit = ((med * CLIP_PER_MEDIAN_Q8) >> 8).max(1);
+    let (mut ss, mut cnt) = (0i128, 0i128);
+    for &d in d2.iter() {
+        if d <= limit {
+            ss += i128::from(d) * i128::from(d);
+            cnt += 1;
+        }
+    }
+    // var = mean(d2²) / 6, un-clipped, in Q8.
+    let var_q8 = div_round_i128(ss * CLIP_VAR_FIX_Q16 * 256, cnt * 6 * 65536);
+    Block {
+        var_q8: var_q8.clamp(0, i128::from(i64::MAX)) as i64,
+        level,
+        used: true,
+    }
+}
+
+fn median(v: &mut [i64]) -> i64 {
+    let mid = v.len() / 2;
+    if mid >= v.len() {
+        return 0;
+    }
+    let (_, m, _) = v.select_nth_unstable(mid);
+    *m
+}
+
+fn fit(blocks: &mut [Block], known: Option<u32>) -> NoiseModel {
+    let mut model = NoiseModel {
+        floor_var_q8: median_var(blocks),
+        shot_var_per_unit_q16: known.unwrap_or(0),
+        shot_from_data: known.is_none(),
+    };
+    if let Some(k) = known {
+        model.floor_var_q8 = 0;
+        model.floor_var_q8 = floor_given_shot(blocks, k);
+    }
+    for _ in 0..FIT_ROUNDS {
+        // Reject blocks that lines inflate, judged against the current model.
+        for b in blocks.iter_mut().filter(|b| b.used) {
+            let pred = i128::from(model.var_q8(b.level));
+            if i128::from(b.var_q8) * 256 > pred * REJECT_ABOVE_Q8 {
+                b.used = false;
+            }
+        }
+        if known.is_some() {
+            model.floor_var_q8 = floor_given_shot(blocks, model.shot_var_per_unit_q16);
+            continue;
+        }
+        // Weighted least squares of var on level; weight ∝ 1 / pred² (the spread of a variance estimate
+        // grows with the variance). Weights are normalised to the median so the sums stay small.
+        let vref = i128::from(model.floor_var_q8.max(1));
+        let (mut sw, mut sx, mut sy, mut sxx, mut sxy) = (0i128, 0i128, 0i128, 0i128, 0i128);
+        let (mut lmin, mut lmax) = (i64::MAX, i64::MIN);
+        for b in blocks.iter().filter(|b| b.used) {
+            let pred = i128::from(model.var_q8(b.level)).max(1);
+            // w in Q16, ≤ 2^16 · (vref/pred)², capped.
+            let w = ((vref << 16) / pred * vref / pred).clamp(1, 1 << 24);
+            let x = i128::from(b.level);
+            let y = i128::from(b.var_q8);
+            sw += w;
+            sx += w * x;
+            sy += w * y;
+            sxx += w * x * x;
+            sxy += w * x * y;
+            lmin = lmin.min(b.level);
+            lmax = lmax.max(b.level);
+        }
+        if sw == 0 {
+            break;
+        }
+        let det = sw * sxx - sx * sx;
+        // Shot noise is only separable from the floor when the continuum spans a useful range of levels.
+        let mean_level = div_round_i128(sx, sw).max(0);
+        let span = i128::from(lmax.saturating_sub(lmin));
+        let separable = det > 0 && span * 4 > mean_level && span > 0;
+        if separable {
+            // κ in var_q8 per level unit → Q16 of var per unit: × 2^8.
+            let k_q16 = div_round_i128((sw * sxy - sx * sy) << 8, det);
+            let k_q16 = k_q16.clamp(0, i128::from(u32::MAX));
+            let floor = div_round_i128(sy - ((k_q16 * sx) >> 8), sw);
+            if floor >= 0 {
+                model.shot_var_per_unit_q16 = k_q16 as u32;
+                model.floor_var_q8 = floor.clamp(0, i128::from(i64::MAX)) as i64;
+                continue;
+            }
+            // Negative floor: all noise is shot noise, through the origin.
+            if sxx > 0 {
+                let k = div_round_i128(sxy << 8, sxx).clamp(0, i128::from(u32::MAX));
+                model.shot_var_per_unit_q16 = k as u32;
+                model.floor_var_q8 = 0;
+                continue;
+            }
+        }
+        model.shot_var_per_unit_q16 = 0;
+        model.floor_var_q8 = div_round_i128(sy, sw).clamp(0, i128::from(i64::MAX)) as i64;
+    }
+    model
+}
+
+fn median_var(blocks: &[Block]) -> i64 {
+    let mut v = [0i64; MAX_BLOCKS];
+    let mut n = 0usize;
+    for b in blocks.iter().filter(|b| b.used) {
+        if let Some(s) = v.get_mut(n) {
+            *s = b.var_q8;
+            n += 1;
+        }
+    }
+    median(v.get_mut(..n).unwrap_or(&mut []))
+}
+
+fn floor_given_shot(blocks: &[Block], k_q16: u32) -> i64 {
+    let mut v = [0i64; MAX_BLOCKS];
+    let mut n = 0usize;
+    for b in blocks.iter().filter(|b| b.used) {
+        if let Some(s) = v.get_mut(n) {
+            let shot = (i128::from(b.level.max(0)) * i128::from(k_q16)) >> 8;
+            *s = (i128::from(b.var_q8) - shot).clamp(0, i128::from(i64::MAX)) as i64;
+            n += 1;
+        }
+    }
+    median(v.get_mut(..n).unwrap_or(&mut []))
+}
+
+#[cfg(test)]
+mod tests {
+    use super::super::testkit::Rng;
+    use super::*;
+
+    #[test]
+    fn recovers_white_noise_sigma() {
+        let mut rng = Rng::new(7);
+        // σ = 40 frame units on a flat level.
+        let frame: Vec<i32> = (0..2048)
+            .map(|_| 1000 + rng.gauss(40 << 16) as i32)
+            .collect();
+        let fl = vec![0u8; frame.len()];
+        let m = estimate(&frame, &fl, &LineMask::new(), None).unwrap();
+        let s = m.sigma(1000);
+        assert!((38..=42).contains(&s), "sigma {s}");
+    }
+
+    #[test]
+    fn ignores_a_smooth_continuum() {
+        let mut rng = Rng::new(8);
+        // A steep parabola changes the second difference by a constant 2·c only.
+        let frame: Vec<i32> = (0..2048i64)
+            .map(|i| (((i - 1024) * (i - 1024)) / 64 + rng.gauss(20 << 16)) as i32)
+            .collect();
+        let fl = vec![0u8; frame.len()];
+        let m = estimate(&frame, &fl, &LineMask::new(), Some(0)).unwrap();
+        let s = m.sigma(0);
+        assert!((19..=21).contains(&s), "sigma {s}");
+    }
+
+    #[test]
+    fn separates_shot_from_read_noise() {
+        let mut rng = Rng::new(9);
+        // Continuum ramps 0..40000 units; var = 100² + 4·level (κ = 4.0).
+        let frame: Vec<i32> = (0..2048i64)
+            .map(|i| {
+                let level = i * 20;
+                let sd = isqrt_i64(10_000 + 4 * level);
+                (level + rng.gauss(sd << 16)) as i32
+            })
+            .collect();
+        let fl = vec![0u8; frame.len()];
+        let m = estimate(&frame, &fl, &LineMask::new(), None).unwrap();
+        let k = m.shot_var_per_unit_q16;
+        assert!((3 << 16..5 << 16).contains(&k), "kappa {k}");
+        let s = m.sigma(0);
+        assert!((80..=120).contains(&s), "floor sigma {s}");
+    }
+
+    #[test]
+    fn all_zero_and_untrusted_frames_give_tiny_floor() {
+        let frame = [0i32; 256];
+        let fl = [0u8; 256];
+        let m = estimate(&frame, &fl, &LineMask::new(), None).unwrap();
+        assert_eq!(m.sigma(0), 0);
+        assert!(m.var_q8(0) >= 1);
+        let fl = [flags::SATURATED; 256];
+        assert_eq!(estimate(&frame, &fl, &LineMask::new(), None), None);
+        let mut all = LineMask::new();
+        all.mark(128, 128);
+        assert_eq!(estimate(&frame, &[0u8; 256], &all, None), None);
+    }
+}
