@@ -1,0 +1,211 @@
+#!/usr/bin/env bash
+# Board checks for glowcheck: builds the QEMU report firmware for each Cortex-M core and its host twin,
+# runs the firmware in QEMU and diffs its output with the host's byte for byte (and with the committed
+# golden report), proves at link time that lib's public API has no surviving panic path, checks that
+# the thumbv6m images contain no soft-float routines, and prints image sizes.
+#
+# Usage: bash boards/check.sh            run every check; non-zero exit on any failure
+#        bash boards/check.sh --bless    also overwrite boards/expected/ with the host report
+#                                        (only after a deliberate change of the predictor's numbers)
+# Env:   CARGO_TARGET_DIR                build folder (default: boards/target)
+#        GLOWCHECK_BOARD_TARGETS         thumb targets to run (default: all three)
+#        GLOWCHECK_QEMU_TIMEOUT_S        per-run QEMU timeout in seconds (default: 120)
+set -euo pipefail
+
+here="$(cd "$(dirname "${BASH_SOURCE[0]}")" && pwd)"
+cd "$here"
+bless=0
+for arg in "$@"; do
+    case "$arg" in
+        --bless) bless=1 ;;
+        *) echo "check.sh: unknown argument: $arg" >&2; exit 2 ;;
+    esac
+done
+
+export CARGO_TARGET_DIR="${CARGO_TARGET_DIR:-$here/target}"
+targets="${GLOWCHECK_BOARD_TARGETS:-thumbv6m-none-eabi thumbv7m-none-eabi thumbv7em-none-eabihf}"
+qemu_timeout="${GLOWCHECK_QEMU_TIMEOUT_S:-120}"
+out="$CARGO_TARGET_DIR/glowcheck-check"
+mkdir -p "$out"
+failures=0
+
+stage() { printf '\n== boards: %s\n' "$*"; }
+fail() { echo "FAIL: $*" >&2; failures=$((failures + 1)); }
+ok() { echo "ok: $*"; }
+
+machine_for() {
+    case "$1" in
+        thumbv6m-none-eabi) echo microbit ;;
+        thumbv7m-none-eabi) echo mps2-an385 ;;
+        thumbv7em-none-eabihf) echo mps2-an386 ;;
+        *) echo "check.sh: no QEMU machine for $1" >&2; return 1 ;;
+    esac
+}
+
+# ---------------------------------------------------------------------------------------------------
+stage "tools"
+need_targets=""
+installed="$(rustup target list --installed 2>/dev/null || true)"
+for t in thumbv6m-none-eabi $targets; do
+    grep -qx "$t" <<<"$installed" || need_targets="$need_targets $t"
+done
+if [ -n "$need_targets" ]; then
+    # shellcheck disable=SC2086
+    rustup target add $need_targets || { sleep 5; rustup target add $need_targets; }
+fi
+sysroot="$(rustc --print sysroot)"
+host="$(rustc -vV | sed -n 's/^host: //p')"
+bin="$sysroot/lib/rustlib/$host/bin"
+if [ ! -x "$bin/llvm-nm" ]; then
+    rustup component add llvm-tools || { sleep 5; rustup component add llvm-tools; }
+fi
+nm="$bin/llvm-nm"
+size="$bin/llvm-size"
+objdump="$bin/llvm-objdump"
+if ! command -v qemu-system-arm >/dev/null 2>&1; then
+    if command -v apt-get >/dev/null 2>&1 && [ "$(id -u)" = 0 ]; then
+        apt-get update -qq && DEBIAN_FRONTEND=noninteractive apt-get install -y -qq qemu-system-arm >/dev/null
+    else
+        echo "check.sh: qemu-system-arm is missing; install it (Debian: apt-get install qemu-system-arm)" >&2
+        exit 1
+    fi
+fi
+ok "$(rustc --version); $(qemu-system-arm --version | head -n 1)"
+
+# ---------------------------------------------------------------------------------------------------
+stage "fmt and clippy"
+if cargo fmt --version >/dev/null 2>&1; then
+    cargo fmt --all --check && ok "cargo fmt" || fail "cargo fmt --all --check (run cargo fmt --all in boards/)"
+fi
+if cargo clippy --version >/dev/null 2>&1; then
+    cargo clippy -q -p glowcheck-report -p glowcheck-host-twin --all-targets -- -D warnings \
+        && ok "clippy host crates" || fail "clippy on report/host-twin"
+    cargo clippy -q -p glowcheck-qemu -p glowcheck-nopanic --target thumbv6m-none-eabi -- -D warnings \
+        && ok "clippy thumb crates" || fail "clippy on qemu/nopanic"
+fi
+
+# ---------------------------------------------------------------------------------------------------
+stage "unit tests of the shared report code"
+cargo test -q -p glowcheck-report || fail "cargo test -p glowcheck-report"
+
+# ---------------------------------------------------------------------------------------------------
+stage "build"
+cargo build -q --release -p glowcheck-host-twin || { echo "FAIL: host twin build" >&2; exit 1; }
+for t in $targets; do
+    cargo build -q --release -p glowcheck-qemu --target "$t" || fail "glowcheck-qemu build for $t"
+done
+
+# ---------------------------------------------------------------------------------------------------
+stage "host twin vs QEMU, byte for byte"
+twin_rc=0
+"$CARGO_TARGET_DIR/release/glowcheck-host-twin" >"$out/host.txt" || twin_rc=$?
+[ "$twin_rc" = 0 ] && ok "host twin: $(wc -l <"$out/host.txt") lines, $(tail -n 1 "$out/host.txt")" \
+    || fail "host twin exited $twin_rc (unexpected results: grep UNEXPECTED $out/host.txt)"
+for t in $targets; do
+    elf="$CARGO_TARGET_DIR/$t/release/glowcheck-qemu"
+    [ -f "$elf" ] || continue
+    machine="$(machine_for "$t")"
+    rc=0
+    timeout "$qemu_timeout" qemu-system-arm -M "$machine" -nographic -monitor none -serial null \
+        -semihosting-config enable=on,target=native -kernel "$elf" </dev/null >"$out/$t.txt" 2>"$out/$t.err" || rc=$?
+    if [ "$rc" != 0 ]; then
+        fail "QEMU $machine ($t) exited $rc (124 = timeout); see $out/$t.txt and $out/$t.err"
+    fi
+    if cmp -s "$out/host.txt" "$out/$t.txt"; then
+        ok "QEMU $machine ($t) output identical to host ($(wc -c <"$out/$t.txt") bytes)"
+    else
+        fail "QEMU $machine ($t) output differs from host:"
+        diff "$out/host.txt" "$out/$t.txt" | head -n 20 >&2 || true
+    fi
+done
+
+# ---------------------------------------------------------------------------------------------------
+stage "golden report"
+golden="$here/expected/report.txt"
+if [ "$bless" = 1 ]; then
+    cp "$out/host.txt" "$golden"
+    ok "blessed $golden"
+elif [ ! -f "$golden" ]; then
+    fail "no golden report; create it with: bash boards/check.sh --bless"
+elif cmp -s "$golden" "$out/host.txt"; then
+    ok "host report equals $golden"
+else
+    fail "host report differs from boards/expected/report.txt; if the predictor's numbers changed on purpose, run: bash boards/check.sh --bless"
+    diff "$golden" "$out/host.txt" | head -n 20 >&2 || true
+fi
+
+# ---------------------------------------------------------------------------------------------------
+stage "no-panic link proof (thumbv6m, release)"
+if cargo build -q --release -p glowcheck-nopanic --target thumbv6m-none-eabi 2>"$out/nopanic.err"; then
+    ok "glowcheck-nopanic links: no panic path survives in lib's public API"
+    nopanic_elf="$CARGO_TARGET_DIR/thumbv6m-none-eabi/release/glowcheck-nopanic"
+    rc=0
+    timeout "$qemu_timeout" qemu-system-arm -M microbit -nographic -monitor none -serial null \
+        -semihosting-config enable=on,target=native -kernel "$nopanic_elf" </dev/null >/dev/null 2>&1 || rc=$?
+    [ "$rc" = 0 ] && ok "glowcheck-nopanic runs in QEMU microbit and exits 0" \
+        || fail "glowcheck-nopanic exited $rc in QEMU"
+else
+    fail "glowcheck-nopanic does not link: a panic path survived (or another build error):"
+    grep -E "undefined symbol|referenced by|^error(\[|:)" "$out/nopanic.err" | head -n 20 >&2 || cat "$out/nopanic.err" >&2
+    # Link a variant whose panic handler exists, and list the source lines that call into core's panics.
+    if cargo build -q --release -p glowcheck-nopanic --target thumbv6m-none-eabi --features locate 2>/dev/null; then
+        echo "surviving panic calls (innermost source line, count):" >&2
+        "$objdump" -d -l --demangle --no-show-raw-insn \
+            "$CARGO_TARGET_DIR/thumbv6m-none-eabi/release/glowcheck-nopanic" | awk '
+            /^[0-9a-f]+ <.*>:$/ { fn = $0; next }
+            /^; \/.*:[0-9]+/ { loc = $2; next }
+            fn !~ /<core::/ && /\tb[a-z.]*\t0x[0-9a-f]+ <core::(panicking|option::unwrap_failed|option::expect_failed|result::unwrap_failed|slice::index::|str::slice_error_fail)/ {
+                n[loc]++ }
+            END { for (l in n) printf "  %s (%d)\n", l, n[l] }' | sort >&2
+    fi
+fi
+
+# ---------------------------------------------------------------------------------------------------
+stage "soft-float symbols (thumbv6m release images)"
+# Soft-float arithmetic, comparison and conversion routines of compiler-builtins/libgcc, and the
+# common libm entry points: none may be in a float-free image.
+float_re='^(__aeabi_(f|d|[ul]?i2[fd]|[ul]?l2[fd]|h2f|f2h)|__(add|sub|mul|div|neg|pow)[sdhtx]f[23]|__float|__fix|__extend|__trunc|__(eq|ne|lt|le|gt|ge|un|cmp)[sdht]f2|__.*[sdht]f2$|__.*[sdht]f3$|(sqrt|cbrt|pow|exp|exp2|log|log2|log10|sin|cos|tan|atan2?|fabs|floor|ceil|round|fma|fmod|hypot)f?$)'
+for elf in "$CARGO_TARGET_DIR/thumbv6m-none-eabi/release/glowcheck-qemu" \
+           "$CARGO_TARGET_DIR/thumbv6m-none-eabi/release/glowcheck-nopanic"; do
+    [ -f "$elf" ] || { fail "missing image $elf"; continue; }
+    syms="$("$nm" "$elf" | awk '{print $NF}' | sort -u)"
+    bad="$(grep -E "$float_re" <<<"$syms" || true)"
+    if [ -z "$bad" ]; then
+        ok "$(basename "$elf"): no soft-float symbols ($(wc -l <<<"$syms") symbols checked)"
+    else
+        fail "$(basename "$elf") contains soft-float symbols: $(tr '\n' ' ' <<<"$bad")"
+    fi
+done
+m4f="$CARGO_TARGET_DIR/thumbv7em-none-eabihf/release/glowcheck-qemu"
+if [ -f "$m4f" ]; then
+    fpu="$("$objdump" -d --no-show-raw-insn "$m4f" | grep -cE '\bv(add|sub|mul|div|cvt[a-z]*|sqrt|fm[as]|fnm[as]|neg|abs|cmpe?|nmul|nml[as]|ml[as])\.f(16|32|64)' || true)"
+    [ "$fpu" = 0 ] && ok "glowcheck-qemu (thumbv7em-none-eabihf): no FPU arithmetic instructions" \
+        || fail "glowcheck-qemu (thumbv7em-none-eabihf) has $fpu FPU arithmetic instructions"
+fi
+
+# ---------------------------------------------------------------------------------------------------
+stage "image sizes (bytes)"
+# Flash = everything loaded from flash (vector table, code, constants, .data's initial values);
+# static RAM = .data + .bss + .uninit. The stack is not included (it grows down from the RAM top).
+printf '%-24s %-22s %10s %16s\n' image target flash_bytes static_ram_bytes | tee "$out/sizes.txt"
+for t in $targets thumbv6m-none-eabi-nopanic; do
+    case "$t" in
+        *-nopanic) tt="${t%-nopanic}"; name=glowcheck-nopanic ;;
+        *) tt="$t"; name=glowcheck-qemu ;;
+    esac
+    elf="$CARGO_TARGET_DIR/$tt/release/$name"
+    [ -f "$elf" ] || continue
+    "$size" -A "$elf" | awk -v name="$name" -v t="$tt" '
+        $1 == ".vector_table" || $1 == ".text" || $1 == ".rodata" || $1 == ".data" { flash += $2 }
+        $1 == ".data" || $1 == ".bss" || $1 == ".uninit" { ram += $2 }
+        END { printf "%-24s %-22s %10d %16d\n", name, t, flash, ram }' | tee -a "$out/sizes.txt"
+done
+
+# ---------------------------------------------------------------------------------------------------
+echo
+if [ "$failures" = 0 ]; then
+    echo "boards: all checks passed"
+else
+    echo "boards: $failures check(s) failed" >&2
+    exit 1
+fi
