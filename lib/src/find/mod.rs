@@ -667,4 +667,22 @@ mod tests {
             run(&FindConfig::DEFAULT, &frame)
         );
     }
+
+    #[test]
+    fn extreme_values_do_not_overflow() {
+        let mut rng = Rng::new(17);
+        let frame: std::vec::Vec<i32> = (0..512)
+            .map(|i| match i % 5 {
+                0 => i32::MAX,
+                1 => i32::MIN,
+                _ => (rng.gauss(1 << 46)).clamp(i32::MIN as i64, i32::MAX as i64) as i32,
+            })
+            .collect();
+        let (_, rep) = run(&FindConfig::DEFAULT, &frame);
+        assert_eq!(rep.pixels, 512);
+        let ramp: std::vec::Vec<i32> = (0..4096i64)
+            .map(|i| (i * 524_000 - (1 << 31)).clamp(i32::MIN as i64, i32::MAX as i64) as i32)
+            .collect();
+        run(&FindConfig::DEFAULT, &ramp);
+    }
 }

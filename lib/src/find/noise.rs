@@ -140,7 +140,8 @@ fn block_stats(frame: &[i32], flag: &[u8], mask: &LineMask, start: usize, end: u
     // var = mean(d2²) / 6, un-clipped, in Q8.
     let var_q8 = div_round_i128(ss * CLIP_VAR_FIX_Q16 * 256, cnt * 6 * 65536);
     Block {
-        var_q8: var_q8.clamp(0, i128::from(i64::MAX)) as i64,
+        // Capped at 2^50 (σ ≈ 2^21 frame units) so the regression sums stay inside i128.
+        var_q8: var_q8.clamp(0, 1 << 50) as i64,
         level,
         used: true,
     }
@@ -185,7 +186,11 @@ fn fit(blocks: &mut [Block], known: Option<u32>) -> NoiseModel {
         for b in blocks.iter().filter(|b| b.used) {
             let pred = i128::from(model.var_q8(b.level)).max(1);
             // w in Q16, ≤ 2^16 · (vref/pred)², capped.
-            let w = ((vref << 16) / pred * vref / pred).clamp(1, 1 << 24);
+            let w = ((vref << 16) / pred)
+                .saturating_mul(vref)
+                .checked_div(pred)
+                .unwrap_or(1)
+                .clamp(1, 1 << 24);
             let x = i128::from(b.level);
             let y = i128::from(b.var_q8);
             sw += w;
@@ -199,24 +204,31 @@ fn fit(blocks: &mut [Block], known: Option<u32>) -> NoiseModel {
         if sw == 0 {
             break;
         }
-        let det = sw * sxx - sx * sx;
+        // Extreme frames (values near the i32 limits) could overflow the products: then κ stays 0.
+        let det = sw
+            .checked_mul(sxx)
+            .and_then(|a| sx.checked_mul(sx).and_then(|b| a.checked_sub(b)))
+            .unwrap_or(0);
+        let num = sw
+            .checked_mul(sxy)
+            .and_then(|a| sx.checked_mul(sy).and_then(|b| a.checked_sub(b)))
+            .and_then(|v| v.checked_mul(256));
         // Shot noise is only separable from the floor when the continuum spans a useful range of levels.
         let mean_level = div_round_i128(sx, sw).max(0);
         let span = i128::from(lmax.saturating_sub(lmin));
-        let separable = det > 0 && span * 4 > mean_level && span > 0;
-        if separable {
+        let separable = det > 0 && span.saturating_mul(4) > mean_level && span > 0;
+        if let (true, Some(num)) = (separable, num) {
             // κ in var_q8 per level unit → Q16 of var per unit: × 2^8.
-            let k_q16 = div_round_i128((sw * sxy - sx * sy) << 8, det);
-            let k_q16 = k_q16.clamp(0, i128::from(u32::MAX));
-            let floor = div_round_i128(sy - ((k_q16 * sx) >> 8), sw);
+            let k_q16 = div_round_i128(num, det).clamp(0, i128::from(u32::MAX));
+            let floor = div_round_i128(sy.saturating_sub(k_q16.saturating_mul(sx) >> 8), sw);
             if floor >= 0 {
                 model.shot_var_per_unit_q16 = k_q16 as u32;
                 model.floor_var_q8 = floor.clamp(0, i128::from(i64::MAX)) as i64;
                 continue;
             }
             // Negative floor: all noise is shot noise, through the origin.
-            if sxx > 0 {
-                let k = div_round_i128(sxy << 8, sxx).clamp(0, i128::from(u32::MAX));
+            if let (true, Some(n0)) = (sxx > 0, sxy.checked_mul(256)) {
+                let k = div_round_i128(n0, sxx).clamp(0, i128::from(u32::MAX));
                 model.shot_var_per_unit_q16 = k as u32;
                 model.floor_var_q8 = 0;
                 continue;
