@@ -30,14 +30,14 @@ stage() {
     local name="$1"
     shift
     local t0=$SECONDS
-    printf '\n==== %s ====\n' "$name"
+    printf '\n######## stage: %s\n' "$name"
     if "$@"; then
         passed=$((passed + 1))
-        printf -- '---- %s: passed (%ds)\n' "$name" $((SECONDS - t0))
+        printf '######## passed: %s (%ds)\n' "$name" $((SECONDS - t0))
     else
         failed=$((failed + 1))
         failed_names+=("$name")
-        printf -- '---- %s: FAILED (%ds)\n' "$name" $((SECONDS - t0))
+        printf '######## FAILED: %s (%ds)\n' "$name" $((SECONDS - t0))
     fi
 }
 
@@ -207,9 +207,9 @@ fi
 
 elapsed=$((SECONDS - start_all))
 echo
-if [ "$failed" -gt 0 ]; then
-    echo "failed stages: ${failed_names[*]}"
-fi
+for n in "${failed_names[@]}"; do
+    echo "failed stage: $n"
+done
 echo "total time ${elapsed}s; set-up logs in $LOG_DIR"
 echo "$passed passed, $failed failed"
 [ "$failed" -eq 0 ]
