@@ -11,6 +11,8 @@
 //! - [`condition`]: raw sensor frame → clean, dark-corrected counts.
 //! - [`find`]: baseline removal, peak detection and sub-pixel centroids.
 //! - [`calibrate`]: the pixel → wavelength map: identification of lines, fit, uncertainty.
+//! - [`matching`]: predicted lines to peaks, isotope shares, unexplained peaks.
+//! - [`judge`]: tube profiles, reasons and the verdict.
 #![cfg_attr(not(test), no_std)]
 #![forbid(unsafe_code)]
 #![deny(missing_docs)]
@@ -19,4 +21,6 @@ pub mod calibrate;
 pub mod condition;
 pub mod find;
 pub mod fixed;
+pub mod judge;
+pub mod matching;
 pub mod predict;

@@ -1,0 +1,116 @@
+//! Features: predicted lines that the instrument cannot tell apart count as one.
+//!
+//! Hα and Dα lie 0.18 nm apart; on a sensor with a 1 nm line width they form one peak whose centre
+//! depends on the mix. Grouping them keeps the matcher from inventing a second peak and lets the
+//! isotope analysis read the mix off the blend.
+use super::catalogue::CatalogueLine;
+use super::error::MatchError;
+use crate::calibrate::WavelengthMap;
+use crate::predict::Nucleus;
+use heapless::Vec;
+
+/// Most features per instrument and profile.
+pub const MAX_FEATURES: usize = 40;
+/// Most predicted lines in one feature.
+pub const MAX_MEMBERS: usize = 4;
+
+/// A group of predicted lines closer together than the instrument resolves.
+#[derive(Clone, Debug, PartialEq, Eq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub struct Feature {
+    /// Catalogue indices of the member lines, by wavelength.
+    pub members: Vec<u8, MAX_MEMBERS>,
+    /// Catalogue index of the member with the largest expected photon rate.
+    pub primary: u8,
+    /// Expected position: members weighted by expected photon rate (femtometres).
+    pub predicted_fm: i64,
+    /// The same on the sensor (px, Q16).
+    pub predicted_px_q16: i32,
+    /// Expected photon rate of the whole feature (relative, as the catalogue's × share in ‰).
+    pub expected: u64,
+}
+
+/// Expected share (‰) of a nucleus from the priors; nuclei not listed get 0.
+pub fn prior_share(priors: &[(Nucleus, u16)], nucleus: Nucleus) -> u16 {
+    priors
+        .iter()
+        .find(|(n, _)| *n == nucleus)
+        .map_or(0, |(_, s)| *s)
+}
+
+/// Groups the catalogue (sorted by wavelength) into features: a line joins the previous feature when
+/// its pixel is closer than `merge_px_q16` to that feature's last member.
+///
+/// Work: one pass over ≤ 48 lines, each one map inversion (≤ 12 Newton steps).
+pub fn group(
+    catalogue: &[CatalogueLine],
+    map: &WavelengthMap,
+    priors: &[(Nucleus, u16)],
+    merge_px_q16: i32,
+) -> Result<Vec<Feature, MAX_FEATURES>, MatchError> {
+    let mut out: Vec<Feature, MAX_FEATURES> = Vec::new();
+    let mut last_px: Option<i32> = None;
+    for (i, line) in catalogue.iter().enumerate() {
+        let px = map.pixel_q16(line.wavelength_fm)?;
+        let join = last_px.is_some_and(|l| (px - l).abs() < merge_px_q16);
+        last_px = Some(px);
+        let idx = i as u8;
+        if join {
+            if let Some(f) = out.last_mut() {
+                if f.members.push(idx).is_ok() {
+                    continue;
+                }
+            }
+        }
+        let mut members = Vec::new();
+        let _ = members.push(idx);
+        let feature = Feature {
+            members,
+            primary: idx,
+            predicted_fm: line.wavelength_fm,
+            predicted_px_q16: px,
+            expected: 0,
+        };
+        if out.push(feature).is_err() {
+            break;
+        }
+    }
+    for f in out.iter_mut() {
+        settle(f, catalogue, map, priors)?;
+    }
+    Ok(out)
+}
+
+/// Recomputes a feature's expected position, primary and rate from per-nucleus shares (‰).
+pub fn settle(
+    f: &mut Feature,
+    catalogue: &[CatalogueLine],
+    map: &WavelengthMap,
+    shares: &[(Nucleus, u16)],
+) -> Result<(), MatchError> {
+    let mut total: u128 = 0;
+    let mut sum: i128 = 0;
+    let mut best = (0u64, f.primary);
+    let mut plain: i128 = 0;
+    for &m in f.members.iter() {
+        let Some(line) = catalogue.get(m as usize) else {
+            continue;
+        };
+        let w = line.strength as u64 * prior_share(shares, line.nucleus) as u64;
+        total += w as u128;
+        sum += w as i128 * line.wavelength_fm as i128;
+        plain += line.wavelength_fm as i128;
+        if w > best.0 || best.0 == 0 && m == f.primary {
+            best = (w, m);
+        }
+    }
+    f.predicted_fm = if total > 0 {
+        (sum / total as i128) as i64
+    } else {
+        (plain / f.members.len().max(1) as i128) as i64
+    };
+    f.primary = best.1;
+    f.expected = total as u64;
+    f.predicted_px_q16 = map.pixel_q16(f.predicted_fm)?;
+    Ok(())
+}

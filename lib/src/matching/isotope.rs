@@ -1,0 +1,373 @@
+//! How much of the hydrogen light comes from each isotope.
+//!
+//! H, D and T lines differ by almost a pure scale factor (2.7 × 10⁻⁴ from H to D), which a wrong
+//! dispersion mimics exactly. Two ways out, and an honest "not determinable" when neither applies:
+//! - **Profile**: when the pair is resolved or partly resolved (separation ≳ ½ FWHM), fit two copies of
+//!   the instrument line shape with the known separation to the frame: the share is B / (A + B), whatever
+//!   the absolute scale. A common shift of both is searched, so this works on a self-calibrated map too.
+//! - **Position**: when unresolved, the blend centre moves linearly with the share. This needs a map
+//!   that does not come from the tube itself and is precise well below the shift; its stated
+//!   uncertainty enters as a systematic term common to all lines.
+use crate::find::math::exp_neg_q16;
+use crate::fixed::{isqrt_u128, mul_div_i128};
+
+/// Largest share uncertainty (ppm) still reported as a determination: 15 percentage points.
+pub const MAX_SHARE_SIGMA_PPM: u32 = 150_000;
+
+/// A share estimate of nucleus b against nucleus a of one element.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub struct ShareEstimate {
+    /// Share of b in the pair's photons, ppm; may stray slightly outside 0 … 10⁶ with noise.
+    pub share_b_ppm: i32,
+    /// Its 1-σ uncertainty, ppm.
+    pub sigma_ppm: u32,
+}
+
+/// One unresolved blend seen by the position method.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub struct BlendReading {
+    /// Measured blend wavelength, femtometres.
+    pub measured_fm: i64,
+    /// Its random uncertainty (centroid and fit), femtometres.
+    pub sigma_fm: u64,
+    /// Wavelength of the line of nucleus a, femtometres.
+    pub a_fm: i64,
+    /// Wavelength of the line of nucleus b, femtometres.
+    pub b_fm: i64,
+}
+
+/// Share from blend positions; `systematic_fm` is the map's own uncertainty, common to every line.
+/// `None` when no reading has a usable shift.
+///
+/// Work: one pass over the readings.
+pub fn share_by_position(readings: &[BlendReading], systematic_fm: u64) -> Option<ShareEstimate> {
+    let mut sum_w: i128 = 0;
+    let mut sum_wx: i128 = 0;
+    let mut sum_w_delta: i128 = 0;
+    for r in readings {
+        let delta = (r.b_fm - r.a_fm) as i128;
+        if delta == 0 {
+            continue;
+        }
+        let x_ppm = mul_div_i128((r.measured_fm - r.a_fm) as i128, 1_000_000, delta)?;
+        let s_ppm = mul_div_i128(r.sigma_fm.max(1) as i128, 1_000_000, delta.abs())?.max(1);
+        let w = mul_div_i128(1_000_000_000_000_000_000, 1, s_ppm * s_ppm)?.max(1);
+        sum_w += w;
+        sum_wx += w * x_ppm;
+        sum_w_delta += w * delta.abs();
+    }
+    if sum_w == 0 {
+        return None;
+    }
+    let share = sum_wx / sum_w;
+    let var_stat = mul_div_i128(1_000_000_000_000_000_000, 1, sum_w)?;
+    let mean_delta = (sum_w_delta / sum_w).max(1);
+    let sys_ppm = mul_div_i128(systematic_fm as i128, 1_000_000, mean_delta)?;
+    let var = var_stat + sys_ppm * sys_ppm;
+    Some(ShareEstimate {
+        share_b_ppm: share.clamp(i32::MIN as i128, i32::MAX as i128) as i32,
+        sigma_ppm: isqrt_u128(var.max(0) as u128).min(u32::MAX as u128) as u32,
+    })
+}
+
+/// The frame around a pair and the line shape to fit it with.
+pub struct PairWindow<'a> {
+    /// Frame values (frame units).
+    pub frame: &'a [i32],
+    /// Baseline under them (same units and length).
+    pub base: &'a [i32],
+    /// Expected centre of the a line (px, Q16).
+    pub a_px_q16: i32,
+    /// Expected centre of the b line (px, Q16).
+    pub b_px_q16: i32,
+    /// Gaussian σ of the instrument line shape (px, Q16).
+    pub sigma_px_q16: i32,
+    /// Common shift searched, ± this (px, Q16); steps of 1/16 px, at most ± 4 px.
+    pub shift_range_px_q16: i32,
+}
+
+/// Share from a two-Gaussian fit with fixed separation. `None` when the frame does not constrain it
+/// (no signal, singular fit).
+///
+/// Work: ≤ 129 + 33 shift steps × ≤ 64 px × 2 exponentials, then one 3 × 3 Fisher pass.
+pub fn share_by_profile(w: &PairWindow<'_>) -> Option<ShareEstimate> {
+    let sigma = w.sigma_px_q16.max(1 << 12) as i64;
+    let lo_c = w.a_px_q16.min(w.b_px_q16) as i64;
+    let hi_c = w.a_px_q16.max(w.b_px_q16) as i64;
+    let reach = 3 * sigma + w.shift_range_px_q16.unsigned_abs() as i64;
+    let n = w.frame.len().min(w.base.len()) as i64;
+    let first = ((lo_c - reach) >> 16).clamp(0, n.saturating_sub(1));
+    let last = ((hi_c + reach + 65_535) >> 16)
+        .clamp(0, n.saturating_sub(1))
+        .min(first + 63);
+    if last - first < 4 {
+        return None;
+    }
+    let range = (w.shift_range_px_q16 as i64).clamp(0, 4 << 16);
+    let steps = (2 * range / 4096) as i32;
+    let mut best: Option<(i128, Sums, i64)> = None;
+    for s in 0..=steps {
+        let shift = -range + s as i64 * 4096;
+        let sums = sums_at(w, first, last, shift, sigma)?;
+        let chi = sums.chi2();
+        if best.as_ref().is_none_or(|(c, _, _)| chi < *c) {
+            best = Some((chi, sums, shift));
+        }
+    }
+    // Refine the shift on a 1/256-px grid around the best coarse step: an off-grid shift would
+    // otherwise leak into the share (share × separation mimics a shift).
+    let (_, _, coarse) = best?;
+    if range > 0 {
+        for s in -16..=16i64 {
+            let shift = coarse + s * 256;
+            let sums = sums_at(w, first, last, shift, sigma)?;
+            let chi = sums.chi2();
+            if best.as_ref().is_none_or(|(c, _, _)| chi < *c) {
+                best = Some((chi, sums, shift));
+            }
+        }
+    }
+    let (chi2, s, shift) = best?;
+    let (a, b) = s.amplitudes_q8()?;
+    let n = last - first + 1;
+    let total = a + b;
+    if total <= 0 || n <= 3 {
+        return None;
+    }
+    let s2 = (chi2.max(0) / (n as i128 - 3)).max(1);
+    // The shift is a third parameter when it is searched: its freedom is what makes an unresolved
+    // pair undeterminable, so the covariance comes from the full 3 × 3 Fisher matrix.
+    let f = fisher_at(w, first, last, shift, sigma, a >> 8, b >> 8, range > 0)?;
+    // Variances in Q16 (the square of the amplitudes' Q8).
+    let (var_a, var_b, cov_ab) = amplitude_covariance(&f, s2 << 16)?;
+    let share = mul_div_i128(b, 1_000_000, total)?;
+    let num = b * b * var_a + a * a * var_b - 2 * a * b * cov_ab;
+    let t2 = total * total;
+    let var_ppm = mul_div_i128(mul_div_i128(num, 1_000_000, t2)?, 1_000_000, t2)?;
+    Some(ShareEstimate {
+        share_b_ppm: share.clamp(i32::MIN as i128, i32::MAX as i128) as i32,
+        sigma_ppm: isqrt_u128(var_ppm.max(0) as u128).min(u32::MAX as u128) as u32,
+    })
+}
+
+/// JᵀJ for the model A·g_a + B·g_b shifted by δ, columns g_a, g_b (Q15) and ∂/∂δ (frame units/px,
+/// Q15); with `with_shift` false the third column is left out (identity row).
+#[allow(clippy::too_many_arguments)]
+fn fisher_at(
+    w: &PairWindow<'_>,
+    first: i64,
+    last: i64,
+    shift: i64,
+    sigma: i64,
+    a: i128,
+    b: i128,
+    with_shift: bool,
+) -> Option<[[i128; 3]; 3]> {
+    let mut f = [[0i128; 3]; 3];
+    let s2 = (sigma * sigma).max(1) as i128;
+    for i in first..=last {
+        let p = i << 16;
+        let (ca, cb) = (w.a_px_q16 as i64 + shift, w.b_px_q16 as i64 + shift);
+        let ga = gauss_q15(p, ca, sigma) as i128;
+        let gb = gauss_q15(p, cb, sigma) as i128;
+        // ∂g/∂c = g (p − c) / σ² (per px): Q15 × Q16 / Q32 × 2^16 keeps Q15.
+        let da = (ga * (p - ca) as i128 * 65_536) / s2;
+        let db = (gb * (p - cb) as i128 * 65_536) / s2;
+        let m = if with_shift { a * da + b * db } else { 0 };
+        let col = [ga, gb, m];
+        for (r, row) in f.iter_mut().enumerate() {
+            for (c, cell) in row.iter_mut().enumerate() {
+                *cell = cell.checked_add(col[r].checked_mul(col[c])?)?;
+            }
+        }
+    }
+    if !with_shift {
+        f[2][2] = 1;
+    }
+    let _ = w.frame.get(last as usize)?;
+    Some(f)
+}
+
+/// (Var A, Var B, Cov AB) = s² (JᵀJ)⁻¹ restricted to the amplitudes, through the correlation form
+/// (columns scaled to unit norm, Q40) so that a nearly singular matrix keeps enough digits: an
+/// unresolved pair has a determinant near 10⁻⁸ and must not come out larger than it is.
+fn amplitude_covariance(f: &[[i128; 3]; 3], s2: i128) -> Option<(i128, i128, i128)> {
+    const ONE: i128 = 1 << 40;
+    let d: [i128; 3] = [
+        isqrt_u128(f[0][0].max(1) as u128) as i128,
+        isqrt_u128(f[1][1].max(1) as u128) as i128,
+        isqrt_u128(f[2][2].max(1) as u128) as i128,
+    ];
+    let mut c = [[0i128; 3]; 3];
+    for (r, row) in c.iter_mut().enumerate() {
+        for (k, cell) in row.iter_mut().enumerate() {
+            *cell = mul_div_i128(f[r][k], ONE, d[r].max(1) * d[k].max(1))?;
+        }
+    }
+    let q = |x: i128, y: i128| mul_div_i128(x, y, ONE);
+    let cof = |r0: usize, r1: usize, c0: usize, c1: usize| -> Option<i128> {
+        Some(q(c[r0][c0], c[r1][c1])? - q(c[r0][c1], c[r1][c0])?)
+    };
+    let adj00 = cof(1, 2, 1, 2)?;
+    let adj11 = cof(0, 2, 0, 2)?;
+    let adj01 = -(q(c[0][1], c[2][2])? - q(c[0][2], c[2][1])?);
+    let det = q(c[0][0], adj00)? - q(c[0][1], cof(1, 2, 0, 2)?)? + q(c[0][2], cof(1, 2, 0, 1)?)?;
+    // Below 2^-30 the pair is degenerate at this precision.
+    if det <= ONE >> 30 {
+        return None;
+    }
+    // (C⁻¹)_ij in Q40, then (F⁻¹)_ij = (C⁻¹)_ij / (d_i d_j).
+    let inv = |adj: i128| mul_div_i128(adj, ONE, det);
+    let var_a = mul_div_i128(s2, inv(adj00)?, d[0] * d[0] * (ONE >> 30))?;
+    let var_b = mul_div_i128(s2, inv(adj11)?, d[1] * d[1] * (ONE >> 30))?;
+    let cov_ab = mul_div_i128(s2, inv(adj01)?, d[0] * d[1] * (ONE >> 30))?;
+    Some((var_a, var_b, cov_ab))
+}
+
+/// Sums of the linear 2 × 2 problem at one shift. g in Q15, r in frame units.
+#[derive(Clone, Copy)]
+struct Sums {
+    saa: i128,
+    sab: i128,
+    sbb: i128,
+    sra: i128,
+    srb: i128,
+    srr: i128,
+}
+
+fn gauss_q15(p_q16: i64, c_q16: i64, sigma_q16: i64) -> i64 {
+    let d = (p_q16 - c_q16).clamp(-(1 << 22), 1 << 22);
+    let x = ((d * d) << 15) / (sigma_q16 * sigma_q16).max(1); // (d/σ)²/2 in Q16
+    exp_neg_q16(x) >> 15
+}
+
+fn sums_at(w: &PairWindow<'_>, first: i64, last: i64, shift: i64, sigma: i64) -> Option<Sums> {
+    let mut s = Sums {
+        saa: 0,
+        sab: 0,
+        sbb: 0,
+        sra: 0,
+        srb: 0,
+        srr: 0,
+    };
+    for i in first..=last {
+        let r = (*w.frame.get(i as usize)? as i128) - (*w.base.get(i as usize)? as i128);
+        let p = i << 16;
+        let ga = gauss_q15(p, w.a_px_q16 as i64 + shift, sigma) as i128;
+        let gb = gauss_q15(p, w.b_px_q16 as i64 + shift, sigma) as i128;
+        s.saa += ga * ga;
+        s.sab += ga * gb;
+        s.sbb += gb * gb;
+        s.sra += r * ga;
+        s.srb += r * gb;
+        s.srr += r * r;
+    }
+    Some(s)
+}
+
+impl Sums {
+    fn det(&self) -> i128 {
+        self.saa * self.sbb - self.sab * self.sab
+    }
+
+    /// Amplitudes A, B of the least-squares solution, frame units in Q8.
+    fn amplitudes_q8(&self) -> Option<(i128, i128)> {
+        let det = self.det();
+        if det <= 0 {
+            return None;
+        }
+        let a = mul_div_i128(self.sbb * self.sra - self.sab * self.srb, 1 << 23, det)?;
+        let b = mul_div_i128(self.saa * self.srb - self.sab * self.sra, 1 << 23, det)?;
+        Some((a, b))
+    }
+
+    /// Residual sum of squares after the fit (frame units²), from the exact projection
+    /// Σr² − (rᵀG)(GᵀG)⁻¹(Gᵀr) rather than from rounded amplitudes; `i128::MAX` when singular.
+    fn chi2(&self) -> i128 {
+        let det = self.det();
+        if det <= 0 {
+            return i128::MAX;
+        }
+        let ia = self.sbb * self.sra - self.sab * self.srb;
+        let ib = self.saa * self.srb - self.sab * self.sra;
+        let proj = mul_div_i128(self.sra, ia, det).zip(mul_div_i128(self.srb, ib, det));
+        match proj {
+            Some((x, y)) => self.srr - x - y,
+            None => i128::MAX,
+        }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// Two Gaussians of σ = 1.2 px, 2.4 px apart, heights 3000 (a) and 1000 (b), on a flat base.
+    fn frame(a_h: i64, b_h: i64, sep_q16: i64, noise: i32) -> ([i32; 80], [i32; 80]) {
+        let mut f = [0i32; 80];
+        let base = [500i32; 80];
+        let s = 78_643; // 1.2 px
+        for (i, v) in f.iter_mut().enumerate() {
+            let p = (i as i64) << 16;
+            let a = a_h * gauss_q15(p, 40 << 16, s) >> 15;
+            let b = b_h * gauss_q15(p, (40 << 16) + sep_q16, s) >> 15;
+            *v = (500 + a + b) as i32 + noise * [3, -2, 1, -4, 2, 0, -1, 4, -3, 0, 2][i % 11];
+        }
+        (f, base)
+    }
+
+    #[test]
+    fn resolved_pair_gives_its_share() {
+        let (f, base) = frame(3000, 1000, 157_286, 1); // 2.4 px
+        let w = PairWindow {
+            frame: &f,
+            base: &base,
+            a_px_q16: (40 << 16) + 20_000,
+            b_px_q16: (40 << 16) + 20_000 + 157_286,
+            sigma_px_q16: 78_643,
+            shift_range_px_q16: 1 << 16,
+        };
+        let e = share_by_profile(&w).unwrap();
+        assert!((e.share_b_ppm - 250_000).abs() < 10_000, "{e:?}");
+        assert!(e.sigma_ppm < 10_000, "{e:?}");
+    }
+
+    #[test]
+    fn unresolved_pair_without_a_map_is_not_determinable() {
+        // 0.1 px apart at SNR ~100: the fit cannot split them; the uncertainty says so.
+        let (f, base) = frame(3000, 1000, 6_554, 10);
+        let w = PairWindow {
+            frame: &f,
+            base: &base,
+            a_px_q16: 40 << 16,
+            b_px_q16: (40 << 16) + 6_554,
+            sigma_px_q16: 78_643,
+            shift_range_px_q16: 1 << 16,
+        };
+        let e = share_by_profile(&w);
+        assert!(e.is_none_or(|e| e.sigma_ppm > MAX_SHARE_SIGMA_PPM), "{e:?}");
+    }
+
+    #[test]
+    fn blend_positions_give_the_share_with_a_good_map() {
+        // Hα/Dα and Hβ/Dβ blends at a 70 % D share, measured to 2 pm with a 3 pm map.
+        let r = [
+            BlendReading {
+                measured_fm: 656_279_000 - 126_900,
+                sigma_fm: 2_000,
+                a_fm: 656_279_000,
+                b_fm: 656_100_000,
+            },
+            BlendReading {
+                measured_fm: 486_133_000 - 92_400,
+                sigma_fm: 2_000,
+                a_fm: 486_133_000,
+                b_fm: 486_001_000,
+            },
+        ];
+        let e = share_by_position(&r, 3_000).unwrap();
+        assert!((e.share_b_ppm - 705_000).abs() < 10_000, "{e:?}");
+        assert!(e.sigma_ppm > 10_000 && e.sigma_ppm < 40_000, "{e:?}");
+    }
+}
