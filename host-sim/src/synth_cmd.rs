@@ -63,7 +63,7 @@ pub struct Args {
     /// Output trace file (glowtrace format); "-" writes to standard output.
     #[arg(long)]
     out: PathBuf,
-    /// Nominal wavelength map written to the trace: c0,c1[,c2[,c3]] with λ(p) = Σ ck·p^k in nm.
+    /// Nominal wavelength map written to the trace: c0,c1 and optionally c2,c3, with λ(p) = Σ ck·p^k in nm.
     #[arg(long, default_value = DEFAULT_MAP, value_name = "C0,C1,..")]
     wavelength_map: String,
     /// True wavelength map of the simulated instrument, if it differs from the nominal one.
