@@ -147,12 +147,14 @@ else
     grep -E "undefined symbol|referenced by|^error(\[|:)" "$out/nopanic.err" | head -n 20 >&2 || cat "$out/nopanic.err" >&2
     # Name the lib modules that hold a panic path (one build each), then link a variant whose panic
     # handler exists and list the source lines next to the calls into core's panic functions.
-    for m in predict fixed condition find calibrate; do
+    for m in predict fixed condition find calibrate judge; do
         if cargo build -q --release -p glowcheck-nopanic --target thumbv6m-none-eabi \
-            --no-default-features --features "$m" >/dev/null 2>&1; then
+            --no-default-features --features "$m" >"$out/nopanic-$m.err" 2>&1; then
             echo "  lib::$m: no panic path" >&2
-        else
+        elif grep -q "undefined symbol: glowcheck_nopanic_proof_failed" "$out/nopanic-$m.err"; then
             echo "  lib::$m: PANIC PATH(S)" >&2
+        else
+            echo "  lib::$m: build error, see $out/nopanic-$m.err" >&2
         fi
     done
     if cargo build -q --release -p glowcheck-nopanic --target thumbv6m-none-eabi --features locate 2>/dev/null; then
