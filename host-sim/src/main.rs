@@ -2,6 +2,7 @@
 use clap::{Parser, Subcommand};
 use std::process::ExitCode;
 
+mod labels;
 mod lines_cmd;
 mod peaks_cmd;
 mod sensor;

@@ -13,11 +13,14 @@
 //! - [`calibrate`]: the pixel → wavelength map: identification of lines, fit, uncertainty.
 //! - [`matching`]: predicted lines to peaks, isotope shares, unexplained peaks.
 //! - [`judge`]: tube profiles, reasons and the verdict.
+//!
+//! [`check::Checker`] runs them all: one configuration value, one call per frame, one report.
 #![cfg_attr(not(test), no_std)]
 #![forbid(unsafe_code)]
 #![deny(missing_docs)]
 
 pub mod calibrate;
+pub mod check;
 pub mod condition;
 pub mod find;
 pub mod fixed;

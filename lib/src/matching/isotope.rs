@@ -310,8 +310,8 @@ mod tests {
         let s = 78_643; // 1.2 px
         for (i, v) in f.iter_mut().enumerate() {
             let p = (i as i64) << 16;
-            let a = a_h * gauss_q15(p, 40 << 16, s) >> 15;
-            let b = b_h * gauss_q15(p, (40 << 16) + sep_q16, s) >> 15;
+            let a = (a_h * gauss_q15(p, 40 << 16, s)) >> 15;
+            let b = (b_h * gauss_q15(p, (40 << 16) + sep_q16, s)) >> 15;
             *v = (500 + a + b) as i32 + noise * [3, -2, 1, -4, 2, 0, -1, 4, -3, 0, 2][i % 11];
         }
         (f, base)

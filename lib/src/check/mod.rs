@@ -1,0 +1,21 @@
+//! Check: the whole job for one frame behind one call.
+//!
+//! ```ignore
+//! let checker = Checker::new(config)?;                 // predicts the lines once
+//! let mut buffers = Buffers::<2048>::new();            // or a `static`
+//! let mut report = Report::new();
+//! checker.check(FrameSum::single(&raw)?, None, None, buffers.workspace(2048), &mut report)?;
+//! match report.verdict { Verdict::Pass => led_green(), _ => show(&report.reasons) }
+//! ```
+mod config;
+mod error;
+mod pipeline;
+mod workspace;
+
+pub use config::{Config, StoredMap};
+pub use error::CheckError;
+pub use pipeline::Checker;
+pub use workspace::{Buffers, Workspace};
+
+#[cfg(test)]
+mod scenario_tests;

@@ -1,0 +1,795 @@
+//! The whole job for one frame: condition → find → calibrate → match → judge, into one [`Report`].
+use super::config::Config;
+use super::error::CheckError;
+use super::workspace::Workspace;
+use crate::calibrate::{
+    identify, IdentifyConfig, ReferenceLine, WavelengthMap, MAX_REFERENCE_LINES,
+};
+use crate::condition::{condition_frame, FrameSum, GainTable};
+use crate::find::{find_peaks, Peak, PeakList};
+use crate::judge::{MatchedLine, Mode, Reason, Report, SpeciesShare, UnexplainedPeak};
+use crate::matching::assign::{assign, Pair};
+use crate::matching::catalogue::{build, CatalogueLine, MAX_NUCLEI};
+use crate::matching::feature::{group, prior_share, settle, Feature, MAX_FEATURES};
+use crate::matching::isotope::{
+    share_by_position, share_by_profile, BlendReading, PairWindow, ShareEstimate,
+};
+use crate::matching::markers::nearest_marker;
+use crate::matching::{MAX_CATALOGUE, MAX_SHARE_SIGMA_PPM};
+use crate::predict::Nucleus;
+use heapless::Vec;
+
+/// FWHM / σ of a Gaussian, 2·√(2 ln 2), in Q16.
+const FWHM_PER_SIGMA_Q16: i64 = 154_325;
+
+/// A configured checker: the predicted lines for its sensor and profile are computed once here.
+pub struct Checker {
+    cfg: Config,
+    priors: Vec<(Nucleus, u16), MAX_NUCLEI>,
+    catalogue: Vec<CatalogueLine, MAX_CATALOGUE>,
+    pair: Option<(Nucleus, Nucleus)>,
+}
+
+/// The map a check measures with, and its uncertainty.
+struct MapInUse {
+    map: WavelengthMap,
+    fit: Option<crate::calibrate::MapFit>,
+    stored_sigma_fm: u32,
+}
+
+impl MapInUse {
+    fn sigma_fm(&self, p_q16: i32) -> u64 {
+        match &self.fit {
+            Some(f) => f.sigma_fm_at(p_q16),
+            None => self.stored_sigma_fm as u64,
+        }
+    }
+}
+
+impl Checker {
+    /// Validates the configuration and predicts the lines of the profile's species (and the
+    /// isotope partner of a lone hydrogen species) over the sensor's range.
+    ///
+    /// Work: line prediction of ≤ 4 nuclei over the sensor window (the costly part, once).
+    pub fn new(cfg: Config) -> Result<Checker, CheckError> {
+        let primary = cfg.profile.primary().ok_or(CheckError::BadConfig)?;
+        if !(1..=3).contains(&cfg.degree) || cfg.line_fwhm_px_q8 == 0 || cfg.pixels < 16 {
+            return Err(CheckError::BadConfig);
+        }
+        let mut priors: Vec<(Nucleus, u16), MAX_NUCLEI> = Vec::new();
+        for s in cfg.profile.expected() {
+            let mid = (s.min_share_permille as u32 + s.max_share_permille as u32) / 2;
+            let _ = priors.push((s.nucleus, mid.max(1) as u16));
+        }
+        let hydrogen: Vec<Nucleus, MAX_NUCLEI> =
+            priors.iter().map(|p| p.0).filter(|n| n.z() == 1).collect();
+        let pair = match hydrogen.as_slice() {
+            [a, b, ..] => Some((*a, *b)),
+            [a] => {
+                let partner = if *a == Nucleus::H1 {
+                    Nucleus::H2
+                } else {
+                    Nucleus::H1
+                };
+                let _ = priors.push((partner, 0));
+                Some((*a, partner))
+            }
+            [] => None,
+        };
+        let _ = primary;
+        let (lo, hi) = sensor_range(&cfg)?;
+        let nuclei: Vec<Nucleus, MAX_NUCLEI> = priors.iter().map(|p| p.0).collect();
+        let catalogue = build(&nuclei, lo, hi, &cfg.air)?;
+        Ok(Checker {
+            cfg,
+            priors,
+            catalogue,
+            pair,
+        })
+    }
+
+    /// The configuration.
+    pub fn config(&self) -> &Config {
+        &self.cfg
+    }
+
+    /// The predicted lines on the sensor, by wavelength.
+    pub fn catalogue(&self) -> &[CatalogueLine] {
+        &self.catalogue
+    }
+
+    /// Checks one frame into `report` (overwritten). `signal` (and `dark`) are raw readouts or
+    /// co-added sums; `work` holds buffers for the configured pixel count.
+    ///
+    /// Work, for N pixels and the fixed capacities (64 peaks, 48 predicted lines): conditioning and
+    /// peak finding O(N) (see [`condition_frame`] and [`find_peaks`]); in calibrate modes the bounded
+    /// identification search of [`identify`]; matching ≤ 40 features × 64 peaks; one isotope pair fit
+    /// of ≤ 162 shift steps × 64 px; judging ≤ 64 peaks.
+    pub fn check(
+        &self,
+        signal: FrameSum<'_>,
+        dark: Option<FrameSum<'_>>,
+        gain: Option<GainTable<'_>>,
+        work: Workspace<'_>,
+        report: &mut Report,
+    ) -> Result<(), CheckError> {
+        let cfg = &self.cfg;
+        if signal.len() != cfg.pixels as usize {
+            return Err(CheckError::WrongPixelCount);
+        }
+        let Workspace {
+            frame,
+            flags,
+            scratch,
+        } = work;
+        let info = condition_frame(&cfg.condition, signal, dark, gain, frame, flags)?;
+        let mut fcfg = cfg.find;
+        if fcfg.shot_var_per_unit_q16.is_none() {
+            fcfg.shot_var_per_unit_q16 = info.shot_var_per_unit_q16;
+        }
+        let mut peaks = PeakList::new();
+        let found = find_peaks(&fcfg, frame, flags, scratch, &mut peaks)?;
+        let base = scratch.get(..frame.len()).unwrap_or(&[]);
+        *report = Report::new();
+        report.mode = cfg.mode;
+        report.truncated = found.truncated;
+        report.scores.peaks = peaks.len() as u8;
+        report.scores.noise_q8 = found.noise_typical_q8;
+        if found.truncated {
+            report.note(Reason::PeakListTruncated);
+        }
+        if peaks.is_empty() {
+            report.map = Some(cfg.stored.map);
+            report.note(Reason::NoLines);
+            report.decide();
+            return Ok(());
+        }
+        let in_use = match self.map_for(&peaks, report) {
+            Some(m) => m,
+            None => {
+                // Calibration failed: list every peak on the stored map so the user sees what was there.
+                let m = MapInUse {
+                    map: cfg.stored.map,
+                    fit: None,
+                    stored_sigma_fm: cfg.stored.sigma_fm,
+                };
+                self.unexplained(&peaks, &[], &m, report);
+                report.decide();
+                return Ok(());
+            }
+        };
+        report.map = Some(in_use.map);
+        let merge_q16 = (cfg.line_fwhm_px_q8 as i32) << 7; // half the line width, Q16
+        let mut features = group(&self.catalogue, &in_use.map, &self.priors, merge_q16)?;
+        let pairs = assign(&features, &peaks, |f| self.window_px_q16(f, &in_use));
+        let estimate = self.isotope(&features, &pairs, &peaks, &in_use, frame, base);
+        let shares = self.shares(estimate);
+        for f in features.iter_mut() {
+            settle(f, &self.catalogue, &in_use.map, &shares)?;
+        }
+        self.fill_lines(&features, &pairs, &peaks, &in_use, report)?;
+        self.unexplained(&peaks, &pairs, &in_use, report);
+        self.report_shares(estimate, report);
+        if cfg.mode == Mode::Verify && self.shifted_scale(&peaks, report) {
+            // The stored scale explains the peaks worse than a shifted one: said in the reasons.
+        }
+        self.judge(&features, &pairs, &peaks, estimate, report);
+        report.decide();
+        Ok(())
+    }
+
+    /// The map for this frame: the stored one (verify) or one fitted to the peaks (calibrate modes).
+    fn map_for(&self, peaks: &PeakList, report: &mut Report) -> Option<MapInUse> {
+        let cfg = &self.cfg;
+        let stored_sigma_fm = cfg.stored.sigma_fm;
+        if cfg.mode == Mode::Verify {
+            return Some(MapInUse {
+                map: cfg.stored.map,
+                fit: None,
+                stored_sigma_fm,
+            });
+        }
+        let refs = self.reference_lines();
+        let nominal = if cfg.mode == Mode::Calibrate {
+            Some(cfg.stored.map)
+        } else {
+            None
+        };
+        let icfg = IdentifyConfig::new(cfg.pixels, cfg.degree, nominal);
+        match identify(peaks, &refs, &icfg) {
+            Ok(id) => {
+                report.fit_rms_fm = Some(id.fit.rms_residual_fm);
+                report.drift_fm = drift_fm(&id.fit.map, &cfg.stored.map, cfg.pixels);
+                Some(MapInUse {
+                    map: id.fit.map,
+                    fit: Some(id.fit),
+                    stored_sigma_fm,
+                })
+            }
+            Err(e) => {
+                report.note(Reason::Calibration(e));
+                None
+            }
+        }
+    }
+
+    /// Predicted lines for identification: isotopes of one transition merged at the prior shares
+    /// (a calibration cannot tell them apart anyway), species with no prior left out.
+    fn reference_lines(&self) -> Vec<ReferenceLine, MAX_REFERENCE_LINES> {
+        let mut out: Vec<(ReferenceLine, u8, u8, u8), MAX_REFERENCE_LINES> = Vec::new();
+        let mut weights: Vec<u64, MAX_REFERENCE_LINES> = Vec::new();
+        for line in self.catalogue.iter() {
+            let share = prior_share(&self.priors, line.nucleus) as u64;
+            if share == 0 {
+                continue;
+            }
+            let w = line.strength as u64 * share;
+            let key = (line.nucleus.z(), line.lower, line.upper);
+            if let Some(pos) = out.iter().position(|(_, z, m, n)| (*z, *m, *n) == key) {
+                if let (Some(e), Some(tw)) = (out.get_mut(pos), weights.get_mut(pos)) {
+                    let total = *tw + w;
+                    let mixed = (e.0.wavelength_fm as i128 * *tw as i128
+                        + line.wavelength_fm as i128 * w as i128)
+                        / total.max(1) as i128;
+                    e.0.wavelength_fm = mixed as i64;
+                    e.0.strength = e.0.strength.saturating_add((w / 1000) as u32);
+                    *tw = total;
+                }
+                continue;
+            }
+            let r = ReferenceLine {
+                wavelength_fm: line.wavelength_fm,
+                strength: (w / 1000) as u32,
+            };
+            if out.push((r, key.0, key.1, key.2)).is_ok() {
+                let _ = weights.push(w);
+            }
+        }
+        let mut refs: Vec<ReferenceLine, MAX_REFERENCE_LINES> = out.iter().map(|e| e.0).collect();
+        refs.sort_unstable_by_key(|r| r.wavelength_fm);
+        refs
+    }
+
+    /// Match window of a feature: twice the allowed position error plus 3 σ of the map (≥ 1 px), plus
+    /// the reach of a blend's members (its centre moves with the unknown mix).
+    fn window_px_q16(&self, f: &Feature, m: &MapInUse) -> i32 {
+        let p = f.predicted_px_q16;
+        let tol_fm = 2 * self.cfg.profile.max_line_error_fm as i64 + 3 * m.sigma_fm(p) as i64;
+        let slope = m
+            .map
+            .slope_fm_per_px_q16(p)
+            .unwrap_or(0)
+            .unsigned_abs()
+            .max(1) as i64;
+        let px = (((tol_fm as i128) << 32) / slope as i128).max(1 << 16);
+        let reach = f
+            .members
+            .iter()
+            .filter_map(|&i| self.catalogue.get(i as usize))
+            .map(|c| (((c.wavelength_fm - f.predicted_fm).abs() as i128) << 32) / slope as i128)
+            .max()
+            .unwrap_or(0);
+        (px + reach).clamp(1 << 16, 64 << 16) as i32
+    }
+
+    /// Instrument line σ (px, Q16): median FWHM of matched, unsaturated, unblended peaks, else the
+    /// configured width.
+    fn line_sigma_q16(&self, pairs: &[Pair], peaks: &[Peak]) -> i32 {
+        let mut w: Vec<u32, 40> = pairs
+            .iter()
+            .filter_map(|p| peaks.get(p.peak as usize))
+            .filter(|p| !p.saturated && !p.blended)
+            .map(|p| p.fwhm_px_q16)
+            .collect();
+        w.sort_unstable();
+        let fwhm_q16 = match w.get(w.len() / 2) {
+            Some(&v) if !w.is_empty() => v as i64,
+            _ => (self.cfg.line_fwhm_px_q8 as i64) << 8,
+        };
+        ((fwhm_q16 << 16) / FWHM_PER_SIGMA_Q16) as i32
+    }
+
+    /// Share of the pair's second nucleus, or `None` when not determinable here.
+    fn isotope(
+        &self,
+        features: &[Feature],
+        pairs: &[Pair],
+        peaks: &[Peak],
+        m: &MapInUse,
+        frame: &[i32],
+        base: &[i32],
+    ) -> Option<ShareEstimate> {
+        let (a, b) = self.pair?;
+        let sigma = self.line_sigma_q16(pairs, peaks);
+        let fwhm_q16 = (sigma as i64 * FWHM_PER_SIGMA_Q16) >> 16;
+        // The strongest transition with both isotopes predicted and some peak matched to either.
+        let mut best: Option<(u64, &CatalogueLine, &CatalogueLine)> = None;
+        let mut readings: Vec<BlendReading, 24> = Vec::new();
+        for la in self.catalogue.iter().filter(|l| l.nucleus == a) {
+            let Some(lb) = self
+                .catalogue
+                .iter()
+                .find(|l| l.nucleus == b && l.lower == la.lower && l.upper == la.upper)
+            else {
+                continue;
+            };
+            let matched = pairs.iter().find(|p| {
+                features.get(p.feature as usize).is_some_and(|f| {
+                    f.members.iter().any(|&i| {
+                        self.catalogue
+                            .get(i as usize)
+                            .is_some_and(|c| same(c, la) || same(c, lb))
+                    })
+                })
+            });
+            let Some(pair) = matched else { continue };
+            let strength = la.strength as u64;
+            if best.is_none_or(|(s, _, _)| strength > s) {
+                best = Some((strength, la, lb));
+            }
+            // Unresolved blends carry the share in their position (verify mode only).
+            let feature = features.get(pair.feature as usize)?;
+            let both = feature
+                .members
+                .iter()
+                .filter_map(|&i| self.catalogue.get(i as usize))
+                .filter(|c| same(c, la) || same(c, lb))
+                .count()
+                == 2;
+            if both {
+                if let Some(pk) = peaks.get(pair.peak as usize) {
+                    let measured = m.map.wavelength_fm(pk.center_px_q16).ok()?;
+                    let slope = m
+                        .map
+                        .slope_fm_per_px_q16(pk.center_px_q16)
+                        .ok()?
+                        .unsigned_abs() as u128;
+                    let sigma_fm = ((pk.center_sigma_px_q16 as u128 * slope) >> 32) as u64;
+                    let _ = readings.push(BlendReading {
+                        measured_fm: measured,
+                        sigma_fm,
+                        a_fm: la.wavelength_fm,
+                        b_fm: lb.wavelength_fm,
+                    });
+                }
+            }
+        }
+        let (_, la, lb) = best?;
+        let pa = m.map.pixel_q16(la.wavelength_fm).ok()?;
+        let pb = m.map.pixel_q16(lb.wavelength_fm).ok()?;
+        let sep = (pb as i64 - pa as i64).abs();
+        let estimate = if 2 * sep >= fwhm_q16 {
+            let slope = m.map.slope_fm_per_px_q16(pa).ok()?.unsigned_abs().max(1) as i64;
+            let range = match self.cfg.mode {
+                Mode::Verify => ((3 * m.sigma_fm(pa) as i64) << 32) / slope + (1 << 14),
+                _ => 3 << 15,
+            };
+            share_by_profile(&PairWindow {
+                frame,
+                base,
+                a_px_q16: pa,
+                b_px_q16: pb,
+                sigma_px_q16: sigma,
+                shift_range_px_q16: range.clamp(0, 4 << 16) as i32,
+            })
+        } else if self.cfg.mode == Mode::Verify {
+            share_by_position(&readings, self.cfg.stored.sigma_fm as u64)
+        } else {
+            None
+        };
+        estimate.filter(|e| e.sigma_ppm <= MAX_SHARE_SIGMA_PPM)
+    }
+
+    /// Per-nucleus shares (‰) for settling features: the estimate where there is one, else the priors.
+    fn shares(&self, estimate: Option<ShareEstimate>) -> Vec<(Nucleus, u16), MAX_NUCLEI> {
+        let mut out = self.priors.clone();
+        if let (Some((a, b)), Some(e)) = (self.pair, estimate) {
+            let fb = (e.share_b_ppm.clamp(0, 1_000_000) / 1000) as u16;
+            for (n, s) in out.iter_mut() {
+                if *n == a {
+                    *s = 1000 - fb;
+                } else if *n == b {
+                    *s = fb;
+                }
+            }
+        }
+        out
+    }
+
+    fn fill_lines(
+        &self,
+        features: &[Feature],
+        pairs: &[Pair],
+        peaks: &[Peak],
+        m: &MapInUse,
+        report: &mut Report,
+    ) -> Result<(), CheckError> {
+        for p in pairs {
+            let (Some(f), Some(pk)) =
+                (features.get(p.feature as usize), peaks.get(p.peak as usize))
+            else {
+                continue;
+            };
+            let Some(line) = self.catalogue.get(f.primary as usize) else {
+                continue;
+            };
+            let measured = m
+                .map
+                .wavelength_fm(pk.center_px_q16)
+                .map_err(|e| CheckError::Match(e.into()))?;
+            let _ = report.lines.push(MatchedLine {
+                nucleus: line.nucleus,
+                lower: line.lower,
+                upper: line.upper,
+                predicted_fm: f.predicted_fm,
+                measured_fm: measured,
+                center_px_q16: pk.center_px_q16,
+                sigma_fm: {
+                    let slope = m
+                        .map
+                        .slope_fm_per_px_q16(pk.center_px_q16)
+                        .unwrap_or(0)
+                        .unsigned_abs() as u128;
+                    let c = (pk.center_sigma_px_q16 as u128 * slope) >> 32;
+                    let s = m.sigma_fm(pk.center_px_q16) as u128;
+                    crate::fixed::isqrt_u128(c * c + s * s) as u64
+                },
+                snr_q8: pk.snr_q8,
+                blended: pk.blended || f.members.len() > 1,
+                saturated: pk.saturated,
+            });
+        }
+        report.lines.sort_unstable_by_key(|l| l.measured_fm);
+        Ok(())
+    }
+
+    /// Lists unmatched peaks (the strongest when more than fit) with foreign-line hints.
+    fn unexplained(&self, peaks: &[Peak], pairs: &[Pair], m: &MapInUse, report: &mut Report) {
+        let mut total: i128 = 0;
+        let mut foreign: i128 = 0;
+        for (k, pk) in peaks.iter().enumerate() {
+            let area = pk.area.max(0) as i128;
+            total += area;
+            if pairs.iter().any(|p| p.peak as usize == k) {
+                continue;
+            }
+            foreign += area;
+            let Ok(w) = m.map.wavelength_fm(pk.center_px_q16) else {
+                continue;
+            };
+            let slope = m
+                .map
+                .slope_fm_per_px_q16(pk.center_px_q16)
+                .unwrap_or(0)
+                .unsigned_abs() as i64;
+            let window = (3 * (slope >> 16)).max(300_000);
+            let entry = UnexplainedPeak {
+                wavelength_fm: w,
+                center_px_q16: pk.center_px_q16,
+                snr_q8: pk.snr_q8,
+                hint: nearest_marker(w, window),
+            };
+            if report.unexplained.push(entry).is_err() {
+                let weakest = report
+                    .unexplained
+                    .iter()
+                    .enumerate()
+                    .min_by_key(|(_, u)| u.snr_q8)
+                    .map(|(i, u)| (i, u.snr_q8));
+                if let Some((i, s)) = weakest {
+                    if entry.snr_q8 > s {
+                        if let Some(slot) = report.unexplained.get_mut(i) {
+                            *slot = entry;
+                        }
+                    }
+                }
+            }
+        }
+        report.unexplained.sort_unstable_by_key(|u| u.wavelength_fm);
+        report.scores.unexplained_permille = if total > 0 {
+            (foreign * 1000 / total) as u16
+        } else {
+            0
+        };
+    }
+
+    fn report_shares(&self, estimate: Option<ShareEstimate>, report: &mut Report) {
+        let count =
+            |n: Nucleus, r: &Report| r.lines.iter().filter(|l| l.nucleus == n).count() as u8;
+        match (self.pair, estimate) {
+            (Some((a, b)), Some(e)) => {
+                let fb = e.share_b_ppm.clamp(0, 1_000_000) as u32;
+                let la = count(a, report);
+                let lb = count(b, report);
+                let _ = report.shares.push(SpeciesShare {
+                    nucleus: a,
+                    share_ppm: Some(1_000_000 - fb),
+                    sigma_ppm: Some(e.sigma_ppm),
+                    lines: la,
+                });
+                let _ = report.shares.push(SpeciesShare {
+                    nucleus: b,
+                    share_ppm: Some(fb),
+                    sigma_ppm: Some(e.sigma_ppm),
+                    lines: lb,
+                });
+            }
+            (Some((a, b)), None) => {
+                for n in [a, b] {
+                    let l = count(n, report);
+                    let _ = report.shares.push(SpeciesShare {
+                        nucleus: n,
+                        share_ppm: None,
+                        sigma_ppm: None,
+                        lines: l,
+                    });
+                }
+                report.note(Reason::IsotopeNotDeterminable);
+            }
+            (None, _) => {}
+        }
+        for s in self.cfg.profile.expected().filter(|s| s.nucleus.z() != 1) {
+            let l = count(s.nucleus, report);
+            let share = if l > 0 { Some(1_000_000) } else { None };
+            let _ = report.shares.push(SpeciesShare {
+                nucleus: s.nucleus,
+                share_ppm: share,
+                sigma_ppm: None,
+                lines: l,
+            });
+        }
+    }
+
+    /// Verify mode: does a shifted or rescaled stored map explain clearly more peaks? Then the
+    /// instrument's scale, not the tube, is off. Adds the drift finding and returns true.
+    fn shifted_scale(&self, peaks: &PeakList, report: &mut Report) -> bool {
+        let cfg = &self.cfg;
+        let matched = report.lines.len();
+        if matched >= peaks.len() || peaks.len() < 3 {
+            return false;
+        }
+        let refs = self.reference_lines();
+        let icfg = IdentifyConfig::new(cfg.pixels, cfg.degree, Some(cfg.stored.map));
+        let Ok(id) = identify(peaks, &refs, &icfg) else {
+            return false;
+        };
+        if id.pairs.len() < matched + 2
+            && !(matched < cfg.profile.min_lines as usize && id.pairs.len() >= 3)
+        {
+            return false;
+        }
+        let Some(drift) = drift_fm(&id.fit.map, &cfg.stored.map, cfg.pixels) else {
+            return false;
+        };
+        if drift.unsigned_abs() > cfg.profile.max_line_error_fm as u64 {
+            report.drift_fm = Some(drift);
+            report.note(Reason::InstrumentDrift { drift_fm: drift });
+            return true;
+        }
+        false
+    }
+
+    fn judge(
+        &self,
+        features: &[Feature],
+        pairs: &[Pair],
+        peaks: &[Peak],
+        estimate: Option<ShareEstimate>,
+        report: &mut Report,
+    ) {
+        let prof = &self.cfg.profile;
+        let expected = |n: Nucleus| prof.expected().any(|s| s.nucleus == n);
+        let lines_expected = report.lines.iter().filter(|l| expected(l.nucleus)).count() as u8;
+        report.scores.lines_matched = lines_expected;
+        let best_snr = report.lines.iter().map(|l| l.snr_q8).max().unwrap_or(0);
+        report.scores.best_snr_q8 = best_snr;
+        let mut dim = false;
+        if best_snr < prof.min_snr_q8 {
+            dim = true;
+            let strongest = peaks.iter().map(|p| p.snr_q8).max().unwrap_or(0);
+            report.note(Reason::TooDim {
+                snr_q8: best_snr.max(strongest.min(best_snr)),
+                min_q8: prof.min_snr_q8,
+            });
+        }
+        let clipped = report.lines.iter().filter(|l| l.saturated).count() as u8;
+        if clipped > 0 && !prof.allow_saturation {
+            report.note(Reason::Saturated { lines: clipped });
+        }
+        if !dim && lines_expected < prof.min_lines && report.drift_fm.is_none() {
+            report.note(Reason::TooFewLines {
+                found: lines_expected,
+                needed: prof.min_lines,
+            });
+        }
+        for s in prof.expected().filter(|s| s.min_share_permille > 0) {
+            let present = pairs.iter().any(|p| {
+                features.get(p.feature as usize).is_some_and(|f| {
+                    f.members.iter().any(|&i| {
+                        self.catalogue
+                            .get(i as usize)
+                            .is_some_and(|c| c.nucleus == s.nucleus)
+                    })
+                })
+            });
+            if !present && !dim && report.drift_fm.is_none() {
+                report.note(Reason::SpeciesMissing(s.nucleus));
+            }
+        }
+        // Position errors, allowing an undetermined blend anywhere in its share range; a line is off
+        // when its error exceeds the allowance by more than 3 σ of its own measurement.
+        let (mut sum_e, mut sum_e2, mut max_e, mut n_e) = (0i128, 0i128, 0u64, 0i128);
+        let mut worst: Option<(u64, MatchedLine)> = None;
+        for p in pairs {
+            let (Some(f), Some(_)) = (features.get(p.feature as usize), peaks.get(p.peak as usize))
+            else {
+                continue;
+            };
+            let Some(line) = report
+                .lines
+                .iter()
+                .find(|l| l.predicted_fm == f.predicted_fm)
+                .copied()
+            else {
+                continue;
+            };
+            let e = if estimate.is_none() {
+                self.blend_error(f, &line)
+            } else {
+                line.error_fm()
+            };
+            sum_e += line.error_fm() as i128;
+            sum_e2 += (line.error_fm() as i128) * (line.error_fm() as i128);
+            n_e += 1;
+            max_e = max_e.max(e.unsigned_abs());
+            let excess = e
+                .unsigned_abs()
+                .saturating_sub(prof.max_line_error_fm as u64 + 3 * line.sigma_fm);
+            if excess > 0 && worst.is_none_or(|(x, _)| excess > x) {
+                worst = Some((
+                    excess,
+                    MatchedLine {
+                        predicted_fm: line.measured_fm - e,
+                        ..line
+                    },
+                ));
+            }
+        }
+        report.scores.max_abs_error_fm = max_e;
+        if n_e > 0 {
+            report.scores.rms_error_fm = crate::fixed::isqrt_u128((sum_e2 / n_e) as u128) as u64;
+        }
+        if report.drift_fm.is_none() {
+            if let Some((_, w)) = worst {
+                report.note(Reason::LineOffPosition {
+                    nucleus: w.nucleus,
+                    lower: w.lower,
+                    upper: w.upper,
+                    error_fm: w.error_fm(),
+                });
+            }
+        }
+        if n_e >= 3 && self.cfg.mode == Mode::Verify {
+            let mean = (sum_e / n_e) as i64;
+            if mean.unsigned_abs() * 2 > prof.max_line_error_fm as u64 {
+                report.note(Reason::SystematicShift {
+                    mean_error_fm: mean,
+                });
+            }
+        }
+        if report.scores.unexplained_permille > prof.max_unexplained_permille
+            && !dim
+            && report.drift_fm.is_none()
+        {
+            report.note(Reason::ForeignLight {
+                permille: report.scores.unexplained_permille,
+            });
+        }
+        // Shares against the profile: outside by more than 2 σ fails, straddling is inconclusive.
+        for sh in report.shares.clone().iter() {
+            let Some(exp) = prof.expected().find(|s| s.nucleus == sh.nucleus) else {
+                continue;
+            };
+            match (sh.share_ppm, sh.sigma_ppm) {
+                (Some(v), Some(sg)) => {
+                    let (lo, hi) = (
+                        exp.min_share_permille as i64 * 1000,
+                        exp.max_share_permille as i64 * 1000,
+                    );
+                    let (v, two) = (v as i64, 2 * sg as i64);
+                    if v + two < lo || v - two > hi {
+                        report.note(Reason::ShareOutOfRange {
+                            nucleus: sh.nucleus,
+                            share_permille: (v / 1000) as u16,
+                        });
+                    } else if v - two < lo && lo > 0 || v + two > hi && hi < 1_000_000 {
+                        report.note(Reason::ShareUncertain {
+                            nucleus: sh.nucleus,
+                        });
+                    }
+                }
+                _ if sh.nucleus.z() == 1 && prof.isotope_required && exp.min_share_permille > 0 => {
+                    report.note(Reason::ShareUncertain {
+                        nucleus: sh.nucleus,
+                    });
+                }
+                _ => {}
+            }
+        }
+        if let (Some(d), true) = (report.drift_fm, self.cfg.mode != Mode::Verify) {
+            if d.unsigned_abs() > prof.max_drift_fm as u64 {
+                report.note(Reason::InstrumentDrift { drift_fm: d });
+            }
+        }
+    }
+
+    /// Error of a blend whose share is unknown: distance from the measured position to the range of
+    /// positions the profile's shares allow (0 inside it).
+    fn blend_error(&self, f: &Feature, line: &MatchedLine) -> i64 {
+        let Some((a, b)) = self.pair else {
+            return line.error_fm();
+        };
+        let members: Vec<&CatalogueLine, 4> = f
+            .members
+            .iter()
+            .filter_map(|&i| self.catalogue.get(i as usize))
+            .collect();
+        let la = members.iter().find(|c| c.nucleus == a);
+        let lb = members.iter().find(|c| c.nucleus == b);
+        let (Some(la), Some(lb)) = (la, lb) else {
+            return line.error_fm();
+        };
+        let range = self
+            .cfg
+            .profile
+            .expected()
+            .find(|s| s.nucleus == b)
+            .map_or((0, 1000), |s| (s.min_share_permille, s.max_share_permille));
+        let at =
+            |fb: u16| la.wavelength_fm + (lb.wavelength_fm - la.wavelength_fm) * fb as i64 / 1000;
+        let (x, y) = (at(range.0), at(range.1));
+        let (lo, hi) = (x.min(y), x.max(y));
+        line.measured_fm - line.measured_fm.clamp(lo, hi)
+    }
+}
+
+fn same(a: &CatalogueLine, b: &CatalogueLine) -> bool {
+    a.nucleus == b.nucleus && a.lower == b.lower && a.upper == b.upper
+}
+
+/// The sensor's wavelength range on the stored map, widened for what calibration may find:
+/// 8 nm and 2 % (calibrate), a quarter of the span (blind).
+fn sensor_range(cfg: &Config) -> Result<(i64, i64), CheckError> {
+    let last = ((cfg.pixels as i32) - 1) << 16;
+    let e = |p| {
+        cfg.stored
+            .map
+            .wavelength_fm(p)
+            .map_err(|e| CheckError::Match(e.into()))
+    };
+    let (a, b) = (e(0)?, e(last)?);
+    let (lo, hi) = (a.min(b), a.max(b));
+    let span = hi - lo;
+    let margin = match cfg.mode {
+        Mode::Verify => span / 100,
+        Mode::Calibrate => 8_000_000 + span / 50,
+        Mode::CalibrateBlind => span / 4,
+    };
+    Ok((lo - margin, hi + margin))
+}
+
+/// Largest (fitted − stored) difference at 17 points across the sensor, femtometres, with sign.
+fn drift_fm(fitted: &WavelengthMap, stored: &WavelengthMap, pixels: u16) -> Option<i64> {
+    let last = ((pixels as i64) - 1) << 16;
+    let mut worst: Option<i64> = None;
+    for i in 0..=16i64 {
+        let p = (last * i / 16) as i32;
+        let d = fitted.wavelength_fm(p).ok()? - stored.wavelength_fm(p).ok()?;
+        if worst.is_none_or(|w| d.abs() > w.abs()) {
+            worst = Some(d);
+        }
+    }
+    worst
+}
+
+const _: () = assert!(MAX_FEATURES <= 64);

@@ -1,0 +1,207 @@
+//! End-to-end checks of the pipeline on integer-synthesised frames (seeded, deterministic).
+use super::*;
+use crate::calibrate::WavelengthMap;
+use crate::condition::{ConditionConfig, FrameSum};
+use crate::find::math::exp_neg_q16;
+use crate::find::FindConfig;
+use crate::judge::{profile, Mode, Reason, Report, TubeProfile, Verdict};
+use crate::matching::catalogue::kramers_strength;
+use crate::predict::{line, Air, Nucleus};
+use std::vec::Vec;
+
+const N: usize = 2048;
+
+struct Rng(u64);
+impl Rng {
+    fn next(&mut self) -> u64 {
+        self.0 ^= self.0 << 13;
+        self.0 ^= self.0 >> 7;
+        self.0 ^= self.0 << 17;
+        self.0
+    }
+    /// Approximately normal, σ = `sd` counts (sum of 4 uniforms).
+    fn gauss(&mut self, sd: i64) -> i64 {
+        let s: i64 = (0..4).map(|_| (self.next() >> 48) as i64).sum::<i64>() - 2 * 65536;
+        s * sd * 173 / (100 * 37_837)
+    }
+}
+
+/// True instrument: 370 … 720 nm over 2048 px with a little curvature.
+fn truth() -> WavelengthMap {
+    WavelengthMap::new(N as u16, 2, [545_000_000, 175_000_000, -1_200_000, 0]).unwrap()
+}
+
+/// Synthesises a frame: the Balmer lines of `mix` (nucleus, share ‰) and extra foreign lines (air fm,
+/// height), Gaussian FWHM `fwhm_q8` px, `peak_counts` for Hα, on a 300-count pedestal.
+fn frame(
+    mix: &[(Nucleus, u32)],
+    foreign: &[(i64, i64)],
+    fwhm_q8: i64,
+    peak_counts: i64,
+    seed: u64,
+) -> Vec<u16> {
+    let t = truth();
+    let sigma_q16 = (fwhm_q8 << 24) / 154_325;
+    let mut lines: Vec<(i64, i64)> = Vec::new();
+    let alpha = kramers_strength(2, 3) as i64;
+    for &(nu, share) in mix {
+        for upper in 3..=9u8 {
+            let l = line(nu, 2, upper, &Air::Standard).unwrap();
+            let h = peak_counts * kramers_strength(2, upper) as i64 / alpha * share as i64 / 1000;
+            lines.push((l.air_fm.unwrap() as i64, h));
+        }
+    }
+    lines.extend_from_slice(foreign);
+    let mut rng = Rng(seed | 1);
+    (0..N as i64)
+        .map(|i| {
+            let mut v = 300i64 + rng.gauss(4);
+            for &(w, h) in &lines {
+                let c = t.pixel_q16(w).unwrap() as i64;
+                let d = (i << 16) - c;
+                if d.abs() < 40 << 16 {
+                    let x = ((d * d) >> 16) * 32_768 / ((sigma_q16 * sigma_q16) >> 16); // (d/σ)²/2 Q16
+                    let g = exp_neg_q16(x);
+                    let signal = (h * g) >> 30;
+                    v += signal + rng.gauss(isqrt(signal.max(0)));
+                }
+            }
+            v.clamp(0, 4095) as u16
+        })
+        .collect()
+}
+
+fn isqrt(v: i64) -> i64 {
+    crate::fixed::isqrt_u128(v as u128) as i64
+}
+
+fn config(mode: Mode, profile: TubeProfile, stored: WavelengthMap) -> Config {
+    Config {
+        pixels: N as u16,
+        condition: ConditionConfig::new(4095, 10_000),
+        find: FindConfig::DEFAULT,
+        stored: StoredMap {
+            map: stored,
+            sigma_fm: 3_000,
+        },
+        mode,
+        degree: 2,
+        air: Air::Standard,
+        line_fwhm_px_q8: 3 << 8,
+        profile,
+    }
+}
+
+fn run(cfg: Config, raw: &[u16]) -> Report {
+    let checker = Checker::new(cfg).unwrap();
+    let mut buf = std::boxed::Box::new(Buffers::<N>::new());
+    let mut report = Report::new();
+    checker
+        .check(
+            FrameSum::single(raw).unwrap(),
+            None,
+            None,
+            buf.workspace(N),
+            &mut report,
+        )
+        .unwrap();
+    report
+}
+
+#[test]
+fn good_deuterium_lamp_passes_on_its_stored_map() {
+    let raw = frame(
+        &[(Nucleus::H2, 990), (Nucleus::H1, 10)],
+        &[],
+        3 << 8,
+        3000,
+        7,
+    );
+    let r = run(config(Mode::Verify, profile::DEUTERIUM, truth()), &raw);
+    std::println!("{:?}\n{:?}\n{:?}", r.verdict, r.reasons, r.shares);
+    for l in &r.lines {
+        std::println!(
+            "{:?} {}->{} err {} fm snr {}",
+            l.nucleus,
+            l.upper,
+            l.lower,
+            l.error_fm(),
+            l.snr_q8 >> 8
+        );
+    }
+    assert_eq!(r.verdict, Verdict::Pass, "{:?}", r.reasons);
+    assert!(r.lines.len() >= 5);
+    let d = r.shares.iter().find(|s| s.nucleus == Nucleus::H2).unwrap();
+    assert!(d.share_ppm.unwrap() > 930_000, "{d:?}");
+}
+
+#[test]
+fn hydrogen_tube_fails_the_deuterium_profile() {
+    let raw = frame(&[(Nucleus::H1, 1000)], &[], 3 << 8, 3000, 11);
+    let r = run(config(Mode::Verify, profile::DEUTERIUM, truth()), &raw);
+    std::println!("{:?}\n{:?}\n{:?}", r.verdict, r.reasons, r.shares);
+    assert_eq!(r.verdict, Verdict::Fail, "{:?}", r.reasons);
+}
+
+#[test]
+fn air_leak_shows_as_foreign_light_with_a_hint() {
+    let t = truth();
+    let _ = t;
+    let foreign = [
+        (777_194_000i64, 2500i64),
+        (391_440_000, 1500),
+        (427_810_000, 900),
+    ];
+    let raw = frame(&[(Nucleus::H1, 1000)], &foreign, 3 << 8, 3000, 5);
+    let r = run(config(Mode::Verify, profile::HYDROGEN, truth()), &raw);
+    std::println!("{:?}\n{:?}\n{:?}", r.verdict, r.reasons, r.unexplained);
+    assert_eq!(r.verdict, Verdict::Fail);
+    assert!(r
+        .reasons
+        .iter()
+        .any(|x| matches!(x, Reason::ForeignLight { .. })));
+    assert!(r.unexplained.iter().any(|u| u.hint.is_some()));
+}
+
+#[test]
+fn calibration_from_a_nominal_several_nm_off_reports_the_drift() {
+    let raw = frame(
+        &[(Nucleus::H1, 1000)],
+        &[(546_074_000, 1200), (589_000_000, 800)],
+        3 << 8,
+        3000,
+        3,
+    );
+    // Stored map 1.2 nm off and 1 % wrong in dispersion.
+    let stored =
+        WavelengthMap::new(N as u16, 2, [546_200_000, 176_750_000, -1_200_000, 0]).unwrap();
+    let r = run(config(Mode::Calibrate, profile::HYDROGEN, stored), &raw);
+    std::println!(
+        "{:?}\n{:?} drift {:?} rms {:?}",
+        r.verdict,
+        r.reasons,
+        r.drift_fm,
+        r.fit_rms_fm
+    );
+    let map = r.map.unwrap();
+    for px in [0, 1024, 2047] {
+        let d = map.wavelength_fm(px << 16).unwrap() - truth().wavelength_fm(px << 16).unwrap();
+        assert!(d.abs() < 20_000, "px {px}: {d} fm");
+    }
+    assert!(r.drift_fm.unwrap().abs() > 1_000_000);
+    assert!(r
+        .reasons
+        .iter()
+        .any(|x| matches!(x, Reason::InstrumentDrift { .. })));
+    assert!(r
+        .reasons
+        .iter()
+        .any(|x| matches!(x, Reason::IsotopeNotDeterminable)));
+}
+
+#[test]
+fn dark_frame_is_inconclusive() {
+    let raw = frame(&[(Nucleus::H1, 1000)], &[], 3 << 8, 0, 9);
+    let r = run(config(Mode::Verify, profile::HYDROGEN, truth()), &raw);
+    assert_eq!(r.verdict, Verdict::Inconclusive, "{:?}", r.reasons);
+}

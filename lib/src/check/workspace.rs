@@ -1,0 +1,54 @@
+//! Caller-owned memory for one check: no heap, and the caller decides where it lives.
+use crate::condition::MAX_PIXELS;
+use crate::find::SCRATCH_PER_PIXEL;
+
+/// Borrowed buffers for a frame of N pixels: `frame` and `flags` of N, `scratch` of 2N.
+pub struct Workspace<'a> {
+    /// Conditioned frame (Q4 counts).
+    pub frame: &'a mut [i32],
+    /// Per-pixel condition flags.
+    pub flags: &'a mut [u8],
+    /// Peak-finding scratch; its first N cells hold the baseline afterwards.
+    pub scratch: &'a mut [i32],
+}
+
+/// Owned buffers for frames up to `N` pixels (13 N bytes): put one in a `static` on a microcontroller.
+pub struct Buffers<const N: usize> {
+    frame: [i32; N],
+    flags: [u8; N],
+    scratch: [[i32; SCRATCH_PER_PIXEL]; N],
+}
+
+impl<const N: usize> Buffers<N> {
+    /// Zeroed buffers. `N` above [`MAX_PIXELS`] is refused at compile time.
+    pub const fn new() -> Self {
+        const {
+            assert!(
+                N <= MAX_PIXELS,
+                "glowcheck frames are at most MAX_PIXELS long"
+            )
+        };
+        Buffers {
+            frame: [0; N],
+            flags: [0; N],
+            scratch: [[0; SCRATCH_PER_PIXEL]; N],
+        }
+    }
+
+    /// A workspace for a frame of `pixels` ≤ N pixels (clamped to N).
+    pub fn workspace(&mut self, pixels: usize) -> Workspace<'_> {
+        let n = pixels.min(N);
+        let scratch = self.scratch.as_flattened_mut();
+        Workspace {
+            frame: self.frame.get_mut(..n).unwrap_or_default(),
+            flags: self.flags.get_mut(..n).unwrap_or_default(),
+            scratch: scratch.get_mut(..SCRATCH_PER_PIXEL * n).unwrap_or_default(),
+        }
+    }
+}
+
+impl<const N: usize> Default for Buffers<N> {
+    fn default() -> Self {
+        Self::new()
+    }
+}
