@@ -167,6 +167,11 @@ thumb_build() {
         echo "cannot inspect $rlib (llvm-nm at $nm)" >&2
         return 1
     fi
+    # Guard against a vacuous pass: nm must see the lib's code at all.
+    if [ "$("$nm" --defined-only "$rlib" 2>/dev/null | grep -c ' [Tt] ')" -eq 0 ]; then
+        echo "llvm-nm found no code in $rlib" >&2
+        return 1
+    fi
     bad="$("$nm" --undefined-only "$rlib" 2>/dev/null |
         grep -E '__aeabi_[fd][a-z0-9]+|__(add|sub|mul|div|neg)[sdt]f3|__(fix|fixuns|float|floatun)[a-z]*[sdt]f|__(eq|ne|lt|le|gt|ge|un|cmp)[sdt]f2|__(extend|trunc)[sdt]f[sdt]f2' |
         sort -u)"
