@@ -27,3 +27,4 @@ pub mod fixed;
 pub mod judge;
 pub mod matching;
 pub mod predict;
+pub mod sort;

@@ -60,7 +60,7 @@ impl MapFit {
         let mut q: i128 = 0;
         for (r, vr) in v.iter().enumerate().take(d + 1) {
             for (c, vc) in v.iter().enumerate().take(d + 1) {
-                let m = self.inverse_q40[r][c];
+                let m = self.inverse_q40.get(r).and_then(|row| row.get(c)).copied().unwrap_or(0);
                 let t = mul_div_i128(mul_div_i128(m, *vr, 1 << 30).unwrap_or(0), *vc, 1 << 30)
                     .unwrap_or(0);
                 q = q.saturating_add(t);
@@ -147,9 +147,9 @@ pub fn fit_map(points: &[FitPoint], degree: u8, pixels: u16) -> Result<MapFit, C
     }
     let n = points.len() as i128;
     let dof = n - d as i128;
-    let rms = isqrt_u128((sum_r2 / n) as u128) as u64;
+    let rms = isqrt_u128(sum_r2.checked_div(n).unwrap_or(0).max(0) as u128) as u64;
     let chi2_per_dof_q8 = if dof > 0 {
-        (chi2_q8 / dof).min(u32::MAX as i128) as u32
+        chi2_q8.checked_div(dof).unwrap_or(0).clamp(0, u32::MAX as i128) as u32
     } else {
         0
     };
@@ -171,21 +171,22 @@ pub fn fit_map(points: &[FitPoint], degree: u8, pixels: u16) -> Result<MapFit, C
 fn gauss_jordan(m: &mut [[i128; 9]; 4], d: usize) -> Result<(), CalibrateError> {
     let d = d.min(4);
     for col in 0..d {
+        let mag = |m: &[[i128; 9]; 4], r: usize| m.get(r).and_then(|row| row.get(col)).map_or(0, |v| v.unsigned_abs());
         let mut best = col;
         for r in col + 1..d {
-            if m[r][col].unsigned_abs() > m[best][col].unsigned_abs() {
+            if mag(m, r) > mag(m, best) {
                 best = r;
             }
         }
-        m.swap(col, best);
-        let pivot_row = m[col];
-        let piv = pivot_row[col];
+        m.swap(col.min(3), best.min(3));
+        let pivot_row = m.get(col).copied().unwrap_or([0; 9]);
+        let piv = pivot_row.get(col).copied().unwrap_or(0);
         // A pivot below 2^-40 of the matrix scale means the points do not fix this coefficient.
         if piv.unsigned_abs() < (1u128 << 20) {
             return Err(CalibrateError::Degenerate);
         }
         for (r, row) in m.iter_mut().enumerate().take(d) {
-            let f = row[col];
+            let f = row.get(col).copied().unwrap_or(0);
             if r == col || f == 0 {
                 continue;
             }

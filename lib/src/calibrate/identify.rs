@@ -144,7 +144,9 @@ pub fn identify(
     let mut best: Option<Hypothesis> = None;
     for (ii, &i) in strong_peaks.iter().enumerate() {
         for &j in strong_peaks.iter().skip(ii + 1) {
-            let (ui, uj) = (u[i as usize], u[j as usize]);
+            let (Some(&ui), Some(&uj)) = (u.get(i as usize), u.get(j as usize)) else {
+                continue;
+            };
             let du = uj - ui;
             if du == 0 {
                 continue;
@@ -152,10 +154,11 @@ pub fn identify(
             for (aa, &a) in strong_lines.iter().enumerate() {
                 for &b in strong_lines.iter().skip(aa + 1) {
                     for (la, lb) in [(a, b), (b, a)] {
-                        let (wa, wb) = (
-                            lines[la as usize].wavelength_fm,
-                            lines[lb as usize].wavelength_fm,
-                        );
+                        let (Some(ra), Some(rb)) = (lines.get(la as usize), lines.get(lb as usize))
+                        else {
+                            continue;
+                        };
+                        let (wa, wb) = (ra.wavelength_fm, rb.wavelength_fm);
                         let Some(h) = hypothesis(ui, du, wa, wb, cfg) else {
                             continue;
                         };
@@ -201,7 +204,7 @@ fn strongest(values: impl Iterator<Item = u32>, k: usize) -> Vec<u8, 20> {
 
 /// The hypothesis through (u_i, wa) and (u_i + du, wb), if it is within the search range.
 fn hypothesis(ui: i64, du: i64, wa: i64, wb: i64, cfg: &IdentifyConfig) -> Option<Hypothesis> {
-    let b_q30 = i64::try_from(((wb - wa) as i128) << 30).ok()? / du;
+    let b_q30 = i64::try_from(((wb - wa) as i128) << 30).ok()?.checked_div(du)?;
     let a_fm = wa - (((b_q30 as i128) * ui as i128) >> 30) as i64;
     match &cfg.nominal {
         Some(_) => {
@@ -331,8 +334,8 @@ fn refine(
     cfg: &IdentifyConfig,
 ) -> Result<Identified, CalibrateError> {
     let mut pairs: Vec<(u8, u8), 48> = Vec::new();
-    for (k, p) in peaks.iter().enumerate() {
-        let lam = h.a_fm + (((h.b_q30 as i128) * u[k] as i128) >> 30) as i64;
+    for (k, (p, &uk)) in peaks.iter().zip(u).enumerate() {
+        let lam = h.a_fm + (((h.b_q30 as i128) * uk as i128) >> 30) as i64;
         let tol = (dispersion_fm_per_px(&h, cfg, p.center_px_q16) * cfg.window_q8()) >> 8;
         let (idx, d) = nearest(lines, lam);
         if d <= tol {
@@ -397,11 +400,13 @@ fn fit_pairs(
 ) -> Result<MapFit, CalibrateError> {
     let mut pts: Vec<FitPoint, 48> = Vec::new();
     for &(k, l) in pairs {
-        let p = &peaks[k as usize];
+        let (Some(p), Some(line)) = (peaks.get(k as usize), lines.get(l as usize)) else {
+            continue;
+        };
         pts.push(FitPoint {
             center_px_q16: p.center_px_q16,
             sigma_px_q16: p.center_sigma_px_q16.max(64),
-            wavelength_fm: lines[l as usize].wavelength_fm,
+            wavelength_fm: line.wavelength_fm,
         })
         .map_err(|_| CalibrateError::TooManyPoints)?;
     }
@@ -464,7 +469,7 @@ mod tests {
         for &w in foreign_nm_e6 {
             peaks.push(peak(t.pixel_q16(w).unwrap(), 120)).unwrap();
         }
-        peaks.sort_unstable_by_key(|p| p.center_px_q16);
+        crate::sort::sort_by_key(&mut peaks, |p| p.center_px_q16);
         peaks
     }
 

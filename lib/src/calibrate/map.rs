@@ -79,8 +79,11 @@ impl WavelengthMap {
 
     /// x of pixel p (px, Q16) in Q30.
     pub fn x_q30(&self, p_px_q16: i32) -> i64 {
-        (((p_px_q16 as i64 - self.center_px_q16 as i64) << 30) / self.half_width_px_q16 as i64)
-            .clamp(-(8 << 30), 8 << 30)
+        // A map built by `new` has half-width > 0; a hand-made zero gives x = 0 rather than a fault.
+        (((p_px_q16 as i64 - self.center_px_q16 as i64) << 30)
+            .checked_div(self.half_width_px_q16 as i64)
+            .unwrap_or(0))
+        .clamp(-(8 << 30), 8 << 30)
     }
 
     /// Wavelength at pixel p (px, Q16), femtometres.
@@ -97,19 +100,22 @@ impl WavelengthMap {
             let c = *self.coeff_fm.get(k).ok_or(CalibrateError::Overflow)? as i128;
             d = ((d * x) >> 30) + c * k as i128;
         }
-        let v = (d << 32) / self.half_width_px_q16 as i128;
+        let v = (d << 32)
+            .checked_div(self.half_width_px_q16 as i128)
+            .ok_or(CalibrateError::Degenerate)?;
         i64::try_from(v).map_err(|_| CalibrateError::Overflow)
     }
 
     /// Pixel (px, Q16) where the map gives `wavelength_fm`: Newton steps from the linear guess, at most
     /// 12, stopping below 1/65536 px. May lie outside the sensor.
     pub fn pixel_q16(&self, wavelength_fm: i64) -> Result<i32, CalibrateError> {
-        let c0 = self.coeff_fm[0] as i128;
-        let c1 = self.coeff_fm[1] as i128;
+        let [c0, c1, _, _] = self.coeff_fm.map(|c| c as i128);
         if c1 == 0 {
             return Err(CalibrateError::NotMonotone);
         }
-        let x0 = ((wavelength_fm as i128 - c0) << 30) / c1;
+        let x0 = ((wavelength_fm as i128 - c0) << 30)
+            .checked_div(c1)
+            .ok_or(CalibrateError::NotMonotone)?;
         let mut p = self.center_px_q16 as i128 + ((x0 * self.half_width_px_q16 as i128) >> 30);
         for _ in 0..12 {
             let pc = i32::try_from(p.clamp(i32::MIN as i128 / 2, i32::MAX as i128 / 2))
@@ -120,7 +126,7 @@ impl WavelengthMap {
                 return Err(CalibrateError::NotMonotone);
             }
             // err fm / (slope fm/px Q16) = px; in Q16: err << 32 / slope.
-            let step = (err << 32) / slope;
+            let step = (err << 32).checked_div(slope).ok_or(CalibrateError::NotMonotone)?;
             p -= step;
             if step == 0 {
                 break;

@@ -246,7 +246,7 @@ impl Checker {
             }
         }
         let mut refs: Vec<ReferenceLine, MAX_REFERENCE_LINES> = out.iter().map(|e| e.0).collect();
-        refs.sort_unstable_by_key(|r| r.wavelength_fm);
+        crate::sort::sort_by_key(&mut refs, |r| r.wavelength_fm);
         refs
     }
 
@@ -281,7 +281,7 @@ impl Checker {
             .filter(|p| !p.saturated && !p.blended)
             .map(|p| p.fwhm_px_q16)
             .collect();
-        w.sort_unstable();
+        crate::sort::sort_by_key(&mut w, |x| *x);
         let fwhm_q16 = match w.get(w.len() / 2) {
             Some(&v) if !w.is_empty() => v as i64,
             _ => (self.cfg.line_fwhm_px_q8 as i64) << 8,
@@ -439,7 +439,7 @@ impl Checker {
                 saturated: pk.saturated,
             });
         }
-        report.lines.sort_unstable_by_key(|l| l.measured_fm);
+        crate::sort::sort_by_key(&mut report.lines, |l| l.measured_fm);
         Ok(())
     }
 
@@ -485,7 +485,7 @@ impl Checker {
                 }
             }
         }
-        report.unexplained.sort_unstable_by_key(|u| u.wavelength_fm);
+        crate::sort::sort_by_key(&mut report.unexplained, |u| u.wavelength_fm);
         report.scores.unexplained_permille = if total > 0 {
             (foreign * 1000 / total) as u16
         } else {

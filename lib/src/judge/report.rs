@@ -192,8 +192,7 @@ impl Report {
     /// Sets the verdict from the findings: any fail → fail, else any inconclusive → inconclusive, else
     /// pass; and orders the reasons most severe first.
     pub fn decide(&mut self) {
-        self.reasons
-            .sort_unstable_by_key(|r| core::cmp::Reverse(r.severity()));
+        crate::sort::sort_by_key(&mut self.reasons, |r| core::cmp::Reverse(r.severity()));
         let worst = self.reasons.first().map(|r| r.severity());
         self.verdict = match worst {
             Some(super::reason::Severity::Fail) => Verdict::Fail,

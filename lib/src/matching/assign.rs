@@ -23,7 +23,7 @@ pub fn assign(
     window_px_q16: impl Fn(&Feature) -> i32,
 ) -> Vec<Pair, 40> {
     let mut order: Vec<u8, 40> = (0..features.len().min(40) as u8).collect();
-    order.sort_unstable_by_key(|&i| {
+    crate::sort::sort_by_key(&mut order, |&i| {
         core::cmp::Reverse(features.get(i as usize).map_or(0, |f| f.expected))
     });
     let mut taken = [false; 64];
@@ -53,6 +53,6 @@ pub fn assign(
             });
         }
     }
-    out.sort_unstable_by_key(|p| p.peak);
+    crate::sort::sort_by_key(&mut out, |p| p.peak);
     out
 }

@@ -86,7 +86,7 @@ pub fn build(
             }
         }
     }
-    out.sort_unstable_by_key(|l| (l.wavelength_fm, l.nucleus));
+    crate::sort::sort_by_key(&mut out, |l| (l.wavelength_fm, l.nucleus));
     if out.is_empty() {
         return Err(MatchError::NoLinesOnSensor);
     }

@@ -109,7 +109,7 @@ fn bohr_fm(nucleus: Nucleus, m: u8, n: u8) -> Option<u64> {
         r + 1_000_000_000,
         r,
     )?;
-    let fm = a / (RYDBERG_PER_M_E6 * z2 * (n2 - m2));
+    let fm = a.checked_div(RYDBERG_PER_M_E6 * z2 * n2.checked_sub(m2)?)?;
     u64::try_from(fm).ok()
 }
 

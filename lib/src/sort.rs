@@ -1,0 +1,36 @@
+//! A sort for the short lists of the pipeline (≤ 64 entries) with no panic path.
+//!
+//! core's `sort_unstable` keeps a panic for comparators that break total order; an insertion sort
+//! over `get_mut` windows has none, and for lists this short it is as fast. Stable, O(n²), n ≤ 255
+//! in every use here.
+
+/// Sorts `v` ascending by `key`, keeping the order of equal keys.
+pub fn sort_by_key<T, K: Ord>(v: &mut [T], key: impl Fn(&T) -> K) {
+    for i in 1..v.len() {
+        let mut j = i;
+        while j > 0 {
+            let Some([a, b]) = v.get_mut(j - 1..=j).and_then(|w| <&mut [T; 2]>::try_from(w).ok()) else {
+                break;
+            };
+            if key(a) <= key(b) {
+                break;
+            }
+            core::mem::swap(a, b);
+            j -= 1;
+        }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn sorts_and_keeps_equal_keys_in_order() {
+        let mut v = [(3, 'a'), (1, 'b'), (3, 'c'), (0, 'd'), (2, 'e')];
+        sort_by_key(&mut v, |x| x.0);
+        assert_eq!(v, [(0, 'd'), (1, 'b'), (2, 'e'), (3, 'a'), (3, 'c')]);
+        let mut e: [u8; 0] = [];
+        sort_by_key(&mut e, |x| *x);
+    }
+}
