@@ -2,11 +2,17 @@
 use clap::{Parser, Subcommand};
 use std::process::ExitCode;
 
+mod check_cmd;
+mod instrument;
 mod labels;
 mod lines_cmd;
+mod map_convert;
 mod peaks_cmd;
+mod profile_file;
+mod report_out;
 mod sensor;
 mod synth_cmd;
+mod toml_keys;
 mod trace;
 
 /// Hydrogen-like spectrum checker: host simulator.
@@ -25,6 +31,8 @@ enum Command {
     Synth(synth_cmd::Args),
     /// Find peaks and sub-pixel centroids in a trace.
     Peaks(peaks_cmd::Args),
+    /// Check a tube: calibrate or verify, match lines, isotope shares, verdict.
+    Check(check_cmd::Args),
 }
 
 fn main() -> ExitCode {
@@ -33,6 +41,11 @@ fn main() -> ExitCode {
         Command::Lines(a) => lines_cmd::run(&a),
         Command::Synth(a) => synth_cmd::run(&a),
         Command::Peaks(a) => peaks_cmd::run(&a),
+        // The verdict is the exit status: 0 pass, 1 fail, 3 inconclusive.
+        Command::Check(a) => match check_cmd::run(&a) {
+            Ok(code) => return code,
+            Err(e) => Err(e),
+        },
     };
     match result {
         Ok(()) => ExitCode::SUCCESS,
