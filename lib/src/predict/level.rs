@@ -14,7 +14,7 @@ use super::constants::{ALPHA_E13, MAX_N};
 use crate::fixed::{isqrt_u128, mul_div_u128, Q80_ONE};
 
 /// Q56 scale used inside square roots (raw / 2^56), so that `x << 56` stays within 128 bits.
-const Q56_ONE: u128 = 1 << 56;
+pub(crate) const Q56_ONE: u128 = 1 << 56;
 
 /// (Zα)² in the scale `one` (Q56 or Q80).
 const fn z_alpha_squared(z: u8, one: u128) -> Option<u128> {
@@ -58,11 +58,20 @@ impl Atom {
         if n == 0 || n > MAX_N || j2.is_multiple_of(2) || j2 >= 2 * n {
             return None;
         }
-        let k = (j2 as u128).div_ceil(2);
+        self.dirac_k_q80(n, (j2 as u128).div_ceil(2) * Q56_ONE)
+    }
+
+    /// The same for a real-valued k = j + ½ (Q56), as used for a blend's effective upper or lower level:
+    /// the energy is smooth in k, and a line's centroid moves with the strength-weighted mean of 1/k.
+    pub(crate) fn dirac_k_q80(&self, n: u8, k_q56: u128) -> Option<i128> {
+        if n == 0 || n > MAX_N || k_q56 < Q56_ONE / 2 || k_q56 > (n as u128) * Q56_ONE {
+            return None;
+        }
         // √(k² − (Zα)²) in Q56, then δ = (Zα)² / (k + √…) — the sum form avoids cancellation.
-        let radicand = (k * k * Q56_ONE).checked_sub(self.za2_56)?;
+        let k2 = mul_div_u128(k_q56, k_q56, Q56_ONE)?;
+        let radicand = k2.checked_sub(self.za2_56)?;
         let root56 = isqrt_u128(radicand.checked_shl(56)?);
-        let delta = mul_div_u128(self.za2, Q80_ONE, k * Q80_ONE + (root56 << 24))?;
+        let delta = mul_div_u128(self.za2, Q80_ONE, (k_q56 << 24) + (root56 << 24))?;
         let nd = (n as u128 * Q80_ONE).checked_sub(delta)?;
         let nd2 = mul_div_u128(nd, nd, Q80_ONE)?;
         let x = mul_div_u128(self.za2, Q80_ONE, nd2)?;

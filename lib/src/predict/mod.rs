@@ -15,6 +15,7 @@
 //! # Ok::<(), glowcheck::predict::PredictError>(())
 //! ```
 mod air;
+mod blend_table;
 mod component;
 pub mod constants;
 mod error;

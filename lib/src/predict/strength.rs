@@ -4,11 +4,11 @@
 //! the electric-dipole line strength. The radial part R² comes from a generated table of exact values
 //! for upper n ≤ 16 ([`EXACT_MAX_N`]); the angular part is a closed form (below).
 //!
-//! Approximation above n = 16: the row of n = 16 stands in for any higher upper level whose lower level
-//! is below 16 (the per-channel shares converge as n grows, with changes of order 1/n²), and for lower
-//! levels of 16 and above every channel gets max(l, l') alone. Both only move the blend centroid within
-//! the fine-structure spread of the lower level, which for such lines is below 1 × 10⁻⁷ of the
-//! wavelength for m ≤ 4 (measured with `python3 lib/gen/tables.py --audit`).
+//! Approximation above n = 16, for the component list only: the row of n = 16 stands in for any higher
+//! upper level whose lower level is below 16, and for lower levels of 16 and above every channel gets
+//! max(l, l') alone. The shares of such components can be off by several times (the exact ones pile
+//! onto the high-l channels); the line centroid does not use them (see [`line`](super::line())), it
+//! comes from exact per-line moments for every n ≤ 40.
 use super::strength_table::{CHANNEL_WEIGHT, EXACT_MAX_N, ROW_START};
 
 /// One E1 channel of an n → m transition: upper l, lower l', relative radial strength.
