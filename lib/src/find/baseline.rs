@@ -62,6 +62,7 @@ mod tests {
     fn model(sd: i64) -> NoiseModel {
         NoiseModel {
             floor_var_q8: sd * sd * 256,
+            zero_light_level: 0,
             shot_var_per_unit_q16: 0,
             shot_from_data: false,
         }

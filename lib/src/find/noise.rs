@@ -2,8 +2,13 @@
 //!
 //! Second differences `y[i−1] − 2y[i] + y[i+1]` cancel any smooth continuum, leaving 6σ² of white noise.
 //! Each block of [`BLOCK_PX`] pixels gives a robust variance (median-guided, clipped mean square) and its
-//! median level; a weighted fit `var = floor + κ·level` over the blocks, rejecting blocks that lines
-//! inflate, gives the model used for thresholds and fit weights.
+//! median level; a weighted fit `var = floor + κ·(level − zero)` over the blocks, rejecting blocks that
+//! lines inflate, gives the model used for thresholds and fit weights.
+//!
+//! `zero` is the lowest block level, taken as the frame's no-light level. Without it, a frame that still
+//! carries the ADC bias (no dark frame subtracted) would have its bias counted as shot noise: at 1 e⁻ per
+//! count and a 100-count bias that is 100 counts² of variance that is not there, so weak lines got weights,
+//! thresholds and a reported centre σ for almost 2× their true noise σ.
 
 use super::mask::LineMask;
 use super::math::{div_round_i128, isqrt_i64};
@@ -24,11 +29,14 @@ const REJECT_ABOVE_Q8: i128 = 461;
 /// Refit rounds with rejection.
 pub const FIT_ROUNDS: usize = 4;
 
-/// Per-pixel noise variance `floor + κ·max(level, 0)`.
+/// Per-pixel noise variance `floor + κ·max(level − zero_light_level, 0)`.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub struct NoiseModel {
-    /// Variance floor: read, dark and quantisation noise (frame units², Q8).
+    /// Variance at the no-light level: read, dark and quantisation noise (frame units², Q8).
     pub floor_var_q8: i64,
+    /// Frame level below which there is no shot noise (frame units): the lowest block level, i.e. the
+    /// bias when no dark frame was subtracted, about 0 when one was.
+    pub zero_light_level: i64,
     /// Shot variance per frame unit of signal (frame units, Q16).
     pub shot_var_per_unit_q16: u32,
     /// Whether κ came from the data rather than the configuration.
@@ -38,7 +46,8 @@ pub struct NoiseModel {
 impl NoiseModel {
     /// Variance at a signal level (frame units), Q8.
     pub fn var_q8(&self, level: i64) -> i64 {
-        let shot = (i128::from(level.max(0)) * i128::from(self.shot_var_per_unit_q16)) >> 8;
+        let light = level.saturating_sub(self.zero_light_level).max(0);
+        let shot = (i128::from(light) * i128::from(self.shot_var_per_unit_q16)) >> 8;
         self.floor_var_q8
             .saturating_add(shot.clamp(0, i128::from(i64::MAX)) as i64)
             .max(1)
@@ -91,6 +100,7 @@ pub fn estimate(
 pub fn fallback(known_shot_q16: Option<u32>) -> NoiseModel {
     NoiseModel {
         floor_var_q8: 0,
+        zero_light_level: 0,
         shot_var_per_unit_q16: known_shot_q16.unwrap_or(0),
         shot_from_data: known_shot_q16.is_none(),
     }
@@ -157,14 +167,23 @@ fn median(v: &mut [i64]) -> i64 {
 }
 
 fn fit(blocks: &mut [Block], known: Option<u32>) -> NoiseModel {
+    // Lines only raise a block's level, so the lowest level is the no-light level (clamped ≤ 2^40 so the
+    // products below stay inside i128).
+    let zero = blocks
+        .iter()
+        .filter(|b| b.used)
+        .map(|b| b.level)
+        .min()
+        .unwrap_or(0)
+        .clamp(-(1 << 40), 1 << 40);
     let mut model = NoiseModel {
         floor_var_q8: median_var(blocks),
+        zero_light_level: zero,
         shot_var_per_unit_q16: known.unwrap_or(0),
         shot_from_data: known.is_none(),
     };
     if let Some(k) = known {
-        model.floor_var_q8 = 0;
-        model.floor_var_q8 = floor_given_shot(blocks, k);
+        model.floor_var_q8 = floor_given_shot(blocks, k, zero);
     }
     for _ in 0..FIT_ROUNDS {
         // Reject blocks that lines inflate, judged against the current model.
@@ -175,7 +194,7 @@ fn fit(blocks: &mut [Block], known: Option<u32>) -> NoiseModel {
             }
         }
         if known.is_some() {
-            model.floor_var_q8 = floor_given_shot(blocks, model.shot_var_per_unit_q16);
+            model.floor_var_q8 = floor_given_shot(blocks, model.shot_var_per_unit_q16, zero);
             continue;
         }
         // Weighted least squares of var on level; weight ∝ 1 / pred² (the spread of a variance estimate
@@ -220,17 +239,22 @@ fn fit(blocks: &mut [Block], known: Option<u32>) -> NoiseModel {
         if let (true, Some(num)) = (separable, num) {
             // κ in var_q8 per level unit → Q16 of var per unit: × 2^8.
             let k_q16 = div_round_i128(num, det).clamp(0, i128::from(u32::MAX));
-            let floor = div_round_i128(sy.saturating_sub(k_q16.saturating_mul(sx) >> 8), sw);
+            // The line's value at level 0, moved to the no-light level (it is negative for a frame
+            // that still carries its bias).
+            let floor = div_round_i128(sy.saturating_sub(k_q16.saturating_mul(sx) >> 8), sw)
+                .saturating_add((i128::from(zero) * k_q16) >> 8);
             if floor >= 0 {
                 model.shot_var_per_unit_q16 = k_q16 as u32;
                 model.floor_var_q8 = floor.clamp(0, i128::from(i64::MAX)) as i64;
+                model.zero_light_level = zero;
                 continue;
             }
-            // Negative floor: all noise is shot noise, through the origin.
+            // Negative even there: all noise is shot noise, through the origin.
             if let (true, Some(n0)) = (sxx > 0, sxy.checked_mul(256)) {
                 let k = div_round_i128(n0, sxx).clamp(0, i128::from(u32::MAX));
                 model.shot_var_per_unit_q16 = k as u32;
                 model.floor_var_q8 = 0;
+                model.zero_light_level = 0;
                 continue;
             }
         }
@@ -252,12 +276,14 @@ fn median_var(blocks: &[Block]) -> i64 {
     median(v.get_mut(..n).unwrap_or(&mut []))
 }
 
-fn floor_given_shot(blocks: &[Block], k_q16: u32) -> i64 {
+/// Median over blocks of the variance left after the shot noise above `zero`.
+fn floor_given_shot(blocks: &[Block], k_q16: u32, zero: i64) -> i64 {
     let mut v = [0i64; MAX_BLOCKS];
     let mut n = 0usize;
     for b in blocks.iter().filter(|b| b.used) {
         if let Some(s) = v.get_mut(n) {
-            let shot = (i128::from(b.level.max(0)) * i128::from(k_q16)) >> 8;
+            let light = b.level.saturating_sub(zero).max(0);
+            let shot = (i128::from(light) * i128::from(k_q16)) >> 8;
             *s = (i128::from(b.var_q8) - shot).clamp(0, i128::from(i64::MAX)) as i64;
             n += 1;
         }
@@ -311,8 +337,42 @@ mod tests {
         let m = estimate(&frame, &fl, &LineMask::new(), None).unwrap();
         let k = m.shot_var_per_unit_q16;
         assert!((3 << 16..5 << 16).contains(&k), "kappa {k}");
-        let s = m.sigma(0);
-        assert!((80..=120).contains(&s), "floor sigma {s}");
+        // The lowest block (pixels 0–63, level ≈ 640) is the no-light level: σ there is
+        // sqrt(100² + 4·640) ≈ 112; mid-ramp sqrt(100² + 4·20 000) = 300.
+        assert!((600..700).contains(&m.zero_light_level), "{m:?}");
+        let s = m.sigma(640);
+        assert!((95..=130).contains(&s), "floor sigma {s}");
+        assert_eq!(m.sigma(0), s, "no shot noise below the no-light level");
+        let s = m.sigma(20_000);
+        assert!((285..=315).contains(&s), "mid sigma {s}");
+    }
+
+    #[test]
+    fn bias_is_not_shot_noise() {
+        // A frame that still carries a 1600-unit bias: var = 30² + 2·(level − 1600) (κ = 2.0), the
+        // continuum ramping from the bias up by 6000 units. Counting the bias as light would give
+        // σ = sqrt(900 + 3200) = 64 at the bias level instead of 30.
+        let mut rng = Rng::new(19);
+        let frame: Vec<i32> = (0..2048i64)
+            .map(|i| {
+                let level = 1600 + i * 3;
+                let sd = isqrt_i64(900 + 2 * (level - 1600));
+                (level + rng.gauss(sd << 16)) as i32
+            })
+            .collect();
+        let fl = vec![0u8; frame.len()];
+        for known in [Some(2 << 16), None] {
+            let m = estimate(&frame, &fl, &LineMask::new(), known).unwrap();
+            let low = m.sigma(1700);
+            assert!(
+                (28..=36).contains(&low),
+                "{known:?}: σ at the bias {low}, {m:?}"
+            );
+            // 108 true; the slope fitted from the data is looser than a configured one.
+            let high = m.sigma(7000);
+            let ok = if known.is_some() { 104..=112 } else { 92..=124 };
+            assert!(ok.contains(&high), "{known:?}: σ high {high}, {m:?}");
+        }
     }
 
     #[test]
