@@ -15,6 +15,7 @@
 //! # Ok::<(), glowcheck::predict::PredictError>(())
 //! ```
 mod air;
+#[rustfmt::skip]
 mod blend_table;
 mod component;
 pub mod constants;
@@ -23,8 +24,10 @@ pub mod level;
 mod line;
 mod nucleus;
 mod strength;
+#[rustfmt::skip]
 mod strength_table;
 mod units;
+#[rustfmt::skip]
 mod vapour_table;
 mod window;
 
