@@ -121,9 +121,11 @@ pub fn condition_frame(
             None => Some(0),
         };
         let sat = s.is_none() || d.is_none();
-        // A saturated signal keeps its clipped level so the line stays visible, just flagged.
+        // A saturated signal keeps its clipped level so the line stays visible, just flagged. A saturated
+        // dark keeps its clipped level too: taken as 0 it would leave a hot pixel standing at full scale,
+        // a fake line; clipped, signal − dark is about 0 (the signal is clipped as well) and nothing shows.
         let s = s.unwrap_or(u32::from(fs).saturating_mul(u32::try_from(ns).unwrap_or(1)));
-        let d = d.unwrap_or(0);
+        let d = d.unwrap_or(u32::from(fs).saturating_mul(u32::try_from(nd).unwrap_or(1)));
         let lin_s = i128::from(cfg.linearity_q14(s, signal.frames()));
         let lin_d = i128::from(cfg.linearity_q14(d, dark.map_or(1, |x| x.frames())));
         let g = i128::from(gain.map_or(u32::from(ONE_Q14), |t| t.factor_q14(i)));
@@ -270,6 +272,29 @@ mod tests {
             (1000 - 10) * 16,
             "saturated pixels keep their clipped level"
         );
+        // A pixel so hot that the dark saturates: both clip, nothing is left standing.
+        let raw = [100u16, 1000, 100];
+        let dark = [10u16, 1000, 10];
+        let (out, fl, _) = run(
+            &cfg,
+            FrameSum::single(&raw).unwrap(),
+            Some(FrameSum::single(&dark).unwrap()),
+            None,
+            3,
+        );
+        assert_eq!(out, [90 * 16, 0, 90 * 16]);
+        assert_eq!(fl[1], flags::SATURATED);
+        // The same with co-added frames (3 signal, 2 dark readouts).
+        let sig = [300u32, SATURATED_SUM];
+        let dark = [20u32, SATURATED_SUM];
+        let (out, _, _) = run(
+            &cfg,
+            FrameSum::stacked(&sig, 3).unwrap(),
+            Some(FrameSum::stacked(&dark, 2).unwrap()),
+            None,
+            2,
+        );
+        assert_eq!(out, [90 * 16, 0]);
     }
 
     #[test]

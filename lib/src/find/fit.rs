@@ -8,7 +8,7 @@
 //!
 //! Parameters are updated in relative form (ΔA/A, Δμ/s, Δs/s, Δc/A). The normal sums are kept unrounded
 //! (Q60) and each parameter is rescaled by a power of two before the 4×4 Cramer solve in `i128`
-//! ([`Scaled`]), so the solve keeps ≥ 24 significant bits per row even when shot noise makes the core
+//! (`Scaled`), so the solve keeps ≥ 24 significant bits per row even when shot noise makes the core
 //! weights 10⁴× smaller than the wing weights, and cannot overflow (scaled entries < 2^26).
 
 use super::math::{clamp_i64, div_round_i128, exp_neg_q16, isqrt_u128, ONE_Q30};

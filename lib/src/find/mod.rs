@@ -65,13 +65,23 @@ use math::{isqrt_i64, FWHM_PER_SIGMA_Q16};
 pub const MIN_PIXELS: usize = 16;
 /// `i32` scratch cells needed per frame pixel (baseline and one work row).
 pub const SCRATCH_PER_PIXEL: usize = 2;
+/// Fits narrower than this fraction of `FindConfig::fwhm_min_px_q8` (Q8: 5/8) are dropped as single-pixel
+/// spikes (a hot pixel left over after dark subtraction, a cosmic-ray hit), not lines. A lone pixel fits
+/// at the σ floor, FWHM = ½ of the minimum (1.0 px at the default 2 px), or a little above it in noise
+/// (≤ 1.25 px seen); a true 1.5-px line fits at ≥ 1.35 px from SNR 15, a 2-px line at ≥ 1.3 px from SNR 8
+/// (measured on `glowsim synth` traces).
+pub const SPIKE_FWHM_Q8: u32 = 160;
 
 /// Finds the peaks of `frame` (any linear units, e.g. [`condition`](crate::condition) output) into `out`,
 /// sorted by centre.
 ///
 /// `flags` are the per-pixel marks from conditioning (all 0 if none); `scratch` needs
 /// [`SCRATCH_PER_PIXEL`] × `frame.len()` cells. `out` is cleared first. When more than [`MAX_PEAKS`]
-/// lines qualify, the strongest are kept and the report says `truncated`.
+/// lines qualify, the strongest are kept and the report says `truncated`. Peaks narrower than
+/// [`SPIKE_FWHM_Q8`] × the configured minimum FWHM are single-pixel spikes and are left out.
+///
+/// On return (also `Ok` with no peaks) the first `frame.len()` cells of `scratch` hold the baseline the
+/// peaks stand on (frame units), for callers that need the continuum; the rest is work space.
 ///
 /// Loop bounds, with N = `frame.len()` ≤ [`MAX_PIXELS`]: two looks, each a noise estimate O(N) (a
 /// median select per 64-px block and 4 refit rounds over ≤ 64 blocks), a baseline of (1 + 16 rounds) ×
@@ -180,15 +190,20 @@ pub fn find_peaks(
             *f = fit::fit_line(&data, *pos, *s0, s_min, s_max);
         }
     }
+    let spike_limit_q16 = u32::from(cfg.fwhm_min_px_q8) * 256 * SPIKE_FWHM_Q8 / 256;
     for (f, pos, _) in fits.iter() {
+        let fwhm_px_q16 =
+            u32::try_from((f.sigma_q16 * FWHM_PER_SIGMA_Q16) >> 16).unwrap_or(u32::MAX);
+        if fwhm_px_q16 < spike_limit_q16 {
+            continue;
+        }
         let saturated =
             (f.lo..=f.hi).any(|i| flag.get(i).is_some_and(|&x| x & flags::SATURATED != 0));
         let sd_q4 = isqrt_i64(nm.var_q8(data_base(&data, *pos))).max(1); // σ × 16
         let peak = Peak {
             center_px_q16: math::clamp_i32(f.center_q16),
             center_sigma_px_q16: u32::try_from(f.center_sigma_q16.max(0)).unwrap_or(u32::MAX),
-            fwhm_px_q16: u32::try_from((f.sigma_q16 * FWHM_PER_SIGMA_Q16) >> 16)
-                .unwrap_or(u32::MAX),
+            fwhm_px_q16,
             height: math::clamp_i32(f.height_q8 >> 8),
             area: fit::area(f),
             snr_q8: u32::try_from((f.height_q8 * 16) / sd_q4).unwrap_or(u32::MAX),
@@ -552,6 +567,70 @@ mod tests {
         assert_eq!(out.len(), 1);
         assert!(out[0].saturated);
         assert!((i64::from(out[0].center_px_q16) - c).abs() < 1 << 11);
+    }
+
+    #[test]
+    fn single_pixel_spikes_are_not_lines_but_narrow_lines_are() {
+        // Hot-pixel leftovers (one pixel, 15–1500 σ) and true narrow lines (FWHM 1.5 px, peak SNR 30)
+        // on a flat continuum with read noise σ = 20 units.
+        let mut rng = Rng::new(23);
+        let s = sigma_of_fwhm(3 << 15);
+        let lines: std::vec::Vec<Line> = (0..6)
+            .map(|k| (((60 + 160 * k) << 16) + 11_000 * k, 600, s))
+            .collect();
+        let mut frame = synth(&mut rng, 1024, &lines, |_| 400, 20, 0);
+        let spikes = [
+            (140usize, 300),
+            (300, 3_000),
+            (460, 30_000),
+            (620, 600),
+            (780, 1_200),
+        ];
+        for &(at, h) in &spikes {
+            frame[at] += h;
+        }
+        let (peaks, _) = run(&FindConfig::DEFAULT, &frame);
+        for &(at, _) in &spikes {
+            assert!(
+                peaks
+                    .iter()
+                    .all(|p| (p.center_px_q16 >> 16).abs_diff(at as i32) > 2),
+                "spike at {at} reported: {peaks:?}"
+            );
+        }
+        assert_eq!(peaks.len(), lines.len(), "{peaks:?}");
+        for (p, l) in peaks.iter().zip(&lines) {
+            assert!((i64::from(p.center_px_q16) - l.0).abs() < 1 << 13, "{p:?}");
+            // Sampled FWHM of a 1.5-px pixel-integrated line: 2.355 · sqrt(0.637² + 1/12) ≈ 1.65 px.
+            assert!((90_000..130_000).contains(&p.fwhm_px_q16), "{p:?}");
+        }
+    }
+
+    #[test]
+    fn scratch_keeps_the_baseline() {
+        let mut rng = Rng::new(24);
+        let s = sigma_of_fwhm(3 << 16);
+        let frame = synth(
+            &mut rng,
+            512,
+            &[(200 << 16, 5_000, s)],
+            |i| 1000 + 2 * i,
+            10,
+            0,
+        );
+        let fl = std::vec![0u8; 512];
+        let mut scratch = std::vec![0i32; SCRATCH_PER_PIXEL * 512];
+        let mut out = PeakList::new();
+        find_peaks(&FindConfig::DEFAULT, &frame, &fl, &mut scratch, &mut out).unwrap();
+        assert_eq!(out.len(), 1);
+        for i in [30usize, 200, 480] {
+            let want = 1000 + 2 * i as i32;
+            assert!(
+                (scratch[i] - want).abs() <= 6,
+                "px {i}: {} vs {want}",
+                scratch[i]
+            );
+        }
     }
 
     #[test]
