@@ -9,7 +9,8 @@ use super::FindError;
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 #[cfg_attr(feature = "defmt", derive(defmt::Format))]
 pub struct FindConfig {
-    /// Narrowest expected line (px, Q8, ≥ 1 px); fits are not allowed to shrink below half of it.
+    /// Narrowest expected line (px, Q8, ≥ 1 px); fits are not allowed to shrink below half of it, and
+    /// fits narrower than [`SPIKE_FWHM_Q8`](super::SPIKE_FWHM_Q8) of it are dropped as one-pixel spikes.
     pub fwhm_min_px_q8: u16,
     /// Widest expected line (px, Q8, ≤ 16 px); sets the baseline scale (continuum features broader than
     /// about 4× this survive as baseline) and the fit window.

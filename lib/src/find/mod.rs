@@ -220,7 +220,7 @@ pub fn find_peaks(
     Ok(FindReport {
         pixels: u16::try_from(n).unwrap_or(u16::MAX),
         untrusted_pixels: u16::try_from(untrusted).unwrap_or(u16::MAX),
-        noise_floor_q8: sigma_q8(nm.var_q8(0)),
+        noise_floor_q8: sigma_q8(nm.var_q8(nm.zero_light_level)),
         noise_typical_q8: sigma_q8(nm.var_q8(mid_level)),
         shot_var_per_unit_q16: nm.shot_var_per_unit_q16,
         shot_from_data: nm.shot_from_data,
