@@ -15,6 +15,9 @@ mod synth_cmd;
 mod toml_keys;
 mod trace;
 
+#[cfg(test)]
+mod check_bar_tests;
+
 /// Hydrogen-like spectrum checker: host simulator.
 #[derive(Parser)]
 #[command(name = "glowsim", version, about, long_about = None)]
