@@ -147,7 +147,7 @@ else
     grep -E "undefined symbol|referenced by|^error(\[|:)" "$out/nopanic.err" | head -n 20 >&2 || cat "$out/nopanic.err" >&2
     # Name the lib modules that hold a panic path (one build each), then link a variant whose panic
     # handler exists and list the source lines next to the calls into core's panic functions.
-    for m in predict fixed condition find calibrate judge; do
+    for m in predict fixed condition find calibrate judge check; do
         if cargo build -q --release -p glowcheck-nopanic --target thumbv6m-none-eabi \
             --no-default-features --features "$m" >"$out/nopanic-$m.err" 2>&1; then
             echo "  lib::$m: no panic path" >&2

@@ -7,7 +7,7 @@
 //! ([`probe`]), so the optimiser can neither fold the calls to constants nor drop them.
 //!
 //! One module per lib module calls its public functions: [`predict_api`], [`fixed_api`],
-//! [`condition_api`], [`find_api`], [`calibrate_api`], [`judge_api`] (judge and matching). A new public function in lib gets its call here.
+//! [`condition_api`], [`find_api`], [`calibrate_api`], [`judge_api`] (judge and matching), [`check_api`] (the whole pipeline). A new public function in lib gets its call here.
 //!
 //! When the proof fails, the link error names the undefined symbol. `--features locate` swaps in a
 //! handler that links, and `boards/check.sh` then lists the source lines of the surviving panic calls.
@@ -18,6 +18,7 @@
 #![no_main]
 
 mod calibrate_api;
+mod check_api;
 mod condition_api;
 mod find_api;
 mod fixed_api;
@@ -78,6 +79,9 @@ fn main() -> ! {
     }
     if cfg!(feature = "judge") {
         judge_api::run();
+    }
+    if cfg!(feature = "check") {
+        check_api::run();
     }
     #[cfg(feature = "stack-report")]
     stack::report();

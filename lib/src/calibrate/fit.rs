@@ -60,7 +60,12 @@ impl MapFit {
         let mut q: i128 = 0;
         for (r, vr) in v.iter().enumerate().take(d + 1) {
             for (c, vc) in v.iter().enumerate().take(d + 1) {
-                let m = self.inverse_q40.get(r).and_then(|row| row.get(c)).copied().unwrap_or(0);
+                let m = self
+                    .inverse_q40
+                    .get(r)
+                    .and_then(|row| row.get(c))
+                    .copied()
+                    .unwrap_or(0);
                 let t = mul_div_i128(mul_div_i128(m, *vr, 1 << 30).unwrap_or(0), *vc, 1 << 30)
                     .unwrap_or(0);
                 q = q.saturating_add(t);
@@ -124,14 +129,20 @@ pub fn fit_map(points: &[FitPoint], degree: u8, pixels: u16) -> Result<MapFit, C
     gauss_jordan(&mut m, d)?;
     let mut coeff = [0i64; 4];
     let mut inverse = [[0i128; 4]; 4];
-    for r in 0..d {
-        let piv = m[r][r];
-        coeff[r] = i64::try_from(mul_div_i128(m[r][4], 1, piv).ok_or(CalibrateError::Overflow)?)
+    for (r, ((row, c_out), inv_row)) in m
+        .iter()
+        .zip(coeff.iter_mut())
+        .zip(inverse.iter_mut())
+        .enumerate()
+        .take(d)
+    {
+        let piv = row.get(r).copied().unwrap_or(0);
+        let rhs = row.get(4).copied().unwrap_or(0);
+        *c_out = i64::try_from(mul_div_i128(rhs, 1, piv).ok_or(CalibrateError::Overflow)?)
             .map_err(|_| CalibrateError::Overflow)?;
-        for c in 0..d {
+        for (inv, &cell) in inv_row.iter_mut().zip(row.iter().skip(5)).take(d) {
             // (Q60 / Q60) → scale to Q40.
-            inverse[r][c] =
-                mul_div_i128(m[r][5 + c], 1 << 40, piv).ok_or(CalibrateError::Overflow)?;
+            *inv = mul_div_i128(cell, 1 << 40, piv).ok_or(CalibrateError::Overflow)?;
         }
     }
     let map = WavelengthMap::with_frame(half, half, degree, coeff, pixels)?;
@@ -149,7 +160,10 @@ pub fn fit_map(points: &[FitPoint], degree: u8, pixels: u16) -> Result<MapFit, C
     let dof = n - d as i128;
     let rms = isqrt_u128(sum_r2.checked_div(n).unwrap_or(0).max(0) as u128) as u64;
     let chi2_per_dof_q8 = if dof > 0 {
-        chi2_q8.checked_div(dof).unwrap_or(0).clamp(0, u32::MAX as i128) as u32
+        chi2_q8
+            .checked_div(dof)
+            .unwrap_or(0)
+            .clamp(0, u32::MAX as i128) as u32
     } else {
         0
     };
@@ -171,7 +185,11 @@ pub fn fit_map(points: &[FitPoint], degree: u8, pixels: u16) -> Result<MapFit, C
 fn gauss_jordan(m: &mut [[i128; 9]; 4], d: usize) -> Result<(), CalibrateError> {
     let d = d.min(4);
     for col in 0..d {
-        let mag = |m: &[[i128; 9]; 4], r: usize| m.get(r).and_then(|row| row.get(col)).map_or(0, |v| v.unsigned_abs());
+        let mag = |m: &[[i128; 9]; 4], r: usize| {
+            m.get(r)
+                .and_then(|row| row.get(col))
+                .map_or(0, |v| v.unsigned_abs())
+        };
         let mut best = col;
         for r in col + 1..d {
             if mag(m, r) > mag(m, best) {

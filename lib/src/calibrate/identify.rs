@@ -187,24 +187,19 @@ fn better(h: &Hypothesis, best: &Option<Hypothesis>) -> bool {
     }
 }
 
-/// Indices of the `k` largest values (ties by index), largest first.
+/// Indices of the `k` (≤ 20) largest of at most 64 values, largest first, ties by index.
 fn strongest(values: impl Iterator<Item = u32>, k: usize) -> Vec<u8, 20> {
-    let mut out: Vec<(u32, u8), 20> = Vec::new();
-    for (i, v) in values.enumerate().take(255) {
-        let pos = out.iter().position(|&(w, _)| v > w).unwrap_or(out.len());
-        if pos < k.min(20) {
-            if out.len() == k.min(20) {
-                out.pop();
-            }
-            let _ = out.insert(pos, (v, i as u8));
-        }
-    }
-    out.iter().map(|&(_, i)| i).collect()
+    let mut all: Vec<(u32, u8), 64> =
+        crate::bounded::collect_bounded(values.enumerate().map(|(i, v)| (v, i as u8)));
+    crate::sort::sort_by_key(&mut all, |&(v, _)| core::cmp::Reverse(v));
+    crate::bounded::collect_bounded(all.iter().take(k.min(20)).map(|&(_, i)| i))
 }
 
 /// The hypothesis through (u_i, wa) and (u_i + du, wb), if it is within the search range.
 fn hypothesis(ui: i64, du: i64, wa: i64, wb: i64, cfg: &IdentifyConfig) -> Option<Hypothesis> {
-    let b_q30 = i64::try_from(((wb - wa) as i128) << 30).ok()?.checked_div(du)?;
+    let b_q30 = i64::try_from(((wb - wa) as i128) << 30)
+        .ok()?
+        .checked_div(du)?;
     let a_fm = wa - (((b_q30 as i128) * ui as i128) >> 30) as i64;
     match &cfg.nominal {
         Some(_) => {

@@ -126,7 +126,9 @@ impl WavelengthMap {
                 return Err(CalibrateError::NotMonotone);
             }
             // err fm / (slope fm/px Q16) = px; in Q16: err << 32 / slope.
-            let step = (err << 32).checked_div(slope).ok_or(CalibrateError::NotMonotone)?;
+            let step = (err << 32)
+                .checked_div(slope)
+                .ok_or(CalibrateError::NotMonotone)?;
             p -= step;
             if step == 0 {
                 break;

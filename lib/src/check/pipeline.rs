@@ -2,6 +2,7 @@
 use super::config::Config;
 use super::error::CheckError;
 use super::workspace::Workspace;
+use crate::bounded::collect_bounded;
 use crate::calibrate::{
     identify, IdentifyConfig, ReferenceLine, WavelengthMap, MAX_REFERENCE_LINES,
 };
@@ -62,7 +63,7 @@ impl Checker {
             let _ = priors.push((s.nucleus, mid.max(1) as u16));
         }
         let hydrogen: Vec<Nucleus, MAX_NUCLEI> =
-            priors.iter().map(|p| p.0).filter(|n| n.z() == 1).collect();
+            collect_bounded(priors.iter().map(|p| p.0).filter(|n| n.z() == 1));
         let pair = match hydrogen.as_slice() {
             [a, b, ..] => Some((*a, *b)),
             [a] => {
@@ -78,7 +79,7 @@ impl Checker {
         };
         let _ = primary;
         let (lo, hi) = sensor_range(&cfg)?;
-        let nuclei: Vec<Nucleus, MAX_NUCLEI> = priors.iter().map(|p| p.0).collect();
+        let nuclei: Vec<Nucleus, MAX_NUCLEI> = collect_bounded(priors.iter().map(|p| p.0));
         let catalogue = build(&nuclei, lo, hi, &cfg.air)?;
         Ok(Checker {
             cfg,
@@ -245,7 +246,8 @@ impl Checker {
                 let _ = weights.push(w);
             }
         }
-        let mut refs: Vec<ReferenceLine, MAX_REFERENCE_LINES> = out.iter().map(|e| e.0).collect();
+        let mut refs: Vec<ReferenceLine, MAX_REFERENCE_LINES> =
+            collect_bounded(out.iter().map(|e| e.0));
         crate::sort::sort_by_key(&mut refs, |r| r.wavelength_fm);
         refs
     }
@@ -275,12 +277,13 @@ impl Checker {
     /// Instrument line σ (px, Q16): median FWHM of matched, unsaturated, unblended peaks, else the
     /// configured width.
     fn line_sigma_q16(&self, pairs: &[Pair], peaks: &[Peak]) -> i32 {
-        let mut w: Vec<u32, 40> = pairs
-            .iter()
-            .filter_map(|p| peaks.get(p.peak as usize))
-            .filter(|p| !p.saturated && !p.blended)
-            .map(|p| p.fwhm_px_q16)
-            .collect();
+        let mut w: Vec<u32, 40> = collect_bounded(
+            pairs
+                .iter()
+                .filter_map(|p| peaks.get(p.peak as usize))
+                .filter(|p| !p.saturated && !p.blended)
+                .map(|p| p.fwhm_px_q16),
+        );
         crate::sort::sort_by_key(&mut w, |x| *x);
         let fwhm_q16 = match w.get(w.len() / 2) {
             Some(&v) if !w.is_empty() => v as i64,
@@ -729,11 +732,11 @@ impl Checker {
         let Some((a, b)) = self.pair else {
             return line.error_fm();
         };
-        let members: Vec<&CatalogueLine, 4> = f
-            .members
-            .iter()
-            .filter_map(|&i| self.catalogue.get(i as usize))
-            .collect();
+        let members: Vec<&CatalogueLine, 4> = collect_bounded(
+            f.members
+                .iter()
+                .filter_map(|&i| self.catalogue.get(i as usize)),
+        );
         let la = members.iter().find(|c| c.nucleus == a);
         let lb = members.iter().find(|c| c.nucleus == b);
         let (Some(la), Some(lb)) = (la, lb) else {

@@ -22,7 +22,7 @@ pub fn assign(
     peaks: &[Peak],
     window_px_q16: impl Fn(&Feature) -> i32,
 ) -> Vec<Pair, 40> {
-    let mut order: Vec<u8, 40> = (0..features.len().min(40) as u8).collect();
+    let mut order: Vec<u8, 40> = crate::bounded::collect_bounded(0..features.len().min(40) as u8);
     crate::sort::sort_by_key(&mut order, |&i| {
         core::cmp::Reverse(features.get(i as usize).map_or(0, |f| f.expected))
     });

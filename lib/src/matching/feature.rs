@@ -105,9 +105,9 @@ pub fn settle(
         }
     }
     f.predicted_fm = if total > 0 {
-        (sum / total as i128) as i64
+        sum.checked_div(total as i128).unwrap_or(0) as i64
     } else {
-        (plain / f.members.len().max(1) as i128) as i64
+        plain.checked_div(f.members.len() as i128).unwrap_or(0) as i64
     };
     f.primary = best.1;
     f.expected = total as u64;

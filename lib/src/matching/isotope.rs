@@ -60,9 +60,9 @@ pub fn share_by_position(readings: &[BlendReading], systematic_fm: u64) -> Optio
     if sum_w == 0 {
         return None;
     }
-    let share = sum_wx / sum_w;
+    let share = sum_wx.checked_div(sum_w)?;
     let var_stat = mul_div_i128(1_000_000_000_000_000_000, 1, sum_w)?;
-    let mean_delta = (sum_w_delta / sum_w).max(1);
+    let mean_delta = sum_w_delta.checked_div(sum_w)?.max(1);
     let sys_ppm = mul_div_i128(systematic_fm as i128, 1_000_000, mean_delta)?;
     let var = var_stat + sys_ppm * sys_ppm;
     Some(ShareEstimate {
@@ -97,9 +97,11 @@ pub fn share_by_profile(w: &PairWindow<'_>) -> Option<ShareEstimate> {
     let hi_c = w.a_px_q16.max(w.b_px_q16) as i64;
     let reach = 3 * sigma + w.shift_range_px_q16.unsigned_abs() as i64;
     let n = w.frame.len().min(w.base.len()) as i64;
-    let first = ((lo_c - reach) >> 16).clamp(0, n.saturating_sub(1));
+    let top = n.saturating_sub(1).max(0);
+    let first = ((lo_c - reach) >> 16).max(0).min(top);
     let last = ((hi_c + reach + 65_535) >> 16)
-        .clamp(0, n.saturating_sub(1))
+        .max(0)
+        .min(top)
         .min(first + 63);
     if last - first < 4 {
         return None;

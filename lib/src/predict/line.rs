@@ -54,7 +54,9 @@ pub fn line(nucleus: Nucleus, lower: u8, upper: u8, air: &Air) -> Result<Line, P
             .filter(|&a| a > 0)
             .ok_or(OVERFLOW)?;
         // k_eff = 1 / ⟨1/k⟩, the table holding ⟨1/k⟩ × 65535.
-        Ok(((65_535u128 << 56) + a as u128 / 2) / a as u128)
+        ((65_535u128 << 56) + a as u128 / 2)
+            .checked_div(a as u128)
+            .ok_or(OVERFLOW)
     };
     let eu = atom.dirac_k_q80(upper, inv_k(0)?).ok_or(OVERFLOW)?;
     let el = atom.dirac_k_q80(lower, inv_k(1)?).ok_or(OVERFLOW)?;
