@@ -9,7 +9,10 @@ pub fn sort_by_key<T, K: Ord>(v: &mut [T], key: impl Fn(&T) -> K) {
     for i in 1..v.len() {
         let mut j = i;
         while j > 0 {
-            let Some([a, b]) = v.get_mut(j - 1..=j).and_then(|w| <&mut [T; 2]>::try_from(w).ok()) else {
+            let Some([a, b]) = v
+                .get_mut(j - 1..=j)
+                .and_then(|w| <&mut [T; 2]>::try_from(w).ok())
+            else {
                 break;
             };
             if key(a) <= key(b) {

@@ -160,21 +160,23 @@ impl Checker {
             }
         };
         report.map = Some(in_use.map);
-        let merge_q16 = (cfg.line_fwhm_px_q8 as i32) << 7; // half the line width, Q16
+        // Closer than one line width, two lines show as one peak (two equal Gaussians part at 0.85 FWHM).
+        let merge_q16 = (cfg.line_fwhm_px_q8 as i32) << 8;
         let mut features = group(&self.catalogue, &in_use.map, &self.priors, merge_q16)?;
         let pairs = assign(&features, &peaks, |f| self.window_px_q16(f, &in_use));
+        let pairs = self.split_resolved(&features, pairs, &peaks, &in_use);
         let estimate = self.isotope(&features, &pairs, &peaks, &in_use, frame, base);
         let shares = self.shares(estimate);
         for f in features.iter_mut() {
             settle(f, &self.catalogue, &in_use.map, &shares)?;
         }
-        self.fill_lines(&features, &pairs, &peaks, &in_use, report)?;
+        self.fill_lines(&features, &pairs, &peaks, &in_use, estimate.is_some(), report)?;
         self.unexplained(&peaks, &pairs, &in_use, report);
         self.report_shares(estimate, report);
         if cfg.mode == Mode::Verify && self.shifted_scale(&peaks, report) {
             // The stored scale explains the peaks worse than a shifted one: said in the reasons.
         }
-        self.judge(&features, &pairs, &peaks, estimate, report);
+        self.judge(&features, &pairs, &peaks, report);
         report.decide();
         Ok(())
     }
@@ -252,18 +254,18 @@ impl Checker {
         refs
     }
 
-    /// Match window of a feature: twice the allowed position error plus 3 σ of the map (≥ 1 px), plus
-    /// the reach of a blend's members (its centre moves with the unknown mix).
-    fn window_px_q16(&self, f: &Feature, m: &MapInUse) -> i32 {
+    /// Match window of one line: twice the allowed position error plus 3 σ of the map, ≥ 1 px (Q16).
+    fn base_window_px_q16(&self, f: &Feature, m: &MapInUse) -> i32 {
         let p = f.predicted_px_q16;
         let tol_fm = 2 * self.cfg.profile.max_line_error_fm as i64 + 3 * m.sigma_fm(p) as i64;
-        let slope = m
-            .map
-            .slope_fm_per_px_q16(p)
-            .unwrap_or(0)
-            .unsigned_abs()
-            .max(1) as i64;
-        let px = (((tol_fm as i128) << 32) / slope as i128).max(1 << 16);
+        let slope = m.map.slope_fm_per_px_q16(p).unwrap_or(0).unsigned_abs().max(1) as i64;
+        (((tol_fm as i128) << 32) / slope as i128).clamp(1 << 16, 64 << 16) as i32
+    }
+
+    /// Match window of a feature: the line window plus the reach of a blend's members (its centre
+    /// moves with the unknown mix).
+    fn window_px_q16(&self, f: &Feature, m: &MapInUse) -> i32 {
+        let slope = m.map.slope_fm_per_px_q16(f.predicted_px_q16).unwrap_or(0).unsigned_abs().max(1) as i64;
         let reach = f
             .members
             .iter()
@@ -271,15 +273,17 @@ impl Checker {
             .map(|c| (((c.wavelength_fm - f.predicted_fm).abs() as i128) << 32) / slope as i128)
             .max()
             .unwrap_or(0);
-        (px + reach).clamp(1 << 16, 64 << 16) as i32
+        (self.base_window_px_q16(f, m) as i128 + reach).clamp(1 << 16, 64 << 16) as i32
     }
 
     /// Instrument line σ (px, Q16): median FWHM of matched, unsaturated, unblended peaks, else the
     /// configured width.
-    fn line_sigma_q16(&self, pairs: &[Pair], peaks: &[Peak]) -> i32 {
+    fn line_sigma_q16(&self, features: &[Feature], pairs: &[Pair], peaks: &[Peak]) -> i32 {
+        // Single-line features only: a merged isotope pair is wider than the instrument's line.
         let mut w: Vec<u32, 40> = collect_bounded(
             pairs
                 .iter()
+                .filter(|p| features.get(p.feature as usize).is_some_and(|f| f.members.len() == 1))
                 .filter_map(|p| peaks.get(p.peak as usize))
                 .filter(|p| !p.saturated && !p.blended)
                 .map(|p| p.fwhm_px_q16),
@@ -303,7 +307,7 @@ impl Checker {
         base: &[i32],
     ) -> Option<ShareEstimate> {
         let (a, b) = self.pair?;
-        let sigma = self.line_sigma_q16(pairs, peaks);
+        let sigma = self.line_sigma_q16(features, pairs, peaks);
         let fwhm_q16 = (sigma as i64 * FWHM_PER_SIGMA_Q16) >> 16;
         // The strongest transition with both isotopes predicted and some peak matched to either.
         let mut best: Option<(u64, &CatalogueLine, &CatalogueLine)> = None;
@@ -365,7 +369,9 @@ impl Checker {
             let slope = m.map.slope_fm_per_px_q16(pa).ok()?.unsigned_abs().max(1) as i64;
             let range = match self.cfg.mode {
                 Mode::Verify => ((3 * m.sigma_fm(pa) as i64) << 32) / slope + (1 << 14),
-                _ => 3 << 15,
+                // A self-fitted map carries no isotope information in its positions: search past the
+                // separation so a lone line of either isotope shows up as ambiguous.
+                _ => sep + (1 << 16),
             };
             share_by_profile(&PairWindow {
                 frame,
@@ -399,46 +405,86 @@ impl Checker {
         out
     }
 
+    /// A blend that the sensor resolves after all shows as two peaks: the peak left over next to a
+    /// matched multi-line feature is that feature's other member, not a foreign line.
+    fn split_resolved(&self, features: &[Feature], mut pairs: Vec<Pair, 40>, peaks: &[Peak], m: &MapInUse) -> Vec<Pair, 40> {
+        let matched: Vec<Pair, 40> = pairs.clone();
+        for (k, pk) in peaks.iter().enumerate() {
+            if matched.iter().any(|p| p.peak as usize == k) {
+                continue;
+            }
+            let hit = matched.iter().find(|p| {
+                features.get(p.feature as usize).is_some_and(|f| {
+                    f.members.len() > 1 && self.nearest_member(f, pk, m).is_some_and(|(_, d)| d <= self.base_window_px_q16(f, m))
+                })
+            });
+            if let Some(p) = hit {
+                let _ = pairs.push(Pair { feature: p.feature, peak: k as u8 });
+            }
+        }
+        crate::sort::sort_by_key(&mut pairs, |p| p.peak);
+        pairs
+    }
+
+    /// The member line of a feature nearest to a peak, with the distance (px, Q16).
+    fn nearest_member<'c>(&'c self, f: &Feature, pk: &Peak, m: &MapInUse) -> Option<(&'c CatalogueLine, i32)> {
+        let mut best: Option<(&CatalogueLine, i32)> = None;
+        for &i in f.members.iter() {
+            let Some(c) = self.catalogue.get(i as usize) else { continue };
+            let Ok(px) = m.map.pixel_q16(c.wavelength_fm) else { continue };
+            let d = (px - pk.center_px_q16).abs();
+            if best.is_none_or(|(_, bd)| d < bd) {
+                best = Some((c, d));
+            }
+        }
+        best
+    }
+
     fn fill_lines(
         &self,
         features: &[Feature],
         pairs: &[Pair],
         peaks: &[Peak],
         m: &MapInUse,
+        share_known: bool,
         report: &mut Report,
     ) -> Result<(), CheckError> {
         for p in pairs {
-            let (Some(f), Some(pk)) =
-                (features.get(p.feature as usize), peaks.get(p.peak as usize))
-            else {
+            let (Some(f), Some(pk)) = (features.get(p.feature as usize), peaks.get(p.peak as usize)) else {
                 continue;
             };
-            let Some(line) = self.catalogue.get(f.primary as usize) else {
-                continue;
+            let resolved = pairs.iter().filter(|q| q.feature == p.feature).count() > 1;
+            let (line, predicted) = if resolved {
+                match self.nearest_member(f, pk, m) {
+                    Some((c, _)) => (c, c.wavelength_fm),
+                    None => continue,
+                }
+            } else {
+                match self.catalogue.get(f.primary as usize) {
+                    Some(c) => (c, f.predicted_fm),
+                    None => continue,
+                }
             };
-            let measured = m
-                .map
-                .wavelength_fm(pk.center_px_q16)
-                .map_err(|e| CheckError::Match(e.into()))?;
+            let measured = m.map.wavelength_fm(pk.center_px_q16).map_err(|e| CheckError::Match(e.into()))?;
+            let slope = m.map.slope_fm_per_px_q16(pk.center_px_q16).unwrap_or(0).unsigned_abs() as u128;
+            let c = (pk.center_sigma_px_q16 as u128 * slope) >> 32;
+            let s = m.sigma_fm(pk.center_px_q16) as u128;
+            let judged = if !resolved && !share_known && f.members.len() > 1 {
+                self.blend_error(f, measured)
+            } else {
+                measured - predicted
+            };
             let _ = report.lines.push(MatchedLine {
                 nucleus: line.nucleus,
                 lower: line.lower,
                 upper: line.upper,
-                predicted_fm: f.predicted_fm,
+                predicted_fm: predicted,
                 measured_fm: measured,
                 center_px_q16: pk.center_px_q16,
-                sigma_fm: {
-                    let slope = m
-                        .map
-                        .slope_fm_per_px_q16(pk.center_px_q16)
-                        .unwrap_or(0)
-                        .unsigned_abs() as u128;
-                    let c = (pk.center_sigma_px_q16 as u128 * slope) >> 32;
-                    let s = m.sigma_fm(pk.center_px_q16) as u128;
-                    crate::fixed::isqrt_u128(c * c + s * s) as u64
-                },
+                sigma_fm: crate::fixed::isqrt_u128(c * c + s * s) as u64,
+                judged_error_fm: judged,
                 snr_q8: pk.snr_q8,
-                blended: pk.blended || f.members.len() > 1,
+                blended: pk.blended || (f.members.len() > 1 && !resolved),
                 saturated: pk.saturated,
             });
         }
@@ -577,7 +623,6 @@ impl Checker {
         features: &[Feature],
         pairs: &[Pair],
         peaks: &[Peak],
-        estimate: Option<ShareEstimate>,
         report: &mut Report,
     ) {
         let prof = &self.cfg.profile;
@@ -619,43 +664,19 @@ impl Checker {
                 report.note(Reason::SpeciesMissing(s.nucleus));
             }
         }
-        // Position errors, allowing an undetermined blend anywhere in its share range; a line is off
-        // when its error exceeds the allowance by more than 3 σ of its own measurement.
+        // Position errors; a line is off when its judged error exceeds the allowance by more than
+        // 3 σ of its own measurement.
         let (mut sum_e, mut sum_e2, mut max_e, mut n_e) = (0i128, 0i128, 0u64, 0i128);
         let mut worst: Option<(u64, MatchedLine)> = None;
-        for p in pairs {
-            let (Some(f), Some(_)) = (features.get(p.feature as usize), peaks.get(p.peak as usize))
-            else {
-                continue;
-            };
-            let Some(line) = report
-                .lines
-                .iter()
-                .find(|l| l.predicted_fm == f.predicted_fm)
-                .copied()
-            else {
-                continue;
-            };
-            let e = if estimate.is_none() {
-                self.blend_error(f, &line)
-            } else {
-                line.error_fm()
-            };
+        for line in report.lines.iter() {
+            let e = line.judged_error_fm;
             sum_e += line.error_fm() as i128;
             sum_e2 += (line.error_fm() as i128) * (line.error_fm() as i128);
             n_e += 1;
             max_e = max_e.max(e.unsigned_abs());
-            let excess = e
-                .unsigned_abs()
-                .saturating_sub(prof.max_line_error_fm as u64 + 3 * line.sigma_fm);
+            let excess = e.unsigned_abs().saturating_sub(prof.max_line_error_fm as u64 + 3 * line.sigma_fm);
             if excess > 0 && worst.is_none_or(|(x, _)| excess > x) {
-                worst = Some((
-                    excess,
-                    MatchedLine {
-                        predicted_fm: line.measured_fm - e,
-                        ..line
-                    },
-                ));
+                worst = Some((excess, MatchedLine { predicted_fm: line.measured_fm - e, ..*line }));
             }
         }
         report.scores.max_abs_error_fm = max_e;
@@ -688,33 +709,24 @@ impl Checker {
                 permille: report.scores.unexplained_permille,
             });
         }
-        // Shares against the profile: outside by more than 2 σ fails, straddling is inconclusive.
+        // Shares against the profile: inside the range passes; outside by more than 2 σ fails; outside
+        // but within 2 σ of it cannot be decided.
         for sh in report.shares.clone().iter() {
             let Some(exp) = prof.expected().find(|s| s.nucleus == sh.nucleus) else {
                 continue;
             };
             match (sh.share_ppm, sh.sigma_ppm) {
                 (Some(v), Some(sg)) => {
-                    let (lo, hi) = (
-                        exp.min_share_permille as i64 * 1000,
-                        exp.max_share_permille as i64 * 1000,
-                    );
+                    let (lo, hi) = (exp.min_share_permille as i64 * 1000, exp.max_share_permille as i64 * 1000);
                     let (v, two) = (v as i64, 2 * sg as i64);
                     if v + two < lo || v - two > hi {
-                        report.note(Reason::ShareOutOfRange {
-                            nucleus: sh.nucleus,
-                            share_permille: (v / 1000) as u16,
-                        });
-                    } else if v - two < lo && lo > 0 || v + two > hi && hi < 1_000_000 {
-                        report.note(Reason::ShareUncertain {
-                            nucleus: sh.nucleus,
-                        });
+                        report.note(Reason::ShareOutOfRange { nucleus: sh.nucleus, share_permille: (v / 1000) as u16 });
+                    } else if v < lo || v > hi {
+                        report.note(Reason::ShareUncertain { nucleus: sh.nucleus });
                     }
                 }
                 _ if sh.nucleus.z() == 1 && prof.isotope_required && exp.min_share_permille > 0 => {
-                    report.note(Reason::ShareUncertain {
-                        nucleus: sh.nucleus,
-                    });
+                    report.note(Reason::ShareUncertain { nucleus: sh.nucleus });
                 }
                 _ => {}
             }
@@ -728,9 +740,9 @@ impl Checker {
 
     /// Error of a blend whose share is unknown: distance from the measured position to the range of
     /// positions the profile's shares allow (0 inside it).
-    fn blend_error(&self, f: &Feature, line: &MatchedLine) -> i64 {
+    fn blend_error(&self, f: &Feature, measured: i64) -> i64 {
         let Some((a, b)) = self.pair else {
-            return line.error_fm();
+            return measured - f.predicted_fm;
         };
         let members: Vec<&CatalogueLine, 4> = collect_bounded(
             f.members
@@ -740,7 +752,7 @@ impl Checker {
         let la = members.iter().find(|c| c.nucleus == a);
         let lb = members.iter().find(|c| c.nucleus == b);
         let (Some(la), Some(lb)) = (la, lb) else {
-            return line.error_fm();
+            return measured - f.predicted_fm;
         };
         let range = self
             .cfg
@@ -752,7 +764,7 @@ impl Checker {
             |fb: u16| la.wavelength_fm + (lb.wavelength_fm - la.wavelength_fm) * fb as i64 / 1000;
         let (x, y) = (at(range.0), at(range.1));
         let (lo, hi) = (x.min(y), x.max(y));
-        line.measured_fm - line.measured_fm.clamp(lo, hi)
+        measured - measured.clamp(lo, hi)
     }
 }
 

@@ -66,6 +66,10 @@ pub struct MatchedLine {
     pub center_px_q16: i32,
     /// 1-σ uncertainty of `measured_fm` (centroid and map together), femtometres.
     pub sigma_fm: u64,
+    /// The error the verdict weighs, femtometres: measured − predicted, except for an unresolved
+    /// blend of unknown share, where it is the distance to the range of positions the profile's
+    /// shares allow (0 inside it).
+    pub judged_error_fm: i64,
     /// Peak SNR (Q8).
     pub snr_q8: u32,
     /// Several predicted lines share this peak (an unresolved isotope blend, or the peak was flagged

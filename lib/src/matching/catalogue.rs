@@ -41,7 +41,7 @@ pub fn kramers_strength(lower: u8, upper: u8) -> u32 {
 }
 
 /// Predicted lines of `nuclei` with wavelength (in `air`'s medium) in `from_fm ..= to_fm`, sorted by
-/// wavelength, at most [`MAX_CATALOGUE`] (strongest kept).
+/// wavelength, at most [`MAX_CATALOGUE`] (strongest kept), none under 1/300 of the strongest.
 ///
 /// Work: one [`Lines`] pass per nucleus over the window widened by 0.1 % (vacuum vs air).
 pub fn build(
@@ -86,6 +86,11 @@ pub fn build(
             }
         }
     }
+    // Lines under 1/300 of the strongest are the crowded members near a series limit: closer to each
+    // other than any handheld instrument resolves and too faint to judge by, they would only blur the
+    // features around them.
+    let top = out.iter().map(|l| l.strength).max().unwrap_or(0);
+    out.retain(|l| l.strength >= top / 300);
     crate::sort::sort_by_key(&mut out, |l| (l.wavelength_fm, l.nucleus));
     if out.is_empty() {
         return Err(MatchError::NoLinesOnSensor);

@@ -90,7 +90,7 @@ pub struct PairWindow<'a> {
 /// Share from a two-Gaussian fit with fixed separation. `None` when the frame does not constrain it
 /// (no signal, singular fit).
 ///
-/// Work: ≤ 129 + 33 shift steps × ≤ 64 px × 2 exponentials, then one 3 × 3 Fisher pass.
+/// Work: 2 × ≤ 129 + 33 shift steps × ≤ 64 px × 2 exponentials, then one 3 × 3 Fisher pass.
 pub fn share_by_profile(w: &PairWindow<'_>) -> Option<ShareEstimate> {
     let sigma = w.sigma_px_q16.max(1 << 12) as i64;
     let lo_c = w.a_px_q16.min(w.b_px_q16) as i64;
@@ -138,6 +138,22 @@ pub fn share_by_profile(w: &PairWindow<'_>) -> Option<ShareEstimate> {
         return None;
     }
     let s2 = (chi2.max(0) / (n as i128 - 3)).max(1);
+    // A searched shift wider than the separation allows a second explanation: the other isotope's
+    // line, shifted by the separation. If that fits nearly as well (Δχ² < 9 s²), the frame shows one
+    // line of unknown isotope, not a mix.
+    let sep = (hi_c - lo_c).max(1);
+    let mut alt: Option<i128> = None;
+    for st in 0..=steps {
+        let sh = -range + st as i64 * 4096;
+        if 4 * (sh - shift).abs() < 3 * sep {
+            continue;
+        }
+        let c = sums_at(w, first, last, sh, sigma)?.chi2();
+        alt = Some(alt.map_or(c, |a: i128| a.min(c)));
+    }
+    if alt.is_some_and(|a| a.saturating_sub(chi2) < 9 * s2) {
+        return None;
+    }
     // The shift is a third parameter when it is searched: its freedom is what makes an unresolved
     // pair undeterminable, so the covariance comes from the full 3 × 3 Fisher matrix.
     let f = fisher_at(w, first, last, shift, sigma, a >> 8, b >> 8, range > 0)?;
