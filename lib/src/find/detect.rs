@@ -136,9 +136,9 @@ pub fn push_strongest<const N: usize>(list: &mut Vec<Candidate, N>, c: Candidate
 
 /// Keeps, strongest first, only candidates at least `min_sep_q8` px (Q8) from every stronger one kept.
 ///
-/// Loop bound: candidates² ≤ [`MAX_CANDIDATES`]².
+/// Loop bound: candidates² ≤ [`MAX_CANDIDATES`]² (insertion sort, then the pairwise check).
 pub fn thin(list: &mut Vec<Candidate, MAX_CANDIDATES>, min_sep_q8: u16) {
-    list.sort_unstable_by(|a, b| b.strength.cmp(&a.strength).then(a.pos.cmp(&b.pos)));
+    crate::sort::sort_by_key(list, |c| (core::cmp::Reverse(c.strength), c.pos));
     let mut kept: Vec<Candidate, MAX_CANDIDATES> = Vec::new();
     for c in list.iter() {
         let far = kept

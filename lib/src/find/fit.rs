@@ -98,11 +98,16 @@ pub fn fit_line(d: &FitData<'_>, peak: usize, s0_q16: i64, s_min_q16: i64, s_max
     // Parabola through three pixels: δ = (rl − rr) / (2 (rl − 2 r0 + rr)), within ±0.5 px.
     let den = rl - 2 * r0 + rr;
     let delta_q16 = if den < 0 {
-        (((rl - rr) << 16) / (2 * den)).clamp(-(1 << 15), 1 << 15)
+        ((i128::from(rl) - i128::from(rr)) << 16)
+            .checked_div(2 * i128::from(den))
+            .unwrap_or(0)
+            .clamp(-(1 << 15), 1 << 15) as i64
     } else {
         0
     };
-    let s0 = s0_q16.clamp(s_min_q16, s_max_q16).max(1 << 14);
+    // max/min, not clamp: clamp panics on crossed bounds, and these come from the caller.
+    let s_max_q16 = s_max_q16.max(s_min_q16);
+    let s0 = s0_q16.max(s_min_q16).min(s_max_q16).max(1 << 14);
     let half = ((5 * s0) >> 17).saturating_add(2).clamp(2, MAX_HALF as i64) as usize;
     let lo = peak.saturating_sub(half);
     let hi = (peak + half).min(n.saturating_sub(1));
@@ -136,7 +141,9 @@ pub fn fit_line(d: &FitData<'_>, peak: usize, s0_q16: i64, s_min_q16: i64, s_max
         let before = p;
         p.a_q8 = (p.a_q8 + ((p.a_q8 * da) >> 16)).max(16);
         p.mu_q16 += (p.s_q16 * dmu) >> 16;
-        p.s_q16 = (p.s_q16 + ((p.s_q16 * ds) >> 16)).clamp(s_min_q16, s_max_q16);
+        p.s_q16 = (p.s_q16 + ((p.s_q16 * ds) >> 16))
+            .max(s_min_q16)
+            .min(s_max_q16);
         p.c_q8 += (p.a_q8 * dc) >> 16;
         // The centre must stay inside the window, or the fit has wandered onto something else.
         if p.mu_q16 < (lo as i64) << 16 || p.mu_q16 > (hi as i64) << 16 {
@@ -190,7 +197,9 @@ fn normal(
         if !d.usable(i) {
             continue;
         }
-        let u = ((((i as i64) << 16) - p.mu_q16) << 16) / s;
+        let u = ((((i as i64) << 16) - p.mu_q16) << 16)
+            .checked_div(s)
+            .unwrap_or(0);
         let g30 = exp_neg_q16((u.saturating_mul(u)) >> 17);
         let line_q8 = (i128::from(a) * i128::from(g30)) >> 30;
         let gu = round_shift(i128::from(g30) * i128::from(u), 16);
@@ -198,9 +207,12 @@ fn normal(
         let model_q8 = line_q8 + i128::from(p.c_q8);
         let level = d.base_at(i) + (line_q8 >> 8) as i64;
         let var = i128::from(d.noise.var_q8(level).max(1));
-        let w = (i128::from(vref) << 30) / var;
+        let w = (i128::from(vref) << 30).checked_div(var).unwrap_or(0);
         let e = (i128::from(d.resid(i)) << 8) - model_q8;
-        let e_rel = ((e << 24) / i128::from(a)).clamp(-(1 << 40), 1 << 40);
+        let e_rel = (e << 24)
+            .checked_div(i128::from(a))
+            .unwrap_or(0)
+            .clamp(-(1 << 40), 1 << 40);
         let j = [i128::from(g30), gu, guu, 1 << 30];
         for (row, &jr) in m.iter_mut().zip(&j) {
             let wj = round_shift(w * jr, 30);
@@ -373,7 +385,7 @@ fn center_sigma(m: &Mat, p: &Params, vref: i64) -> Option<i64> {
     // vref is Q8, so sqrt(vref · inv) is Q20 in frame units.
     let sv_q20 = isqrt_u128((vref as u128).checked_mul(u128::try_from(inv_q32).ok()?)?) as i128;
     let a = i128::from(p.a_q8.max(1));
-    let sig = (i128::from(p.s_q16) * sv_q20) / (a << 12);
+    let sig = (i128::from(p.s_q16) * sv_q20).checked_div(a << 12)?;
     Some(sig.clamp(1, i128::from(i64::MAX)) as i64)
 }
 
@@ -384,7 +396,7 @@ fn profile(f: &Fit, i: usize) -> i64 {
     if dx.abs() > 6 * s {
         return 0;
     }
-    let u = (dx << 16) / s;
+    let u = (dx << 16).checked_div(s).unwrap_or(0);
     let g30 = exp_neg_q16((u * u) >> 17);
     ((i128::from(f.height_q8) * i128::from(g30)) >> 38) as i64
 }

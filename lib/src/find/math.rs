@@ -81,10 +81,13 @@ pub fn div_round_i128(num: i128, den: i128) -> i128 {
     } else {
         (num, den)
     };
+    // `checked_div` rather than `/`: the compiler cannot see that `den` is now > 0 (−i128::MIN wraps),
+    // and a plain division would keep a panic path.
+    let q = |n: i128| n.saturating_add(den / 2).checked_div(den).unwrap_or(0);
     if num >= 0 {
-        num.saturating_add(den / 2) / den
+        q(num)
     } else {
-        -(num.saturating_neg().saturating_add(den / 2) / den)
+        q(num.saturating_neg()).saturating_neg()
     }
 }
 

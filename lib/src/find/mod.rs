@@ -83,13 +83,13 @@ pub const SPIKE_FWHM_Q8: u32 = 160;
 /// On return (also `Ok` with no peaks) the first `frame.len()` cells of `scratch` hold the baseline the
 /// peaks stand on (frame units), for callers that need the continuum; the rest is work space.
 ///
-/// Loop bounds, with N = `frame.len()` ≤ [`MAX_PIXELS`]: two looks, each a noise estimate O(N) (a
-/// median select per 64-px block and 4 refit rounds over ≤ 64 blocks), a baseline of (1 + 16 rounds) ×
+/// Loop bounds, with N = `frame.len()` ≤ [`MAX_PIXELS`]: two looks, each a noise estimate O(N) (two
+/// insertion-sort medians of ≤ 64 values per 64-px block and 4 refit rounds over ≤ 64 blocks), a baseline of (1 + 16 rounds) ×
 /// 2 box passes of O(N), and detection O(N) plus ≤ 2 × 4·FWHMmax px of prominence search per local
 /// maximum above threshold; masking ≤ 128 candidates × ≤ 6·FWHMmax px;
 /// thinning ≤ 128² comparisons; ≤ 2 × 64 fits of ≤ 13 Gauss–Newton passes over ≤ 33 px (the second
 /// only for lines with a neighbour in reach, taking ≤ 2 neighbour profiles out); blend marking
-/// ≤ 64 comparisons; final sort of ≤ 64 peaks.
+/// ≤ 64 comparisons; final sort of ≤ 64 peaks (all sorts are insertion sorts without panic paths).
 pub fn find_peaks(
     cfg: &FindConfig,
     frame: &[i32],
@@ -142,7 +142,9 @@ pub fn find_peaks(
             neighbours: [None, None],
         };
         for c in cands.iter() {
-            let s0 = half_width_sigma(&data, c.pos, fwhm_max_px).clamp(s_min, s_max);
+            let s0 = half_width_sigma(&data, c.pos, fwhm_max_px)
+                .max(s_min)
+                .min(s_max);
             let half = usize::try_from((3 * s0) >> 16).unwrap_or(0) + 2;
             mask.mark(c.pos, half.min(3 * fwhm_max_px));
         }
@@ -168,14 +170,20 @@ pub fn find_peaks(
     // First fits, each line alone, in centre order.
     let mut fits: Vec<(fit::Fit, usize, i64), MAX_PEAKS> = Vec::new();
     for c in cands.iter() {
-        let s0 = half_width_sigma(&data, c.pos, fwhm_max_px).clamp(s_min, s_max);
+        let s0 = half_width_sigma(&data, c.pos, fwhm_max_px)
+            .max(s_min)
+            .min(s_max);
         let f = fit::fit_line(&data, c.pos, s0, s_min, s_max);
         // Capacity: at most MAX_PEAKS candidates remain.
         let _ = fits.push((f, c.pos, s0));
     }
-    fits.sort_unstable_by_key(|(f, _, _)| f.center_q16);
+    crate::sort::sort_by_key(&mut fits, |(f, _, _)| f.center_q16);
     // Lines whose windows reach a neighbour are fitted again with the neighbours' profiles taken out.
-    let first: Vec<fit::Fit, MAX_PEAKS> = fits.iter().map(|(f, _, _)| *f).collect();
+    // Pushed one by one: `collect` into a heapless Vec panics when full (it cannot be, but the check stays).
+    let mut first: Vec<fit::Fit, MAX_PEAKS> = Vec::new();
+    for (f, _, _) in fits.iter() {
+        let _ = first.push(*f);
+    }
     for (k, (f, pos, s0)) in fits.iter_mut().enumerate() {
         let prev = k.checked_sub(1).and_then(|j| first.get(j)).copied();
         let next = first.get(k + 1).copied();
@@ -212,7 +220,7 @@ pub fn find_peaks(
         };
         let _ = out.push(peak);
     }
-    out.sort_unstable_by_key(|p| p.center_px_q16);
+    crate::sort::sort_by_key(out, |p| p.center_px_q16);
     mark_blends(out, cfg.blend_fwhm_q8);
 
     let untrusted = flag.iter().filter(|&&f| flags::is_untrusted(f)).count();
@@ -238,7 +246,8 @@ fn sigma_q8(var_q8: i64) -> u32 {
     u32::try_from(isqrt_i64(var_q8.saturating_mul(256))).unwrap_or(u32::MAX)
 }
 
-/// Baseline level at the middle of the sorted baseline samples (every 16th pixel, ≤ 256 samples).
+/// Baseline level at the middle of the sorted baseline samples (every 16th pixel, ≤ 256 samples;
+/// insertion sort, ≤ 256² steps).
 fn median_of_base(base: &[i32]) -> i64 {
     let mut v = [0i32; MAX_PIXELS / 16];
     let mut k = 0usize;
@@ -247,7 +256,7 @@ fn median_of_base(base: &[i32]) -> i64 {
         k += 1;
     }
     let s = v.get_mut(..k).unwrap_or(&mut []);
-    s.sort_unstable();
+    crate::sort::sort_by_key(s, |v| *v);
     i64::from(s.get(k / 2).copied().unwrap_or(0))
 }
 
