@@ -160,8 +160,9 @@ impl Checker {
             }
         };
         report.map = Some(in_use.map);
-        // Closer than one line width, two lines show as one peak (two equal Gaussians part at 0.85 FWHM).
-        let merge_q16 = (cfg.line_fwhm_px_q8 as i32) << 8;
+        // Closer than 1.5 line widths, two lines may show as one peak (peak finding's own blend limit);
+        // a pair that does show as two is split again after matching.
+        let merge_q16 = ((cfg.line_fwhm_px_q8 as i32) << 8) * 3 / 2;
         let mut features = group(&self.catalogue, &in_use.map, &self.priors, merge_q16)?;
         let pairs = assign(&features, &peaks, |f| self.window_px_q16(f, &in_use));
         let pairs = self.split_resolved(&features, pairs, &peaks, &in_use);
@@ -170,7 +171,14 @@ impl Checker {
         for f in features.iter_mut() {
             settle(f, &self.catalogue, &in_use.map, &shares)?;
         }
-        self.fill_lines(&features, &pairs, &peaks, &in_use, estimate.is_some(), report)?;
+        self.fill_lines(
+            &features,
+            &pairs,
+            &peaks,
+            &in_use,
+            estimate.is_some(),
+            report,
+        )?;
         self.unexplained(&peaks, &pairs, &in_use, report);
         self.report_shares(estimate, report);
         if cfg.mode == Mode::Verify && self.shifted_scale(&peaks, report) {
@@ -258,14 +266,24 @@ impl Checker {
     fn base_window_px_q16(&self, f: &Feature, m: &MapInUse) -> i32 {
         let p = f.predicted_px_q16;
         let tol_fm = 2 * self.cfg.profile.max_line_error_fm as i64 + 3 * m.sigma_fm(p) as i64;
-        let slope = m.map.slope_fm_per_px_q16(p).unwrap_or(0).unsigned_abs().max(1) as i64;
+        let slope = m
+            .map
+            .slope_fm_per_px_q16(p)
+            .unwrap_or(0)
+            .unsigned_abs()
+            .max(1) as i64;
         (((tol_fm as i128) << 32) / slope as i128).clamp(1 << 16, 64 << 16) as i32
     }
 
     /// Match window of a feature: the line window plus the reach of a blend's members (its centre
     /// moves with the unknown mix).
     fn window_px_q16(&self, f: &Feature, m: &MapInUse) -> i32 {
-        let slope = m.map.slope_fm_per_px_q16(f.predicted_px_q16).unwrap_or(0).unsigned_abs().max(1) as i64;
+        let slope = m
+            .map
+            .slope_fm_per_px_q16(f.predicted_px_q16)
+            .unwrap_or(0)
+            .unsigned_abs()
+            .max(1) as i64;
         let reach = f
             .members
             .iter()
@@ -283,7 +301,11 @@ impl Checker {
         let mut w: Vec<u32, 40> = collect_bounded(
             pairs
                 .iter()
-                .filter(|p| features.get(p.feature as usize).is_some_and(|f| f.members.len() == 1))
+                .filter(|p| {
+                    features
+                        .get(p.feature as usize)
+                        .is_some_and(|f| f.members.len() == 1)
+                })
                 .filter_map(|p| peaks.get(p.peak as usize))
                 .filter(|p| !p.saturated && !p.blended)
                 .map(|p| p.fwhm_px_q16),
@@ -307,7 +329,10 @@ impl Checker {
         base: &[i32],
     ) -> Option<ShareEstimate> {
         let (a, b) = self.pair?;
-        let sigma = self.line_sigma_q16(features, pairs, peaks);
+        // The instrument's configured line width: measured widths of this frame's lines are pulled
+        // up by the very pairs being split. The pair fit refines it by ±8 %.
+        let sigma = ((((self.cfg.line_fwhm_px_q8 as i64) << 8) << 16) / FWHM_PER_SIGMA_Q16) as i32;
+        let _ = self.line_sigma_q16(features, pairs, peaks);
         let fwhm_q16 = (sigma as i64 * FWHM_PER_SIGMA_Q16) >> 16;
         // The strongest transition with both isotopes predicted and some peak matched to either.
         let mut best: Option<(u64, &CatalogueLine, &CatalogueLine)> = None;
@@ -407,7 +432,13 @@ impl Checker {
 
     /// A blend that the sensor resolves after all shows as two peaks: the peak left over next to a
     /// matched multi-line feature is that feature's other member, not a foreign line.
-    fn split_resolved(&self, features: &[Feature], mut pairs: Vec<Pair, 40>, peaks: &[Peak], m: &MapInUse) -> Vec<Pair, 40> {
+    fn split_resolved(
+        &self,
+        features: &[Feature],
+        mut pairs: Vec<Pair, 40>,
+        peaks: &[Peak],
+        m: &MapInUse,
+    ) -> Vec<Pair, 40> {
         let matched: Vec<Pair, 40> = pairs.clone();
         for (k, pk) in peaks.iter().enumerate() {
             if matched.iter().any(|p| p.peak as usize == k) {
@@ -415,11 +446,17 @@ impl Checker {
             }
             let hit = matched.iter().find(|p| {
                 features.get(p.feature as usize).is_some_and(|f| {
-                    f.members.len() > 1 && self.nearest_member(f, pk, m).is_some_and(|(_, d)| d <= self.base_window_px_q16(f, m))
+                    f.members.len() > 1
+                        && self
+                            .nearest_member(f, pk, m)
+                            .is_some_and(|(_, d)| d <= self.base_window_px_q16(f, m))
                 })
             });
             if let Some(p) = hit {
-                let _ = pairs.push(Pair { feature: p.feature, peak: k as u8 });
+                let _ = pairs.push(Pair {
+                    feature: p.feature,
+                    peak: k as u8,
+                });
             }
         }
         crate::sort::sort_by_key(&mut pairs, |p| p.peak);
@@ -427,11 +464,20 @@ impl Checker {
     }
 
     /// The member line of a feature nearest to a peak, with the distance (px, Q16).
-    fn nearest_member<'c>(&'c self, f: &Feature, pk: &Peak, m: &MapInUse) -> Option<(&'c CatalogueLine, i32)> {
+    fn nearest_member<'c>(
+        &'c self,
+        f: &Feature,
+        pk: &Peak,
+        m: &MapInUse,
+    ) -> Option<(&'c CatalogueLine, i32)> {
         let mut best: Option<(&CatalogueLine, i32)> = None;
         for &i in f.members.iter() {
-            let Some(c) = self.catalogue.get(i as usize) else { continue };
-            let Ok(px) = m.map.pixel_q16(c.wavelength_fm) else { continue };
+            let Some(c) = self.catalogue.get(i as usize) else {
+                continue;
+            };
+            let Ok(px) = m.map.pixel_q16(c.wavelength_fm) else {
+                continue;
+            };
             let d = (px - pk.center_px_q16).abs();
             if best.is_none_or(|(_, bd)| d < bd) {
                 best = Some((c, d));
@@ -450,7 +496,9 @@ impl Checker {
         report: &mut Report,
     ) -> Result<(), CheckError> {
         for p in pairs {
-            let (Some(f), Some(pk)) = (features.get(p.feature as usize), peaks.get(p.peak as usize)) else {
+            let (Some(f), Some(pk)) =
+                (features.get(p.feature as usize), peaks.get(p.peak as usize))
+            else {
                 continue;
             };
             let resolved = pairs.iter().filter(|q| q.feature == p.feature).count() > 1;
@@ -465,8 +513,15 @@ impl Checker {
                     None => continue,
                 }
             };
-            let measured = m.map.wavelength_fm(pk.center_px_q16).map_err(|e| CheckError::Match(e.into()))?;
-            let slope = m.map.slope_fm_per_px_q16(pk.center_px_q16).unwrap_or(0).unsigned_abs() as u128;
+            let measured = m
+                .map
+                .wavelength_fm(pk.center_px_q16)
+                .map_err(|e| CheckError::Match(e.into()))?;
+            let slope = m
+                .map
+                .slope_fm_per_px_q16(pk.center_px_q16)
+                .unwrap_or(0)
+                .unsigned_abs() as u128;
             let c = (pk.center_sigma_px_q16 as u128 * slope) >> 32;
             let s = m.sigma_fm(pk.center_px_q16) as u128;
             let judged = if !resolved && !share_known && f.members.len() > 1 {
@@ -618,13 +673,7 @@ impl Checker {
         false
     }
 
-    fn judge(
-        &self,
-        features: &[Feature],
-        pairs: &[Pair],
-        peaks: &[Peak],
-        report: &mut Report,
-    ) {
+    fn judge(&self, features: &[Feature], pairs: &[Pair], peaks: &[Peak], report: &mut Report) {
         let prof = &self.cfg.profile;
         let expected = |n: Nucleus| prof.expected().any(|s| s.nucleus == n);
         let lines_expected = report.lines.iter().filter(|l| expected(l.nucleus)).count() as u8;
@@ -674,9 +723,17 @@ impl Checker {
             sum_e2 += (line.error_fm() as i128) * (line.error_fm() as i128);
             n_e += 1;
             max_e = max_e.max(e.unsigned_abs());
-            let excess = e.unsigned_abs().saturating_sub(prof.max_line_error_fm as u64 + 3 * line.sigma_fm);
+            let excess = e
+                .unsigned_abs()
+                .saturating_sub(prof.max_line_error_fm as u64 + 3 * line.sigma_fm);
             if excess > 0 && worst.is_none_or(|(x, _)| excess > x) {
-                worst = Some((excess, MatchedLine { predicted_fm: line.measured_fm - e, ..*line }));
+                worst = Some((
+                    excess,
+                    MatchedLine {
+                        predicted_fm: line.measured_fm - e,
+                        ..*line
+                    },
+                ));
             }
         }
         report.scores.max_abs_error_fm = max_e;
@@ -717,16 +774,26 @@ impl Checker {
             };
             match (sh.share_ppm, sh.sigma_ppm) {
                 (Some(v), Some(sg)) => {
-                    let (lo, hi) = (exp.min_share_permille as i64 * 1000, exp.max_share_permille as i64 * 1000);
+                    let (lo, hi) = (
+                        exp.min_share_permille as i64 * 1000,
+                        exp.max_share_permille as i64 * 1000,
+                    );
                     let (v, two) = (v as i64, 2 * sg as i64);
                     if v + two < lo || v - two > hi {
-                        report.note(Reason::ShareOutOfRange { nucleus: sh.nucleus, share_permille: (v / 1000) as u16 });
+                        report.note(Reason::ShareOutOfRange {
+                            nucleus: sh.nucleus,
+                            share_permille: (v / 1000) as u16,
+                        });
                     } else if v < lo || v > hi {
-                        report.note(Reason::ShareUncertain { nucleus: sh.nucleus });
+                        report.note(Reason::ShareUncertain {
+                            nucleus: sh.nucleus,
+                        });
                     }
                 }
                 _ if sh.nucleus.z() == 1 && prof.isotope_required && exp.min_share_permille > 0 => {
-                    report.note(Reason::ShareUncertain { nucleus: sh.nucleus });
+                    report.note(Reason::ShareUncertain {
+                        nucleus: sh.nucleus,
+                    });
                 }
                 _ => {}
             }

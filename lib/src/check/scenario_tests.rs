@@ -205,3 +205,69 @@ fn dark_frame_is_inconclusive() {
     let r = run(config(Mode::Verify, profile::HYDROGEN, truth()), &raw);
     assert_eq!(r.verdict, Verdict::Inconclusive, "{:?}", r.reasons);
 }
+
+/// A high-resolution instrument (0.07 nm/px, FWHM 2.5 px) resolves Dα from Hα (2.6 px apart): the
+/// D share comes from the two-line fit.
+#[test]
+fn resolved_alpha_pair_gives_the_deuterium_share() {
+    const M: usize = 4096;
+    // 400 nm + 0.07 nm/px: normalised around the centre.
+    let half = 0.07 * 2047.5;
+    let map = WavelengthMap::new(
+        M as u16,
+        1,
+        [(400.0e6 + half * 1e6) as i64, (half * 1e6) as i64, 0, 0],
+    )
+    .unwrap();
+    for (share_d, seed) in [(250u32, 3u64), (500, 5), (750, 9)] {
+        let sigma_q16: i64 = (640i64 << 24) / 154_325; // FWHM 2.5 px
+        let mut lines: std::vec::Vec<(i64, i64)> = std::vec::Vec::new();
+        for (nu, share) in [(Nucleus::H1, 1000 - share_d), (Nucleus::H2, share_d)] {
+            for upper in 3..=6u8 {
+                let l = line(nu, 2, upper, &Air::Standard).unwrap();
+                let h = 3000 * kramers_strength(2, upper) as i64 / kramers_strength(2, 3) as i64
+                    * share as i64
+                    / 1000;
+                lines.push((l.air_fm.unwrap() as i64, h));
+            }
+        }
+        let mut rng = Rng(seed);
+        let raw: Vec<u16> = (0..M as i64)
+            .map(|i| {
+                let mut v = 300i64 + rng.gauss(4);
+                for &(w, h) in &lines {
+                    let c = map.pixel_q16(w).unwrap() as i64;
+                    let d = (i << 16) - c;
+                    if d.abs() < 40 << 16 {
+                        let x = ((d * d) >> 16) * 32_768 / ((sigma_q16 * sigma_q16) >> 16);
+                        let s = (h * exp_neg_q16(x)) >> 30;
+                        v += s + rng.gauss(isqrt(s.max(0)));
+                    }
+                }
+                v.clamp(0, 4095) as u16
+            })
+            .collect();
+        let mut cfg = config(Mode::Verify, profile::HYDROGEN_DEUTERIUM, map);
+        cfg.pixels = M as u16;
+        cfg.line_fwhm_px_q8 = 640;
+        let checker = Checker::new(cfg).unwrap();
+        let mut buf = std::boxed::Box::new(Buffers::<M>::new());
+        let mut r = Report::new();
+        checker
+            .check(
+                FrameSum::single(&raw).unwrap(),
+                None,
+                None,
+                buf.workspace(M),
+                &mut r,
+            )
+            .unwrap();
+        let d = r.shares.iter().find(|s| s.nucleus == Nucleus::H2).unwrap();
+        std::println!("D {share_d}: {:?} {:?}", d, r.reasons);
+        let got = d.share_ppm.unwrap() as i64 / 1000;
+        assert!(
+            (got - share_d as i64).abs() <= 30,
+            "D {share_d}‰: got {got}‰"
+        );
+    }
+}

@@ -90,7 +90,7 @@ pub struct PairWindow<'a> {
 /// Share from a two-Gaussian fit with fixed separation. `None` when the frame does not constrain it
 /// (no signal, singular fit).
 ///
-/// Work: 2 × ≤ 129 + 33 shift steps × ≤ 64 px × 2 exponentials, then one 3 × 3 Fisher pass.
+/// Work: 2 × ≤ 129 + 3 × 33 shift steps × ≤ 64 px × 2 exponentials, then one 3 × 3 Fisher pass.
 pub fn share_by_profile(w: &PairWindow<'_>) -> Option<ShareEstimate> {
     let sigma = w.sigma_px_q16.max(1 << 12) as i64;
     let lo_c = w.a_px_q16.min(w.b_px_q16) as i64;
@@ -119,17 +119,23 @@ pub fn share_by_profile(w: &PairWindow<'_>) -> Option<ShareEstimate> {
     }
     // Refine the shift on a 1/256-px grid around the best coarse step: an off-grid shift would
     // otherwise leak into the share (share × separation mimics a shift).
+    // The width is refined too (±8 %): a width off by a few per cent biases the share far more than
+    // the noise does.
     let (_, _, coarse) = best?;
-    if range > 0 {
-        for s in -16..=16i64 {
+    let mut sigma_best = sigma;
+    for sg in [sigma * 23 / 25, sigma, sigma * 27 / 25] {
+        let fine = if range > 0 { 16i64 } else { 0 };
+        for s in -fine..=fine {
             let shift = coarse + s * 256;
-            let sums = sums_at(w, first, last, shift, sigma)?;
+            let sums = sums_at(w, first, last, shift, sg)?;
             let chi = sums.chi2();
             if best.as_ref().is_none_or(|(c, _, _)| chi < *c) {
                 best = Some((chi, sums, shift));
+                sigma_best = sg;
             }
         }
     }
+    let sigma = sigma_best;
     let (chi2, s, shift) = best?;
     let (a, b) = s.amplitudes_q8()?;
     let n = last - first + 1;
@@ -142,16 +148,31 @@ pub fn share_by_profile(w: &PairWindow<'_>) -> Option<ShareEstimate> {
     // line, shifted by the separation. If that fits nearly as well (Δχ² < 9 s²), the frame shows one
     // line of unknown isotope, not a mix.
     let sep = (hi_c - lo_c).max(1);
-    let mut alt: Option<i128> = None;
+    let mut alt: Option<(i128, i64)> = None;
     for st in 0..=steps {
         let sh = -range + st as i64 * 4096;
         if 4 * (sh - shift).abs() < 3 * sep {
             continue;
         }
         let c = sums_at(w, first, last, sh, sigma)?.chi2();
-        alt = Some(alt.map_or(c, |a: i128| a.min(c)));
+        if alt.is_none_or(|(a, _)| c < a) {
+            alt = Some((c, sh));
+        }
     }
-    if alt.is_some_and(|a| a.saturating_sub(chi2) < 9 * s2) {
+    // The alternative's best shift is off the coarse grid too: refine it like the main one.
+    if let Some((_, at)) = alt {
+        for st in -16..=16i64 {
+            let sh = at + st * 256;
+            if 4 * (sh - shift).abs() < 3 * sep || sh.abs() > range {
+                continue;
+            }
+            let c = sums_at(w, first, last, sh, sigma)?.chi2();
+            if alt.is_none_or(|(a, _)| c < a) {
+                alt = Some((c, sh));
+            }
+        }
+    }
+    if alt.is_some_and(|(a, _)| a.saturating_sub(chi2) < 9 * s2) {
         return None;
     }
     // The shift is a third parameter when it is searched: its freedom is what makes an unresolved
