@@ -3,6 +3,12 @@
 //! Each test sweeps cells (line SNR × FWHM × map × seeds), runs the same path as the command
 //! ([`evaluate`]) and prints a compact table (`cargo test -p glowcheck-sim check_bar -- --nocapture`).
 //!
+//! Two levels per sweep: the default tests assert what must never break (no wrong pass, calibration
+//! found, degenerate cases flagged where the isotope pair is unresolved, ...) and print the rest; the
+//! `check_bar_strict_*` tests (ignored; `-- --ignored`) assert the issue's whole bar and fail on the
+//! lib issues listed in their ignore reasons. `GLOWCHECK_BAR_DUMP=DIR` writes every cell's trace and
+//! instrument file for replay with `glowsim check`.
+//!
 //! "Line SNR" of a cell is the peak SNR of the third-strongest Balmer transition on the sensor
 //! (isotope components summed), so that at least three lines reach it; foreign peaks and the other
 //! lines scale with it. Truth is what the scene was drawn with: the predicted air wavelengths (the
@@ -173,9 +179,41 @@ fn instrument(c: &Case, stored: [f64; 4], sigma_nm: f64, degree: u8) -> Instrume
     }
 }
 
-fn run(c: &Case, inst: &Instrument, p: TubeProfile, mode: Mode) -> (Report, Vec<Drawn>) {
+fn run(c: &Case, inst: &Instrument, p: TubeProfile, mode: Mode, tag: &str) -> (Report, Vec<Drawn>) {
     let (t, drawn) = render(c);
+    dump(tag, &t, inst);
     (evaluate(&t, None, inst, p, mode).unwrap(), drawn)
+}
+
+/// With `GLOWCHECK_BAR_DUMP=DIR`, writes each cell's trace and instrument file to DIR so that a case can
+/// be replayed with `glowsim check DIR/TAG.trace --instrument DIR/TAG.toml --profile … --mode …`.
+fn dump(tag: &str, t: &Trace, inst: &Instrument) {
+    let Some(dir) = std::env::var_os("GLOWCHECK_BAR_DUMP") else {
+        return;
+    };
+    let dir = std::path::PathBuf::from(dir);
+    std::fs::create_dir_all(&dir).unwrap();
+    let name: String = tag
+        .chars()
+        .map(|ch| {
+            if ch.is_ascii_alphanumeric() || ch == '.' || ch == '-' {
+                ch
+            } else {
+                '_'
+            }
+        })
+        .collect();
+    t.write_path(&dir.join(format!("{name}.trace"))).unwrap();
+    let c = inst.coefficients_nm;
+    let toml =
+        format!(
+        "[sensor]\npixels = {}\nadc_bits = {}\nintegration_us = {}\nelectrons_per_count = 2.0\n\
+         [scale]\ncoefficients_nm = [{:?}, {:?}, {:?}, {:?}]\nsigma_nm = {:?}\nfit_degree = {}\n\
+         line_fwhm_px = {:?}\n",
+        inst.pixels, inst.adc_bits, inst.integration_us, c[0], c[1], c[2], c[3], inst.sigma_nm,
+        inst.fit_degree, inst.line_fwhm_px
+    );
+    std::fs::write(dir.join(format!("{name}.toml")), toml).unwrap();
 }
 
 fn has(r: &Report, code: &str) -> bool {
@@ -275,6 +313,9 @@ fn verdict_sweep(
                     };
                     let (t, _) = render(&c);
                     let inst = instrument(&c, map, 0.003, 2);
+                    let tag =
+                        format!("verdict tube {tube} map {mi} SNR {snr} FWHM {fwhm} seed {seed}");
+                    dump(&tag, &t, &inst);
                     for ((pname, p), w) in profiles.iter().zip(want) {
                         let r = evaluate(&t, None, &inst, *p, Mode::Verify).unwrap();
                         n += 1;
@@ -444,9 +485,15 @@ fn calibrate_sweep(strict: bool) {
                         };
                         let stored = perturbed(&map, pixels, o, s);
                         let inst = instrument(&c, stored, 0.003, 2);
-                        let (r, drawn) = run(&c, &inst, profile::HYDROGEN, Mode::Calibrate);
                         let tag =
                             format!("map {mi} SNR {snr} FWHM {fwhm} off ({o}, {s}) seed {seed}");
+                        let (r, drawn) = run(
+                            &c,
+                            &inst,
+                            profile::HYDROGEN,
+                            Mode::Calibrate,
+                            &format!("calibrate {tag}"),
+                        );
                         if r.map.is_none() || r.lines.len() < 3 {
                             bad.push(format!("{tag}: no calibration: {:?}", r.reasons));
                             continue;
@@ -517,7 +564,7 @@ fn check_bar_blind_three_balmer_lines_and_two_foreign_peaks() {
 }
 
 #[test]
-#[ignore = "the issue-4 bar; fails on a lib issue reported to the lead (isotope fitted on a blind map at FWHM 2.5 px)"]
+#[ignore = "the issue-4 bar; fails on a lib issue reported to the lead (isotope pair fitted on a blind map where 2 × separation ≥ FWHM)"]
 fn check_bar_strict_blind_three_balmer_lines_and_two_foreign_peaks() {
     blind_sweep(true);
 }
@@ -564,15 +611,25 @@ fn blind_sweep(strict: bool) {
                     // The stored map only bounds the catalogue in blind mode: give a poor one.
                     let stored = perturbed(&map, pixels, 7.0, 0.03);
                     let inst = instrument(&c, stored, 0.003, 2);
-                    let (r, drawn) = run(&c, &inst, profile::HYDROGEN, Mode::CalibrateBlind);
                     let tag = format!("map {mi} SNR {snr} FWHM {fwhm} seed {seed}");
+                    let (r, drawn) = run(
+                        &c,
+                        &inst,
+                        profile::HYDROGEN,
+                        Mode::CalibrateBlind,
+                        &format!("blind {tag}"),
+                    );
                     let balmer: Vec<u8> = r
                         .lines
                         .iter()
                         .filter(|l| l.nucleus == Nucleus::H1 && l.lower == 2)
                         .map(|l| l.upper)
                         .collect();
-                    let known_here = fwhm < 3.0;
+                    // Where 2 × (Dα–Hα separation) ≥ FWHM lib fits the α pair even on a blind map: a lib
+                    // issue (the isotope shift is not separable from the scale there), kept apart.
+                    let tm = TrueMap::new(&map, pixels).unwrap();
+                    let alpha_px = tm.px_at(656.28, pixels, 0.0).unwrap();
+                    let known_here = 2.0 * 0.179 / tm.slope_nm_per_px(alpha_px) >= fwhm;
                     if r.map.is_none() || balmer != [5, 4, 3] {
                         (if known_here { &mut known } else { &mut bad })
                             .push(format!("{tag}: lines {balmer:?}, reasons {:?}", r.reasons));
@@ -649,11 +706,12 @@ fn fraction_sweep(strict: bool) {
     );
     row!(
         out,
-        "{:>5} {:>6} {:>5} {:>6} {:>9} {:>9} {:>9}",
+        "{:>5} {:>6} {:>5} {:>6} {:>5} {:>9} {:>9} {:>9}",
         "setup",
         "sep/FW",
         "SNR",
         "D",
+        "n",
         "max err",
         "rms err",
         "mean σ"
@@ -681,8 +739,8 @@ fn fraction_sweep(strict: bool) {
                         seed,
                     };
                     let inst = instrument(&c, map, 0.003, 2);
-                    let (r, _) = run(&c, &inst, p, Mode::Verify);
                     let tag = format!("setup {si} SNR {snr} D {f} seed {seed}");
+                    let (r, _) = run(&c, &inst, p, Mode::Verify, &format!("fraction {tag}"));
                     let known_here = (0.1..=0.9).contains(&f);
                     let Some(d) = share(&r, Nucleus::H2) else {
                         (if known_here { &mut known } else { &mut bad })
@@ -708,7 +766,7 @@ fn fraction_sweep(strict: bool) {
                 let rms = (sum2 / n.max(1) as f64).sqrt();
                 row!(
                     out,
-                    "{si:>5} {:>6.2} {snr:>5} {f:>6} {worst:>7.2}pp {rms:>7.2}pp {:>7.2}pp",
+                    "{si:>5} {:>6.2} {snr:>5} {f:>6} {n:>3}/3 {worst:>7.2}pp {rms:>7.2}pp {:>7.2}pp",
                     sep_px / fwhm,
                     sig / n.max(1) as f64
                 );
@@ -796,8 +854,8 @@ fn degenerate_sweep(strict: bool) {
                     ("hydrogen", profile::HYDROGEN),
                 ] {
                     n += 1;
-                    let (r, _) = run(&c, &inst, p, mode);
                     let tag = format!("{pixels} px FWHM {fwhm} seed {seed} {what} profile {pname}");
+                    let (r, _) = run(&c, &inst, p, mode, &format!("degenerate {tag}"));
                     let known_here = resolving;
                     if !has(&r, "isotope-not-determinable") {
                         (if known_here { &mut known } else { &mut bad }).push(format!(
