@@ -90,7 +90,8 @@ pub struct PairWindow<'a> {
 /// Share from a two-Gaussian fit with fixed separation. `None` when the frame does not constrain it
 /// (no signal, singular fit).
 ///
-/// Work: 2 × ≤ 129 + 3 × 33 shift steps × ≤ 64 px × 2 exponentials, then one 3 × 3 Fisher pass.
+/// Work: ≤ 129 + 3 × 33 pair steps and ≤ 193 + 33 single-line steps, each ≤ 64 px × ≤ 2
+/// exponentials, then one 3 × 3 Fisher pass.
 pub fn share_by_profile(w: &PairWindow<'_>) -> Option<ShareEstimate> {
     let sigma = w.sigma_px_q16.max(1 << 12) as i64;
     let lo_c = w.a_px_q16.min(w.b_px_q16) as i64;
@@ -144,36 +145,33 @@ pub fn share_by_profile(w: &PairWindow<'_>) -> Option<ShareEstimate> {
         return None;
     }
     let s2 = (chi2.max(0) / (n as i128 - 3)).max(1);
-    // A searched shift wider than the separation allows a second explanation: the other isotope's
-    // line, shifted by the separation. If that fits nearly as well (Δχ² < 9 s²), the frame shows one
-    // line of unknown isotope, not a mix.
+    // A searched shift as wide as the separation lets one line of either isotope sit anywhere
+    // the pair could: then only a second line in the frame tells a mix. If one free line fits nearly as
+    // well as the pair (Δχ² < 25 s², a 5 σ test for the second line), the frame shows a single line of
+    // unknown isotope.
     let sep = (hi_c - lo_c).max(1);
-    let mut alt: Option<(i128, i64)> = None;
-    for st in 0..=steps {
-        let sh = -range + st as i64 * 4096;
-        if 4 * (sh - shift).abs() < 3 * sep {
-            continue;
-        }
-        let c = sums_at(w, first, last, sh, sigma)?.chi2();
-        if alt.is_none_or(|(a, _)| c < a) {
-            alt = Some((c, sh));
-        }
-    }
-    // The alternative's best shift is off the coarse grid too: refine it like the main one.
-    if let Some((_, at)) = alt {
-        for st in -16..=16i64 {
-            let sh = at + st * 256;
-            if 4 * (sh - shift).abs() < 3 * sep || sh.abs() > range {
-                continue;
+    if 4 * range >= 3 * sep {
+        let mut single: Option<(i128, i64)> = None;
+        let (c0, c1) = (lo_c - range, hi_c + range);
+        let mut c = c0;
+        while c <= c1 {
+            let chi = single_chi2(w, first, last, c, sigma)?;
+            if single.is_none_or(|(x, _)| chi < x) {
+                single = Some((chi, c));
             }
-            let c = sums_at(w, first, last, sh, sigma)?.chi2();
-            if alt.is_none_or(|(a, _)| c < a) {
-                alt = Some((c, sh));
+            c += 4096;
+        }
+        if let Some((_, at)) = single {
+            for st in -16..=16i64 {
+                let chi = single_chi2(w, first, last, at + st * 256, sigma)?;
+                if single.is_none_or(|(x, _)| chi < x) {
+                    single = Some((chi, at + st * 256));
+                }
             }
         }
-    }
-    if alt.is_some_and(|(a, _)| a.saturating_sub(chi2) < 9 * s2) {
-        return None;
+        if single.is_some_and(|(x, _)| x.saturating_sub(chi2) < 25 * s2) {
+            return None;
+        }
     }
     // The shift is a third parameter when it is searched: its freedom is what makes an unresolved
     // pair undeterminable, so the covariance comes from the full 3 × 3 Fisher matrix.
@@ -262,6 +260,22 @@ fn amplitude_covariance(f: &[[i128; 3]; 3], s2: i128) -> Option<(i128, i128, i12
     let var_b = mul_div_i128(s2, inv(adj11)?, d[1] * d[1] * (ONE >> 30))?;
     let cov_ab = mul_div_i128(s2, inv(adj01)?, d[0] * d[1] * (ONE >> 30))?;
     Some((var_a, var_b, cov_ab))
+}
+
+/// Residual sum of squares of the best single line of width `sigma` centred at `c_q16`.
+fn single_chi2(w: &PairWindow<'_>, first: i64, last: i64, c_q16: i64, sigma: i64) -> Option<i128> {
+    let (mut sgg, mut srg, mut srr) = (0i128, 0i128, 0i128);
+    for i in first..=last {
+        let r = (*w.frame.get(i as usize)? as i128) - (*w.base.get(i as usize)? as i128);
+        let g = gauss_q15(i << 16, c_q16, sigma) as i128;
+        sgg += g * g;
+        srg += r * g;
+        srr += r * r;
+    }
+    if sgg == 0 {
+        return Some(srr);
+    }
+    Some(srr - mul_div_i128(srg, srg, sgg)?)
 }
 
 /// Sums of the linear 2 × 2 problem at one shift. g in Q15, r in frame units.
