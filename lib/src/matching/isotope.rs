@@ -90,7 +90,7 @@ pub struct PairWindow<'a> {
 /// Share from a two-Gaussian fit with fixed separation. `None` when the frame does not constrain it
 /// (no signal, singular fit).
 ///
-/// Work: ≤ 129 + 3 × 33 pair steps and ≤ 193 + 33 single-line steps, each ≤ 64 px × ≤ 2
+/// Work: ≤ 129 + 3 × 33 pair steps and ≤ 193 + 5 × 33 single-line steps, each ≤ 64 px × ≤ 2
 /// exponentials, then one 3 × 3 Fisher pass.
 pub fn share_by_profile(w: &PairWindow<'_>) -> Option<ShareEstimate> {
     let sigma = w.sigma_px_q16.max(1 << 12) as i64;
@@ -161,11 +161,21 @@ pub fn share_by_profile(w: &PairWindow<'_>) -> Option<ShareEstimate> {
             }
             c += 4096;
         }
+        // The lone line gets its own width freedom (±16 %): a line slightly wider than configured
+        // must not pass for a pair.
         if let Some((_, at)) = single {
-            for st in -16..=16i64 {
-                let chi = single_chi2(w, first, last, at + st * 256, sigma)?;
-                if single.is_none_or(|(x, _)| chi < x) {
-                    single = Some((chi, at + st * 256));
+            for sg in [
+                sigma * 21 / 25,
+                sigma * 23 / 25,
+                sigma,
+                sigma * 27 / 25,
+                sigma * 29 / 25,
+            ] {
+                for st in -16..=16i64 {
+                    let chi = single_chi2(w, first, last, at + st * 256, sg)?;
+                    if single.is_none_or(|(x, _)| chi < x) {
+                        single = Some((chi, at + st * 256));
+                    }
                 }
             }
         }
