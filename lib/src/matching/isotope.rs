@@ -96,11 +96,14 @@ pub fn share_by_profile(w: &PairWindow<'_>) -> Option<ShareEstimate> {
     let sigma = w.sigma_px_q16.max(1 << 12) as i64;
     let lo_c = w.a_px_q16.min(w.b_px_q16) as i64;
     let hi_c = w.a_px_q16.max(w.b_px_q16) as i64;
+    // The window also covers the mirrored pair (b reflected about a) of the line-shape test below.
+    let mirror_c = 2 * w.a_px_q16 as i64 - w.b_px_q16 as i64;
+    let (win_lo, win_hi) = (lo_c.min(mirror_c), hi_c.max(mirror_c));
     let reach = 3 * sigma + w.shift_range_px_q16.unsigned_abs() as i64;
     let n = w.frame.len().min(w.base.len()) as i64;
     let top = n.saturating_sub(1).max(0);
-    let first = ((lo_c - reach) >> 16).max(0).min(top);
-    let last = ((hi_c + reach + 65_535) >> 16)
+    let first = ((win_lo - reach) >> 16).max(0).min(top);
+    let last = ((win_hi + reach + 65_535) >> 16)
         .max(0)
         .min(top)
         .min(first + 63);
@@ -180,6 +183,23 @@ pub fn share_by_profile(w: &PairWindow<'_>) -> Option<ShareEstimate> {
             }
         }
         if single.is_some_and(|(x, _)| x.saturating_sub(chi2) < 25 * s2) {
+            return None;
+        }
+        // A companion on the wrong side (the pair mirrored) fitting about as well means the fit
+        // uses the companion for line-shape mismatch (wings, width), not for a second isotope.
+        let mirror = PairWindow {
+            b_px_q16: 2 * w.a_px_q16 - w.b_px_q16,
+            ..*w
+        };
+        let mut best_mirror: Option<i128> = None;
+        for st in 0..=steps {
+            let sh = -range + st as i64 * 4096;
+            for fine in [-2048i64, 0] {
+                let c = sums_at(&mirror, first, last, sh + fine, sigma)?.chi2();
+                best_mirror = Some(best_mirror.map_or(c, |m: i128| m.min(c)));
+            }
+        }
+        if best_mirror.is_some_and(|m| m.saturating_sub(chi2) < 25 * s2) {
             return None;
         }
     }
