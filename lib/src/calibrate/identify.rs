@@ -400,7 +400,12 @@ fn fit_pairs(
         };
         pts.push(FitPoint {
             center_px_q16: p.center_px_q16,
-            sigma_px_q16: p.center_sigma_px_q16.max(64),
+            // A blended peak's centre is pulled by its neighbour: it counts a sixteenth.
+            sigma_px_q16: p.center_sigma_px_q16.max(64).saturating_mul(if p.blended {
+                4
+            } else {
+                1
+            }),
             wavelength_fm: line.wavelength_fm,
         })
         .map_err(|_| CalibrateError::TooManyPoints)?;

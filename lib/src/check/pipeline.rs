@@ -524,7 +524,22 @@ impl Checker {
                 .unsigned_abs() as u128;
             let c = (pk.center_sigma_px_q16 as u128 * slope) >> 32;
             let s = m.sigma_fm(pk.center_px_q16) as u128;
-            let judged = if !resolved && !share_known && f.members.len() > 1 {
+            // A line within 2.5 line widths of another feature (series-limit crowding) or sharing its
+            // peak with another transition is identified, but its centre is pulled by the neighbour:
+            // its position is not judged.
+            let fwhm_q16 = (self.cfg.line_fwhm_px_q8 as i64) << 8;
+            let crowded = features.iter().any(|g| {
+                g.predicted_px_q16 != f.predicted_px_q16
+                    && 2 * (g.predicted_px_q16 as i64 - f.predicted_px_q16 as i64).abs()
+                        < 5 * fwhm_q16
+            }) || f
+                .members
+                .iter()
+                .filter_map(|&i| self.catalogue.get(i as usize))
+                .any(|c| (c.lower, c.upper) != (line.lower, line.upper));
+            let judged = if crowded {
+                0
+            } else if !resolved && !share_known && f.members.len() > 1 {
                 self.blend_error(f, measured)
             } else {
                 measured - predicted
@@ -539,7 +554,7 @@ impl Checker {
                 sigma_fm: crate::fixed::isqrt_u128(c * c + s * s) as u64,
                 judged_error_fm: judged,
                 snr_q8: pk.snr_q8,
-                blended: pk.blended || (f.members.len() > 1 && !resolved),
+                blended: pk.blended || crowded || (f.members.len() > 1 && !resolved),
                 saturated: pk.saturated,
             });
         }
@@ -719,9 +734,11 @@ impl Checker {
         let mut worst: Option<(u64, MatchedLine)> = None;
         for line in report.lines.iter() {
             let e = line.judged_error_fm;
-            sum_e += line.error_fm() as i128;
-            sum_e2 += (line.error_fm() as i128) * (line.error_fm() as i128);
-            n_e += 1;
+            if !line.blended {
+                sum_e += line.error_fm() as i128;
+                sum_e2 += (line.error_fm() as i128) * (line.error_fm() as i128);
+                n_e += 1;
+            }
             max_e = max_e.max(e.unsigned_abs());
             let excess = e
                 .unsigned_abs()

@@ -185,23 +185,36 @@ pub fn share_by_profile(w: &PairWindow<'_>) -> Option<ShareEstimate> {
         if single.is_some_and(|(x, _)| x.saturating_sub(chi2) < 25 * s2) {
             return None;
         }
-        // A companion on the wrong side (the pair mirrored) fitting about as well means the fit
-        // uses the companion for line-shape mismatch (wings, width), not for a second isotope.
-        let mirror = PairWindow {
+    }
+    // A companion on the wrong side — the minor line reflected about the major one — fitting about as
+    // well (Δχ² < 25 s²) means the fit used the companion for line-shape mismatch (wings, width), not
+    // for a second isotope. Position-free, that leaves one line of unknown isotope; with a map that
+    // fixes the positions, the tube is the major isotope alone, the companion's size its uncertainty.
+    let mirror = if a.abs() >= b.abs() {
+        PairWindow {
             b_px_q16: 2 * w.a_px_q16 - w.b_px_q16,
             ..*w
-        };
-        let mut best_mirror: Option<i128> = None;
-        for st in 0..=steps {
-            let sh = -range + st as i64 * 4096;
-            for fine in [-2048i64, 0] {
-                let c = sums_at(&mirror, first, last, sh + fine, sigma)?.chi2();
-                best_mirror = Some(best_mirror.map_or(c, |m: i128| m.min(c)));
+        }
+    } else {
+        PairWindow {
+            a_px_q16: 2 * w.b_px_q16 - w.a_px_q16,
+            ..*w
+        }
+    };
+    let mut best_mirror: Option<i128> = None;
+    for st in 0..=steps {
+        let sh = -range + st as i64 * 4096;
+        for fine in [-2048i64, 0, 2048] {
+            if (sh + fine).abs() > range {
+                continue;
             }
+            let c = sums_at(&mirror, first, last, sh + fine, sigma)?.chi2();
+            best_mirror = Some(best_mirror.map_or(c, |m: i128| m.min(c)));
         }
-        if best_mirror.is_some_and(|m| m.saturating_sub(chi2) < 25 * s2) {
-            return None;
-        }
+    }
+    let companion_is_shape = best_mirror.is_some_and(|m| m.saturating_sub(chi2) < 25 * s2);
+    if companion_is_shape && 4 * range >= 3 * sep {
+        return None;
     }
     // The shift is a third parameter when it is searched: its freedom is what makes an unresolved
     // pair undeterminable, so the covariance comes from the full 3 × 3 Fisher matrix.
@@ -212,9 +225,21 @@ pub fn share_by_profile(w: &PairWindow<'_>) -> Option<ShareEstimate> {
     let num = b * b * var_a + a * a * var_b - 2 * a * b * cov_ab;
     let t2 = total * total;
     let var_ppm = mul_div_i128(mul_div_i128(num, 1_000_000, t2)?, 1_000_000, t2)?;
+    let sigma_ppm = isqrt_u128(var_ppm.max(0) as u128).min(u32::MAX as u128) as u32;
+    if companion_is_shape {
+        let (pure, minor) = if a.abs() >= b.abs() {
+            (0, share)
+        } else {
+            (1_000_000, 1_000_000 - share)
+        };
+        return Some(ShareEstimate {
+            share_b_ppm: pure,
+            sigma_ppm: sigma_ppm.max(minor.clamp(0, 1_000_000) as u32),
+        });
+    }
     Some(ShareEstimate {
         share_b_ppm: share.clamp(i32::MIN as i128, i32::MAX as i128) as i32,
-        sigma_ppm: isqrt_u128(var_ppm.max(0) as u128).min(u32::MAX as u128) as u32,
+        sigma_ppm,
     })
 }
 
