@@ -400,7 +400,7 @@ fn check_bar_verdicts_mixed_tube() {
 }
 
 #[test]
-#[ignore = "the issue-4 bar; fails on lib issues reported to the lead (share range vs σ, crowded series-limit lines, α pair not merged)"]
+#[ignore = "the issue-4 bar; at lib ae0fff3 fails on series-limit lines (n 11-15) reported off position and a pure-H share biased about 6 % at FWHM 2.5 px"]
 fn check_bar_strict_every_verdict_right() {
     assert_sweep("H", H_TUBE, H_WANT, true);
     assert_sweep("D", D_TUBE, D_WANT, true);
@@ -440,7 +440,7 @@ fn check_bar_calibrate_from_an_offset_map() {
 }
 
 #[test]
-#[ignore = "the issue-4 bar; fails on lib issues reported to the lead (isotope fitted on a self-calibrated map; 0.1 px at SNR 20, FWHM 8)"]
+#[ignore = "the issue-4 bar; at lib ae0fff3 fails in one cell: H-alpha left out of the fit, map 1.6 px off (map 2, SNR 20, FWHM 4, seed 2)"]
 fn check_bar_strict_calibrate_from_an_offset_map() {
     calibrate_sweep(true);
 }
@@ -564,7 +564,7 @@ fn check_bar_blind_three_balmer_lines_and_two_foreign_peaks() {
 }
 
 #[test]
-#[ignore = "the issue-4 bar; fails on a lib issue reported to the lead (isotope pair fitted on a blind map where 2 × separation ≥ FWHM)"]
+#[ignore = "the issue-4 bar; at lib ae0fff3 fails in one cell: map 0.100 px from truth at SNR 20, FWHM 8 px (noise-limited)"]
 fn check_bar_strict_blind_three_balmer_lines_and_two_foreign_peaks() {
     blind_sweep(true);
 }
@@ -790,12 +790,6 @@ fn fraction_sweep(strict: bool) {
 /// determinable" with no fraction; the deuterium profile, which needs the isotope, is inconclusive.
 #[test]
 fn check_bar_degenerate_cases_report_isotope_not_determinable() {
-    degenerate_sweep(false);
-}
-
-#[test]
-#[ignore = "the issue-4 bar; fails on a lib issue reported to the lead (pair fit with a free shift wider than the isotope separation)"]
-fn check_bar_strict_degenerate_cases_report_isotope_not_determinable() {
     degenerate_sweep(true);
 }
 
