@@ -390,6 +390,13 @@ impl Checker {
         let pa = m.map.pixel_q16(la.wavelength_fm).ok()?;
         let pb = m.map.pixel_q16(lb.wavelength_fm).ok()?;
         let sep = (pb as i64 - pa as i64).abs();
+        // On a map fitted to the tube itself only a pair that peak finding sees as two lines can tell
+        // a mix: one peak there is one line of either isotope.
+        let (lo, hi) = (pa.min(pb) as i64 - fwhm_q16, pa.max(pb) as i64 + fwhm_q16);
+        let seen = peaks.iter().filter(|p| (lo..=hi).contains(&(p.center_px_q16 as i64))).count();
+        if self.cfg.mode != Mode::Verify && seen < 2 {
+            return None;
+        }
         let estimate = if 2 * sep >= fwhm_q16 {
             let slope = m.map.slope_fm_per_px_q16(pa).ok()?.unsigned_abs().max(1) as i64;
             let range = match self.cfg.mode {
