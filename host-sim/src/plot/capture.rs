@@ -1,0 +1,159 @@
+//! One check with the intermediate frames kept for plotting: the conditioned frame and lib's baseline.
+//!
+//! Same inputs and same lib calls as [`crate::check_cmd::evaluate`] (a test holds the two reports
+//! equal); the difference is that the caller-owned buffers outlive the check, so the plot can show
+//! what peak finding saw.
+use crate::check_cmd::lib_config;
+use crate::instrument::Instrument;
+use crate::trace::{FrameKind, Trace};
+use glowcheck::check::{Buffers, Checker};
+use glowcheck::condition::{
+    FrameSum, Stack, MAX_COADD, MAX_PIXELS, OUTPUT_FRAC_BITS, SATURATED_SUM,
+};
+use glowcheck::judge::{Mode, Report, TubeProfile};
+
+/// A report with the frames behind it, in counts per readout.
+pub struct Checked {
+    /// lib's report.
+    pub report: Report,
+    /// Conditioned frame (dark subtracted when there was a dark), counts.
+    pub frame_counts: Vec<f64>,
+    /// lib's baseline under the peaks, counts.
+    pub baseline_counts: Vec<f64>,
+    /// The profile checked against.
+    pub profile: TubeProfile,
+}
+
+fn stack(
+    frames: &[&Vec<u32>],
+    coadded: u32,
+    full: u16,
+    sum: &mut [u32],
+    what: &str,
+) -> Result<u16, String> {
+    let reads = (frames.len() as u64).saturating_mul(coadded.max(1) as u64);
+    if reads > MAX_COADD as u64 {
+        return Err(format!(
+            "{what}: {reads} readouts exceed the co-adding limit of {MAX_COADD}"
+        ));
+    }
+    if coadded <= 1 {
+        let mut st = Stack::new(sum, full).map_err(|e| format!("{what}: {e}"))?;
+        for f in frames {
+            let raw: Vec<u16> = f
+                .iter()
+                .map(|&c| {
+                    u16::try_from(c).map_err(|_| format!("{what}: count {c} exceeds 16 bits"))
+                })
+                .collect::<Result<_, _>>()?;
+            st.add(&raw).map_err(|e| format!("{what}: {e}"))?;
+        }
+        return Ok(st.frames());
+    }
+    let limit = u64::from(full) * u64::from(coadded);
+    sum.iter_mut().for_each(|s| *s = 0);
+    for f in frames {
+        for (s, &c) in sum.iter_mut().zip(f.iter()) {
+            *s = if u64::from(c) >= limit || *s == SATURATED_SUM {
+                SATURATED_SUM
+            } else {
+                s.saturating_add(c)
+            };
+        }
+    }
+    Ok(reads as u16)
+}
+
+/// Checks a loaded trace and keeps the conditioned frame and baseline.
+pub fn check_keep(
+    trace: &Trace,
+    inst: &Instrument,
+    profile: TubeProfile,
+    mode: Mode,
+) -> Result<Checked, String> {
+    let n = trace.pixels;
+    if n != inst.pixels as usize {
+        return Err(format!(
+            "the trace has {n} pixels, the instrument file says {}",
+            inst.pixels
+        ));
+    }
+    if trace.adc_bits.is_some_and(|b| b != inst.adc_bits) {
+        return Err(format!(
+            "the trace's ADC resolution differs from the instrument file's {} bits",
+            inst.adc_bits
+        ));
+    }
+    let cfg = lib_config(inst, profile, mode, trace.integration_us)?;
+    let full = inst.full_scale_counts();
+    let signals: Vec<&Vec<u32>> = trace
+        .frames_of(FrameKind::Signal)
+        .map(|f| &f.counts)
+        .collect();
+    if signals.is_empty() {
+        return Err("the trace has no signal frame".into());
+    }
+    let darks: Vec<&Vec<u32>> = trace
+        .frames_of(FrameKind::Dark)
+        .map(|f| &f.counts)
+        .collect();
+    let mut sig = vec![0u32; n];
+    let mut drk = vec![0u32; n];
+    let s_reads = stack(&signals, trace.coadded, full, &mut sig, "signal")?;
+    let d_reads = if darks.is_empty() {
+        0
+    } else {
+        stack(&darks, trace.coadded, full, &mut drk, "dark")?
+    };
+    let signal = FrameSum::stacked(&sig, s_reads).map_err(|e| format!("signal: {e}"))?;
+    let dark = if d_reads > 0 {
+        Some(FrameSum::stacked(&drk, d_reads).map_err(|e| format!("dark: {e}"))?)
+    } else {
+        None
+    };
+    let checker = Checker::new(cfg).map_err(|e| format!("configuration: {e}"))?;
+    let mut buffers = Box::new(Buffers::<MAX_PIXELS>::new());
+    let mut report = Report::new();
+    let ws = buffers.workspace(n);
+    checker
+        .check(signal, dark, None, ws, &mut report)
+        .map_err(|e| format!("check: {e}"))?;
+    let ws = buffers.workspace(n);
+    let unit = f64::from(1u32 << OUTPUT_FRAC_BITS);
+    Ok(Checked {
+        report,
+        frame_counts: ws.frame.iter().map(|&v| f64::from(v) / unit).collect(),
+        baseline_counts: ws.scratch[..n]
+            .iter()
+            .map(|&v| f64::from(v) / unit)
+            .collect(),
+        profile,
+    })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::check_cmd::evaluate;
+
+    /// The plot's check is the command's check.
+    #[test]
+    fn same_report_as_glowsim_check() {
+        let inst = Instrument::parse(include_str!(
+            "../../../tests/data/instruments/bench-2048.toml"
+        ))
+        .unwrap();
+        let trace = Trace::parse_any(include_str!(
+            "../../../tests/data/demo/traces/d-lamp-0207.trace"
+        ))
+        .unwrap();
+        let p = glowcheck::judge::profile::DEUTERIUM;
+        let a = check_keep(&trace, &inst, p, Mode::Verify).unwrap();
+        let b = evaluate(&trace, None, &inst, p, Mode::Verify).unwrap();
+        assert_eq!(a.report, b);
+        assert_eq!(a.frame_counts.len(), 2048);
+        // The baseline sits under the frame: its median lies below the frame's largest value.
+        let max = a.frame_counts.iter().cloned().fold(f64::MIN, f64::max);
+        assert!(a.baseline_counts.iter().all(|&b| b < max));
+    }
+}
