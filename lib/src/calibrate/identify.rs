@@ -69,15 +69,16 @@ impl IdentifyConfig {
         }
     }
 
-    /// Defaults for a sensor: ±8 nm, ±2 % around the nominal; blind 0.01–2 nm/px; windows 3 px search
+    /// Defaults for a sensor: ±10 nm, ±3 % around the nominal (margin over the several nm and ±2 %
+    /// a bumped instrument shows); blind 0.01–2 nm/px; windows 3 px search
     /// (12 px blind), 5 σ (≥ 1 px) final.
     pub const fn new(pixels: u16, degree: u8, nominal: Option<WavelengthMap>) -> IdentifyConfig {
         IdentifyConfig {
             pixels,
             degree,
             nominal,
-            max_offset_fm: 8_000_000,
-            max_scale_error_ppm: 20_000,
+            max_offset_fm: 10_000_000,
+            max_scale_error_ppm: 30_000,
             blind_dispersion_fm_per_px: (10_000, 2_000_000),
             search_window_px_q8: 3 << 8,
             blind_window_px_q8: 12 << 8,

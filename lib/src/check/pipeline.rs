@@ -864,7 +864,7 @@ fn same(a: &CatalogueLine, b: &CatalogueLine) -> bool {
 }
 
 /// The sensor's wavelength range on the stored map, widened for what calibration may find:
-/// 8 nm and 2 % (calibrate), a quarter of the span (blind).
+/// 10 nm and 3 % (calibrate), a quarter of the span (blind).
 fn sensor_range(cfg: &Config) -> Result<(i64, i64), CheckError> {
     let last = ((cfg.pixels as i32) - 1) << 16;
     let e = |p| {
@@ -878,7 +878,7 @@ fn sensor_range(cfg: &Config) -> Result<(i64, i64), CheckError> {
     let span = hi - lo;
     let margin = match cfg.mode {
         Mode::Verify => span / 100,
-        Mode::Calibrate => 8_000_000 + span / 50,
+        Mode::Calibrate => 10_000_000 + span * 3 / 100,
         Mode::CalibrateBlind => span / 4,
     };
     Ok((lo - margin, hi + margin))
