@@ -126,7 +126,7 @@ fn parse_air(args: &Args) -> Result<Air, String> {
         finite(p, "--air-pressure-pa")?,
         finite(rh, "--air-rh")?,
     );
-    if p < 0.0 || p > 1e7 || rh < 0.0 || t.abs() > 1e6 {
+    if !(0.0..=1e7).contains(&p) || rh < 0.0 || t.abs() > 1e6 {
         return Err(format!(
             "air conditions out of range: {t} degC, {p} Pa, {rh} %"
         ));
@@ -142,7 +142,7 @@ fn parse_air(args: &Args) -> Result<Air, String> {
 
 fn window_fm(from_nm: Option<f64>, to_nm: Option<f64>) -> Result<(u64, u64), String> {
     let conv = |v: f64, what: &str| -> Result<u64, String> {
-        if !v.is_finite() || v < 0.0 || v > 1e9 {
+        if !v.is_finite() || !(0.0..=1e9).contains(&v) {
             return Err(format!(
                 "{what} {v}: expected a wavelength in nm between 0 and 1e9"
             ));

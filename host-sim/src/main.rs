@@ -41,7 +41,7 @@ enum Command {
     /// Predict hydrogen-like emission lines (vacuum and air wavelengths).
     Lines(lines_cmd::Args),
     /// Synthesize a sensor trace from predicted lines and a sensor model.
-    Synth(synth_cmd::Args),
+    Synth(Box<synth_cmd::Args>),
     /// Find peaks and sub-pixel centroids in a trace.
     Peaks(peaks_cmd::Args),
     /// Check a tube: calibrate or verify, match lines, isotope shares, verdict.

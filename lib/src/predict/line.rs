@@ -5,11 +5,11 @@
 //! strength S (upper levels populated in proportion to their degeneracy, the usual convention for
 //! unresolved hydrogen lines). To first order in the fine structure a level's energy is linear in
 //! 1/(j+½), so that mean is the Dirac energy difference at each level's strength-weighted ⟨1/(j+½)⟩,
-//! generated exactly for every n ≤ 40 ([`BLEND_INV_K`]). Left out, all below 0.01 pm for lines under
-//! 10 µm: the next order of the Dirac energy in 1/(j+½) (relative (Zα)² of the fine-structure shift),
-//! the σ³ photon-rate factor across components (relative (spread/σ)²), the Barker–Glover l-splitting,
-//! and the difference between a wavelength- and a wavenumber-weighted mean (which reaches a few pm
-//! only for millimetre lines between high levels).
+//! generated exactly for every n ≤ 40 ([`BLEND_INV_K`]). Left out: the next order of the Dirac energy
+//! in 1/(j+½) and the σ³ photon-rate factor across components (each of relative size (Zα)² of the
+//! fine-structure spread: 0.04 pm at most for O VIII, 10⁻³ pm for H), the Barker–Glover l-splitting,
+//! and the difference between a wavelength- and a wavenumber-weighted mean (which reaches 0.5 pm only
+//! for millimetre lines between high levels).
 use super::air::Air;
 use super::blend_table::BLEND_INV_K;
 use super::error::PredictError;
