@@ -393,7 +393,10 @@ impl Checker {
         // On a map fitted to the tube itself only a pair that peak finding sees as two lines can tell
         // a mix: one peak there is one line of either isotope.
         let (lo, hi) = (pa.min(pb) as i64 - fwhm_q16, pa.max(pb) as i64 + fwhm_q16);
-        let seen = peaks.iter().filter(|p| (lo..=hi).contains(&(p.center_px_q16 as i64))).count();
+        let seen = peaks
+            .iter()
+            .filter(|p| (lo..=hi).contains(&(p.center_px_q16 as i64)))
+            .count();
         if self.cfg.mode != Mode::Verify && seen < 2 {
             return None;
         }
