@@ -85,7 +85,9 @@ fn json_contract_of_a_good_deuterium_lamp() {
             "{c:?}"
         );
     }
-    assert!(v["calibration"]["rms_residual_nm"].as_f64().unwrap() < 0.05);
+    // Verify mode: the RMS line error of a real (noisy) frame is small but never exactly zero.
+    let rms = v["calibration"]["rms_residual_nm"].as_f64().unwrap();
+    assert!(rms > 0.0 && rms < 0.05, "{rms}");
     assert!(v["calibration"]["drift_nm"].is_null());
     let d = v["species"]
         .as_array()
