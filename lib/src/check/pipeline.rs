@@ -566,6 +566,7 @@ impl Checker {
                 snr_q8: pk.snr_q8,
                 blended: pk.blended || crowded || (f.members.len() > 1 && !resolved),
                 saturated: pk.saturated,
+                crowded,
             });
         }
         crate::sort::sort_by_key(&mut report.lines, |l| l.measured_fm);
@@ -744,7 +745,7 @@ impl Checker {
         let mut worst: Option<(u64, MatchedLine)> = None;
         for line in report.lines.iter() {
             let e = line.judged_error_fm;
-            if !line.blended {
+            if !line.crowded {
                 sum_e += line.error_fm() as i128;
                 sum_e2 += (line.error_fm() as i128) * (line.error_fm() as i128);
                 n_e += 1;

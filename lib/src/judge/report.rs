@@ -77,6 +77,9 @@ pub struct MatchedLine {
     pub blended: bool,
     /// The peak touched the ADC full scale.
     pub saturated: bool,
+    /// Another feature lies within 2.5 line widths (series-limit crowding) or shares the peak: the
+    /// centre is pulled by it, so the position is reported but not judged.
+    pub crowded: bool,
 }
 
 impl MatchedLine {
