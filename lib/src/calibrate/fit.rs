@@ -32,7 +32,7 @@ pub struct FitPoint {
 pub struct MapFit {
     /// The map.
     pub map: WavelengthMap,
-    /// RMS of the fit residuals, femtometres.
+    /// RMS of the fit residuals weighted by 1/σ² like the fit itself, femtometres.
     pub rms_residual_fm: u64,
     /// χ² per degree of freedom with the centroid σ as noise (Q8); 0 when there is no freedom left.
     pub chi2_per_dof_q8: u32,
@@ -147,18 +147,24 @@ pub fn fit_map(points: &[FitPoint], degree: u8, pixels: u16) -> Result<MapFit, C
     }
     let map = WavelengthMap::with_frame(half, half, degree, coeff, pixels)?;
     // Residuals, χ² with σ in fm = σ_px · slope.
-    let mut sum_r2: i128 = 0;
+    // The RMS is weighted like the fit (1/σ²): faint lines near a series limit would otherwise
+    // swamp what the strong lines say about the map.
+    let mut sum_wr2: i128 = 0;
+    let mut sum_w: i128 = 0;
     let mut chi2_q8: i128 = 0;
     for pt in points {
         let r = (map.wavelength_fm(pt.center_px_q16)? - pt.wavelength_fm) as i128;
-        sum_r2 += r * r;
+        let s = pt.sigma_px_q16.max(1) as i128;
+        let w = mul_div_i128(sigma_min * sigma_min, 1 << 20, s * s).ok_or(CalibrateError::Overflow)?;
+        sum_wr2 = sum_wr2.saturating_add(w.saturating_mul(r * r));
+        sum_w += w;
         let slope = map.slope_fm_per_px_q16(pt.center_px_q16)?.unsigned_abs() as i128;
         let s_fm = ((pt.sigma_px_q16.max(1) as i128 * slope) >> 32).max(1);
         chi2_q8 += mul_div_i128(r * r, 256, s_fm * s_fm).ok_or(CalibrateError::Overflow)?;
     }
     let n = points.len() as i128;
     let dof = n - d as i128;
-    let rms = isqrt_u128(sum_r2.checked_div(n).unwrap_or(0).max(0) as u128) as u64;
+    let rms = isqrt_u128(sum_wr2.checked_div(sum_w).unwrap_or(0).max(0) as u128) as u64;
     let chi2_per_dof_q8 = if dof > 0 {
         chi2_q8
             .checked_div(dof)
