@@ -155,7 +155,8 @@ pub fn fit_map(points: &[FitPoint], degree: u8, pixels: u16) -> Result<MapFit, C
     for pt in points {
         let r = (map.wavelength_fm(pt.center_px_q16)? - pt.wavelength_fm) as i128;
         let s = pt.sigma_px_q16.max(1) as i128;
-        let w = mul_div_i128(sigma_min * sigma_min, 1 << 20, s * s).ok_or(CalibrateError::Overflow)?;
+        let w =
+            mul_div_i128(sigma_min * sigma_min, 1 << 20, s * s).ok_or(CalibrateError::Overflow)?;
         sum_wr2 = sum_wr2.saturating_add(w.saturating_mul(r * r));
         sum_w += w;
         let slope = map.slope_fm_per_px_q16(pt.center_px_q16)?.unsigned_abs() as i128;
