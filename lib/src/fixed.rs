@@ -79,11 +79,15 @@ const fn mul_wide(a: u128, b: u128) -> (u128, u128) {
     (hi, lo)
 }
 
-/// Floor square root of a u128 (bit-by-bit, 64 fixed steps).
+/// Floor square root of a u128 (bit-by-bit, at most 64 steps).
 pub const fn isqrt_u128(x: u128) -> u128 {
     let mut rem = x;
     let mut root: u128 = 0;
     let mut bit: u128 = 1 << 126;
+    // Start at the highest bit pair that can be set: small arguments skip most of the 64 steps.
+    while bit > rem {
+        bit >>= 2;
+    }
     while bit > 0 {
         if rem >= root + bit {
             rem -= root + bit;

@@ -42,25 +42,7 @@ pub fn exp_neg_q16(x_q16: i64) -> i64 {
     }
 }
 
-/// Floor of the square root of a `u128`. Loop bound: 64 bit pairs.
-pub fn isqrt_u128(v: u128) -> u128 {
-    let mut rem = v;
-    let mut root: u128 = 0;
-    let mut bit: u128 = 1 << 126;
-    while bit > rem {
-        bit >>= 2;
-    }
-    while bit != 0 {
-        if rem >= root + bit {
-            rem -= root + bit;
-            root = (root >> 1) + bit;
-        } else {
-            root >>= 1;
-        }
-        bit >>= 2;
-    }
-    root
-}
+pub use crate::fixed::isqrt_u128;
 
 /// Floor of the square root of a non-negative `i64` (negative inputs give 0).
 pub fn isqrt_i64(v: i64) -> i64 {
