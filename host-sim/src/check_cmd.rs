@@ -122,7 +122,7 @@ pub fn lib_config(
 }
 
 /// Co-adds frames (each a sum of `coadded` readouts) into `sum`; returns the readouts in it.
-fn stack(
+pub(crate) fn stack(
     frames: &[&Vec<u32>],
     coadded: u32,
     full_scale: u16,

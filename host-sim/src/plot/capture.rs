@@ -3,13 +3,11 @@
 //! Same inputs and same lib calls as [`crate::check_cmd::evaluate`] (a test holds the two reports
 //! equal); the difference is that the caller-owned buffers outlive the check, so the plot can show
 //! what peak finding saw.
-use crate::check_cmd::lib_config;
+use crate::check_cmd::{lib_config, stack};
 use crate::instrument::Instrument;
 use crate::trace::{FrameKind, Trace};
 use glowcheck::check::{Buffers, Checker};
-use glowcheck::condition::{
-    FrameSum, Stack, MAX_COADD, MAX_PIXELS, OUTPUT_FRAC_BITS, SATURATED_SUM,
-};
+use glowcheck::condition::{FrameSum, MAX_PIXELS, OUTPUT_FRAC_BITS};
 use glowcheck::judge::{Mode, Report, TubeProfile};
 
 /// A report with the frames behind it, in counts per readout.
@@ -22,46 +20,6 @@ pub struct Checked {
     pub baseline_counts: Vec<f64>,
     /// The profile checked against.
     pub profile: TubeProfile,
-}
-
-fn stack(
-    frames: &[&Vec<u32>],
-    coadded: u32,
-    full: u16,
-    sum: &mut [u32],
-    what: &str,
-) -> Result<u16, String> {
-    let reads = (frames.len() as u64).saturating_mul(coadded.max(1) as u64);
-    if reads > MAX_COADD as u64 {
-        return Err(format!(
-            "{what}: {reads} readouts exceed the co-adding limit of {MAX_COADD}"
-        ));
-    }
-    if coadded <= 1 {
-        let mut st = Stack::new(sum, full).map_err(|e| format!("{what}: {e}"))?;
-        for f in frames {
-            let raw: Vec<u16> = f
-                .iter()
-                .map(|&c| {
-                    u16::try_from(c).map_err(|_| format!("{what}: count {c} exceeds 16 bits"))
-                })
-                .collect::<Result<_, _>>()?;
-            st.add(&raw).map_err(|e| format!("{what}: {e}"))?;
-        }
-        return Ok(st.frames());
-    }
-    let limit = u64::from(full) * u64::from(coadded);
-    sum.iter_mut().for_each(|s| *s = 0);
-    for f in frames {
-        for (s, &c) in sum.iter_mut().zip(f.iter()) {
-            *s = if u64::from(c) >= limit || *s == SATURATED_SUM {
-                SATURATED_SUM
-            } else {
-                s.saturating_add(c)
-            };
-        }
-    }
-    Ok(reads as u16)
 }
 
 /// Checks a loaded trace and keeps the conditioned frame and baseline.
