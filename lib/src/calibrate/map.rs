@@ -18,7 +18,7 @@ pub struct WavelengthMap {
     pub half_width_px_q16: i32,
     /// Polynomial degree, 1…3.
     pub degree: u8,
-    /// λ(x) = Σ coeff_fm[k] · x^k, femtometres; entries above `degree` are 0.
+    /// λ(x) = Σ coeff_fm\[k\] · x^k, femtometres; entries above `degree` are 0.
     pub coeff_fm: [i64; 4],
 }
 

@@ -2,7 +2,7 @@
 //!
 //! - [`WavelengthMap`]: the polynomial map, its slope and inverse.
 //! - [`fit_map`]: weighted least squares with covariance ([`MapFit::sigma_fm_at`]).
-//! - [`identify`]: which peak is which line, from a nominal map that may be several nm off, or blind.
+//! - [`identify()`]: which peak is which line, from a nominal map that may be several nm off, or blind.
 mod error;
 mod fit;
 pub mod identify;

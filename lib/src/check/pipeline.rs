@@ -104,7 +104,7 @@ impl Checker {
     ///
     /// Work, for N pixels and the fixed capacities (64 peaks, 48 predicted lines): conditioning and
     /// peak finding O(N) (see [`condition_frame`] and [`find_peaks`]); in calibrate modes the bounded
-    /// identification search of [`identify`]; matching ≤ 40 features × 64 peaks; one isotope pair fit
+    /// identification search of [`identify()`]; matching ≤ 40 features × 64 peaks; one isotope pair fit
     /// of ≤ 162 shift steps × 64 px; judging ≤ 64 peaks.
     pub fn check(
         &self,

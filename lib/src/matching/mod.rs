@@ -2,7 +2,7 @@
 //!
 //! - [`catalogue`]: the predicted lines of the considered nuclei that fall on the sensor.
 //! - [`feature`]: lines closer than the instrument resolves become one feature.
-//! - [`assign`]: each feature takes the nearest free peak within its window.
+//! - [`assign()`]: each feature takes the nearest free peak within its window.
 //! - [`isotope`]: the share of each hydrogen isotope, or "not determinable".
 //! - [`markers`]: hints for unexplained peaks (foreign gases, leaks).
 pub mod assign;
