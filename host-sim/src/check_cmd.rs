@@ -62,15 +62,19 @@ impl ModeArg {
 pub struct Args {
     /// Trace file: glowtrace or plain CSV.
     trace: PathBuf,
-    /// Instrument file (TOML): sensor, stored wavelength scale, line width, air.
+    /// Instrument file (TOML): sensor, stored wavelength scale, line width, air. Default: the
+    /// `instrument` of glowsim.toml.
     #[arg(long)]
-    instrument: PathBuf,
-    /// Tube profile: a bundled name or a TOML file.
+    instrument: Option<PathBuf>,
+    /// Tube profile: a bundled name or a TOML file. Default: the `profile` of glowsim.toml.
     #[arg(long, value_name = "NAME|FILE")]
-    profile: String,
-    /// How the wavelength scale is obtained.
-    #[arg(long, value_enum, default_value_t = ModeArg::Verify)]
-    mode: ModeArg,
+    profile: Option<String>,
+    /// How the wavelength scale is obtained (default: glowsim.toml's `mode`, else verify).
+    #[arg(long, value_enum)]
+    mode: Option<ModeArg>,
+    /// Defaults file (default: glowsim.toml in the working folder, when present).
+    #[arg(long)]
+    config: Option<PathBuf>,
     /// Dark trace (same integration time), overriding dark frames inside TRACE.
     #[arg(long)]
     dark: Option<PathBuf>,
@@ -253,14 +257,23 @@ pub fn exit_code(v: Verdict) -> u8 {
 
 /// Runs the command; the exit status carries the verdict.
 pub fn run(args: &Args) -> Result<ExitCode, String> {
-    let inst = Instrument::read_path(&args.instrument)?;
-    let (profile_name, profile) = profile_file::resolve(&args.profile)?;
+    let defaults = crate::defaults::Defaults::load(args.config.as_deref())?;
+    let inst_path = crate::defaults::Defaults::pick(
+        &args.instrument,
+        &defaults.instrument,
+        "--instrument",
+        "instrument",
+    )?;
+    let profile_arg =
+        crate::defaults::Defaults::pick(&args.profile, &defaults.profile, "--profile", "profile")?;
+    let inst = Instrument::read_path(&inst_path)?;
+    let (profile_name, profile) = profile_file::resolve(&profile_arg)?;
     let trace = Trace::read_path(&args.trace)?;
     let dark = match &args.dark {
         Some(p) => Some(Trace::read_path(p)?),
         None => None,
     };
-    let mode = args.mode.lib();
+    let mode = defaults.mode_or(args.mode).lib();
     let report = evaluate(&trace, dark.as_ref(), &inst, profile, mode)?;
     let text = if args.json {
         let j = report_out::to_json(&report);
