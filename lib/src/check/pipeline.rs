@@ -122,14 +122,15 @@ impl Checker {
             frame,
             flags,
             scratch,
+            peaks,
         } = work;
         let info = condition_frame(&cfg.condition, signal, dark, gain, frame, flags)?;
         let mut fcfg = cfg.find;
         if fcfg.shot_var_per_unit_q16.is_none() {
             fcfg.shot_var_per_unit_q16 = info.shot_var_per_unit_q16;
         }
-        let mut peaks = PeakList::new();
-        let found = find_peaks(&fcfg, frame, flags, scratch, &mut peaks)?;
+        let found = find_peaks(&fcfg, frame, flags, scratch, peaks)?;
+        let peaks: &PeakList = peaks;
         let base = scratch.get(..frame.len()).unwrap_or(&[]);
         *report = Report::new();
         report.mode = cfg.mode;
