@@ -146,7 +146,7 @@ impl Checker {
             report.decide();
             return Ok(());
         }
-        let in_use = match self.map_for(&peaks, report) {
+        let in_use = match self.map_for(peaks, report) {
             Some(m) => m,
             None => {
                 // Calibration failed: list every peak on the stored map so the user sees what was there.
@@ -155,7 +155,7 @@ impl Checker {
                     fit: None,
                     stored_sigma_fm: cfg.stored.sigma_fm,
                 };
-                self.unexplained(&peaks, &[], &m, report);
+                self.unexplained(peaks, &[], &m, report);
                 report.decide();
                 return Ok(());
             }
@@ -165,9 +165,9 @@ impl Checker {
         // a pair that does show as two is split again after matching.
         let merge_q16 = ((cfg.line_fwhm_px_q8 as i32) << 8) * 3 / 2;
         let mut features = group(&self.catalogue, &in_use.map, &self.priors, merge_q16)?;
-        let pairs = assign(&features, &peaks, |f| self.window_px_q16(f, &in_use));
-        let pairs = self.split_resolved(&features, pairs, &peaks, &in_use);
-        let estimate = self.isotope(&features, &pairs, &peaks, &in_use, frame, base);
+        let pairs = assign(&features, peaks, |f| self.window_px_q16(f, &in_use));
+        let pairs = self.split_resolved(&features, pairs, peaks, &in_use);
+        let estimate = self.isotope(&features, &pairs, peaks, &in_use, frame, base);
         let shares = self.shares(estimate);
         for f in features.iter_mut() {
             settle(f, &self.catalogue, &in_use.map, &shares)?;
@@ -175,17 +175,17 @@ impl Checker {
         self.fill_lines(
             &features,
             &pairs,
-            &peaks,
+            peaks,
             &in_use,
             estimate.is_some(),
             report,
         )?;
-        self.unexplained(&peaks, &pairs, &in_use, report);
+        self.unexplained(peaks, &pairs, &in_use, report);
         self.report_shares(estimate, report);
-        if cfg.mode == Mode::Verify && self.shifted_scale(&peaks, report) {
+        if cfg.mode == Mode::Verify && self.shifted_scale(peaks, report) {
             // The stored scale explains the peaks worse than a shifted one: said in the reasons.
         }
-        self.judge(&features, &pairs, &peaks, report);
+        self.judge(&features, &pairs, peaks, report);
         report.decide();
         Ok(())
     }
