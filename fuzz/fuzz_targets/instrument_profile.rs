@@ -4,17 +4,17 @@
 use libfuzzer_sys::fuzz_target;
 
 #[allow(dead_code)]
-#[path = "../../host-sim/src/map_convert.rs"]
-mod map_convert;
-#[allow(dead_code)]
-#[path = "../../host-sim/src/toml_keys.rs"]
-mod toml_keys;
-#[allow(dead_code)]
 #[path = "../../host-sim/src/instrument.rs"]
 mod instrument;
 #[allow(dead_code)]
+#[path = "../../host-sim/src/map_convert.rs"]
+mod map_convert;
+#[allow(dead_code)]
 #[path = "../../host-sim/src/profile_file.rs"]
 mod profile_file;
+#[allow(dead_code)]
+#[path = "../../host-sim/src/toml_keys.rs"]
+mod toml_keys;
 
 fuzz_target!(|data: &[u8]| {
     let Ok(text) = std::str::from_utf8(data) else {
@@ -26,6 +26,9 @@ fuzz_target!(|data: &[u8]| {
         let _ = inst.stored_map();
     }
     if let Ok((_, p)) = profile_file::parse_profile(text) {
-        assert!(p.primary().is_some(), "an accepted profile has a primary species");
+        assert!(
+            p.primary().is_some(),
+            "an accepted profile has a primary species"
+        );
     }
 });

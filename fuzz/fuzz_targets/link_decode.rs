@@ -23,7 +23,11 @@ fuzz_target!(|data: &[u8]| {
     }
     assert_eq!(got, rx.stats.ok);
     // Resynchronise, then one good packet must arrive unchanged.
-    let counts: Vec<u32> = bytes.iter().take(64).map(|&b| u32::from(b) * 1000).collect();
+    let counts: Vec<u32> = bytes
+        .iter()
+        .take(64)
+        .map(|&b| u32::from(b) * 1000)
+        .collect();
     let counts = if counts.is_empty() { vec![7] } else { counts };
     let header = FrameHeader {
         sequence: 5,
@@ -39,7 +43,11 @@ fuzz_target!(|data: &[u8]| {
     let mut packet = vec![0u8];
     packet.extend_from_slice(&out[..n]);
     let frames = rx.push(&packet);
-    assert_eq!(frames.len(), 1, "a good packet after garbage and a zero arrives");
+    assert_eq!(
+        frames.len(),
+        1,
+        "a good packet after garbage and a zero arrives"
+    );
     assert_eq!(frames[0].counts, counts);
     assert_eq!(frames[0].sequence, 5);
     let s = rx.finish();

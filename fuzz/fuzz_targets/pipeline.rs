@@ -70,7 +70,11 @@ fuzz_target!(|data: &[u8]| {
         1 => Mode::Calibrate,
         _ => Mode::CalibrateBlind,
     };
-    let air = if b.u8() & 1 == 0 { Air::Standard } else { Air::Vacuum };
+    let air = if b.u8() & 1 == 0 {
+        Air::Standard
+    } else {
+        Air::Vacuum
+    };
     let profile = BUNDLED[usize::from(b.u8()) % BUNDLED.len()].1;
     let cfg = Config {
         pixels: pixels as u16,
@@ -90,7 +94,10 @@ fuzz_target!(|data: &[u8]| {
         return;
     };
     // Frame: the rest of the input as u16 counts, repeated to fill the sensor.
-    let rest: Vec<u16> = b.0.chunks(2).map(|c| u16::from_le_bytes([c[0], *c.get(1).unwrap_or(&0)])).collect();
+    let rest: Vec<u16> =
+        b.0.chunks(2)
+            .map(|c| u16::from_le_bytes([c[0], *c.get(1).unwrap_or(&0)]))
+            .collect();
     let raw: Vec<u16> = if rest.is_empty() {
         vec![0; pixels]
     } else {
@@ -116,7 +123,9 @@ fuzz_target!(|data: &[u8]| {
     match first {
         Ok(()) => {}
         // Only configuration problems may refuse a frame of the right length.
-        Err(CheckError::Condition(_)) | Err(CheckError::Find(_)) | Err(CheckError::BadConfig) => return,
+        Err(CheckError::Condition(_)) | Err(CheckError::Find(_)) | Err(CheckError::BadConfig) => {
+            return
+        }
         Err(e) => panic!("frame content refused: {e:?}"),
     }
     let mut again = Report::new();
