@@ -140,6 +140,15 @@ impl Checker {
         if found.truncated {
             report.note(Reason::PeakListTruncated);
         }
+        // Over half the pixels untrusted (a saturated dark, a flooded sensor): nothing to judge by.
+        let untrusted_permille =
+            (found.untrusted_pixels as u32 * 1000 / (found.pixels.max(1) as u32)) as u16;
+        if untrusted_permille > 500 {
+            report.map = Some(cfg.stored.map);
+            report.note(Reason::FrameUnusable { untrusted_permille });
+            report.decide();
+            return Ok(());
+        }
         if peaks.is_empty() {
             report.map = Some(cfg.stored.map);
             report.note(Reason::NoLines);

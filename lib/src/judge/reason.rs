@@ -86,6 +86,11 @@ pub enum Reason {
     },
     /// More peaks qualified than the list holds; the weakest were dropped.
     PeakListTruncated,
+    /// Most of the frame cannot be trusted (saturated signal or dark, repaired or clamped pixels).
+    FrameUnusable {
+        /// Untrusted pixels (‰).
+        untrusted_permille: u16,
+    },
 }
 
 impl Reason {
@@ -96,7 +101,8 @@ impl Reason {
             | Reason::TooDim { .. }
             | Reason::Saturated { .. }
             | Reason::Calibration(_)
-            | Reason::ShareUncertain { .. } => Severity::Inconclusive,
+            | Reason::ShareUncertain { .. }
+            | Reason::FrameUnusable { .. } => Severity::Inconclusive,
             Reason::TooFewLines { .. }
             | Reason::SpeciesMissing(_)
             | Reason::LineOffPosition { .. }
@@ -126,6 +132,7 @@ impl Reason {
             Reason::IsotopeNotDeterminable => "isotope-not-determinable",
             Reason::InstrumentDrift { .. } => "instrument-drift",
             Reason::PeakListTruncated => "peak-list-truncated",
+            Reason::FrameUnusable { .. } => "frame-unusable",
         }
     }
 }
@@ -196,6 +203,12 @@ impl fmt::Display for Reason {
                 write!(f, "instrument scale drifted {} from the stored map", Nm(drift_fm))
             }
             Reason::PeakListTruncated => f.write_str("more peaks than the list holds; the weakest were dropped"),
+            Reason::FrameUnusable { untrusted_permille } => write!(
+                f,
+                "{}.{} % of the pixels are saturated or repaired (signal or dark frame): shorten the integration time or retake the dark",
+                untrusted_permille / 10,
+                untrusted_permille % 10
+            ),
         }
     }
 }
