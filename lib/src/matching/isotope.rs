@@ -221,9 +221,14 @@ pub fn share_by_profile(w: &PairWindow<'_>) -> Option<ShareEstimate> {
     // Variances in Q16 (the square of the amplitudes' Q8).
     let (var_a, var_b, cov_ab) = amplitude_covariance(&f, s2 << 16)?;
     let share = mul_div_i128(b, 1_000_000, total)?;
-    let num = b * b * var_a + a * a * var_b - 2 * a * b * cov_ab;
-    let t2 = total * total;
-    let var_ppm = mul_div_i128(mul_div_i128(num, 1_000_000, t2)?, 1_000_000, t2)?;
+    // var(B/T) = (B² VarA + A² VarB − 2AB Cov) / T⁴; with x = 10⁶ B/T, y = 10⁶ A/T it is
+    // (x² VarA + y² VarB − 2xy Cov) / T² in ppm², each term through a wide product.
+    let x = share.clamp(-10_000_000, 10_000_000);
+    let y = mul_div_i128(a, 1_000_000, total)?.clamp(-10_000_000, 10_000_000);
+    let t2 = total.checked_mul(total)?;
+    let var_ppm = mul_div_i128(x * x, var_a, t2)?
+        .saturating_add(mul_div_i128(y * y, var_b, t2)?)
+        .saturating_sub(mul_div_i128(2 * x * y, cov_ab, t2)?);
     let sigma_ppm = isqrt_u128(var_ppm.max(0) as u128).min(u32::MAX as u128) as u32;
     Some(ShareEstimate {
         share_b_ppm: share.clamp(i32::MIN as i128, i32::MAX as i128) as i32,
