@@ -284,7 +284,7 @@ fn co_adding_capacity_is_a_clear_error() {
 }
 
 #[test]
-#[ignore = "known bug: a wholly saturated dark frame gives Fail (instrument drift) in verify and blind modes instead of Inconclusive"]
+// Was a known bug (Fail with instrument drift) until 308640c; kept as a regression test.
 fn a_saturated_dark_never_fails_the_tube() {
     let mut buf = Box::new(Buffers::<MAX_PIXELS>::new());
     let signal = lamp(2048);
