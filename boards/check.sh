@@ -5,8 +5,8 @@
 # the thumbv6m images contain no soft-float routines, and prints image sizes.
 #
 # Usage: bash boards/check.sh            run every check; non-zero exit on any failure
-#        bash boards/check.sh --bless    also overwrite boards/expected/ with the host report
-#                                        (only after a deliberate change of the predictor's numbers)
+#        bash boards/check.sh --bless    also overwrite boards/expected/ (host report, pipeline digest,
+#                                        size baseline) -- only after a deliberate change of lib's results
 # Env:   CARGO_TARGET_DIR                build folder (default: boards/target)
 #        GLOWCHECK_BOARD_TARGETS         thumb targets to run (default: all three)
 #        GLOWCHECK_QEMU_TIMEOUT_S        per-run QEMU timeout in seconds (default: 120)
@@ -78,21 +78,31 @@ if cargo fmt --version >/dev/null 2>&1; then
     cargo fmt --all --check && ok "cargo fmt" || fail "cargo fmt --all --check (run cargo fmt --all in boards/)"
 fi
 if cargo clippy --version >/dev/null 2>&1; then
-    cargo clippy -q -p glowcheck-report -p glowcheck-host-twin --all-targets -- -D warnings \
-        && ok "clippy host crates" || fail "clippy on report/host-twin"
-    cargo clippy -q -p glowcheck-qemu -p glowcheck-nopanic --target thumbv6m-none-eabi -- -D warnings \
-        && ok "clippy thumb crates" || fail "clippy on qemu/nopanic"
+    cargo clippy -q -p glowcheck-report -p glowcheck-host-twin -p glowcheck-pipeline-report \
+        -p glowcheck-pipeline-twin -p glowcheck-float-baseline --all-targets -- -D warnings \
+        && ok "clippy host crates" || fail "clippy on report/host-twin/pipeline-report/pipeline-twin/float-baseline"
+    cargo clippy -q -p glowcheck-qemu -p glowcheck-nopanic -p glowcheck-pipeline --target thumbv6m-none-eabi -- -D warnings \
+        && ok "clippy thumb crates" || fail "clippy on qemu/nopanic/pipeline"
+    cargo clippy -q -p glowcheck-pipeline --features measure --target thumbv6m-none-eabi -- -D warnings \
+        && ok "clippy pipeline measure build" || fail "clippy on glowcheck-pipeline --features measure"
 fi
 
 # ---------------------------------------------------------------------------------------------------
 stage "unit tests of the shared report code"
-cargo test -q -p glowcheck-report || fail "cargo test -p glowcheck-report"
+cargo test -q -p glowcheck-report -p glowcheck-pipeline-report -p glowcheck-float-baseline \
+    || fail "cargo test -p glowcheck-report -p glowcheck-pipeline-report -p glowcheck-float-baseline"
 
 # ---------------------------------------------------------------------------------------------------
 stage "build"
-cargo build -q --release -p glowcheck-host-twin || { echo "FAIL: host twin build" >&2; exit 1; }
+cargo build -q --release -p glowcheck-host-twin -p glowcheck-pipeline-twin || { echo "FAIL: host twin build" >&2; exit 1; }
 for t in $targets; do
     cargo build -q --release -p glowcheck-qemu --target "$t" || fail "glowcheck-qemu build for $t"
+    # The pipeline image is kept under its own name: measure.sh rebuilds the same path with features.
+    if cargo build -q --release -p glowcheck-pipeline --target "$t"; then
+        cp "$CARGO_TARGET_DIR/$t/release/glowcheck-pipeline" "$out/glowcheck-pipeline-$t.elf"
+    else
+        fail "glowcheck-pipeline build for $t"
+    fi
 done
 
 # ---------------------------------------------------------------------------------------------------
@@ -132,6 +142,44 @@ elif cmp -s "$golden" "$out/host.txt"; then
 else
     fail "host report differs from boards/expected/report.txt; if the predictor's numbers changed on purpose, run: bash boards/check.sh --bless"
     diff "$golden" "$out/host.txt" | head -n 20 >&2 || true
+fi
+
+# ---------------------------------------------------------------------------------------------------
+stage "whole pipeline: host twin vs QEMU, byte for byte, and the golden digest"
+# Checker::new + Checker::check on the three embedded 2048-px frames. All three cores run on the mps2
+# machines (the M0 code on mps2-an385, whose M3 executes thumbv6m unchanged): a 2048-px check needs
+# more RAM than the microbit's 16 KiB.
+pipeline_machine() { [ "$1" = thumbv7em-none-eabihf ] && echo mps2-an386 || echo mps2-an385; }
+twin_rc=0
+"$CARGO_TARGET_DIR/release/glowcheck-pipeline-twin" >"$out/pipeline-host.txt" || twin_rc=$?
+[ "$twin_rc" = 0 ] && ok "pipeline twin: $(grep -c '^case ' "$out/pipeline-host.txt") cases, $(tail -n 1 "$out/pipeline-host.txt")" \
+    || fail "pipeline twin exited $twin_rc; see $out/pipeline-host.txt"
+for t in $targets; do
+    elf="$out/glowcheck-pipeline-$t.elf"
+    [ -f "$elf" ] || continue
+    machine="$(pipeline_machine "$t")"
+    rc=0
+    timeout "$qemu_timeout" qemu-system-arm -M "$machine" -nographic -monitor none -serial null \
+        -semihosting-config enable=on,target=native -kernel "$elf" </dev/null >"$out/pipeline-$t.txt" 2>"$out/pipeline-$t.err" || rc=$?
+    [ "$rc" = 0 ] || fail "pipeline on QEMU $machine ($t) exited $rc; see $out/pipeline-$t.txt and .err"
+    if cmp -s "$out/pipeline-host.txt" "$out/pipeline-$t.txt"; then
+        ok "pipeline on QEMU $machine ($t) identical to host ($(wc -c <"$out/pipeline-$t.txt") bytes)"
+    else
+        fail "pipeline on QEMU $machine ($t) differs from host:"
+        diff "$out/pipeline-host.txt" "$out/pipeline-$t.txt" | head -n 20 >&2 || true
+    fi
+done
+pgolden="$here/expected/pipeline.txt"
+if [ "$bless" = 1 ]; then
+    cp "$out/pipeline-host.txt" "$pgolden"
+    ok "blessed $pgolden"
+elif [ ! -f "$pgolden" ]; then
+    fail "no golden pipeline digest; create it with: bash boards/check.sh --bless"
+elif cmp -s "$pgolden" "$out/pipeline-host.txt"; then
+    ok "pipeline digest equals $pgolden"
+else
+    fail "pipeline digest differs from boards/expected/pipeline.txt; if lib's results changed on purpose, run: bash boards/check.sh --bless"
+    diff "$pgolden" "$out/pipeline-host.txt" | head -n 20 >&2 || true
 fi
 
 # ---------------------------------------------------------------------------------------------------
@@ -198,7 +246,7 @@ float_probe="__aeabi_fadd __aeabi_dmul __adddf3 __mulsf3 __divdf3 __fixsfsi __fi
 int_probe="__aeabi_uidiv __aeabi_uldivmod __aeabi_lmul __udivti3 __multi3 __ashldi3 __clzsi2 __aeabi_memcpy __udivmoddi4"
 for s in $float_probe; do grep -qE "$float_re" <<<"$s" || fail "soft-float filter misses $s"; done
 for s in $int_probe; do grep -qE "$float_re" <<<"$s" && fail "soft-float filter flags integer routine $s"; done
-for elf in "$CARGO_TARGET_DIR/thumbv6m-none-eabi/release/glowcheck-qemu" "$api_elf"; do
+for elf in "$CARGO_TARGET_DIR/thumbv6m-none-eabi/release/glowcheck-qemu" "$api_elf" "$out/glowcheck-pipeline-thumbv6m-none-eabi.elf"; do
     [ -f "$elf" ] || { fail "missing image $elf"; continue; }
     syms="$("$nm" "$elf" | awk '{print $NF}' | sort -u)"
     bad="$(grep -E "$float_re" <<<"$syms" || true)"
@@ -231,8 +279,30 @@ for t in $targets; do
     elf="$CARGO_TARGET_DIR/$t/release/glowcheck-qemu"
     [ -f "$elf" ] && sizes glowcheck-qemu "$t" "$elf"
 done
+for t in $targets; do
+    elf="$out/glowcheck-pipeline-$t.elf"
+    [ -f "$elf" ] && sizes glowcheck-pipeline "$t" "$elf"
+done
 [ -f "$api_elf" ] && sizes glowcheck-nopanic thumbv6m-none-eabi "$api_elf"
 [ -n "$stack_bytes" ] && echo "glowcheck-nopanic stack_bytes (thumbv6m code, painted and scanned): $stack_bytes" | tee -a "$out/sizes.txt"
+
+# Size baselines: an image that grew more than 5 % over boards/expected/sizes.txt fails (lib changes
+# every day, so smaller moves only print); --bless rewrites the baseline.
+sgolden="$here/expected/sizes.txt"
+if [ "$bless" = 1 ]; then
+    grep -v '^image ' "$out/sizes.txt" | grep -v stack_bytes >"$sgolden"
+    ok "blessed $sgolden"
+elif [ -f "$sgolden" ]; then
+    grown="$(awk 'NR == FNR { flash[$1 " " $2] = $3; ram[$1 " " $2] = $4; next }
+        ($1 " " $2) in flash {
+            k = $1 " " $2
+            if ($3 != flash[k] || $4 != ram[k]) printf "  %s: flash %d -> %d, static RAM %d -> %d\n", k, flash[k], $3, ram[k], $4 > "/dev/stderr"
+            if ($3 > flash[k] * 1.05 || $4 > ram[k] * 1.05) print k }' "$sgolden" "$out/sizes.txt")"
+    [ -z "$grown" ] && ok "image sizes within 5 % of $sgolden" \
+        || fail "images grew more than 5 % over boards/expected/sizes.txt: $(tr '\n' ' ' <<<"$grown") (bash boards/check.sh --bless after a deliberate change)"
+else
+    fail "no size baseline; create it with: bash boards/check.sh --bless"
+fi
 
 # ---------------------------------------------------------------------------------------------------
 echo

@@ -6,9 +6,9 @@
 //! 2048-pixel check needs 26 KiB of buffers, more than the 16 KiB of the `microbit` machine, and the
 //! M3 executes the M0's instruction set unchanged.
 //!
-//! With `--features measure` it instead runs each stage between marker functions
-//! (`glowcheck_mark_*`, see [`measure`]) for `boards/measure.sh` to count instructions, runs the f32
-//! baseline on the same frame and prints the deepest stack use.
+//! With `--features measure` it instead times each stage on SysTick (see [`measure`]) for
+//! `boards/measure.sh` to turn into instruction counts under `-icount shift=0`, runs the f32
+//! baseline on the same frame and prints each call's stack depth.
 #![no_std]
 #![no_main]
 
@@ -35,7 +35,10 @@ fn main() -> ! {
     // references ever taken to the two statics, so they are unique.
     let (buffers, report) = unsafe { (&mut *addr_of_mut!(BUFFERS), &mut *addr_of_mut!(REPORT)) };
     #[cfg(feature = "measure")]
-    let status = measure::run(buffers, report);
+    let status = match cortex_m::Peripherals::take() {
+        Some(p) => measure::run(buffers, report, p.SYST),
+        None => debug::EXIT_FAILURE,
+    };
     #[cfg(not(feature = "measure"))]
     let status = match hio::hstdout() {
         Ok(mut out) => match glowcheck_pipeline_report::run(&mut out, buffers, report) {

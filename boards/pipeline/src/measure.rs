@@ -1,9 +1,11 @@
-//! Instruction-count build: each stage of one check runs between two marker functions, so a QEMU
-//! run that logs every executed instruction (`boards/measure.sh`: `-singlestep -d exec,nochain`)
-//! counts the instructions between entering one marker and entering the next, exactly and
-//! deterministically.
+//! Instruction-count build: each stage of one check runs between two time stamps read from SysTick
+//! on the core clock. Under QEMU's `-icount shift=0` every instruction advances virtual time by
+//! exactly 1 ns, so the ticks are deterministic and proportional to instructions executed; a
+//! register-only loop of a known instruction count, timed the same way, gives the ratio
+//! (`boards/measure.sh` does the division). One tick is 40 instructions on `mps2-an385`'s 25 MHz
+//! clock, so every count is ± 1 tick.
 //!
-//! Marker pairs (count from entering the first to entering the second): 0 → 1 `Checker::new` (line
+//! Stamp pairs: 0 → 1 `Checker::new` (line
 //! prediction, once per configuration), 2 → 3 `condition_frame`, 4 → 5 `find_peaks`, 6 → 7
 //! `Checker::check` in calibrate mode (the whole pipeline again, conditioning and peak finding
 //! included), 8 → 9 `Checker::check` in verify mode (no map fit), 10 → 11 the f32 baseline of
@@ -15,6 +17,11 @@ use core::fmt::Write;
 use core::ptr::{self, addr_of, addr_of_mut};
 use core::sync::atomic::{compiler_fence, Ordering};
 
+use core::sync::atomic::AtomicU32;
+
+use cortex_m::peripheral::syst::SystClkSource;
+use cortex_m::peripheral::SYST;
+use cortex_m_rt::exception;
 use cortex_m_semihosting::{debug, hio};
 use glowcheck::check::Buffers;
 use glowcheck::condition::{condition_frame, FrameSum};
@@ -24,33 +31,81 @@ use glowcheck_float_baseline::{condition_find_centroid, FloatPeak, MAX_PEAKS};
 use glowcheck_pipeline_report::traces::PIXELS;
 use glowcheck_pipeline_report::{check, checker, Case, CASES};
 
-macro_rules! markers {
-    ($($name:ident = $k:expr;)*) => {$(
-        /// A marker: `boards/measure.sh` finds its address by name and counts from its first
-        /// instruction. Distinct bodies keep the linker from folding markers together.
-        #[no_mangle]
-        #[inline(never)]
-        pub extern "C" fn $name() {
-            compiler_fence(Ordering::SeqCst);
-            core::hint::black_box($k as u32);
-            compiler_fence(Ordering::SeqCst);
-        }
-    )*};
+/// SysTick wraps (every 2²⁴ ticks) since [`start_clock`].
+static WRAPS: AtomicU32 = AtomicU32::new(0);
+/// Time stamps (SysTick ticks, low and high word) taken by [`mark`].
+static STAMPS: [AtomicU32; 2 * MARKS] = [const { AtomicU32::new(0) }; 2 * MARKS];
+/// Number of marks.
+const MARKS: usize = 14;
+
+#[exception]
+fn SysTick() {
+    WRAPS.store(
+        WRAPS.load(Ordering::Relaxed).wrapping_add(1),
+        Ordering::Relaxed,
+    );
 }
 
-markers! {
-    glowcheck_mark_0 = 0;
-    glowcheck_mark_1 = 1;
-    glowcheck_mark_2 = 2;
-    glowcheck_mark_3 = 3;
-    glowcheck_mark_4 = 4;
-    glowcheck_mark_5 = 5;
-    glowcheck_mark_6 = 6;
-    glowcheck_mark_7 = 7;
-    glowcheck_mark_8 = 8;
-    glowcheck_mark_9 = 9;
-    glowcheck_mark_10 = 10;
-    glowcheck_mark_11 = 11;
+/// Starts SysTick on the core clock, full 24-bit range, counting wraps in its exception.
+fn start_clock(mut syst: SYST) {
+    syst.set_clock_source(SystClkSource::Core);
+    syst.set_reload(0x00ff_ffff);
+    syst.clear_current();
+    syst.enable_interrupt();
+    syst.enable_counter();
+}
+
+/// Ticks since [`start_clock`], read consistently across a wrap.
+fn now() -> u64 {
+    loop {
+        let w = WRAPS.load(Ordering::SeqCst);
+        let c = SYST::get_current();
+        if WRAPS.load(Ordering::SeqCst) == w {
+            return (u64::from(w) << 24) | u64::from(0x00ff_ffff - c);
+        }
+    }
+}
+
+/// Records time stamp `k`.
+#[inline(never)]
+fn mark(k: usize) {
+    compiler_fence(Ordering::SeqCst);
+    let t = now();
+    if let (Some(lo), Some(hi)) = (STAMPS.get(2 * k), STAMPS.get(2 * k + 1)) {
+        lo.store(t as u32, Ordering::Relaxed);
+        hi.store((t >> 32) as u32, Ordering::Relaxed);
+    }
+    compiler_fence(Ordering::SeqCst);
+}
+
+/// Ticks between marks `a` and `b`.
+fn ticks(a: usize, b: usize) -> u64 {
+    let at = |k: usize| {
+        let lo = STAMPS.get(2 * k).map_or(0, |s| s.load(Ordering::Relaxed));
+        let hi = STAMPS
+            .get(2 * k + 1)
+            .map_or(0, |s| s.load(Ordering::Relaxed));
+        (u64::from(hi) << 32) | u64::from(lo)
+    };
+    at(b).saturating_sub(at(a))
+}
+
+/// Iterations of the calibration loop (two instructions each: `subs`, `bne`).
+const CALIBRATION_LOOPS: u32 = 1_000_000;
+
+/// A loop of exactly 2 × [`CALIBRATION_LOOPS`] instructions, to turn ticks into instructions.
+#[inline(never)]
+fn calibration_loop() {
+    // SAFETY: a register-only countdown loop; touches no memory and clobbers only the flags.
+    unsafe {
+        core::arch::asm!(
+            "2:",
+            "subs {n}, #1",
+            "bne 2b",
+            n = inout(reg) CALIBRATION_LOOPS => _,
+            options(nomem, nostack),
+        );
+    }
 }
 
 /// The f32 baseline's frame and scratch.
@@ -107,7 +162,8 @@ fn stack_of<T>(f: impl FnOnce() -> T) -> (T, u32) {
 }
 
 /// Runs the measured sequence and prints what the log cannot show (stack per stage, peak counts).
-pub fn run(buffers: &mut Buffers<PIXELS>, report: &mut Report) -> debug::ExitStatus {
+pub fn run(buffers: &mut Buffers<PIXELS>, report: &mut Report, syst: SYST) -> debug::ExitStatus {
+    start_clock(syst);
     let case = CASES[0];
     let verify_case = Case {
         mode: Mode::Verify,
@@ -118,9 +174,9 @@ pub fn run(buffers: &mut Buffers<PIXELS>, report: &mut Report) -> debug::ExitSta
     };
     let (verify, _) = stack_of(|| checker(&verify_case));
     let (calibrate, stack_new) = stack_of(|| {
-        glowcheck_mark_0();
+        mark(0);
         let c = checker(&case);
-        glowcheck_mark_1();
+        mark(1);
         c
     });
     let (Ok(verify), Ok(calibrate)) = (verify, calibrate) else {
@@ -130,9 +186,9 @@ pub fn run(buffers: &mut Buffers<PIXELS>, report: &mut Report) -> debug::ExitSta
     let mut peaks = PeakList::new();
     let w = buffers.workspace(PIXELS);
     let (info, stack_condition) = stack_of(|| {
-        glowcheck_mark_2();
+        mark(2);
         let i = condition_frame(&cfg.condition, signal, None, None, w.frame, w.flags);
-        glowcheck_mark_3();
+        mark(3);
         i
     });
     let Ok(info) = info else {
@@ -143,25 +199,25 @@ pub fn run(buffers: &mut Buffers<PIXELS>, report: &mut Report) -> debug::ExitSta
         fcfg.shot_var_per_unit_q16 = info.shot_var_per_unit_q16;
     }
     let (found, stack_find) = stack_of(|| {
-        glowcheck_mark_4();
+        mark(4);
         let f = find_peaks(&fcfg, w.frame, w.flags, w.scratch, &mut peaks);
-        glowcheck_mark_5();
+        mark(5);
         f
     });
     if found.is_err() {
         return debug::EXIT_FAILURE;
     }
     let (checked, stack_calibrate) = stack_of(|| {
-        glowcheck_mark_6();
+        mark(6);
         let c = check(&calibrate, &case, buffers.workspace(PIXELS), report);
-        glowcheck_mark_7();
+        mark(7);
         c
     });
     let lines_calibrate = report.lines.len();
     let (checked_verify, stack_verify) = stack_of(|| {
-        glowcheck_mark_8();
+        mark(8);
         let c = check(&verify, &verify_case, buffers.workspace(PIXELS), report);
-        glowcheck_mark_9();
+        mark(9);
         c
     });
     if checked.is_err() || checked_verify.is_err() {
@@ -176,7 +232,7 @@ pub fn run(buffers: &mut Buffers<PIXELS>, report: &mut Report) -> debug::ExitSta
     };
     let mut float_peaks = [FloatPeak::default(); MAX_PEAKS];
     let (n_float, stack_float) = stack_of(|| {
-        glowcheck_mark_10();
+        mark(10);
         let n = condition_find_centroid(
             case.frame,
             cfg.condition.full_scale_counts,
@@ -185,16 +241,28 @@ pub fn run(buffers: &mut Buffers<PIXELS>, report: &mut Report) -> debug::ExitSta
             base,
             &mut float_peaks,
         );
-        glowcheck_mark_11();
+        mark(11);
         n
     });
+    mark(12);
+    calibration_loop();
+    mark(13);
     let Ok(mut out) = hio::hstdout() else {
         return debug::EXIT_FAILURE;
     };
     let printed = writeln!(
         out,
-        "stack new {stack_new} condition {stack_condition} find {stack_find} check_calibrate {stack_calibrate} check_verify {stack_verify} float {stack_float}\n\
-         peaks {} lines_calibrate {lines_calibrate} lines_verify {} float_peaks {n_float}",
+        "ticks calibration {} loop_instructions {} predict {} condition {} find {} check_calibrate {} check_verify {} float_baseline {}\n\
+         stack_bytes predict {stack_new} condition {stack_condition} find {stack_find} check_calibrate {stack_calibrate} check_verify {stack_verify} float_baseline {stack_float}\n\
+         counts peaks {} lines_calibrate {lines_calibrate} lines_verify {} float_peaks {n_float}",
+        ticks(12, 13),
+        2 * CALIBRATION_LOOPS,
+        ticks(0, 1),
+        ticks(2, 3),
+        ticks(4, 5),
+        ticks(6, 7),
+        ticks(8, 9),
+        ticks(10, 11),
         peaks.len(),
         report.lines.len()
     );
