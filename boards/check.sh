@@ -84,7 +84,8 @@ if cargo clippy --version >/dev/null 2>&1; then
     cargo clippy -q -p glowcheck-qemu -p glowcheck-nopanic -p glowcheck-pipeline --target thumbv6m-none-eabi -- -D warnings \
         && ok "clippy thumb crates" || fail "clippy on qemu/nopanic/pipeline"
     cargo clippy -q -p glowcheck-pipeline --features measure --target thumbv6m-none-eabi -- -D warnings \
-        && ok "clippy pipeline measure build" || fail "clippy on glowcheck-pipeline --features measure"
+        && cargo clippy -q -p glowcheck-pipeline --features profile --target thumbv6m-none-eabi -- -D warnings \
+        && ok "clippy pipeline measure/profile builds" || fail "clippy on glowcheck-pipeline --features measure/profile"
 fi
 
 # ---------------------------------------------------------------------------------------------------

@@ -21,6 +21,7 @@ use core::sync::atomic::AtomicU32;
 
 use cortex_m::peripheral::syst::SystClkSource;
 use cortex_m::peripheral::SYST;
+#[cfg(not(feature = "profile"))]
 use cortex_m_rt::exception;
 use cortex_m_semihosting::{debug, hio};
 use glowcheck::check::Buffers;
@@ -38,6 +39,7 @@ static STAMPS: [AtomicU32; 2 * MARKS] = [const { AtomicU32::new(0) }; 2 * MARKS]
 /// Number of marks.
 const MARKS: usize = 14;
 
+#[cfg(not(feature = "profile"))]
 #[exception]
 fn SysTick() {
     WRAPS.store(
@@ -46,10 +48,71 @@ fn SysTick() {
     );
 }
 
+/// Stage being run (the last mark), for the profile samples.
+#[cfg(feature = "profile")]
+static STAGE: AtomicU32 = AtomicU32::new(0);
+/// Samples taken so far.
+#[cfg(feature = "profile")]
+static SAMPLED: AtomicU32 = AtomicU32::new(0);
+/// Room for the samples (stage << 24 | PC); the 4 MiB RAM map has plenty.
+#[cfg(feature = "profile")]
+const MAX_SAMPLES: usize = 1 << 16;
+/// The samples.
+#[cfg(feature = "profile")]
+static SAMPLES: [AtomicU32; MAX_SAMPLES] = [const { AtomicU32::new(0) }; MAX_SAMPLES];
+
+// The SysTick handler of the profile build hands the exception frame (MSP at entry, nothing pushed
+// yet) to `glowcheck_profile_sample`; the interrupted PC is its seventh word.
+#[cfg(feature = "profile")]
+core::arch::global_asm!(
+    ".section .text.SysTick,\"ax\",%progbits",
+    ".global SysTick",
+    ".type SysTick,%function",
+    ".thumb_func",
+    "SysTick:",
+    "mrs r0, msp",
+    "ldr r1, =glowcheck_profile_sample",
+    "bx r1",
+    ".ltorg",
+);
+
+/// Records one sample from the exception frame at `frame`.
+#[cfg(feature = "profile")]
+#[no_mangle]
+extern "C" fn glowcheck_profile_sample(frame: *const u32) {
+    // SAFETY: `frame` is the hardware-stacked exception frame (8 words) the trampoline passed in.
+    let pc = unsafe { ptr::read_volatile(frame.add(6)) };
+    let n = SAMPLED.load(Ordering::Relaxed) as usize;
+    if let Some(slot) = SAMPLES.get(n) {
+        slot.store(
+            (STAGE.load(Ordering::Relaxed) << 24) | (pc & 0x00ff_ffff),
+            Ordering::Relaxed,
+        );
+        SAMPLED.store(n as u32 + 1, Ordering::Relaxed);
+    }
+}
+
+/// Writes the samples as raw little-endian words.
+#[cfg(feature = "profile")]
+fn dump_samples(out: &mut hio::HostStream) {
+    let n = (SAMPLED.load(Ordering::Relaxed) as usize).min(MAX_SAMPLES);
+    for chunk in SAMPLES.get(..n).unwrap_or(&[]).chunks(256) {
+        let mut bytes = [0u8; 1024];
+        for (b, s) in bytes.chunks_exact_mut(4).zip(chunk) {
+            b.copy_from_slice(&s.load(Ordering::Relaxed).to_le_bytes());
+        }
+        let _ = out.write_all(bytes.get(..4 * chunk.len()).unwrap_or(&[]));
+    }
+}
+
 /// Starts SysTick on the core clock, full 24-bit range, counting wraps in its exception.
 fn start_clock(mut syst: SYST) {
     syst.set_clock_source(SystClkSource::Core);
-    syst.set_reload(0x00ff_ffff);
+    syst.set_reload(if cfg!(feature = "profile") {
+        999
+    } else {
+        0x00ff_ffff
+    });
     syst.clear_current();
     syst.enable_interrupt();
     syst.enable_counter();
@@ -70,6 +133,8 @@ fn now() -> u64 {
 #[inline(never)]
 fn mark(k: usize) {
     compiler_fence(Ordering::SeqCst);
+    #[cfg(feature = "profile")]
+    STAGE.store(k as u32, Ordering::Relaxed);
     let t = now();
     if let (Some(lo), Some(hi)) = (STAMPS.get(2 * k), STAMPS.get(2 * k + 1)) {
         lo.store(t as u32, Ordering::Relaxed);
@@ -248,6 +313,14 @@ pub fn run(buffers: &mut Buffers<PIXELS>, report: &mut Report, syst: SYST) -> de
     calibration_loop();
     mark(13);
     let Ok(mut out) = hio::hstdout() else {
+        return debug::EXIT_FAILURE;
+    };
+    // The profile build writes the samples to stdout and this text to stderr.
+    #[cfg(feature = "profile")]
+    let Ok(mut out) = ({
+        dump_samples(&mut out);
+        hio::hstderr()
+    }) else {
         return debug::EXIT_FAILURE;
     };
     let printed = writeln!(

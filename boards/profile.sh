@@ -1,0 +1,50 @@
+#!/usr/bin/env bash
+# Hot spots of the whole pipeline on the Cortex-M0 code: the `profile` build of boards/pipeline samples
+# the interrupted PC every 40 000 instructions (SysTick every 1000 ticks under QEMU -icount shift=0) with
+# the stage it was in, and this script names the innermost lib source line of each sample
+# (llvm-addr2line -i, inlined frames included) and prints the top lines per stage.
+# Usage: bash boards/profile.sh [top-n]        Needs llvm-addr2line (Debian: llvm).
+set -euo pipefail
+here="$(cd "$(dirname "${BASH_SOURCE[0]}")" && pwd)"
+cd "$here"
+export CARGO_TARGET_DIR="${CARGO_TARGET_DIR:-$here/target}"
+top="${1:-8}"
+out="$CARGO_TARGET_DIR/glowcheck-measure"
+mkdir -p "$out"
+cargo build -q --release -p glowcheck-pipeline --target thumbv6m-none-eabi --features profile
+elf="$out/thumbv6m-none-eabi-profile.elf"
+cp "$CARGO_TARGET_DIR/thumbv6m-none-eabi/release/glowcheck-pipeline" "$elf"
+timeout "${GLOWCHECK_QEMU_TIMEOUT_S:-120}" qemu-system-arm -M mps2-an385 -nographic -monitor none -serial null \
+    -icount shift=0 -semihosting-config enable=on,target=native -kernel "$elf" </dev/null >"$out/samples.bin" 2>"$out/profile.txt"
+python3 - "$elf" "$out/samples.bin" "$top" <<'PY'
+import collections, re, struct, subprocess, sys
+elf, path, top = sys.argv[1], sys.argv[2], int(sys.argv[3])
+data = open(path, "rb").read()
+words = struct.unpack("<%dI" % (len(data) // 4), data)
+stages = {0: "Checker::new (x2: verify and calibrate checkers)", 2: "condition_frame", 4: "find_peaks",
+          6: "check (calibrate)", 8: "check (verify)", 10: "f32 baseline", 12: "calibration loop"}
+pcs = sorted({w & 0xFFFFFF for w in words})
+res = subprocess.run(["llvm-addr2line", "-e", elf, "-a", "-i", "-f", "-C"],
+                     input="\n".join(hex(p) for p in pcs), capture_output=True, text=True).stdout
+where, cur, frames = {}, None, []
+for line in res.splitlines() + ["0x0"]:
+    if re.fullmatch(r"0x[0-9a-f]+", line):
+        if cur is not None:
+            pairs = list(zip(frames[0::2], frames[1::2]))
+            own = [f"{loc.split('/lib/src/')[1]} ({re.sub(r'::h[0-9a-f]{16}$', '', fn)})"
+                   for fn, loc in pairs if "/main/lib/src/" in loc]
+            where[cur] = own[0] if own else "outside lib: " + re.sub(r"::h[0-9a-f]{16}$", "", pairs[-1][0] if pairs else "?")
+        cur, frames = int(line, 16), []
+    else:
+        frames.append(line)
+by = collections.defaultdict(collections.Counter)
+for w in words:
+    by[w >> 24][where.get(w & 0xFFFFFF, "?")] += 1
+for st in sorted(by):
+    if st not in stages:
+        continue
+    total = sum(by[st].values())
+    print(f"== {stages[st]}: {total} samples = ~{total * 40_000 / 1e6:.0f} M instructions")
+    for k, c in by[st].most_common(top):
+        print(f"  {100 * c / total:5.1f} %  {k}")
+PY
