@@ -10,6 +10,7 @@
 # Env:   CARGO_TARGET_DIR                build folder (default: boards/target)
 #        GLOWCHECK_BOARD_TARGETS         thumb targets to run (default: all three)
 #        GLOWCHECK_QEMU_TIMEOUT_S        per-run QEMU timeout in seconds (default: 120)
+#        GLOWSIM                         a glowsim binary of the same lib: cross-check the pipeline digest
 set -euo pipefail
 
 here="$(cd "$(dirname "${BASH_SOURCE[0]}")" && pwd)"
@@ -181,6 +182,17 @@ elif cmp -s "$pgolden" "$out/pipeline-host.txt"; then
 else
     fail "pipeline digest differs from boards/expected/pipeline.txt; if lib's results changed on purpose, run: bash boards/check.sh --bless"
     diff "$pgolden" "$out/pipeline-host.txt" | head -n 20 >&2 || true
+fi
+
+# With GLOWSIM=path/to/glowsim (built from the same lib), the digest is also checked against host-sim's
+# `glowsim check --json` on the same frames: verdict, reason codes and every matched line.
+if [ -n "${GLOWSIM:-}" ]; then
+    if bash "$here/pipeline-report/compare-glowsim.sh" "$out/pipeline-host.txt" "$GLOWSIM" >"$out/pipeline-glowsim.txt" 2>&1; then
+        ok "pipeline digest agrees with glowsim check ($GLOWSIM)"
+    else
+        fail "pipeline digest differs from glowsim check:"
+        cat "$out/pipeline-glowsim.txt" >&2
+    fi
 fi
 
 # ---------------------------------------------------------------------------------------------------
