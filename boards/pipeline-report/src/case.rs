@@ -58,10 +58,19 @@ pub fn config(case: &Case) -> Result<Config, CalibrateError> {
     let map = WavelengthMap::new(PIXELS as u16, 2, BENCH_MAP_FM)?;
     let mut condition = ConditionConfig::new((1 << 14) - 1, 100_000);
     condition.electrons_per_count_q8 = 2 * 256;
+    // Accepted line widths around the instrument's 3 px, as `glowsim check` sets them: half of it
+    // (≥ 1 px) up to 1.5 × (≤ 16 px), each only widening the defaults.
+    let fwhm_q8: u16 = 3 * 256;
+    let mut find = FindConfig::DEFAULT;
+    find.fwhm_min_px_q8 = find.fwhm_min_px_q8.min((fwhm_q8 / 2).max(256));
+    find.fwhm_max_px_q8 = find
+        .fwhm_max_px_q8
+        .max(fwhm_q8.saturating_mul(3) / 2)
+        .min(16 << 8);
     Ok(Config {
         pixels: PIXELS as u16,
         condition,
-        find: FindConfig::DEFAULT,
+        find,
         stored: StoredMap {
             map,
             sigma_fm: 3_000,
@@ -69,7 +78,7 @@ pub fn config(case: &Case) -> Result<Config, CalibrateError> {
         mode: case.mode,
         degree: 2,
         air: Air::Standard,
-        line_fwhm_px_q8: 3 * 256,
+        line_fwhm_px_q8: fwhm_q8,
         profile: case.profile.1,
     })
 }
