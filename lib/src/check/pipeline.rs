@@ -380,7 +380,9 @@ impl Checker {
                 == 2;
             if both {
                 if let Some(pk) = peaks.get(pair.peak as usize) {
-                    let measured = m.map.wavelength_fm(pk.center_px_q16).ok()?;
+                    let Ok(measured) = m.map.wavelength_fm(pk.center_px_q16) else {
+                        continue;
+                    };
                     let slope = m
                         .map
                         .slope_fm_per_px_q16(pk.center_px_q16)
@@ -533,10 +535,9 @@ impl Checker {
                     None => continue,
                 }
             };
-            let measured = m
-                .map
-                .wavelength_fm(pk.center_px_q16)
-                .map_err(|e| CheckError::Match(e.into()))?;
+            let Ok(measured) = m.map.wavelength_fm(pk.center_px_q16) else {
+                continue;
+            };
             let slope = m
                 .map
                 .slope_fm_per_px_q16(pk.center_px_q16)

@@ -51,7 +51,10 @@ pub fn group(
     let mut out: Vec<Feature, MAX_FEATURES> = Vec::new();
     let mut last_px: Option<i32> = None;
     for (i, line) in catalogue.iter().enumerate() {
-        let px = map.pixel_q16(line.wavelength_fm)?;
+        // A line the map cannot place (a fitted map extrapolated far off the sensor) is not on it.
+        let Ok(px) = map.pixel_q16(line.wavelength_fm) else {
+            continue;
+        };
         let join = last_px.is_some_and(|l| (px - l).abs() < merge_px_q16);
         last_px = Some(px);
         let idx = i as u8;
@@ -111,6 +114,6 @@ pub fn settle(
     };
     f.primary = best.1;
     f.expected = total as u64;
-    f.predicted_px_q16 = map.pixel_q16(f.predicted_fm)?;
+    f.predicted_px_q16 = map.pixel_q16(f.predicted_fm).unwrap_or(f.predicted_px_q16);
     Ok(())
 }
