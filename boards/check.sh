@@ -299,6 +299,45 @@ done
 [ -f "$api_elf" ] && sizes glowcheck-nopanic thumbv6m-none-eabi "$api_elf"
 [ -n "$stack_bytes" ] && echo "glowcheck-nopanic stack_bytes (thumbv6m code, painted and scanned): $stack_bytes" | tee -a "$out/sizes.txt"
 
+# Instruction counts and stack of the whole pipeline on the M0 code (boards/measure.sh): more than 5 %
+# over boards/expected/measure.json fails, any change prints; --bless rewrites the baseline.
+if bash "$here/measure.sh" thumbv6m-none-eabi >"$out/measure.json" 2>"$out/measure.err"; then
+    cat "$out/measure.json"
+    mgolden="$here/expected/measure.json"
+    if [ "$bless" = 1 ]; then
+        cp "$out/measure.json" "$mgolden"
+        ok "blessed $mgolden"
+    elif [ -f "$mgolden" ]; then
+        if python3 - "$mgolden" "$out/measure.json" <<'PY'
+import json, sys
+old, new = (json.loads(open(p).readline()) for p in sys.argv[1:3])
+flat = lambda d: {**{"instructions." + k: v for k, v in d["instructions"].items()},
+                  **{k: d[k] for k in ("float_baseline_instructions", "flash_bytes", "static_ram_bytes", "stack_bytes", "predict_once_instructions")}}
+o, n = flat(old), flat(new)
+grown = []
+for k in o:
+    if o[k] is None or n.get(k) is None:
+        continue
+    if n[k] != o[k]:
+        print(f"  {k}: {o[k]} -> {n[k]}", file=sys.stderr)
+    if n[k] > o[k] * 1.05:
+        grown.append(k)
+if grown:
+    print("grew more than 5 %: " + " ".join(grown), file=sys.stderr)
+sys.exit(1 if grown else 0)
+PY
+        then
+            ok "instruction counts and stack within 5 % of $mgolden"
+        else
+            fail "instruction counts or stack grew more than 5 % over boards/expected/measure.json (bash boards/check.sh --bless after a deliberate change)"
+        fi
+    else
+        fail "no instruction-count baseline; create it with: bash boards/check.sh --bless"
+    fi
+else
+    fail "boards/measure.sh failed; see $out/measure.err"
+fi
+
 # Size baselines: an image that grew more than 5 % over boards/expected/sizes.txt fails (lib changes
 # every day, so smaller moves only print); --bless rewrites the baseline.
 sgolden="$here/expected/sizes.txt"
