@@ -43,7 +43,7 @@ fn pipeline_seed_corpus_runs_clean() {
 }
 
 #[test]
-#[ignore = "known bug found by the pipeline fuzz target: blind calibration returns Err(Match(Map(Overflow))) for frame content"]
+#[ignore = "known bug found by the pipeline fuzz target: i32 subtract overflow in matching::assign (peak centre minus predicted pixel)"]
 fn pipeline_regressions_run_clean() {
     let (n, failures) = replay("fuzz/regressions/pipeline");
     assert!(n >= 1);
