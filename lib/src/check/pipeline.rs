@@ -500,7 +500,7 @@ impl Checker {
             let Ok(px) = m.map.pixel_q16(c.wavelength_fm) else {
                 continue;
             };
-            let d = (px - pk.center_px_q16).abs();
+            let d = px.saturating_sub(pk.center_px_q16).saturating_abs();
             if best.is_none_or(|(_, bd)| d < bd) {
                 best = Some((c, d));
             }

@@ -33,13 +33,13 @@ pub fn assign(
             continue;
         };
         let win = window_px_q16(f);
-        let mut best: Option<(usize, i32)> = None;
+        let mut best: Option<(usize, i64)> = None;
         for (k, p) in peaks.iter().enumerate().take(64) {
             if taken.get(k).copied().unwrap_or(true) {
                 continue;
             }
-            let d = (p.center_px_q16 - f.predicted_px_q16).abs();
-            if d <= win && best.is_none_or(|(_, bd)| d < bd) {
+            let d = (p.center_px_q16 as i64 - f.predicted_px_q16 as i64).abs();
+            if d <= win as i64 && best.is_none_or(|(_, bd)| d < bd) {
                 best = Some((k, d));
             }
         }
