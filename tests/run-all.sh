@@ -144,6 +144,15 @@ setup_venv() {
     echo "python venv: $VENV ready ($("$py" --version))"
 }
 
+# The fuzz smoke needs cargo-fuzz (from crates.io) and the machine's nightly toolchain; a nightly cannot
+# be downloaded here, so without one the smoke script prints a skip line.
+fuzz_smoke() {
+    if ! cargo fuzz --version >/dev/null 2>&1 && rustup run nightly rustc --version >/dev/null 2>&1; then
+        quietly cargo-fuzz-install cargo install --locked cargo-fuzz || return 1
+    fi
+    bash "$REPO/tests/fuzz-smoke.sh"
+}
+
 # ---- test stages -----------------------------------------------------------------------------------------
 
 target_dir() {
@@ -208,6 +217,9 @@ fi
 stage "python reference checks" python_refs
 if [ -f "$REPO/boards/check.sh" ]; then
     stage "boards/check.sh" bash "$REPO/boards/check.sh"
+fi
+if [ -f "$REPO/tests/fuzz-smoke.sh" ]; then
+    stage "fuzz smoke (bounded, fixed seeds)" fuzz_smoke
 fi
 
 elapsed=$((SECONDS - start_all))
