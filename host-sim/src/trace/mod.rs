@@ -165,6 +165,8 @@ impl Trace {
 
     /// Parses text in either format.
     pub fn parse_any(text: &str) -> Result<Trace, TraceError> {
+        // A UTF-8 byte-order mark (spreadsheet exports add one) is not part of the first line.
+        let text = text.strip_prefix('\u{feff}').unwrap_or(text);
         if native::looks_native(text) {
             native::parse(text)
         } else {

@@ -55,7 +55,7 @@ pub fn group(
         let Ok(px) = map.pixel_q16(line.wavelength_fm) else {
             continue;
         };
-        let join = last_px.is_some_and(|l| (px - l).abs() < merge_px_q16);
+        let join = last_px.is_some_and(|l| (px as i64 - l as i64).abs() < merge_px_q16 as i64);
         last_px = Some(px);
         let idx = i as u8;
         if join {
