@@ -43,7 +43,6 @@ fn pipeline_seed_corpus_runs_clean() {
 }
 
 #[test]
-#[ignore = "known bug found by the pipeline fuzz target: i32 subtract overflow in matching::feature (px - last_px, line 58) for a wild blind-fitted map"]
 fn pipeline_regressions_run_clean() {
     let (n, failures) = replay("fuzz/regressions/pipeline");
     assert!(n >= 1);
