@@ -126,7 +126,7 @@ pub fn lib_config(
 }
 
 /// Co-adds frames (each a sum of `coadded` readouts) into `sum`; returns the readouts in it.
-pub(crate) fn stack(
+fn stack(
     frames: &[&Vec<u32>],
     coadded: u32,
     full_scale: u16,
@@ -176,6 +176,26 @@ pub fn evaluate(
     inst: &Instrument,
     profile: TubeProfile,
     mode: Mode,
+) -> Result<Report, String> {
+    evaluate_in(
+        trace,
+        dark,
+        inst,
+        profile,
+        mode,
+        &mut Box::new(Buffers::new()),
+    )
+}
+
+/// The same with caller-owned buffers, which hold the conditioned frame and its baseline afterwards
+/// (for plots).
+pub fn evaluate_in(
+    trace: &Trace,
+    dark: Option<&Trace>,
+    inst: &Instrument,
+    profile: TubeProfile,
+    mode: Mode,
+    buffers: &mut Buffers<MAX_PIXELS>,
 ) -> Result<Report, String> {
     let n = trace.pixels;
     if n != inst.pixels as usize {
@@ -238,7 +258,6 @@ pub fn evaluate(
         None
     };
     let checker = Checker::new(cfg).map_err(|e| format!("configuration: {e}"))?;
-    let mut buffers = Box::new(Buffers::<MAX_PIXELS>::new());
     let mut report = Report::new();
     checker
         .check(signal, dark_view, None, buffers.workspace(n), &mut report)

@@ -3,11 +3,11 @@
 //! Same inputs and same lib calls as [`crate::check_cmd::evaluate`] (a test holds the two reports
 //! equal); the difference is that the caller-owned buffers outlive the check, so the plot can show
 //! what peak finding saw.
-use crate::check_cmd::{lib_config, stack};
+use crate::check_cmd::evaluate_in;
 use crate::instrument::Instrument;
-use crate::trace::{FrameKind, Trace};
-use glowcheck::check::{Buffers, Checker};
-use glowcheck::condition::{FrameSum, MAX_PIXELS, OUTPUT_FRAC_BITS};
+use crate::trace::Trace;
+use glowcheck::check::Buffers;
+use glowcheck::condition::{MAX_PIXELS, OUTPUT_FRAC_BITS};
 use glowcheck::judge::{Mode, Report, TubeProfile};
 
 /// A report with the frames behind it, in counts per readout.
@@ -30,52 +30,8 @@ pub fn check_keep(
     mode: Mode,
 ) -> Result<Checked, String> {
     let n = trace.pixels;
-    if n != inst.pixels as usize {
-        return Err(format!(
-            "the trace has {n} pixels, the instrument file says {}",
-            inst.pixels
-        ));
-    }
-    if trace.adc_bits.is_some_and(|b| b != inst.adc_bits) {
-        return Err(format!(
-            "the trace's ADC resolution differs from the instrument file's {} bits",
-            inst.adc_bits
-        ));
-    }
-    let cfg = lib_config(inst, profile, mode, trace.integration_us)?;
-    let full = inst.full_scale_counts();
-    let signals: Vec<&Vec<u32>> = trace
-        .frames_of(FrameKind::Signal)
-        .map(|f| &f.counts)
-        .collect();
-    if signals.is_empty() {
-        return Err("the trace has no signal frame".into());
-    }
-    let darks: Vec<&Vec<u32>> = trace
-        .frames_of(FrameKind::Dark)
-        .map(|f| &f.counts)
-        .collect();
-    let mut sig = vec![0u32; n];
-    let mut drk = vec![0u32; n];
-    let s_reads = stack(&signals, trace.coadded, full, &mut sig, "signal")?;
-    let d_reads = if darks.is_empty() {
-        0
-    } else {
-        stack(&darks, trace.coadded, full, &mut drk, "dark")?
-    };
-    let signal = FrameSum::stacked(&sig, s_reads).map_err(|e| format!("signal: {e}"))?;
-    let dark = if d_reads > 0 {
-        Some(FrameSum::stacked(&drk, d_reads).map_err(|e| format!("dark: {e}"))?)
-    } else {
-        None
-    };
-    let checker = Checker::new(cfg).map_err(|e| format!("configuration: {e}"))?;
     let mut buffers = Box::new(Buffers::<MAX_PIXELS>::new());
-    let mut report = Report::new();
-    let ws = buffers.workspace(n);
-    checker
-        .check(signal, dark, None, ws, &mut report)
-        .map_err(|e| format!("check: {e}"))?;
+    let report = evaluate_in(trace, None, inst, profile, mode, &mut buffers)?;
     let ws = buffers.workspace(n);
     let unit = f64::from(1u32 << OUTPUT_FRAC_BITS);
     Ok(Checked {
