@@ -50,6 +50,8 @@ for t in $targets; do
     awk -v target="$t" -v flash="$flash" -v frames="$frames" -v ram="$ram" '
         function kv(line, key,   i, n, f) { n = split(line, f, " "); for (i = 1; i < n; i++) if (f[i] == key) return f[i + 1]; return "" }
         /^ticks / { tk = $0 } /^stack_bytes / { st = $0 }
+        /^typical / { ref[$3] = $7 }
+        /^adversary / { na++; an[na] = $2; am[na] = $3; ap[na] = $5; at[na] = $7; ar[na] = $9 }
         END {
             per = int(kv(tk, "loop_instructions") / kv(tk, "calibration") + 0.5)
             c = kv(tk, "condition") * per; f = kv(tk, "find") * per
@@ -60,6 +62,18 @@ for t in $targets; do
             printf "{\"target\": \"%s\", \"pixels\": 2048, \"instructions\": {\"condition\": %d, \"find\": %d, \"calibrate\": %d, \"match\": %d, \"judge\": null, \"total\": %d}, ", target, c, f, cal - ver, ver - c - f, cal
             printf "\"instructions_per_pixel\": %.1f, \"float_baseline_instructions\": %d, \"float_baseline_ratio\": %.3f, ", (c + f) / 2048, fb, fb / (c + f)
             printf "\"flash_bytes\": %d, \"static_ram_bytes\": %d, \"stack_bytes\": %d, ", flash - frames, ram, stack
-            printf "\"predict_once_instructions\": %d, \"instructions_per_tick\": %d, \"embedded_frame_bytes\": %d}\n", pr, per, frames
+            printf "\"predict_once_instructions\": %d, \"instructions_per_tick\": %d, \"embedded_frame_bytes\": %d, ", pr, per, frames
+            # Adversarial frames: work of Checker::check relative to the typical frame in the same mode,
+            # the bound scaled by pixels / 2048 for longer frames (never below 1).
+            worst = 0; wname = ""
+            printf "\"adversarial\": ["
+            for (i = 1; i <= na; i++) {
+                scale = ap[i] / 2048; if (scale < 1) scale = 1
+                r = at[i] / (ref[am[i]] * scale)
+                if (r > worst) { worst = r; wname = an[i] " " am[i] }
+                printf "%s{\"frame\": \"%s\", \"mode\": \"%s\", \"pixels\": %d, \"instructions\": %d, \"ratio\": %.3f, \"result\": \"%s\"}", (i > 1 ? ", " : ""), an[i], am[i], ap[i], at[i] * per, r, ar[i]
+            }
+            printf "], \"typical_check_instructions\": {\"verify\": %d, \"calibrate\": %d, \"calibrate-blind\": %d}, ", ref["verify"] * per, ref["calibrate"] * per, ref["calibrate-blind"] * per
+            printf "\"adversarial_worst_ratio\": %.3f, \"adversarial_worst\": \"%s\"}\n", worst, wname
         }' "$out/$t.txt"
 done

@@ -55,7 +55,13 @@ pub const BENCH_MAP_FM: [i64; 4] = [517_944_686, 171_659_373, -6_285_314, 0];
 /// 2 e⁻/count, map σ 3 pm, fitted degree 2, line FWHM 3 px, IAU standard air) with `case`'s profile
 /// and mode.
 pub fn config(case: &Case) -> Result<Config, CalibrateError> {
-    let map = WavelengthMap::new(PIXELS as u16, 2, BENCH_MAP_FM)?;
+    config_for(PIXELS as u16, case.profile.1, case.mode)
+}
+
+/// [`config`] for a frame of `pixels` px: the map keeps its wavelength range (it is normalised), so a
+/// longer frame sees the same lines on more pixels.
+pub fn config_for(pixels: u16, profile: TubeProfile, mode: Mode) -> Result<Config, CalibrateError> {
+    let map = WavelengthMap::new(pixels, 2, BENCH_MAP_FM)?;
     let mut condition = ConditionConfig::new((1 << 14) - 1, 100_000);
     condition.electrons_per_count_q8 = 2 * 256;
     // Accepted line widths around the instrument's 3 px, as `glowsim check` sets them: half of it
@@ -68,17 +74,17 @@ pub fn config(case: &Case) -> Result<Config, CalibrateError> {
         .max(fwhm_q8.saturating_mul(3) / 2)
         .min(16 << 8);
     Ok(Config {
-        pixels: PIXELS as u16,
+        pixels,
         condition,
         find,
         stored: StoredMap {
             map,
             sigma_fm: 3_000,
         },
-        mode: case.mode,
+        mode,
         degree: 2,
         air: Air::Standard,
         line_fwhm_px_q8: fwhm_q8,
-        profile: case.profile.1,
+        profile,
     })
 }

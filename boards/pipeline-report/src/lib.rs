@@ -8,6 +8,7 @@
 //! Safety: the traces stand for discharge tubes that run at kilovolts and emit UV; hydrogen burns.
 #![no_std]
 
+pub mod adversarial;
 mod case;
 pub mod traces;
 
@@ -18,7 +19,7 @@ use glowcheck::condition::FrameSum;
 use glowcheck::judge::{Mode, Report};
 use glowcheck_report::digest::DigestWriter;
 
-pub use case::{config, Case, BENCH_MAP_FM, CASES};
+pub use case::{config, config_for, Case, BENCH_MAP_FM, CASES};
 use traces::PIXELS;
 
 /// Why a case produced no report.
@@ -85,7 +86,8 @@ pub fn run<W: Write>(
     Ok(digest)
 }
 
-fn mode_name(m: Mode) -> &'static str {
+/// The mode's name as the digest prints it.
+pub fn mode_name(m: Mode) -> &'static str {
     match m {
         Mode::Verify => "verify",
         Mode::Calibrate => "calibrate",

@@ -25,12 +25,16 @@ use cortex_m::peripheral::SYST;
 use cortex_m_rt::exception;
 use cortex_m_semihosting::{debug, hio};
 use glowcheck::check::Buffers;
+use glowcheck::check::Checker;
 use glowcheck::condition::{condition_frame, FrameSum};
+use glowcheck::condition::{GainTable, GAIN_MAX_Q14};
 use glowcheck::find::{find_peaks, PeakList};
+use glowcheck::judge::profile::HYDROGEN;
 use glowcheck::judge::{Mode, Report};
 use glowcheck_float_baseline::{condition_find_centroid, FloatPeak, MAX_PEAKS};
-use glowcheck_pipeline_report::traces::PIXELS;
-use glowcheck_pipeline_report::{check, checker, Case, CASES};
+use glowcheck_pipeline_report::adversarial::{ADVERSARIES, MAX_ADVERSARY_PIXELS};
+use glowcheck_pipeline_report::traces::{H_TUBE, PIXELS};
+use glowcheck_pipeline_report::{check, checker, config_for, mode_name, Case, CASES};
 
 /// SysTick wraps (every 2²⁴ ticks) since [`start_clock`].
 static WRAPS: AtomicU32 = AtomicU32::new(0);
@@ -315,6 +319,10 @@ pub fn run(buffers: &mut Buffers<PIXELS>, report: &mut Report, syst: SYST) -> de
     let Ok(mut out) = hio::hstdout() else {
         return debug::EXIT_FAILURE;
     };
+    #[cfg(not(feature = "profile"))]
+    if adversaries(&mut out, report).is_err() {
+        return debug::EXIT_FAILURE;
+    }
     // The profile build writes the samples to stdout and this text to stderr.
     #[cfg(feature = "profile")]
     let Ok(mut out) = ({
@@ -344,4 +352,97 @@ pub fn run(buffers: &mut Buffers<PIXELS>, report: &mut Report, syst: SYST) -> de
     } else {
         debug::EXIT_FAILURE
     }
+}
+
+/// Frame, dark and gain of the adversarial checks, and their buffers (room for 4096 px).
+static mut ADV_FRAME: [u16; MAX_ADVERSARY_PIXELS] = [0; MAX_ADVERSARY_PIXELS];
+/// See [`ADV_FRAME`].
+static mut ADV_DARK: [u16; MAX_ADVERSARY_PIXELS] = [0; MAX_ADVERSARY_PIXELS];
+/// See [`ADV_FRAME`].
+static mut ADV_GAIN: [u16; MAX_ADVERSARY_PIXELS] = [GAIN_MAX_Q14; MAX_ADVERSARY_PIXELS];
+/// See [`ADV_FRAME`].
+static mut ADV_BUFFERS: Buffers<MAX_ADVERSARY_PIXELS> = Buffers::new();
+
+/// The three modes, in print order.
+const MODES: [Mode; 3] = [Mode::Verify, Mode::Calibrate, Mode::CalibrateBlind];
+
+/// Times `Checker::check` on the typical frame and on every [`Adversary`] in each mode and prints one
+/// line per check: `adversary NAME MODE pixels N ticks T result VERDICT|error` (`typical h-tube …` for
+/// the reference). The checker of each mode and frame length is built once, outside the timing.
+#[cfg(not(feature = "profile"))]
+fn adversaries(out: &mut hio::HostStream, report: &mut Report) -> Result<(), ()> {
+    // SAFETY: the only references ever taken to these statics, in a run without interrupts.
+    let (frame, dark, gain, buffers) = unsafe {
+        (
+            &mut *addr_of_mut!(ADV_FRAME),
+            &mut *addr_of_mut!(ADV_DARK),
+            &*addr_of!(ADV_GAIN),
+            &mut *addr_of_mut!(ADV_BUFFERS),
+        )
+    };
+    for mode in MODES {
+        let build = |pixels: usize| {
+            config_for(pixels as u16, HYDROGEN, mode)
+                .ok()
+                .and_then(|c| Checker::new(c).ok())
+        };
+        let (Some(typical), Some(long), Some(short)) =
+            (build(PIXELS), build(MAX_ADVERSARY_PIXELS), build(16))
+        else {
+            return Err(());
+        };
+        let signal = FrameSum::single(&H_TUBE).map_err(|_| ())?;
+        let t0 = now();
+        let r = typical.check(signal, None, None, buffers.workspace(PIXELS), report);
+        let t = now().saturating_sub(t0);
+        writeln!(
+            out,
+            "typical h-tube {} pixels {PIXELS} ticks {t} result {}",
+            mode_name(mode),
+            if r.is_ok() {
+                report.verdict.as_str()
+            } else {
+                "error"
+            }
+        )
+        .map_err(|_| ())?;
+        for a in ADVERSARIES {
+            let n = a.fill(frame);
+            let extras = a.extras();
+            let checker = match n {
+                MAX_ADVERSARY_PIXELS => &long,
+                16 => &short,
+                _ => &typical,
+            };
+            let dark_sum = match extras.dark {
+                Some(v) => {
+                    dark.iter_mut().take(n).for_each(|d| *d = v);
+                    Some(FrameSum::single(dark.get(..n).unwrap_or(&[])).map_err(|_| ())?)
+                }
+                None => None,
+            };
+            let gain_table = if extras.max_gain {
+                Some(GainTable::new(gain.get(..n).unwrap_or(&[])).map_err(|_| ())?)
+            } else {
+                None
+            };
+            let signal = FrameSum::single(frame.get(..n).unwrap_or(&[])).map_err(|_| ())?;
+            let t0 = now();
+            let r = checker.check(signal, dark_sum, gain_table, buffers.workspace(n), report);
+            let t = now().saturating_sub(t0);
+            writeln!(
+                out,
+                "adversary {} {} pixels {n} ticks {t} result {}",
+                a.name(),
+                mode_name(mode),
+                if r.is_ok() {
+                    report.verdict.as_str()
+                } else {
+                    "error"
+                }
+            )
+            .map_err(|_| ())?;
+        }
+    }
+    Ok(())
 }
