@@ -3,7 +3,7 @@
 # the interrupted PC every 40 000 instructions (SysTick every 1000 ticks under QEMU -icount shift=0) with
 # the stage it was in, and this script names the innermost lib source line of each sample
 # (llvm-addr2line -i, inlined frames included) and prints the top lines per stage.
-# Usage: bash boards/profile.sh [top-n]        Needs llvm-addr2line (Debian: llvm).
+# Usage: bash boards/profile.sh [top-n] [stage-filter]   (e.g. 8 random-walk)        Needs llvm-addr2line (Debian: llvm).
 set -euo pipefail
 here="$(cd "$(dirname "${BASH_SOURCE[0]}")" && pwd)"
 cd "$here"
@@ -16,7 +16,7 @@ elf="$out/thumbv6m-none-eabi-profile.elf"
 cp "$CARGO_TARGET_DIR/thumbv6m-none-eabi/release/glowcheck-pipeline" "$elf"
 timeout "${GLOWCHECK_QEMU_TIMEOUT_S:-120}" qemu-system-arm -M mps2-an385 -nographic -monitor none -serial null \
     -icount shift=0 -semihosting-config enable=on,target=native -kernel "$elf" </dev/null >"$out/samples.bin" 2>"$out/profile.txt"
-python3 - "$elf" "$out/samples.bin" "$top" <<'PY'
+python3 - "$elf" "$out/samples.bin" "$top" "${2:-}" <<'PY'
 import collections, re, struct, subprocess, sys
 elf, path, top = sys.argv[1], sys.argv[2], int(sys.argv[3])
 data = open(path, "rb").read()
@@ -40,8 +40,16 @@ for line in res.splitlines() + ["0x0"]:
 by = collections.defaultdict(collections.Counter)
 for w in words:
     by[w >> 24][where.get(w & 0xFFFFFF, "?")] += 1
+names = ["noise-at-max-gain", "spike-comb-1000-4096px", "spike-every-other-px", "all-saturated", "all-zero",
+         "16px", "1px", "4096px", "staircase", "alternating-extremes", "204-narrow-lines", "single-lit-pixel",
+         "dark-above-signal", "saturated-dark-max-gain", "random-walk", "typical h-tube"]
+modes = ["verify", "calibrate", "calibrate-blind"]
+for k, name in enumerate(names):
+    for m, mode in enumerate(modes):
+        stages[16 + 3 * k + m] = f"adversarial {name} ({mode})"
+only = sys.argv[4] if len(sys.argv) > 4 else ""
 for st in sorted(by):
-    if st not in stages:
+    if st not in stages or only not in stages[st]:
         continue
     total = sum(by[st].values())
     print(f"== {stages[st]}: {total} samples = ~{total * 40_000 / 1e6:.0f} M instructions")

@@ -58,9 +58,9 @@ static STAGE: AtomicU32 = AtomicU32::new(0);
 /// Samples taken so far.
 #[cfg(feature = "profile")]
 static SAMPLED: AtomicU32 = AtomicU32::new(0);
-/// Room for the samples (stage << 24 | PC); the 4 MiB RAM map has plenty.
+/// Room for the samples (stage << 24 | PC): 2 MiB of the 4 MiB RAM map, 21 G instructions.
 #[cfg(feature = "profile")]
-const MAX_SAMPLES: usize = 1 << 16;
+const MAX_SAMPLES: usize = 1 << 19;
 /// The samples.
 #[cfg(feature = "profile")]
 static SAMPLES: [AtomicU32; MAX_SAMPLES] = [const { AtomicU32::new(0) }; MAX_SAMPLES];
@@ -319,8 +319,16 @@ pub fn run(buffers: &mut Buffers<PIXELS>, report: &mut Report, syst: SYST) -> de
     let Ok(mut out) = hio::hstdout() else {
         return debug::EXIT_FAILURE;
     };
+    // The profile build keeps stdout for the samples.
+    #[cfg(feature = "profile")]
+    let Ok(mut adv_out) = hio::hstderr() else {
+        return debug::EXIT_FAILURE;
+    };
     #[cfg(not(feature = "profile"))]
-    if adversaries(&mut out, report).is_err() {
+    let adv_out = &mut out;
+    #[cfg(feature = "profile")]
+    let adv_out = &mut adv_out;
+    if adversaries(adv_out, report).is_err() {
         return debug::EXIT_FAILURE;
     }
     // The profile build writes the samples to stdout and this text to stderr.
@@ -369,7 +377,8 @@ const MODES: [Mode; 3] = [Mode::Verify, Mode::Calibrate, Mode::CalibrateBlind];
 /// Times `Checker::check` on the typical frame and on every [`Adversary`] in each mode and prints one
 /// line per check: `adversary NAME MODE pixels N ticks T result VERDICT|error` (`typical h-tube …` for
 /// the reference). The checker of each mode and frame length is built once, outside the timing.
-#[cfg(not(feature = "profile"))]
+/// In the profile build each check's samples carry stage 16 + 3 × adversary + mode (the typical
+/// frame is adversary 15).
 fn adversaries(out: &mut hio::HostStream, report: &mut Report) -> Result<(), ()> {
     // SAFETY: the only references ever taken to these statics, in a run without interrupts.
     let (frame, dark, gain, buffers) = unsafe {
@@ -392,6 +401,11 @@ fn adversaries(out: &mut hio::HostStream, report: &mut Report) -> Result<(), ()>
             return Err(());
         };
         let signal = FrameSum::single(&H_TUBE).map_err(|_| ())?;
+        #[cfg(feature = "profile")]
+        STAGE.store(
+            16 + 3 * ADVERSARIES.len() as u32 + mode as u32,
+            Ordering::Relaxed,
+        );
         let t0 = now();
         let r = typical.check(signal, None, None, buffers.workspace(PIXELS), report);
         let t = now().saturating_sub(t0);
@@ -406,7 +420,7 @@ fn adversaries(out: &mut hio::HostStream, report: &mut Report) -> Result<(), ()>
             }
         )
         .map_err(|_| ())?;
-        for a in ADVERSARIES {
+        for (_k, a) in ADVERSARIES.iter().copied().enumerate() {
             let n = a.fill(frame);
             let extras = a.extras();
             let checker = match n {
@@ -427,6 +441,8 @@ fn adversaries(out: &mut hio::HostStream, report: &mut Report) -> Result<(), ()>
                 None
             };
             let signal = FrameSum::single(frame.get(..n).unwrap_or(&[])).map_err(|_| ())?;
+            #[cfg(feature = "profile")]
+            STAGE.store(16 + 3 * _k as u32 + mode as u32, Ordering::Relaxed);
             let t0 = now();
             let r = checker.check(signal, dark_sum, gain_table, buffers.workspace(n), report);
             let t = now().saturating_sub(t0);
