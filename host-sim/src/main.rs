@@ -15,6 +15,7 @@ mod peaks_cmd;
 mod plot;
 mod profile_file;
 mod record_cmd;
+mod replay;
 mod report_out;
 mod sensor;
 mod synth_cmd;
