@@ -6,6 +6,7 @@ mod batch_cmd;
 mod check_cmd;
 mod defaults;
 mod demo_cmd;
+mod excerpt;
 mod instrument;
 mod labels;
 mod lines_cmd;
