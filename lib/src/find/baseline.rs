@@ -7,50 +7,53 @@
 //! smooths again, so lines drop out within a few rounds while the continuum stays.
 
 use super::noise::NoiseModel;
-use super::smooth::box_symmetric;
+use super::smooth::{box_symmetric, box_symmetric_in_place};
 use crate::condition::flags;
 
 /// Clipping level above the baseline, in noise σ.
 pub const CLIP_SIGMA: i64 = 2;
-/// Clip-and-smooth rounds; each removes most of what a line still adds to the baseline.
+/// Clip-and-smooth rounds from a plain smoothing; each removes most of what a line still adds to the
+/// baseline.
 pub const ROUNDS: usize = 16;
+/// Rounds when starting from an earlier baseline of the same frame (the second look of
+/// [`find_peaks`](super::find_peaks), after a better noise estimate): the lines are already out.
+pub const ROUNDS_WARM: usize = 4;
 
 /// Writes the baseline of `frame` into `base`, using `tmp` as scratch (both the frame's length).
 ///
+/// With `warm`, `base` already holds a baseline of this frame and only [`ROUNDS_WARM`] rounds run.
 /// Untrusted pixels (saturated, repaired) are always replaced by the baseline after the first round.
-/// `half` is the box half-width (px). Loop bound: (1 + [`ROUNDS`]) × 2 box passes of O(N).
+/// `half` is the box half-width (px, ≤ 63). Loop bound: (1 + [`ROUNDS`]) × (one clip pass + 2 box
+/// passes) of O(N).
 pub fn estimate_baseline(
     frame: &[i32],
     flag: &[u8],
     noise: &NoiseModel,
     half: usize,
+    warm: bool,
     base: &mut [i32],
     tmp: &mut [i32],
 ) {
-    let y = |j: usize| i64::from(frame.get(j).copied().unwrap_or(0));
-    box_symmetric(half, y, tmp);
-    box_symmetric(half, |j| i64::from(tmp.get(j).copied().unwrap_or(0)), base);
-    for _ in 0..ROUNDS {
-        {
-            let b: &[i32] = base;
-            let clipped = |j: usize| {
-                let bj = i64::from(b.get(j).copied().unwrap_or(0));
-                let yj = y(j);
-                let untrusted = flag.get(j).is_some_and(|&f| flags::is_untrusted(f));
-                let r = yj - bj;
-                // r > CLIP_SIGMA·σ  ⟺  r² · 256 > CLIP_SIGMA² · var_q8
-                let high = r > 0
-                    && i128::from(r) * i128::from(r) * 256
-                        > i128::from(CLIP_SIGMA * CLIP_SIGMA) * i128::from(noise.var_q8(bj));
-                if untrusted || high {
-                    bj
-                } else {
-                    yj
-                }
-            };
-            box_symmetric(half, clipped, tmp);
+    let rounds = if warm {
+        ROUNDS_WARM
+    } else {
+        box_symmetric(
+            half,
+            |j| i64::from(frame.get(j).copied().unwrap_or(0)),
+            base,
+        );
+        box_symmetric_in_place(half, base);
+        ROUNDS
+    };
+    for _ in 0..rounds {
+        // Clipped frame into tmp, one evaluation per pixel; then its triangle back into base.
+        for (((t, &y), &b), &f) in tmp.iter_mut().zip(frame).zip(base.iter()).zip(flag) {
+            let (yj, bj) = (i64::from(y), i64::from(b));
+            let high = super::math::above_sigmas(yj - bj, CLIP_SIGMA << 8, noise.var_q8(bj));
+            *t = if flags::is_untrusted(f) || high { b } else { y };
         }
         box_symmetric(half, |j| i64::from(tmp.get(j).copied().unwrap_or(0)), base);
+        box_symmetric_in_place(half, base);
     }
 }
 
@@ -82,7 +85,7 @@ mod tests {
         let fl = vec![0u8; n];
         let mut base = vec![0i32; n];
         let mut tmp = vec![0i32; n];
-        estimate_baseline(&frame, &fl, &model(10), 24, &mut base, &mut tmp);
+        estimate_baseline(&frame, &fl, &model(10), 24, false, &mut base, &mut tmp);
         for i in [100usize, 240, 256, 270, 400] {
             let truth = 5000 + 4 * i as i32;
             let err = base[i] - truth;
@@ -100,7 +103,7 @@ mod tests {
         let fl = vec![0u8; n];
         let mut base = vec![0i32; n];
         let mut tmp = vec![0i32; n];
-        estimate_baseline(&frame, &fl, &model(100), 24, &mut base, &mut tmp);
+        estimate_baseline(&frame, &fl, &model(100), 24, false, &mut base, &mut tmp);
         for i in (0..n).step_by(37) {
             let err = base[i] - frame[i];
             // Curvature bias of the triangle (variance 400 px²): 20000/300² · 400 / 2 ≈ 44 at the top.

@@ -193,6 +193,10 @@ fn normal(
     let mut used = 0usize;
     let s = p.s_q16.max(1);
     let a = p.a_q8.max(1);
+    // The line's own products stay in i64 (a library call each on the M0, where an i128 product is
+    // several); only the sums over the window are i128. Bounds (Q30 units): 0 < g ≤ 2^30; |g·u| and
+    // |g·u²| peak at 0.61 and 0.74 × 2^30; w ≤ 2^30 (vref ≤ var); so every w·J and w·J·J < 2^60.
+    let a64 = i128::from(a);
     for i in lo..=hi {
         if !d.usable(i) {
             continue;
@@ -201,29 +205,54 @@ fn normal(
             .checked_div(s)
             .unwrap_or(0);
         let g30 = exp_neg_q16((u.saturating_mul(u)) >> 17);
-        let line_q8 = (i128::from(a) * i128::from(g30)) >> 30;
-        let gu = round_shift(i128::from(g30) * i128::from(u), 16);
-        let guu = round_shift(gu * i128::from(u), 16);
+        let line_q8 = match a.checked_mul(g30) {
+            Some(v) => i128::from(v >> 30),
+            None => (a64 * i128::from(g30)) >> 30,
+        };
+        // |u| < 2^23 (≤ 16 px at σ ≥ 1/4 px, Q16), so g·u < 2^53 and (g·u >> 16)·u < 2^60.
+        let gu = round_shift_i64(g30.saturating_mul(u), 16);
+        let guu = round_shift_i64(gu.saturating_mul(u), 16);
         let model_q8 = line_q8 + i128::from(p.c_q8);
         let level = d.base_at(i) + (line_q8 >> 8) as i64;
-        let var = i128::from(d.noise.var_q8(level).max(1));
-        let w = (i128::from(vref) << 30).checked_div(var).unwrap_or(0);
+        let var = d.noise.var_q8(level).max(1);
+        let w = match vref.checked_mul(1 << 30) {
+            Some(num) => num.checked_div(var).unwrap_or(0),
+            None => clamp_i64(
+                (i128::from(vref) << 30)
+                    .checked_div(i128::from(var))
+                    .unwrap_or(0),
+            ),
+        };
         let e = (i128::from(d.resid(i)) << 8) - model_q8;
-        let e_rel = (e << 24)
-            .checked_div(i128::from(a))
-            .unwrap_or(0)
-            .clamp(-(1 << 40), 1 << 40);
-        let j = [i128::from(g30), gu, guu, 1 << 30];
-        for (row, &jr) in m.iter_mut().zip(&j) {
-            let wj = round_shift(w * jr, 30);
-            for (cell, &jc) in row.iter_mut().zip(&j) {
-                *cell += wj * jc;
+        let e_rel = match i64::try_from(e).ok().and_then(|e| e.checked_mul(1 << 24)) {
+            Some(num) => num.checked_div(a).unwrap_or(0),
+            None => clamp_i64((e << 24).checked_div(a64).unwrap_or(0)),
+        }
+        .clamp(-(1 << 40), 1 << 40);
+        let j = [g30, gu, guu, 1 << 30];
+        let wj = j.map(|jr| round_shift_i64(w.saturating_mul(jr), 30));
+        // Upper triangle only; the lower one is mirrored after the loop.
+        for (r, (row, &wjr)) in m.iter_mut().zip(&wj).enumerate() {
+            for (cell, &jc) in row.iter_mut().zip(&j).skip(r) {
+                *cell += i128::from(wjr.saturating_mul(jc));
             }
         }
-        for (bv, &jr) in b.iter_mut().zip(&j) {
-            *bv += round_shift(w * jr, 30) * e_rel;
+        for (bv, &wjr) in b.iter_mut().zip(&wj) {
+            // |w·J| ≤ 2^30: an i64 product when |e_rel| < 2^32 (all but wild starts).
+            *bv += match wjr.checked_mul(e_rel) {
+                Some(v) => i128::from(v),
+                None => i128::from(wjr) * i128::from(e_rel),
+            };
         }
         used += 1;
+    }
+    for r in 1..4 {
+        for c in 0..r {
+            let upper = m.get(c).and_then(|row| row.get(r)).copied().unwrap_or(0);
+            if let Some(cell) = m.get_mut(r).and_then(|row| row.get_mut(c)) {
+                *cell = upper;
+            }
+        }
     }
     (used >= MIN_PIXELS).then_some((m, b))
 }
@@ -237,6 +266,22 @@ fn round_shift(v: i128, k: u32) -> i128 {
         return 0;
     }
     let half = 1i128 << (k - 1);
+    if v >= 0 {
+        (v.saturating_add(half)) >> k
+    } else {
+        -((v.saturating_neg().saturating_add(half)) >> k)
+    }
+}
+
+/// [`round_shift`] for `i64` (the same integers).
+fn round_shift_i64(v: i64, k: u32) -> i64 {
+    if k == 0 {
+        return v;
+    }
+    if k > 62 {
+        return 0;
+    }
+    let half = 1i64 << (k - 1);
     if v >= 0 {
         (v.saturating_add(half)) >> k
     } else {

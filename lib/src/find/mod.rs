@@ -84,8 +84,8 @@ pub const SPIKE_FWHM_Q8: u32 = 160;
 /// peaks stand on (frame units), for callers that need the continuum; the rest is work space.
 ///
 /// Loop bounds, with N = `frame.len()` ≤ [`MAX_PIXELS`]: two looks, each a noise estimate O(N) (two
-/// insertion-sort medians of ≤ 64 values per 64-px block and 4 refit rounds over ≤ 64 blocks), a baseline of (1 + 16 rounds) ×
-/// 2 box passes of O(N), and detection O(N) plus ≤ 2 × 4·FWHMmax px of prominence search per local
+/// insertion-sort medians of ≤ 64 values per 64-px block and 4 refit rounds over ≤ 64 blocks), a baseline of
+/// 16 rounds (first look) or 4 (second look) of a clip pass and 2 box passes of O(N), and detection O(N) plus ≤ 2 × 4·FWHMmax px of prominence search per local
 /// maximum above threshold; masking ≤ 128 candidates × ≤ 6·FWHMmax px;
 /// thinning ≤ 128² comparisons; ≤ 2 × 64 fits of ≤ 13 Gauss–Newton passes over ≤ 33 px (the second
 /// only for lines with a neighbour in reach, taking ≤ 2 neighbour profiles out); blend marking
@@ -126,7 +126,7 @@ pub fn find_peaks(
     // Two looks: the first finds the lines, the second re-estimates the noise away from them (dense
     // strong lines inflate every block's second differences) and detects again with the better model.
     for look in 0..2 {
-        baseline::estimate_baseline(frame, flag, &nm, 2 * fwhm_max_px, base, tmp);
+        baseline::estimate_baseline(frame, flag, &nm, 2 * fwhm_max_px, look == 1, base, tmp);
         detect::smooth_residual(frame, base, tmp);
         cands.clear();
         truncated = detect::find_candidates(tmp, base, &nm, cfg, 4 * fwhm_max_px, &mut cands);

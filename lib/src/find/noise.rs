@@ -47,10 +47,14 @@ impl NoiseModel {
     /// Variance at a signal level (frame units), Q8.
     pub fn var_q8(&self, level: i64) -> i64 {
         let light = level.saturating_sub(self.zero_light_level).max(0);
-        let shot = (i128::from(light) * i128::from(self.shot_var_per_unit_q16)) >> 8;
-        self.floor_var_q8
-            .saturating_add(shot.clamp(0, i128::from(i64::MAX)) as i64)
-            .max(1)
+        // light < 2^31 keeps the product below 2^63 (the per-pixel case; i128 on M0 is a library call).
+        let shot = if light < 1 << 31 {
+            (light * i64::from(self.shot_var_per_unit_q16)) >> 8
+        } else {
+            let wide = (i128::from(light) * i128::from(self.shot_var_per_unit_q16)) >> 8;
+            wide.clamp(0, i128::from(i64::MAX)) as i64
+        };
+        self.floor_var_q8.saturating_add(shot).max(1)
     }
 
     /// Noise σ at a signal level (frame units, rounded down, ≥ 0).
