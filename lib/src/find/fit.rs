@@ -11,7 +11,9 @@
 //! (`Scaled`), so the solve keeps ≥ 24 significant bits per row even when shot noise makes the core
 //! weights 10⁴× smaller than the wing weights, and cannot overflow (scaled entries < 2^26).
 
-use super::math::{clamp_i64, div_round_i128, exp_neg_q16, isqrt_u128, ONE_Q30};
+use super::math::{
+    clamp_i32, clamp_i64, div_round_i128, exp_neg_q16, isqrt_u128, mul_i32_wide, ONE_Q30,
+};
 use super::noise::NoiseModel;
 use crate::condition::flags;
 
@@ -210,8 +212,9 @@ fn normal(
             None => (a64 * i128::from(g30)) >> 30,
         };
         // |u| < 2^23 (≤ 16 px at σ ≥ 1/4 px, Q16), so g·u < 2^53 and (g·u >> 16)·u < 2^60.
-        let gu = round_shift_i64(g30.saturating_mul(u), 16);
-        let guu = round_shift_i64(gu.saturating_mul(u), 16);
+        let u32w = clamp_i32(u);
+        let gu = round_shift_i64(mul_i32_wide(clamp_i32(g30), u32w), 16);
+        let guu = round_shift_i64(mul_i32_wide(clamp_i32(gu), u32w), 16);
         let model_q8 = line_q8 + i128::from(p.c_q8);
         let level = d.base_at(i) + (line_q8 >> 8) as i64;
         let var = d.noise.var_q8(level).max(1);
@@ -229,14 +232,17 @@ fn normal(
             None => clamp_i64((e << 24).checked_div(a64).unwrap_or(0)),
         }
         .clamp(-(1 << 40), 1 << 40);
-        let j = [g30, gu, guu, 1 << 30];
-        let wj = j.map(|jr| round_shift_i64(w.saturating_mul(jr), 30));
+        // Every factor below is within ±2^31 (bounds above), so the 32 × 32 → 64-bit product serves.
+        let j = [g30, gu, guu, 1 << 30].map(clamp_i32);
+        let w32 = clamp_i32(w);
+        let wj = j.map(|jr| clamp_i32(round_shift_i64(mul_i32_wide(w32, jr), 30)));
         // Upper triangle only; the lower one is mirrored after the loop.
         for (r, (row, &wjr)) in m.iter_mut().zip(&wj).enumerate() {
             for (cell, &jc) in row.iter_mut().zip(&j).skip(r) {
-                *cell += i128::from(wjr.saturating_mul(jc));
+                *cell += i128::from(mul_i32_wide(wjr, jc));
             }
         }
+        let wj = wj.map(i64::from);
         for (bv, &wjr) in b.iter_mut().zip(&wj) {
             // |w·J| ≤ 2^30: an i64 product when |e_rel| < 2^32 (all but wild starts).
             *bv += match wjr.checked_mul(e_rel) {
@@ -332,9 +338,12 @@ fn scaled_div(num: i128, den: i128, sh: i32) -> i128 {
 /// keeps ≥ 24 significant bits in every row whatever the weights, while 4×4 Cramer products stay below
 /// 2^110 (Hadamard: |det| ≤ Π diagonal).
 struct Scaled {
-    m: Mat,
     shift: [u32; 4],
     det: i128,
+    /// Cofactors `C[i][k] = (−1)^(i+k) det(minor(i, k))` of the scaled matrix, computed once: the
+    /// determinant, every Cramer numerator `Σ_i b_i C[i][k]` and `[M⁻¹]μμ` are exact integer sums of
+    /// them (the same integers as expanding each determinant afresh, at a quarter of the products).
+    cof: Mat,
 }
 
 impl Scaled {
@@ -354,8 +363,19 @@ impl Scaled {
                 *o = round_shift(v, si + sj);
             }
         }
-        let det = det4(&out);
-        (det > 0).then_some(Self { m: out, shift, det })
+        let mut cof: Mat = [[0; 4]; 4];
+        for (i, row) in cof.iter_mut().enumerate() {
+            for (k, c) in row.iter_mut().enumerate() {
+                let d = det3(minor(&out, i, k));
+                *c = if (i + k) % 2 == 0 { d } else { -d };
+            }
+        }
+        let det: i128 = out[0].iter().zip(&cof[0]).map(|(&v, &c)| v * c).sum();
+        (det > 0).then_some(Self {
+            shift,
+            det,
+            cof,
+        })
     }
 
     /// Solves `M x = b` (b in Q54) by Cramer's rule on the scaled matrix; `x` in Q16.
@@ -373,22 +393,22 @@ impl Scaled {
         }
         let mut x = [0i64; 4];
         for (k, (xk, &sk)) in x.iter_mut().zip(&self.shift).enumerate() {
-            let mut mk = self.m;
-            for (row, &bv) in mk.iter_mut().zip(&bs) {
-                if let Some(cell) = row.get_mut(k) {
-                    *cell = bv;
-                }
-            }
+            // det of M with column k replaced by b, expanded along that column.
+            let num: i128 = bs
+                .iter()
+                .zip(self.cof.iter())
+                .map(|(&bv, row)| bv * row.get(k).copied().unwrap_or(0))
+                .sum();
             // x = x'' / 2^k with x'' = det_k / det, then × 2^extra, in Q16.
             let sh = 16 + extra as i32 - sk as i32;
-            *xk = clamp_i64(scaled_div(det4(&mk), self.det, sh));
+            *xk = clamp_i64(scaled_div(num, self.det, sh));
         }
         x
     }
 
     /// `[M⁻¹]μμ` of the unscaled Q60 matrix as a real number, in Q32.
     fn inv_mu_q32(&self) -> Option<i128> {
-        let cof = det3(minor(&self.m, 1, 1));
+        let cof = self.cof[1][1];
         if cof <= 0 {
             return None;
         }
@@ -399,6 +419,16 @@ impl Scaled {
 }
 
 fn det3(m: [[i128; 3]; 3]) -> i128 {
+    let small = |v: &i128| (-(1i128 << 31)..(1 << 31)).contains(v);
+    if m.iter().flatten().all(small) {
+        // Scaled entries are < 2^26: the 2 × 2 minors are exact in i64 (< 2^63), and only the three
+        // outer products need i128. The same integer as the general form below.
+        let [[a, b, c], [d, e, f], [g, h, i]] = m.map(|r| r.map(|v| v as i64));
+        let m1 = i128::from(e * i - f * h);
+        let m2 = i128::from(d * i - f * g);
+        let m3 = i128::from(d * h - e * g);
+        return i128::from(a) * m1 - i128::from(b) * m2 + i128::from(c) * m3;
+    }
     let [[a, b, c], [d, e, f], [g, h, i]] = m;
     a * (e * i - f * h) - b * (d * i - f * g) + c * (d * h - e * g)
 }
@@ -415,14 +445,6 @@ fn minor(m: &Mat, skip_r: usize, skip_c: usize) -> [[i128; 3]; 3] {
     out
 }
 
-fn det4(m: &Mat) -> i128 {
-    let mut det = 0i128;
-    for (c, &v) in m[0].iter().enumerate() {
-        let term = v * det3(minor(m, 0, c));
-        det += if c % 2 == 0 { term } else { -term };
-    }
-    det
-}
 
 /// σ of the centre in px (Q16): `s · sqrt(vref · [M⁻¹]μμ) / A`.
 fn center_sigma(m: &Mat, p: &Params, vref: i64) -> Option<i64> {

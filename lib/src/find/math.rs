@@ -107,6 +107,27 @@ pub fn div_round_i64(num: i64, den: i64) -> i64 {
     div_round_i128(i128::from(num), i128::from(den)) as i64
 }
 
+/// `a · b` in full 64 bits from four 16 × 16-bit products: the Cortex-M0 has only a 32-bit multiply,
+/// and a general 64-bit product (`__aeabi_lmul`) costs three times as many instructions.
+#[inline]
+pub fn mul_u32_wide(a: u32, b: u32) -> u64 {
+    let (a1, a0) = (a >> 16, a & 0xffff);
+    let (b1, b0) = (b >> 16, b & 0xffff);
+    let mid = u64::from(a1 * b0) + u64::from(a0 * b1);
+    (u64::from(a1 * b1) << 32) + (mid << 16) + u64::from(a0 * b0)
+}
+
+/// Signed [`mul_u32_wide`].
+#[inline]
+pub fn mul_i32_wide(a: i32, b: i32) -> i64 {
+    let p = mul_u32_wide(a.unsigned_abs(), b.unsigned_abs()) as i64;
+    if (a < 0) != (b < 0) {
+        -p
+    } else {
+        p
+    }
+}
+
 /// Whether `r > k·σ` for `k_q8` (Q8) and `σ² = var_q8 / 256`, i.e. `r² · 2^16 · 256 > k_q8² · var_q8`,
 /// exactly; in `u64` when the operands allow (the per-pixel case), `u128` otherwise.
 pub fn above_sigmas(r: i64, k_q8: i64, var_q8: i64) -> bool {
@@ -120,8 +141,14 @@ pub fn above_sigmas(r: i64, k_q8: i64, var_q8: i64) -> bool {
     );
     if r < 1 << 20 && k < 1 << 16 {
         // r² · 2^24 < 2^64; k² · v overflowing u64 means it exceeds the left side.
-        let lhs = (r * r) << 24;
-        return match (k * k).checked_mul(v) {
+        let lhs = mul_u32_wide(r as u32, r as u32) << 24;
+        let k2 = (k * k) as u32;
+        let rhs = if v >> 32 == 0 {
+            Some(mul_u32_wide(k2, v as u32))
+        } else {
+            u64::from(k2).checked_mul(v)
+        };
+        return match rhs {
             Some(rhs) => lhs > rhs,
             None => false,
         };
@@ -232,6 +259,20 @@ mod tests {
         // Around the edge: r = 2σ exactly is not above.
         assert!(!above_sigmas(20, 512, 100 * 256));
         assert!(above_sigmas(21, 512, 100 * 256));
+    }
+
+    #[test]
+    fn wide_products_are_exact() {
+        let probes = [0u32, 1, 2, 0xffff, 0x1_0000, 0x1234_5678, 0x8000_0000, u32::MAX - 1, u32::MAX];
+        for &a in &probes {
+            for &b in &probes {
+                assert_eq!(mul_u32_wide(a, b), u64::from(a) * u64::from(b));
+                let (x, y) = (a as i32, b as i32);
+                assert_eq!(mul_i32_wide(x, y), i64::from(x) * i64::from(y), "{x} {y}");
+            }
+        }
+        assert_eq!(mul_i32_wide(i32::MIN, i32::MIN), 1 << 62);
+        assert_eq!(mul_i32_wide(i32::MIN, 1), i64::from(i32::MIN));
     }
 
     #[test]

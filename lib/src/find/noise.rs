@@ -49,7 +49,7 @@ impl NoiseModel {
         let light = level.saturating_sub(self.zero_light_level).max(0);
         // light < 2^31 keeps the product below 2^63 (the per-pixel case; i128 on M0 is a library call).
         let shot = if light < 1 << 31 {
-            (light * i64::from(self.shot_var_per_unit_q16)) >> 8
+            (super::math::mul_u32_wide(light as u32, self.shot_var_per_unit_q16) >> 8) as i64
         } else {
             let wide = (i128::from(light) * i128::from(self.shot_var_per_unit_q16)) >> 8;
             wide.clamp(0, i128::from(i64::MAX)) as i64

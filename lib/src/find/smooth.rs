@@ -83,31 +83,38 @@ pub fn box_symmetric_in_place(half: usize, buf: &mut [i32]) {
 const RING: usize = 128;
 
 /// Division by a fixed small width through a multiply (the Cortex-M0 has no divide instruction and a
-/// library division costs ~100 instructions per pixel and pass). Exact: with `s = 32 + ⌈log2 d⌉` and
-/// `m = ⌈2^s / d⌉ < 2^33`, `⌊a·m / 2^s⌋ = ⌊a / d⌋` for every `a < 2^31` because `m·d − 2^s < d` makes
-/// the error term `a·(m·d − 2^s) / (d·2^s)` smaller than `1/d`; `a·m < 2^64`. Larger `a` divide directly.
+/// library division costs ~100 instructions per pixel and pass). Exact: with `s = 31 + ⌈log2 d⌉` and
+/// `m = ⌈2^s / d⌉ ≤ 2^32 − 1` (d ≥ 2), `⌊a·m / 2^s⌋ = ⌊a / d⌋` for every `a < 2^31`: `m·d − 2^s < d`
+/// makes the error term `a·(m·d − 2^s) / (d·2^s)` smaller than `1/d` because `a < 2^s / d`. Larger `a`
+/// divide directly; d = 1 needs no division.
 #[derive(Clone, Copy)]
 struct Reciprocal {
     den: u32,
-    m: u64,
+    m: u32,
     s: u32,
 }
 
 impl Reciprocal {
     fn new(den: u32) -> Self {
-        let den = den.max(1);
-        let s = 32 + (32 - (den - 1).leading_zeros());
+        let den = den.clamp(1, 1 << 16);
+        let s = 31 + (32 - (den - 1).leading_zeros());
         let m = ((1u64 << s) + u64::from(den) - 1)
             .checked_div(u64::from(den))
             .unwrap_or(0);
-        Self { den, m, s }
+        Self {
+            den,
+            m: u32::try_from(m).unwrap_or(u32::MAX),
+            s,
+        }
     }
 
     /// `num / den` rounded half away from zero (the same integers as a plain rounding division).
     fn div_round(&self, num: i64) -> i64 {
         let a = num.unsigned_abs().saturating_add(u64::from(self.den / 2));
-        let q = if a < 1 << 31 {
-            (a * self.m) >> self.s
+        let q = if self.den == 1 {
+            num.unsigned_abs()
+        } else if a < 1 << 31 {
+            super::math::mul_u32_wide(a as u32, self.m) >> self.s
         } else {
             a.checked_div(u64::from(self.den)).unwrap_or(0)
         };
@@ -169,7 +176,7 @@ mod tests {
                 -((-num + den / 2) / den)
             }
         }
-        for den in 1..=200u32 {
+        for den in (1..=300u32).chain([65_535, 65_536]) {
             let r = Reciprocal::new(den);
             let d = i64::from(den);
             let mut probes = vec![0i64, 1, (1 << 31) - 1, 1 << 31, 1 << 40, i64::MAX / 2];
