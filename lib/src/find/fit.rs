@@ -20,7 +20,7 @@ use crate::condition::flags;
 /// Largest fit half-width (px); with FWHM ≤ 16 px, 2.5 s + 1 < 19 is capped here.
 pub const MAX_HALF: usize = 16;
 /// Gauss–Newton steps at most.
-pub const ITERATIONS: usize = 12;
+pub const ITERATIONS: usize = 6;
 /// Fewest weighted pixels for a 4-parameter fit.
 const MIN_PIXELS: usize = 6;
 
