@@ -12,7 +12,8 @@
 //! weights 10⁴× smaller than the wing weights, and cannot overflow (scaled entries < 2^26).
 
 use super::math::{
-    clamp_i32, clamp_i64, div_round_i128, exp_neg_q16, isqrt_u128, mul_i32_wide, ONE_Q30,
+    clamp_i32, clamp_i64, div_round_i128, exp_neg_q16, isqrt_u128, mul_i32_wide, mul_u32_wide,
+    ONE_Q30,
 };
 use super::noise::NoiseModel;
 use crate::condition::flags;
@@ -41,6 +42,8 @@ pub struct Fit {
     pub hi: usize,
     /// Whether the Gauss–Newton steps settled within [`ITERATIONS`]; otherwise the last step is reported.
     pub converged: bool,
+    /// Gauss–Newton steps taken (≤ [`ITERATIONS`]).
+    pub steps: u8,
 }
 
 /// Data the fit reads: the frame, its baseline, flags and noise model.
@@ -78,6 +81,42 @@ impl FitData<'_> {
     }
 }
 
+/// Marks a pixel of the [`Window`] that gets no weight (saturated or repaired).
+const UNUSABLE: i64 = i64::MIN;
+
+/// The fit window's data, gathered once per fit: the residual after baseline and neighbour profiles
+/// (those are fixed during the fit, and each costs an exponential per pixel) and the baseline.
+struct Window {
+    lo: usize,
+    len: usize,
+    resid: [i64; 2 * MAX_HALF + 1],
+    base: [i64; 2 * MAX_HALF + 1],
+}
+
+impl Window {
+    /// Loop bound: ≤ 2 × [`MAX_HALF`] + 1 pixels.
+    fn new(d: &FitData<'_>, lo: usize, hi: usize) -> Self {
+        let mut w = Window {
+            lo,
+            len: 0,
+            resid: [UNUSABLE; 2 * MAX_HALF + 1],
+            base: [0; 2 * MAX_HALF + 1],
+        };
+        for (k, i) in (lo..=hi).enumerate().take(2 * MAX_HALF + 1) {
+            if let (Some(r), Some(b)) = (w.resid.get_mut(k), w.base.get_mut(k)) {
+                *r = if d.usable(i) {
+                    d.resid(i).max(UNUSABLE + 1)
+                } else {
+                    UNUSABLE
+                };
+                *b = d.base_at(i);
+            }
+            w.len = k + 1;
+        }
+        w
+    }
+}
+
 #[derive(Clone, Copy)]
 struct Params {
     a_q8: i64,
@@ -91,8 +130,15 @@ type Mat = [[i128; 4]; 4];
 /// Fits the line whose highest smoothed pixel is `peak`, starting from σ `s0_q16`; σ is kept within
 /// `s_min_q16 … s_max_q16`.
 ///
-/// Loop bounds: ≤ [`ITERATIONS`] + 1 passes over ≤ 2 × [`MAX_HALF`] + 1 pixels.
-pub fn fit_line(d: &FitData<'_>, peak: usize, s0_q16: i64, s_min_q16: i64, s_max_q16: i64) -> Fit {
+/// Loop bounds: ≤ min(`max_steps`, [`ITERATIONS`]) + 1 passes over ≤ 2 × [`MAX_HALF`] + 1 pixels.
+pub fn fit_line(
+    d: &FitData<'_>,
+    peak: usize,
+    s0_q16: i64,
+    s_min_q16: i64,
+    s_max_q16: i64,
+    max_steps: usize,
+) -> Fit {
     let n = d.frame.len();
     let r0 = d.resid(peak);
     let rl = peak.checked_sub(1).map_or(r0, |j| d.resid(j));
@@ -125,10 +171,13 @@ pub fn fit_line(d: &FitData<'_>, peak: usize, s0_q16: i64, s_min_q16: i64, s_max
         .min()
         .unwrap_or(1)
         .max(1);
+    let win = Window::new(d, lo, hi);
     let mut p = start;
     let mut converged = false;
-    for _ in 0..ITERATIONS {
-        let Some((m, b)) = normal(d, &p, lo, hi, vref) else {
+    let mut steps = 0u8;
+    for _ in 0..max_steps.min(ITERATIONS) {
+        steps += 1;
+        let Some((m, b)) = normal(&win, d.noise, &p, vref) else {
             break;
         };
         let Some(scaled) = Scaled::new(&m) else {
@@ -161,7 +210,7 @@ pub fn fit_line(d: &FitData<'_>, peak: usize, s0_q16: i64, s_min_q16: i64, s_max
             break;
         }
     }
-    let center_sigma_q16 = normal(d, &p, lo, hi, vref)
+    let center_sigma_q16 = normal(&win, d.noise, &p, vref)
         .and_then(|(m, _)| center_sigma(&m, &p, vref))
         .unwrap_or(p.s_q16);
     Fit {
@@ -172,6 +221,7 @@ pub fn fit_line(d: &FitData<'_>, peak: usize, s0_q16: i64, s_min_q16: i64, s_max
         lo,
         hi,
         converged,
+        steps,
     }
 }
 
@@ -183,13 +233,7 @@ pub fn fit_line(d: &FitData<'_>, peak: usize, s0_q16: i64, s_min_q16: i64, s_max
 /// weights, so the centre's rows shrink to a few hundred Q16 steps while the background's stay O(1), and a
 /// gradient rounded to whole steps stops Gauss–Newton short by about one Cramér–Rao σ at SNR 1000.
 /// Magnitudes: w·J·J ≤ 2^60 per pixel, |w·J·e| ≤ 2^70 (e clamped to 2^16 relative), ≤ 33 pixels.
-fn normal(
-    d: &FitData<'_>,
-    p: &Params,
-    lo: usize,
-    hi: usize,
-    vref: i64,
-) -> Option<(Mat, [i128; 4])> {
+fn normal(win: &Window, noise: &NoiseModel, p: &Params, vref: i64) -> Option<(Mat, [i128; 4])> {
     let mut m: Mat = [[0; 4]; 4];
     let mut b = [0i128; 4];
     let mut used = 0usize;
@@ -199,37 +243,50 @@ fn normal(
     // several); only the sums over the window are i128. Bounds (Q30 units): 0 < g ≤ 2^30; |g·u| and
     // |g·u²| peak at 0.61 and 0.74 × 2^30; w ≤ 2^30 (vref ≤ var); so every w·J and w·J·J < 2^60.
     let a64 = i128::from(a);
-    for i in lo..=hi {
-        if !d.usable(i) {
+    // Per-pixel divisions become multiplies by reciprocals taken once per pass (the M0 divides in
+    // software, ~100 instructions each): 1/s in Q24 (s ≥ 2^13 from the FWHM floor of 1 px, so
+    // < 2^27), and 1/a as a 32-bit mantissa `inv_a / 2^(31 + bits(a))`. Relative error < 2^-26.
+    let inv_s_q24 = i32::try_from((1i64 << 40).checked_div(s).unwrap_or(0)).ok();
+    let a_bits = 64 - a.unsigned_abs().leading_zeros();
+    let a_top = a.unsigned_abs() >> a_bits.saturating_sub(31);
+    let top_bits = 64 - a_top.leading_zeros();
+    let inv_a =
+        ((1u64 << (31 + top_bits)).checked_div(a_top).unwrap_or(0)).min(u64::from(u32::MAX)) as u32;
+    for (k, (&resid, &base)) in win.resid.iter().zip(&win.base).take(win.len).enumerate() {
+        if resid == UNUSABLE {
             continue;
         }
-        let u = ((((i as i64) << 16) - p.mu_q16) << 16)
-            .checked_div(s)
-            .unwrap_or(0);
-        let g30 = exp_neg_q16((u.saturating_mul(u)) >> 17);
-        let line_q8 = match a.checked_mul(g30) {
-            Some(v) => i128::from(v >> 30),
-            None => (a64 * i128::from(g30)) >> 30,
+        let i = win.lo + k;
+        let dx = ((i as i64) << 16) - p.mu_q16;
+        let u = match (inv_s_q24, i32::try_from(dx)) {
+            (Some(inv), Ok(dx)) => mul_i32_wide(dx, inv) >> 24,
+            _ => (dx << 16).checked_div(s).unwrap_or(0),
         };
-        // |u| < 2^23 (≤ 16 px at σ ≥ 1/4 px, Q16), so g·u < 2^53 and (g·u >> 16)·u < 2^60.
         let u32w = clamp_i32(u);
+        let g30 = exp_neg_q16(mul_i32_wide(u32w, u32w) >> 17);
+        let line_q8 = match i32::try_from(a) {
+            Ok(a32) => i128::from(mul_i32_wide(a32, clamp_i32(g30)) >> 30),
+            Err(_) => (a64 * i128::from(g30)) >> 30,
+        };
+        // |u| < 2^24 (≤ 33 px at σ ≥ 1/5 px, Q16), so g·u < 2^54 and (g·u >> 16)·u < 2^62.
         let gu = round_shift_i64(mul_i32_wide(clamp_i32(g30), u32w), 16);
         let guu = round_shift_i64(mul_i32_wide(clamp_i32(gu), u32w), 16);
         let model_q8 = line_q8 + i128::from(p.c_q8);
-        let level = d.base_at(i) + (line_q8 >> 8) as i64;
-        let var = d.noise.var_q8(level).max(1);
-        let w = match vref.checked_mul(1 << 30) {
-            Some(num) => num.checked_div(var).unwrap_or(0),
-            None => clamp_i64(
-                (i128::from(vref) << 30)
-                    .checked_div(i128::from(var))
-                    .unwrap_or(0),
-            ),
-        };
-        let e = (i128::from(d.resid(i)) << 8) - model_q8;
-        let e_rel = match i64::try_from(e).ok().and_then(|e| e.checked_mul(1 << 24)) {
-            Some(num) => num.checked_div(a).unwrap_or(0),
-            None => clamp_i64((e << 24).checked_div(a64).unwrap_or(0)),
+        let level = base + (line_q8 >> 8) as i64;
+        let var = noise.var_q8(level).max(1);
+        let w = weight_q30(vref, var);
+        let e = (i128::from(resid) << 8) - model_q8;
+        let e_rel = match i32::try_from(e) {
+            // e / a · 2^24 = e · inv_a / 2^(7 + bits(a)); |e| < 2^31 and inv_a < 2^32 keep it in 64 bits.
+            Ok(e32) => {
+                let q = (mul_u32_wide(e32.unsigned_abs(), inv_a) >> (7 + a_bits).min(63)) as i64;
+                if e32 < 0 {
+                    -q
+                } else {
+                    q
+                }
+            }
+            Err(_) => clamp_i64((e << 24).checked_div(a64).unwrap_or(0)),
         }
         .clamp(-(1 << 40), 1 << 40);
         // Every factor below is within ±2^31 (bounds above), so the 32 × 32 → 64-bit product serves.
@@ -242,12 +299,11 @@ fn normal(
                 *cell += i128::from(mul_i32_wide(wjr, jc));
             }
         }
-        let wj = wj.map(i64::from);
         for (bv, &wjr) in b.iter_mut().zip(&wj) {
-            // |w·J| ≤ 2^30: an i64 product when |e_rel| < 2^32 (all but wild starts).
-            *bv += match wjr.checked_mul(e_rel) {
-                Some(v) => i128::from(v),
-                None => i128::from(wjr) * i128::from(e_rel),
+            // |w·J| ≤ 2^30: a 32 × 32-bit product when |e_rel| < 2^31 (all but wild starts).
+            *bv += match i32::try_from(e_rel) {
+                Ok(e32) => i128::from(mul_i32_wide(wjr, e32)),
+                Err(_) => i128::from(wjr) * i128::from(e_rel),
             };
         }
         used += 1;
@@ -261,6 +317,22 @@ fn normal(
         }
     }
     (used >= MIN_PIXELS).then_some((m, b))
+}
+
+/// Fit weight `vref / var` in Q30 (`0 < vref ≤ var`): a 32-bit division of 16-bit mantissas, good to
+/// 2^-15 relative, which moves the fit by far less than its noise; wide operands divide in `i128`.
+fn weight_q30(vref: i64, var: i64) -> i64 {
+    let var = var.max(1);
+    if let (Ok(v), Ok(r)) = (u32::try_from(var), u32::try_from(vref.max(0))) {
+        let k = (32 - v.leading_zeros()).saturating_sub(16);
+        let (v16, r16) = (v >> k, (r >> k).min(v >> k));
+        return i64::from(((r16 << 15).checked_div(v16.max(1)).unwrap_or(0)) << 15);
+    }
+    clamp_i64(
+        (i128::from(vref) << 30)
+            .checked_div(i128::from(var))
+            .unwrap_or(0),
+    )
 }
 
 /// `v / 2^k` rounded to nearest, ties away from zero, so positive and negative terms err alike.
@@ -371,11 +443,7 @@ impl Scaled {
             }
         }
         let det: i128 = out[0].iter().zip(&cof[0]).map(|(&v, &c)| v * c).sum();
-        (det > 0).then_some(Self {
-            shift,
-            det,
-            cof,
-        })
+        (det > 0).then_some(Self { shift, det, cof })
     }
 
     /// Solves `M x = b` (b in Q54) by Cramer's rule on the scaled matrix; `x` in Q16.
@@ -445,7 +513,6 @@ fn minor(m: &Mat, skip_r: usize, skip_c: usize) -> [[i128; 3]; 3] {
     out
 }
 
-
 /// σ of the centre in px (Q16): `s · sqrt(vref · [M⁻¹]μμ) / A`.
 fn center_sigma(m: &Mat, p: &Params, vref: i64) -> Option<i64> {
     let inv_q32 = Scaled::new(m)?.inv_mu_q32()?;
@@ -504,7 +571,7 @@ mod tests {
             noise: nm,
             neighbours: [None, None],
         };
-        fit_line(&d, peak, sigma0, 1 << 15, 8 << 16)
+        fit_line(&d, peak, sigma0, 1 << 15, 8 << 16, ITERATIONS)
     }
 
     #[test]
@@ -572,7 +639,7 @@ mod tests {
             noise: &nm,
             neighbours: [None, None],
         };
-        let f = fit_line(&d, 60, s, 1 << 15, 8 << 16);
+        let f = fit_line(&d, 60, s, 1 << 15, 8 << 16, ITERATIONS);
         assert!(f.converged);
         assert!(
             (f.center_q16 - c).abs() < 700,

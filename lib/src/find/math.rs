@@ -50,20 +50,22 @@ pub fn exp_neg_q16(x_q16: i64) -> i64 {
         return 0;
     }
     // y = x · log2(e) in Q30; x < 2^21 so the product stays below 2^52.
-    let y_q30 = (x_q16 * LOG2E_Q30) >> 16;
+    // Every factor below is < 2^31, so each product is one 32 × 32 → 64-bit multiply.
+    let m = |a: i64, b: i64| mul_i32_wide(a as i32, b as i32);
+    let y_q30 = m(x_q16, LOG2E_Q30) >> 16;
     let k = y_q30 >> 30;
     let f_q30 = y_q30 & (ONE_Q30 - 1);
     let sixteenth = (f_q30 >> 26) as usize;
     // t = (f − sixteenth/16) · ln 2 in Q30, t < ln 2 / 16.
-    let t = ((f_q30 & ((1 << 26) - 1)) * LN2_Q30) >> 30;
+    let t = m(f_q30 & ((1 << 26) - 1), LN2_Q30) >> 30;
     // Horner: p = 1 − t·(1 − t/2·(1 − t/3·(1 − t/4·(1 − t/5)))).
     let mut p = ONE_Q30;
-    for inv in INV_Q30.iter().rev() {
-        let t_n = (t * inv) >> 30;
-        p = ONE_Q30 - ((t_n * p) >> 30);
+    for &inv in INV_Q30.iter().rev() {
+        let t_n = m(t, inv) >> 30;
+        p = ONE_Q30 - (m(t_n, p) >> 30);
     }
-    p = ONE_Q30 - ((t * p) >> 30);
-    let e = (EXP2_SIXTEENTHS_Q30.get(sixteenth).copied().unwrap_or(0) * p + (1 << 29)) >> 30;
+    p = ONE_Q30 - (m(t, p) >> 30);
+    let e = (m(EXP2_SIXTEENTHS_Q30.get(sixteenth).copied().unwrap_or(0), p) + (1 << 29)) >> 30;
     if k >= 62 {
         0
     } else {
@@ -209,11 +211,11 @@ mod tests {
         let t = (i128::from(x_q16) << 44) / 64; // x/64 in Q60
         let (mut term, mut sum) = (one, one);
         for n in 1..30 {
-            term = -(term * t >> 60) / n;
+            term = -((term * t) >> 60) / n;
             sum += term;
         }
         for _ in 0..6 {
-            sum = sum * sum >> 60;
+            sum = (sum * sum) >> 60;
         }
         ((sum + (1 << 29)) >> 30) as i64
     }
@@ -263,7 +265,17 @@ mod tests {
 
     #[test]
     fn wide_products_are_exact() {
-        let probes = [0u32, 1, 2, 0xffff, 0x1_0000, 0x1234_5678, 0x8000_0000, u32::MAX - 1, u32::MAX];
+        let probes = [
+            0u32,
+            1,
+            2,
+            0xffff,
+            0x1_0000,
+            0x1234_5678,
+            0x8000_0000,
+            u32::MAX - 1,
+            u32::MAX,
+        ];
         for &a in &probes {
             for &b in &probes {
                 assert_eq!(mul_u32_wide(a, b), u64::from(a) * u64::from(b));

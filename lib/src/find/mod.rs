@@ -63,6 +63,13 @@ use math::{isqrt_i64, FWHM_PER_SIGMA_Q16};
 
 /// Shortest frame peak finding accepts (pixels): the noise estimate needs a dozen second differences.
 pub const MIN_PIXELS: usize = 16;
+/// Gauss–Newton steps per frame at full allowance (24 lines × 6 steps): the strongest lines are fitted
+/// first, and once the budget is spent every further fit gets [`MIN_STEPS`]. A typical frame of a dozen
+/// lines takes 50–90 steps and never reaches it; a frame of 64 noise bumps would take ~400 (each fit
+/// runs to the step limit), which is what kept its work above twice a typical frame's.
+pub const STEP_BUDGET: usize = 144;
+/// Gauss–Newton steps every line gets, budget or not (from the 3-pixel parabola and half-width start).
+pub const MIN_STEPS: usize = 2;
 /// `i32` scratch cells needed per frame pixel (baseline and one work row).
 pub const SCRATCH_PER_PIXEL: usize = 2;
 /// Fits narrower than this fraction of `FindConfig::fwhm_min_px_q8` (Q8: 5/8) are dropped as single-pixel
@@ -87,8 +94,9 @@ pub const SPIKE_FWHM_Q8: u32 = 160;
 /// insertion-sort medians of ≤ 64 values per 64-px block and 4 refit rounds over ≤ 64 blocks), a baseline of
 /// 16 rounds (first look) or 4 (second look) of a clip pass and 2 box passes of O(N), and detection O(N) plus ≤ 2 × 4·FWHMmax px of prominence search per local
 /// maximum above threshold; masking ≤ 128 candidates × ≤ 6·FWHMmax px;
-/// thinning ≤ 128² comparisons; ≤ 2 × 64 fits of ≤ 13 Gauss–Newton passes over ≤ 33 px (the second
-/// only for lines with a neighbour in reach, taking ≤ 2 neighbour profiles out); blend marking
+/// thinning ≤ 128² comparisons; ≤ 2 × 64 fits over ≤ 33 px of ≤ 6 Gauss–Newton steps and one final
+/// pass each, ≤ [`STEP_BUDGET`] + 2 × 64 × [`MIN_STEPS`] steps in all (the second fit only for lines with a
+/// neighbour in reach, taking ≤ 2 neighbour profiles out); blend marking
 /// ≤ 64 comparisons; final sort of ≤ 64 peaks (all sorts are insertion sorts without panic paths).
 pub fn find_peaks(
     cfg: &FindConfig,
@@ -169,11 +177,13 @@ pub fn find_peaks(
     };
     // First fits, each line alone, in centre order.
     let mut fits: Vec<(fit::Fit, usize, i64), MAX_PEAKS> = Vec::new();
+    let mut budget = STEP_BUDGET;
     for c in cands.iter() {
         let s0 = half_width_sigma(&data, c.pos, fwhm_max_px)
             .max(s_min)
             .min(s_max);
-        let f = fit::fit_line(&data, c.pos, s0, s_min, s_max);
+        let f = fit::fit_line(&data, c.pos, s0, s_min, s_max, budget.max(MIN_STEPS));
+        budget = budget.saturating_sub(usize::from(f.steps));
         // Capacity: at most MAX_PEAKS candidates remain.
         let _ = fits.push((f, c.pos, s0));
     }
@@ -195,7 +205,8 @@ pub fn find_peaks(
         let next = next.filter(touches);
         if prev.is_some() || next.is_some() {
             data.neighbours = [prev, next];
-            *f = fit::fit_line(&data, *pos, *s0, s_min, s_max);
+            *f = fit::fit_line(&data, *pos, *s0, s_min, s_max, budget.max(MIN_STEPS));
+            budget = budget.saturating_sub(usize::from(f.steps));
         }
     }
     let spike_limit_q16 = u32::from(cfg.fwhm_min_px_q8) * 256 * SPIKE_FWHM_Q8 / 256;

@@ -151,7 +151,7 @@ mod tests {
     #[test]
     fn in_place_box_equals_the_copying_one() {
         let src: Vec<i32> = (0..300)
-            .map(|i| ((i * 7919) % 1013) as i32 - 400 + i * 3)
+            .map(|i: i32| ((i * 7919) % 1013) - 400 + i * 3)
             .collect();
         for half in [0usize, 1, 2, 5, 17, 32, 63, 200] {
             let mut want = vec![0i32; src.len()];
