@@ -20,8 +20,8 @@ const KERNEL_SQ_SUM: i128 = 19;
 pub struct Candidate {
     /// Pixel of the maximum.
     pub pos: usize,
-    /// Smoothed residual there (frame units × 9).
-    pub strength: i64,
+    /// Smoothed residual there (frame units × 9; the smoothed row is `i32`).
+    pub strength: i32,
 }
 
 /// Writes the smoothed residual `Σ k_j (frame − base)[i + j]` (×9) into `out`, replicating edge pixels.
@@ -85,7 +85,13 @@ pub fn find_candidates(
             let floor_r = valley(smooth, end, v, reach, true);
             let prominence = v - floor_l.max(floor_r);
             if above(prominence, cfg.prominence_sigma_q8, noise, level) {
-                dropped |= push_strongest(out, Candidate { pos, strength: v });
+                dropped |= push_strongest(
+                    out,
+                    Candidate {
+                        pos,
+                        strength: v.clamp(i64::from(i32::MIN), i64::from(i32::MAX)) as i32,
+                    },
+                );
             }
         }
         i = end + 1;
@@ -139,17 +145,25 @@ pub fn push_strongest<const N: usize>(list: &mut Vec<Candidate, N>, c: Candidate
 /// Loop bound: candidates² ≤ [`MAX_CANDIDATES`]² (insertion sort, then the pairwise check).
 pub fn thin(list: &mut Vec<Candidate, MAX_CANDIDATES>, min_sep_q8: u16) {
     crate::sort::sort_by_key(list, |c| (core::cmp::Reverse(c.strength), c.pos));
-    let mut kept: Vec<Candidate, MAX_CANDIDATES> = Vec::new();
-    for c in list.iter() {
-        let far = kept
+    // Compacted in place (no second list on the stack): the kept ones are a prefix.
+    let mut kept = 0usize;
+    for idx in 0..list.len() {
+        let Some(c) = list.get(idx).copied() else {
+            break;
+        };
+        let far = list
+            .get(..kept)
+            .unwrap_or(&[])
             .iter()
             .all(|k| (k.pos.abs_diff(c.pos) << 8) >= usize::from(min_sep_q8));
         if far {
-            // Capacity equals the input's, so this cannot fail.
-            let _ = kept.push(*c);
+            if let Some(slot) = list.get_mut(kept) {
+                *slot = c;
+            }
+            kept += 1;
         }
     }
-    *list = kept;
+    list.truncate(kept);
 }
 
 #[cfg(test)]
@@ -229,7 +243,7 @@ mod tests {
                 strength: 1
             }
         ));
-        let mut s: std::vec::Vec<i64> = v.iter().map(|c| c.strength).collect();
+        let mut s: std::vec::Vec<i32> = v.iter().map(|c| c.strength).collect();
         s.sort();
         assert_eq!(s, [7, 9]);
     }

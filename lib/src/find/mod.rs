@@ -188,25 +188,28 @@ pub fn find_peaks(
         let _ = fits.push((f, c.pos, s0));
     }
     crate::sort::sort_by_key(&mut fits, |(f, _, _)| f.center_q16);
-    // Lines whose windows reach a neighbour are fitted again with the neighbours' profiles taken out.
-    // Pushed one by one: `collect` into a heapless Vec panics when full (it cannot be, but the check stays).
-    let mut first: Vec<fit::Fit, MAX_PEAKS> = Vec::new();
-    for (f, _, _) in fits.iter() {
-        let _ = first.push(*f);
-    }
-    for (k, (f, pos, s0)) in fits.iter_mut().enumerate() {
-        let prev = k.checked_sub(1).and_then(|j| first.get(j)).copied();
-        let next = first.get(k + 1).copied();
+    // Lines whose windows reach a neighbour are fitted again with the neighbours' first fits taken out:
+    // the next line's is still in `fits`, the previous line's is kept aside before it is replaced.
+    let mut prev_first: Option<fit::Fit> = None;
+    for k in 0..fits.len() {
+        let Some(&(f, pos, s0)) = fits.get(k) else {
+            break;
+        };
+        let next = fits.get(k + 1).map(|(n, _, _)| *n);
         let touches = |n: &fit::Fit| {
             let reach = ((f.hi - f.lo) as i64) << 15;
             (n.center_q16 - f.center_q16).abs() < reach + 3 * n.sigma_q16
         };
-        let prev = prev.filter(touches);
+        let prev = prev_first.filter(touches);
         let next = next.filter(touches);
+        prev_first = Some(f);
         if prev.is_some() || next.is_some() {
             data.neighbours = [prev, next];
-            *f = fit::fit_line(&data, *pos, *s0, s_min, s_max, budget.max(MIN_STEPS));
-            budget = budget.saturating_sub(usize::from(f.steps));
+            let refit = fit::fit_line(&data, pos, s0, s_min, s_max, budget.max(MIN_STEPS));
+            budget = budget.saturating_sub(usize::from(refit.steps));
+            if let Some(slot) = fits.get_mut(k) {
+                slot.0 = refit;
+            }
         }
     }
     let spike_limit_q16 = u32::from(cfg.fwhm_min_px_q8) * 256 * SPIKE_FWHM_Q8 / 256;
