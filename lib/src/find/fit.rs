@@ -319,14 +319,24 @@ fn normal(win: &Window, noise: &NoiseModel, p: &Params, vref: i64) -> Option<(Ma
     (used >= MIN_PIXELS).then_some((m, b))
 }
 
-/// Fit weight `vref / var` in Q30 (`0 < vref ≤ var`): a 32-bit division of 16-bit mantissas, good to
-/// 2^-15 relative, which moves the fit by far less than its noise; wide operands divide in `i128`.
+/// Fit weight `vref / var` in Q30 (`0 < vref ≤ var`) from a 16-bit reciprocal of `var`'s mantissa: one
+/// 32-bit division, good to 2^-16 relative whatever `vref / var` is (shot noise makes the core's
+/// weights 10⁻⁴ of the wings', and those must keep their digits); wide operands divide in `i128`.
 fn weight_q30(vref: i64, var: i64) -> i64 {
     let var = var.max(1);
     if let (Ok(v), Ok(r)) = (u32::try_from(var), u32::try_from(vref.max(0))) {
-        let k = (32 - v.leading_zeros()).saturating_sub(16);
-        let (v16, r16) = (v >> k, (r >> k).min(v >> k));
-        return i64::from(((r16 << 15).checked_div(v16.max(1)).unwrap_or(0)) << 15);
+        // var = v16 · 2^sh with v16 in [2^15, 2^16); inv ≈ 2^32 / v16 in (2^16, 2^17].
+        let sh = 16 - v.leading_zeros() as i32;
+        let v16 = if sh >= 0 { v >> sh } else { v << -sh };
+        let inv = u32::MAX.checked_div(v16).unwrap_or(0);
+        // vref · inv = vref · 2^(32 + sh) / var, so shifting by sh + 2 leaves vref · 2^30 / var.
+        let p = mul_u32_wide(r, inv);
+        let w = if sh + 2 >= 0 {
+            p >> (sh + 2)
+        } else {
+            p << -(sh + 2)
+        };
+        return i64::try_from(w).unwrap_or(i64::MAX).min(1 << 30);
     }
     clamp_i64(
         (i128::from(vref) << 30)
@@ -572,6 +582,37 @@ mod tests {
             neighbours: [None, None],
         };
         fit_line(&d, peak, sigma0, 1 << 15, 8 << 16, ITERATIONS)
+    }
+
+    #[test]
+    fn weights_keep_their_digits_at_every_ratio() {
+        for var in [
+            1i64,
+            2,
+            3,
+            255,
+            256,
+            65_535,
+            65_536,
+            1 << 20,
+            (1 << 28) + 12_345,
+            u32::MAX as i64,
+        ] {
+            for vref in [1i64, 7, var / 10_000 + 1, var / 3 + 1, var] {
+                let vref = vref.min(var);
+                let exact = ((vref as i128) << 30) / var as i128;
+                let got = weight_q30(vref, var) as i128;
+                // 2^-15 relative, plus one step for the truncations.
+                assert!(
+                    (got - exact).abs() <= exact / 32_768 + 1,
+                    "{vref}/{var}: {got} vs {exact}"
+                );
+            }
+        }
+        assert_eq!(
+            weight_q30(5, 1 << 40),
+            ((5i128 << 30) / (1i128 << 40)) as i64
+        );
     }
 
     #[test]
