@@ -7,7 +7,9 @@
 //! smooths again, so lines drop out within a few rounds while the continuum stays.
 
 use super::noise::NoiseModel;
-use super::smooth::{box_symmetric, box_symmetric_in_place};
+use super::smooth::{
+    box_narrow, box_narrow_in_place, box_symmetric, box_symmetric_in_place, narrow_limit,
+};
 use crate::condition::flags;
 
 /// Clipping level above the baseline, in noise σ.
@@ -26,6 +28,24 @@ pub const ROUNDS_WARM: usize = 4;
 /// `half` is the box half-width (px, ≤ 63). Loop bound: (1 + [`ROUNDS`]) × (one clip pass + 2 box
 /// passes) of O(N).
 pub fn estimate_baseline(
+    frame: &[i32],
+    flag: &[u8],
+    noise: &NoiseModel,
+    half: usize,
+    warm: bool,
+    base: &mut [i32],
+    tmp: &mut [i32],
+) {
+    let limit = narrow_limit(half);
+    if frame.iter().all(|&v| i64::from(v).abs() <= limit) {
+        baseline_narrow(frame, flag, noise, half, warm, base, tmp);
+    } else {
+        baseline_wide(frame, flag, noise, half, warm, base, tmp);
+    }
+}
+
+/// [`estimate_baseline`] in `i64` for any frame.
+fn baseline_wide(
     frame: &[i32],
     flag: &[u8],
     noise: &NoiseModel,
@@ -57,10 +77,54 @@ pub fn estimate_baseline(
     }
 }
 
+/// [`estimate_baseline`] for frames within ±[`narrow_limit`] (every ADC frame of ≤ 16 bits, Q4, times a
+/// few hundred co-adds): `i32` box sums and a 32-bit clip test; the same integers as the wide path.
+fn baseline_narrow(
+    frame: &[i32],
+    flag: &[u8],
+    noise: &NoiseModel,
+    half: usize,
+    warm: bool,
+    base: &mut [i32],
+    tmp: &mut [i32],
+) {
+    let rounds = if warm {
+        ROUNDS_WARM
+    } else {
+        box_narrow(half, frame, base);
+        box_narrow_in_place(half, base);
+        ROUNDS
+    };
+    for _ in 0..rounds {
+        for (((t, &y), &b), &f) in tmp.iter_mut().zip(frame).zip(base.iter()).zip(flag) {
+            // r > 2σ ⟺ 64·r² > var_q8 (σ² = var_q8 / 256); |r| < 2^31 under the narrow limit.
+            let r = i64::from(y) - i64::from(b);
+            let high = r > 0 && {
+                let var = noise.var_q8(i64::from(b));
+                let r = r as u32;
+                if r < 1 << 12 {
+                    i64::from((r * r) << 6) > var
+                } else {
+                    // ≥ 2^30 on the left; r < 2^29 keeps 64·r² below 2^64.
+                    r >= 1 << 29
+                        || (super::math::mul_u32_wide(r, r) << 6) > var.max(0).unsigned_abs()
+                }
+            };
+            *t = if flags::is_untrusted(f) || high { b } else { y };
+        }
+        box_narrow(half, tmp, base);
+        box_narrow_in_place(half, base);
+    }
+}
+
+// The narrow clip test is written for 2 σ.
+const _: () = assert!(CLIP_SIGMA == 2);
+
 #[cfg(test)]
 mod tests {
     use super::super::testkit::{pixel_gauss, Rng};
     use super::*;
+    use crate::condition::flags;
 
     fn model(sd: i64) -> NoiseModel {
         NoiseModel {
@@ -68,6 +132,43 @@ mod tests {
             zero_light_level: 0,
             shot_var_per_unit_q16: 0,
             shot_from_data: false,
+        }
+    }
+
+    /// The narrow path gives the wide path's integers.
+    #[test]
+    fn narrow_and_wide_paths_agree() {
+        let mut rng = Rng::new(9);
+        let n = 900;
+        for (sd, kappa) in [(3i64, 0u32), (40, 1 << 16), (200, 5 << 16)] {
+            let frame: Vec<i32> = (0..n as i64)
+                .map(|i| {
+                    (3000
+                        + 2 * i
+                        + pixel_gauss(i, 40_000, 300 << 16, 150_000)
+                        + pixel_gauss(i, 9_000, 610 << 16, 90_000)
+                        + rng.gauss(sd << 16)) as i32
+                })
+                .collect();
+            let mut fl = vec![0u8; n];
+            fl[450] = flags::SATURATED;
+            let nm = NoiseModel {
+                floor_var_q8: sd * sd * 256,
+                zero_light_level: 100,
+                shot_var_per_unit_q16: kappa,
+                shot_from_data: false,
+            };
+            for warm in [false, true] {
+                let (mut b1, mut t1) = (vec![0i32; n], vec![0i32; n]);
+                let (mut b2, mut t2) = (vec![0i32; n], vec![0i32; n]);
+                if warm {
+                    b1.fill(3500);
+                    b2.fill(3500);
+                }
+                baseline_narrow(&frame, &fl, &nm, 20, warm, &mut b1, &mut t1);
+                baseline_wide(&frame, &fl, &nm, 20, warm, &mut b2, &mut t2);
+                assert_eq!(b1, b2, "sd {sd} warm {warm}");
+            }
         }
     }
 

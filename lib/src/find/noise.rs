@@ -45,6 +45,7 @@ pub struct NoiseModel {
 
 impl NoiseModel {
     /// Variance at a signal level (frame units), Q8.
+    #[inline]
     pub fn var_q8(&self, level: i64) -> i64 {
         let light = level.saturating_sub(self.zero_light_level).max(0);
         // light < 2^31 keeps the product below 2^63 (the per-pixel case; i128 on M0 is a library call).

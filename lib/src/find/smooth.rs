@@ -79,6 +79,76 @@ pub fn box_symmetric_in_place(half: usize, buf: &mut [i32]) {
     }
 }
 
+/// Largest `max |v|` for which [`box_narrow`] and [`box_narrow_in_place`] may be used with `half`:
+/// every window sum plus the rounding half-width stays below 2^31, so `i32` sums and the reciprocal's
+/// 32-bit path serve (the integers are the same as [`box_symmetric`]'s).
+pub fn narrow_limit(half: usize) -> i64 {
+    let width = i64::try_from(2 * half + 1).unwrap_or(i64::MAX).max(1);
+    ((1i64 << 31) - 1 - width) / width
+}
+
+/// [`box_symmetric`] over a slice whose values are within ±[`narrow_limit`]: `i32` sums, one 32 × 32-bit
+/// product per pixel. Loop bound: 2 × `dst.len()`.
+pub fn box_narrow(half: usize, src: &[i32], dst: &mut [i32]) {
+    let n = dst.len();
+    if n == 0 {
+        return;
+    }
+    let at = |j: usize| src.get(j).copied().unwrap_or(0);
+    let (mut lo, mut hi) = (0usize, 0usize);
+    let mut sum: i32 = at(0);
+    let mut recip = Reciprocal::new(1);
+    for (i, d) in dst.iter_mut().enumerate() {
+        let h = half.min(i).min(n - 1 - i);
+        while hi < i + h {
+            hi += 1;
+            sum = sum.wrapping_add(at(hi));
+        }
+        while lo < i - h {
+            sum = sum.wrapping_sub(at(lo));
+            lo += 1;
+        }
+        let width = (2 * h + 1) as u32;
+        if recip.den != width {
+            recip = Reciprocal::new(width);
+        }
+        *d = recip.div_round_narrow(sum);
+    }
+}
+
+/// [`box_symmetric_in_place`] under the same condition as [`box_narrow`]. Loop bound: 2 × `buf.len()`.
+pub fn box_narrow_in_place(half: usize, buf: &mut [i32]) {
+    let n = buf.len();
+    if n == 0 {
+        return;
+    }
+    let half = half.min(RING / 2 - 1);
+    let mut ring = [0i32; RING];
+    let (mut lo, mut hi) = (0usize, 0usize);
+    let mut sum: i32 = buf.first().copied().unwrap_or(0);
+    let mut recip = Reciprocal::new(1);
+    for i in 0..n {
+        let h = half.min(i).min(n - 1 - i);
+        while hi < i + h {
+            hi += 1;
+            sum = sum.wrapping_add(buf.get(hi).copied().unwrap_or(0));
+        }
+        while lo < i - h {
+            sum = sum.wrapping_sub(ring.get(lo % RING).copied().unwrap_or(0));
+            lo += 1;
+        }
+        let width = (2 * h + 1) as u32;
+        if recip.den != width {
+            recip = Reciprocal::new(width);
+        }
+        let mean = recip.div_round_narrow(sum);
+        if let (Some(slot), Some(cell)) = (ring.get_mut(i % RING), buf.get_mut(i)) {
+            *slot = *cell;
+            *cell = mean;
+        }
+    }
+}
+
 /// Originals [`box_symmetric_in_place`] keeps (a power of two).
 const RING: usize = 128;
 
@@ -95,6 +165,24 @@ struct Reciprocal {
 }
 
 impl Reciprocal {
+    /// [`Reciprocal::div_round`] for sums with `|sum| + den/2 < 2^31` (callers check [`narrow_limit`]).
+    #[inline(always)]
+    fn div_round_narrow(&self, sum: i32) -> i32 {
+        let a = sum.unsigned_abs().wrapping_add(self.den / 2);
+        let q = if self.den == 1 {
+            sum.unsigned_abs()
+        } else {
+            let hi = (super::math::mul_u32_wide(a, self.m) >> 32) as u32;
+            hi >> (self.s - 32)
+        };
+        let q = q as i32;
+        if sum < 0 {
+            -q
+        } else {
+            q
+        }
+    }
+
     fn new(den: u32) -> Self {
         let den = den.clamp(1, 1 << 16);
         let s = 31 + (32 - (den - 1).leading_zeros());
@@ -114,7 +202,10 @@ impl Reciprocal {
         let q = if self.den == 1 {
             num.unsigned_abs()
         } else if a < 1 << 31 {
-            super::math::mul_u32_wide(a as u32, self.m) >> self.s
+            // s ≥ 32 for den ≥ 2: take the high word, then a 32-bit shift (a variable 64-bit shift is
+            // a library call on the M0).
+            let hi = (super::math::mul_u32_wide(a as u32, self.m) >> 32) as u32;
+            u64::from(hi >> (self.s - 32))
         } else {
             a.checked_div(u64::from(self.den)).unwrap_or(0)
         };
@@ -163,6 +254,37 @@ mod tests {
         let mut one = [9i32];
         box_symmetric_in_place(4, &mut one);
         assert_eq!(one, [9]);
+    }
+
+    #[test]
+    fn narrow_boxes_equal_the_wide_ones() {
+        let mut x = 0x2545_f491u32;
+        for (half, amp) in [
+            (0usize, 1000i64),
+            (3, 1 << 20),
+            (10, 1 << 24),
+            (32, narrow_limit(32)),
+            (63, narrow_limit(63)),
+        ] {
+            let src: Vec<i32> = (0..700)
+                .map(|_| {
+                    x ^= x << 13;
+                    x ^= x >> 17;
+                    x ^= x << 5;
+                    ((i64::from(x) % (2 * amp + 1)) - amp) as i32
+                })
+                .collect();
+            let mut want = vec![0i32; src.len()];
+            box_symmetric(half, |j| i64::from(src[j]), &mut want);
+            let mut got = vec![0i32; src.len()];
+            box_narrow(half, &src, &mut got);
+            assert_eq!(got, want, "half {half}");
+            let mut inplace = src.clone();
+            box_narrow_in_place(half, &mut inplace);
+            let mut wide_inplace = src.clone();
+            box_symmetric_in_place(half, &mut wide_inplace);
+            assert_eq!(inplace, wide_inplace, "in place, half {half}");
+        }
     }
 
     /// The multiply path gives exactly the rounding division, around every rounding edge and both
