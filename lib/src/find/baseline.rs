@@ -25,8 +25,9 @@ pub const ROUNDS_WARM: usize = 4;
 ///
 /// With `warm`, `base` already holds a baseline of this frame and only [`ROUNDS_WARM`] rounds run.
 /// Untrusted pixels (saturated, repaired) are always replaced by the baseline after the first round.
-/// `half` is the box half-width (px, ≤ 63). Loop bound: (1 + [`ROUNDS`]) × (one clip pass + 2 box
-/// passes) of O(N).
+/// `half` is the box half-width (px, ≤ 63). Loop bound: one O(N) range check, then ≤ [`ROUNDS`] × (one
+/// clip pass + 2 box passes) + 2 box passes of O(N), N = `base.len()` (not capped here;
+/// [`find_peaks`](super::find_peaks) keeps it ≤ MAX_PIXELS).
 pub fn estimate_baseline(
     frame: &[i32],
     flag: &[u8],

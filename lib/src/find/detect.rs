@@ -56,7 +56,9 @@ fn above(v: i64, k_q8: u16, noise: &NoiseModel, level: i64) -> bool {
 ///
 /// Prominence is the height above the higher of the two lowest points reached on each side before the
 /// smoothed residual rises above the candidate (searched up to `reach` px).
-/// Loop bounds: one pass over the pixels, ≤ 2 × `reach` steps per local maximum above threshold.
+/// Loop bounds: one pass over the N = `smooth.len()` pixels (plateau scans included), ≤ 2 × min(`reach`, N)
+/// steps per local maximum above threshold, and ≤ [`MAX_CANDIDATES`] steps for each candidate that
+/// arrives when `out` is full.
 pub fn find_candidates(
     smooth: &[i32],
     base: &[i32],
@@ -121,6 +123,8 @@ fn valley(smooth: &[i32], from: usize, peak: i64, reach: usize, rightward: bool)
 }
 
 /// Pushes `c`, or replaces the weakest entry when full and `c` is stronger; returns whether one was lost.
+///
+/// Loop bound: one scan of the ≤ N entries, only when the list is full.
 pub fn push_strongest<const N: usize>(list: &mut Vec<Candidate, N>, c: Candidate) -> bool {
     if list.push(c).is_ok() {
         return false;

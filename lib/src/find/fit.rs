@@ -130,7 +130,9 @@ type Mat = [[i128; 4]; 4];
 /// Fits the line whose highest smoothed pixel is `peak`, starting from σ `s0_q16`; σ is kept within
 /// `s_min_q16 … s_max_q16`.
 ///
-/// Loop bounds: ≤ min(`max_steps`, [`ITERATIONS`]) + 1 passes over ≤ 2 × [`MAX_HALF`] + 1 pixels.
+/// Loop bounds: ≤ min(`max_steps`, [`ITERATIONS`]) + 2 passes (Gauss–Newton steps, the covariance
+/// pass, the weight-reference pass) over ≤ 2 × [`MAX_HALF`] + 1 pixels, plus one gathering pass taking
+/// ≤ 2 neighbour profiles out of each pixel.
 pub fn fit_line(
     d: &FitData<'_>,
     peak: usize,
@@ -142,7 +144,11 @@ pub fn fit_line(
     let n = d.frame.len();
     let r0 = d.resid(peak);
     let rl = peak.checked_sub(1).map_or(r0, |j| d.resid(j));
-    let rr = if peak + 1 < n { d.resid(peak + 1) } else { r0 };
+    let rr = if peak.saturating_add(1) < n {
+        d.resid(peak + 1)
+    } else {
+        r0
+    };
     // Parabola through three pixels: δ = (rl − rr) / (2 (rl − 2 r0 + rr)), within ±0.5 px.
     let den = rl - 2 * r0 + rr;
     let delta_q16 = if den < 0 {
@@ -158,7 +164,7 @@ pub fn fit_line(
     let s0 = s0_q16.max(s_min_q16).min(s_max_q16).max(1 << 14);
     let half = ((5 * s0) >> 17).saturating_add(2).clamp(2, MAX_HALF as i64) as usize;
     let lo = peak.saturating_sub(half);
-    let hi = (peak + half).min(n.saturating_sub(1));
+    let hi = peak.saturating_add(half).min(n.saturating_sub(1));
     let start = Params {
         a_q8: (r0 << 8).max(256),
         mu_q16: ((peak as i64) << 16) + delta_q16,

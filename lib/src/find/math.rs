@@ -76,6 +76,8 @@ pub fn exp_neg_q16(x_q16: i64) -> i64 {
 pub use crate::fixed::isqrt_u128;
 
 /// Floor of the square root of a non-negative `i64` (negative inputs give 0).
+///
+/// Loop bound: ≤ 64 steps ([`isqrt_u128`]).
 pub fn isqrt_i64(v: i64) -> i64 {
     if v <= 0 {
         0
@@ -90,7 +92,7 @@ pub fn div_round_i128(num: i128, den: i128) -> i128 {
         return 0;
     }
     let (num, den) = if den < 0 {
-        (num.saturating_neg(), -den)
+        (num.saturating_neg(), den.wrapping_neg())
     } else {
         (num, den)
     };

@@ -90,14 +90,17 @@ pub const SPIKE_FWHM_Q8: u32 = 160;
 /// On return (also `Ok` with no peaks) the first `frame.len()` cells of `scratch` hold the baseline the
 /// peaks stand on (frame units), for callers that need the continuum; the rest is work space.
 ///
-/// Loop bounds, with N = `frame.len()` ≤ [`MAX_PIXELS`]: two looks, each a noise estimate O(N) (two
-/// insertion-sort medians of ≤ 64 values per 64-px block and 4 refit rounds over ≤ 64 blocks), a baseline of
-/// 16 rounds (first look) or 4 (second look) of a clip pass and 2 box passes of O(N), and detection O(N) plus ≤ 2 × 4·FWHMmax px of prominence search per local
-/// maximum above threshold; masking ≤ 128 candidates × ≤ 6·FWHMmax px;
-/// thinning ≤ 128² comparisons; ≤ 2 × 64 fits over ≤ 33 px of ≤ 6 Gauss–Newton steps and one final
-/// pass each, ≤ [`STEP_BUDGET`] + 2 × 64 × [`MIN_STEPS`] steps in all (the second fit only for lines with a
-/// neighbour in reach, taking ≤ 2 neighbour profiles out); blend marking
-/// ≤ 64 comparisons; final sort of ≤ 64 peaks (all sorts are insertion sorts without panic paths).
+/// Loop bounds, with N = `frame.len()` ≤ [`MAX_PIXELS`] and W = FWHMmax ≤ 16 px: two noise estimates
+/// O(N) (see [`noise::estimate`]); baselines of 16 rounds (first look) and 4 rounds (second look),
+/// each a clip pass and 2 box passes of O(N), plus 2 box passes once; two detections of O(N) plus
+/// ≤ 2 × 4W px of prominence search per local maximum above threshold and ≤ 128 steps per candidate
+/// arriving at a full list; masking ≤ 128 candidates × (≤ 2W + 6W + 1 px); thinning ≤ 128²
+/// comparisons; ≤ 2 × 64 fits over ≤ 33 px, each ≤ 6 Gauss–Newton steps plus a weight and a
+/// covariance pass, ≤ [`STEP_BUDGET`] + 2 × 64 × [`MIN_STEPS`] steps in all (the first fits after a
+/// ≤ 2W px width search, the second only for lines with a neighbour in reach, taking ≤ 2 neighbour
+/// profiles out); ≤ 64 × 33 px saturation checks; blend marking ≤ 64 comparisons; one O(N) count of
+/// untrusted pixels; insertion sorts of ≤ 64 fits, ≤ 64 peaks and ≤ 256 baseline samples (≤ 32 640
+/// steps, the largest). All sorts are insertion sorts without panic paths.
 pub fn find_peaks(
     cfg: &FindConfig,
     frame: &[i32],

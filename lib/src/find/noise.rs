@@ -59,6 +59,8 @@ impl NoiseModel {
     }
 
     /// Noise σ at a signal level (frame units, rounded down, ≥ 0).
+    ///
+    /// Work: one square root (≤ 64 steps).
     pub fn sigma(&self, level: i64) -> i64 {
         isqrt_i64(self.var_q8(level) >> 8)
     }
@@ -75,8 +77,9 @@ struct Block {
 ///
 /// `known_shot_q16` fixes κ; otherwise it is fitted and kept ≥ 0. When the block levels span too little
 /// to tell shot from read noise, κ is 0 and the floor absorbs the continuum's shot noise.
-/// Loop bounds: one pass over the pixels, two insertion-sort medians (≤ 64² steps) per block,
-/// [`FIT_ROUNDS`] × blocks.
+/// Loop bounds: N = min(`frame.len()`, [`MAX_PIXELS`]) pixels in ≤ 64 blocks, each with two passes over
+/// ≤ 64 values and two insertion-sort medians (≤ 2 016 steps each); then [`FIT_ROUNDS`] × 2 passes over
+/// the blocks and ≤ 2 + [`FIT_ROUNDS`] insertion-sort medians of ≤ 64 block variances.
 pub fn estimate(
     frame: &[i32],
     flag: &[u8],
