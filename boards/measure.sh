@@ -105,7 +105,7 @@ for t in $targets; do
             if (e > per + 64) { printf "measure.sh: %s: %s: plugin %d instructions, SysTick %d x %d = %d\n", target, key, d, ticks, per, s > "/dev/stderr"; bad = 1 }
             return d
         }
-        FNR == NR { if ($1 == "marker") count[$2] = $3; else if ($1 == "total") { plugin = 1; hits_seen = $3 } next }
+        FILENAME == ARGV[1] { if ($1 == "marker") count[$2] = $3; else if ($1 == "total") { plugin = 1; hits_seen = $3 } next }
         /^ticks / { tk = $0 } /^stack_bytes / { st = $0 } /^hits / { hl = $0 }
         /^typical / { ref_t[$3] = kv($0, "ticks"); ref_a[$3] = kv($0, "hits"); ref_b[$3] = kv2($0, "hits") }
         /^adversary / { na++; an[na] = $2; am[na] = $3; ap[na] = kv($0, "pixels"); at[na] = kv($0, "ticks"); aa[na] = kv($0, "hits"); ab[na] = kv2($0, "hits"); ar[na] = kv($0, "result") }
