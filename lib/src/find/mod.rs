@@ -494,6 +494,17 @@ mod tests {
     }
 
     #[test]
+    fn centroid_near_crlb_when_the_core_dominates_the_noise() {
+        // A bright narrow line on a dark background, like the bench's SNR-1000 cells: height 4·10⁵ units
+        // of shot noise (κ = 1) over a read floor of 2 units, so the core pixels' variance is ~10⁵ ×
+        // the wings' and their fit weights must keep their digits (a 16-bit weight quotient once gave
+        // 14–79 × CRLB). "SNR" here is relative to the floor: the peak's own SNR is ~630.
+        for fwhm_q8 in [512, 640, 1536] {
+            check_centroid(fwhm_q8, 200_000, 2, 1 << 16, 0, 300 + fwhm_q8 as u64);
+        }
+    }
+
+    #[test]
     fn weak_lines_are_found() {
         // ≥ 99 % of SNR-8 lines, FWHM 2.5–8 px, at random sub-pixel positions.
         let mut rng = Rng::new(5);
