@@ -86,8 +86,10 @@ where
     }
 
     /// Reads one frame of [`ArrayTiming::pixels`] samples into `frame` (ADC counts, pixel 0 first),
-    /// each pixel exposed for the configured integration time; see the module's state machine. Takes
-    /// two scans and the wait between them.
+    /// each pixel exposed for the configured integration time; see the module's state machine.
+    ///
+    /// Loop bound: two scans of `pixels` (≤ [`MAX_ARRAY_PIXELS`](super::MAX_ARRAY_PIXELS)) +
+    /// `trailing_clocks` (≤ 65 535) clock cycles each; wall time is one exposure plus one scan.
     pub fn read_frame(&mut self, frame: &mut [u16]) -> Result<(), ReadError> {
         if frame.len() != usize::from(self.timing.pixels()) {
             return Err(ReadError::FrameLength);
