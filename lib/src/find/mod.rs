@@ -99,8 +99,8 @@ pub const SPIKE_FWHM_Q8: u32 = 160;
 /// covariance pass, ≤ [`STEP_BUDGET`] + 2 × 64 × [`MIN_STEPS`] steps in all (the first fits after a
 /// ≤ 2W px width search, the second only for lines with a neighbour in reach, taking ≤ 2 neighbour
 /// profiles out); ≤ 64 × 33 px saturation checks; blend marking ≤ 64 comparisons; one O(N) count of
-/// untrusted pixels; insertion sorts of ≤ 64 fits, ≤ 64 peaks and ≤ 256 baseline samples (≤ 32 640
-/// steps, the largest). All sorts are insertion sorts without panic paths.
+/// untrusted pixels; insertion sorts of ≤ 64 fits and ≤ 64 peaks and a selection median of ≤ 256
+/// baseline samples (≤ 256² steps, ~800 typical), all without panic paths.
 pub fn find_peaks(
     cfg: &FindConfig,
     frame: &[i32],
@@ -264,7 +264,7 @@ fn sigma_q8(var_q8: i64) -> u32 {
 }
 
 /// Baseline level at the middle of the sorted baseline samples (every 16th pixel, ≤ 256 samples;
-/// insertion sort, ≤ 256² steps).
+/// a selection, ≤ 256² steps).
 fn median_of_base(base: &[i32]) -> i64 {
     let mut v = [0i32; MAX_PIXELS / 16];
     let mut k = 0usize;
@@ -273,8 +273,7 @@ fn median_of_base(base: &[i32]) -> i64 {
         k += 1;
     }
     let s = v.get_mut(..k).unwrap_or(&mut []);
-    crate::sort::sort_by_key(s, |v| *v);
-    i64::from(s.get(k / 2).copied().unwrap_or(0))
+    i64::from(math::select_kth(s, k / 2).unwrap_or(0))
 }
 
 /// σ (Q16 px) from the half-maximum width of the residual around `pos`, searched ≤ `max_px` each way.

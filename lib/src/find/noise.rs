@@ -85,8 +85,8 @@ struct Block {
 /// `known_shot_q16` fixes κ; otherwise it is fitted and kept ≥ 0. When the block levels span too little
 /// to tell shot from read noise, κ is 0 and the floor absorbs the continuum's shot noise.
 /// Loop bounds: N = min(`frame.len()`, [`MAX_PIXELS`]) pixels in ≤ 64 blocks, each with two passes over
-/// ≤ 64 values and two insertion-sort medians (≤ 2 016 steps each); then [`FIT_ROUNDS`] × 2 passes over
-/// the blocks and ≤ 2 + [`FIT_ROUNDS`] insertion-sort medians of ≤ 64 block variances.
+/// ≤ 64 values and two selection medians (≤ 64² steps each, ~200 typical); then [`FIT_ROUNDS`] × 2
+/// passes over the blocks and ≤ 2 + [`FIT_ROUNDS`] selection medians of ≤ 64 block variances.
 pub fn estimate(
     frame: &[i32],
     flag: &[u8],
@@ -174,11 +174,10 @@ fn block_stats(frame: &[i32], flag: &[u8], mask: &LineMask, start: usize, end: u
     }
 }
 
-/// Upper median; sorts `v` (insertion sort, ≤ 64² steps: core's select keeps a panic path).
+/// Upper median; reorders `v` ([`select_kth`](super::math::select_kth): core's select keeps a panic path).
 #[inline(never)]
 fn median(v: &mut [i64]) -> i64 {
-    crate::sort::sort_by_key(v, |x| *x);
-    v.get(v.len() / 2).copied().unwrap_or(0)
+    super::math::select_kth(v, v.len() / 2).unwrap_or(0)
 }
 
 #[inline(never)]
