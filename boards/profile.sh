@@ -20,10 +20,13 @@ python3 - "$elf" "$out/samples.bin" "$top" "${2:-}" <<'PY'
 import collections, re, struct, subprocess, sys
 elf, path, top = sys.argv[1], sys.argv[2], int(sys.argv[3])
 data = open(path, "rb").read()
-words = struct.unpack("<%dI" % (len(data) // 4), data)
+flat = struct.unpack("<%dI" % (len(data) // 4), data)
+# Pairs: (stage << 24 | PC, LR). A sample in a leaf routine outside lib (a compiler-builtins call such as
+# __aeabi_lmul) is charged to "routine <- lib line of its caller", found from LR.
+words, callers = flat[0::2], flat[1::2]
 stages = {0: "Checker::new (x2: verify and calibrate checkers)", 2: "condition_frame", 4: "find_peaks",
           6: "check (calibrate)", 8: "check (verify)", 10: "f32 baseline", 12: "calibration loop"}
-pcs = sorted({w & 0xFFFFFF for w in words})
+pcs = sorted({w & 0xFFFFFF for w in words} | {max((c & 0xFFFFFE) - 2, 0) for c in callers})
 res = subprocess.run(["llvm-addr2line", "-e", elf, "-a", "-i", "-f", "-C"],
                      input="\n".join(hex(p) for p in pcs), capture_output=True, text=True).stdout
 where, cur, frames = {}, None, []
@@ -38,8 +41,13 @@ for line in res.splitlines() + ["0x0"]:
     else:
         frames.append(line)
 by = collections.defaultdict(collections.Counter)
-for w in words:
-    by[w >> 24][where.get(w & 0xFFFFFF, "?")] += 1
+for w, c in zip(words, callers):
+    name = where.get(w & 0xFFFFFF, "?")
+    if name.startswith("outside lib"):
+        site = where.get(max((c & 0xFFFFFE) - 2, 0), "?")
+        if not site.startswith("outside lib"):
+            name = f"{name} <- {site}"
+    by[w >> 24][name] += 1
 names = ["noise-at-max-gain", "spike-comb-1000-4096px", "spike-every-other-px", "all-saturated", "all-zero",
          "16px", "1px", "4096px", "staircase", "alternating-extremes", "204-narrow-lines", "single-lit-pixel",
          "dark-above-signal", "saturated-dark-max-gain", "random-walk", "typical h-tube"]

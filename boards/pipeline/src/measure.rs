@@ -71,7 +71,8 @@ static STAGE: AtomicU32 = AtomicU32::new(0);
 /// Samples taken so far.
 #[cfg(feature = "profile")]
 static SAMPLED: AtomicU32 = AtomicU32::new(0);
-/// Room for the samples (stage << 24 | PC): 2 MiB of the 4 MiB RAM map, 21 G instructions.
+/// Room for the samples, two words each (stage << 24 | PC, then LR): 2 MiB of the 4 MiB RAM map,
+/// 10 G instructions.
 #[cfg(feature = "profile")]
 const MAX_SAMPLES: usize = 1 << 19;
 /// The samples.
@@ -99,13 +100,16 @@ core::arch::global_asm!(
 extern "C" fn glowcheck_profile_sample(frame: *const u32) {
     // SAFETY: `frame` is the hardware-stacked exception frame (8 words) the trampoline passed in.
     let pc = unsafe { ptr::read_volatile(frame.add(6)) };
+    // SAFETY: as above; word 5 is the interrupted code's LR (its caller, when it is a leaf routine).
+    let lr = unsafe { ptr::read_volatile(frame.add(5)) };
     let n = SAMPLED.load(Ordering::Relaxed) as usize;
-    if let Some(slot) = SAMPLES.get(n) {
+    if let (Some(slot), Some(caller)) = (SAMPLES.get(n), SAMPLES.get(n + 1)) {
         slot.store(
             (STAGE.load(Ordering::Relaxed) << 24) | (pc & 0x00ff_ffff),
             Ordering::Relaxed,
         );
-        SAMPLED.store(n as u32 + 1, Ordering::Relaxed);
+        caller.store(lr, Ordering::Relaxed);
+        SAMPLED.store(n as u32 + 2, Ordering::Relaxed);
     }
 }
 
