@@ -12,8 +12,8 @@
 //! weights 10⁴× smaller than the wing weights, and cannot overflow (scaled entries < 2^26).
 
 use super::math::{
-    clamp_i32, clamp_i64, div_round_i128, exp_neg_q16, isqrt_u128, mul_i32_wide, mul_u32_wide,
-    ONE_Q30,
+    clamp_i32, clamp_i64, div_round_i128, exp_neg_q16, isqrt_u128, mul_i32_i64, mul_i32_wide,
+    mul_u32_wide, ONE_Q30,
 };
 use super::noise::NoiseModel;
 use crate::condition::flags;
@@ -509,11 +509,13 @@ fn det3(m: [[i128; 3]; 3]) -> i128 {
     if m.iter().flatten().all(small) {
         // Scaled entries are < 2^26: the 2 × 2 minors are exact in i64 (< 2^63), and only the three
         // outer products need i128. The same integer as the general form below.
-        let [[a, b, c], [d, e, f], [g, h, i]] = m.map(|r| r.map(|v| v as i64));
-        let m1 = i128::from(e * i - f * h);
-        let m2 = i128::from(d * i - f * g);
-        let m3 = i128::from(d * h - e * g);
-        return i128::from(a) * m1 - i128::from(b) * m2 + i128::from(c) * m3;
+        // 32 × 32 → 64 and 32 × 64 → 96-bit products from 32-bit multiplies (the M0 has no wider one).
+        let [[a, b, c], [d, e, f], [g, h, i]] = m.map(|r| r.map(|v| v as i32));
+        let p = mul_i32_wide;
+        let m1 = p(e, i) - p(f, h);
+        let m2 = p(d, i) - p(f, g);
+        let m3 = p(d, h) - p(e, g);
+        return mul_i32_i64(a, m1) - mul_i32_i64(b, m2) + mul_i32_i64(c, m3);
     }
     let [[a, b, c], [d, e, f], [g, h, i]] = m;
     a * (e * i - f * h) - b * (d * i - f * g) + c * (d * h - e * g)

@@ -207,6 +207,15 @@ pub fn select_kth<T: Ord + Copy>(v: &mut [T], k: usize) -> Option<T> {
     v.get(k).copied()
 }
 
+/// `a · b` for a 32-bit and a 64-bit factor in full (< 2^95), from two 32 × 32 → 64-bit products:
+/// a general 128-bit product is several library calls on the M0.
+pub fn mul_i32_i64(a: i32, b: i64) -> i128 {
+    let (hi, lo) = ((b >> 32) as i32, b as u32);
+    let low = mul_u32_wide(a.unsigned_abs(), lo) as i128;
+    let low = if a < 0 { -low } else { low };
+    (i128::from(mul_i32_wide(a, hi)) << 32) + low
+}
+
 /// Swaps two entries; out-of-range indices leave `v` as it is (`slice::swap` keeps a panic path).
 fn swap_checked<T: Copy>(v: &mut [T], a: usize, b: usize) {
     if let (Some(&x), Some(&y)) = (v.get(a), v.get(b)) {
@@ -387,6 +396,36 @@ mod tests {
         }
         assert_eq!(select_kth::<i64>(&mut [], 0), None);
         assert_eq!(select_kth(&mut [5i64], 1), None);
+    }
+
+    #[test]
+    fn mixed_products_are_exact() {
+        let a_probes = [
+            0i32,
+            1,
+            -1,
+            7,
+            -7,
+            i32::MAX,
+            i32::MIN,
+            123_456_789,
+            -98_765_432,
+        ];
+        let b_probes = [
+            0i64,
+            1,
+            -1,
+            i64::from(u32::MAX),
+            -(1 << 40) - 3,
+            (1 << 53) - 1,
+            i64::MAX,
+            i64::MIN,
+        ];
+        for &a in &a_probes {
+            for &b in &b_probes {
+                assert_eq!(mul_i32_i64(a, b), i128::from(a) * i128::from(b), "{a} {b}");
+            }
+        }
     }
 
     #[test]

@@ -160,7 +160,11 @@ fn block_stats(frame: &[i32], flag: &[u8], mask: &LineMask, start: usize, end: u
     let (mut ss, mut cnt) = (0i128, 0i128);
     for &d in d2.iter() {
         if d <= limit {
-            ss += i128::from(d) * i128::from(d);
+            // |d| < 2^31 for every ADC frame: one 32 × 32-bit square.
+            ss += match u32::try_from(d) {
+                Ok(d32) => i128::from(super::math::mul_u32_wide(d32, d32)),
+                Err(_) => i128::from(d) * i128::from(d),
+            };
             cnt += 1;
         }
     }
