@@ -36,10 +36,10 @@ pub struct Fit {
     pub sigma_q16: i64,
     /// Height (frame units, Q8).
     pub height_q8: i64,
-    /// First and last pixel of the window.
-    pub lo: usize,
+    /// First pixel of the window (frames are ≤ 4096 px).
+    pub lo: u16,
     /// Last pixel of the window.
-    pub hi: usize,
+    pub hi: u16,
     /// Whether the Gauss–Newton steps settled within [`ITERATIONS`]; otherwise the last step is reported.
     pub converged: bool,
     /// Gauss–Newton steps taken (≤ [`ITERATIONS`]).
@@ -224,8 +224,8 @@ pub fn fit_line(
         center_sigma_q16,
         sigma_q16: p.s_q16,
         height_q8: p.a_q8,
-        lo,
-        hi,
+        lo: u16::try_from(lo).unwrap_or(u16::MAX),
+        hi: u16::try_from(hi).unwrap_or(u16::MAX),
         converged,
         steps,
     }

@@ -179,7 +179,8 @@ pub fn find_peaks(
         neighbours: [None, None],
     };
     // First fits, each line alone, in centre order.
-    let mut fits: Vec<(fit::Fit, usize, i64), MAX_PEAKS> = Vec::new();
+    // (fit, candidate pixel); 48 B each, the largest table on find's stack.
+    let mut fits: Vec<(fit::Fit, u16), MAX_PEAKS> = Vec::new();
     let mut budget = STEP_BUDGET;
     for c in cands.iter() {
         let s0 = half_width_sigma(&data, c.pos, fwhm_max_px)
@@ -188,19 +189,20 @@ pub fn find_peaks(
         let f = fit::fit_line(&data, c.pos, s0, s_min, s_max, budget.max(MIN_STEPS));
         budget = budget.saturating_sub(usize::from(f.steps));
         // Capacity: at most MAX_PEAKS candidates remain.
-        let _ = fits.push((f, c.pos, s0));
+        let _ = fits.push((f, u16::try_from(c.pos).unwrap_or(u16::MAX)));
     }
-    crate::sort::sort_by_key(&mut fits, |(f, _, _)| f.center_q16);
+    crate::sort::sort_by_key(&mut fits, |(f, _)| f.center_q16);
     // Lines whose windows reach a neighbour are fitted again with the neighbours' first fits taken out:
     // the next line's is still in `fits`, the previous line's is kept aside before it is replaced.
     let mut prev_first: Option<fit::Fit> = None;
     for k in 0..fits.len() {
-        let Some(&(f, pos, s0)) = fits.get(k) else {
+        let Some(&(f, pos)) = fits.get(k) else {
             break;
         };
-        let next = fits.get(k + 1).map(|(n, _, _)| *n);
+        let pos = usize::from(pos);
+        let next = fits.get(k + 1).map(|(n, _)| *n);
         let touches = |n: &fit::Fit| {
-            let reach = ((f.hi - f.lo) as i64) << 15;
+            let reach = (i64::from(f.hi) - i64::from(f.lo)) << 15;
             (n.center_q16 - f.center_q16).abs() < reach + 3 * n.sigma_q16
         };
         let prev = prev_first.filter(touches);
@@ -208,6 +210,10 @@ pub fn find_peaks(
         prev_first = Some(f);
         if prev.is_some() || next.is_some() {
             data.neighbours = [prev, next];
+            // The same start width as the first fit (it reads frame and baseline only).
+            let s0 = half_width_sigma(&data, pos, fwhm_max_px)
+                .max(s_min)
+                .min(s_max);
             let refit = fit::fit_line(&data, pos, s0, s_min, s_max, budget.max(MIN_STEPS));
             budget = budget.saturating_sub(usize::from(refit.steps));
             if let Some(slot) = fits.get_mut(k) {
@@ -216,14 +222,15 @@ pub fn find_peaks(
         }
     }
     let spike_limit_q16 = u32::from(cfg.fwhm_min_px_q8) * 256 * SPIKE_FWHM_Q8 / 256;
-    for (f, pos, _) in fits.iter() {
+    for (f, pos) in fits.iter() {
+        let pos = &usize::from(*pos);
         let fwhm_px_q16 =
             u32::try_from((f.sigma_q16 * FWHM_PER_SIGMA_Q16) >> 16).unwrap_or(u32::MAX);
         if fwhm_px_q16 < spike_limit_q16 {
             continue;
         }
-        let saturated =
-            (f.lo..=f.hi).any(|i| flag.get(i).is_some_and(|&x| x & flags::SATURATED != 0));
+        let saturated = (usize::from(f.lo)..=usize::from(f.hi))
+            .any(|i| flag.get(i).is_some_and(|&x| x & flags::SATURATED != 0));
         let sd_q4 = isqrt_i64(nm.var_q8(data_base(&data, *pos))).max(1); // σ × 16
         let peak = Peak {
             center_px_q16: math::clamp_i32(f.center_q16),
@@ -241,7 +248,7 @@ pub fn find_peaks(
     mark_blends(out, cfg.blend_fwhm_q8);
 
     let untrusted = flag.iter().filter(|&&f| flags::is_untrusted(f)).count();
-    let mid_level = median_of_base(base);
+    let mid_level = median_of_base(base, tmp);
     Ok(FindReport {
         pixels: u16::try_from(n).unwrap_or(u16::MAX),
         untrusted_pixels: u16::try_from(untrusted).unwrap_or(u16::MAX),
@@ -265,14 +272,14 @@ fn sigma_q8(var_q8: i64) -> u32 {
 
 /// Baseline level at the middle of the sorted baseline samples (every 16th pixel, ≤ 256 samples;
 /// a selection, ≤ 256² steps).
-fn median_of_base(base: &[i32]) -> i64 {
-    let mut v = [0i32; MAX_PIXELS / 16];
+fn median_of_base(base: &[i32], work: &mut [i32]) -> i64 {
+    // The samples go into the free work row (≥ base.len() / 16 cells), not onto the stack.
     let mut k = 0usize;
-    for (slot, &b) in v.iter_mut().zip(base.iter().step_by(16)) {
+    for (slot, &b) in work.iter_mut().zip(base.iter().step_by(16)) {
         *slot = b;
         k += 1;
     }
-    let s = v.get_mut(..k).unwrap_or(&mut []);
+    let s = work.get_mut(..k).unwrap_or(&mut []);
     i64::from(math::select_kth(s, k / 2).unwrap_or(0))
 }
 

@@ -127,7 +127,7 @@ fn block_stats(frame: &[i32], flag: &[u8], mask: &LineMask, start: usize, end: u
     let trusted =
         |i: usize| !mask.is_set(i) && flag.get(i).is_some_and(|&f| !flags::is_untrusted(f));
     let mut d2 = [0i64; BLOCK_PX];
-    let mut lv = [0i64; BLOCK_PX];
+    let mut lv = [0i32; BLOCK_PX];
     let mut nd = 0usize;
     let mut nl = 0usize;
     for i in start..end {
@@ -135,7 +135,7 @@ fn block_stats(frame: &[i32], flag: &[u8], mask: &LineMask, start: usize, end: u
             continue;
         };
         if let Some(slot) = lv.get_mut(nl) {
-            *slot = i64::from(y0);
+            *slot = y0;
             nl += 1;
         }
         let (Some(il), Some(ir)) = (i.checked_sub(1), i.checked_add(1)) else {
@@ -153,7 +153,9 @@ fn block_stats(frame: &[i32], flag: &[u8], mask: &LineMask, start: usize, end: u
     if nd < MIN_BLOCK_SAMPLES || nl == 0 {
         return Block::default();
     }
-    let level = median(lv.get_mut(..nl).unwrap_or(&mut []));
+    let level = i64::from(
+        super::math::select_kth(lv.get_mut(..nl).unwrap_or(&mut []), nl / 2).unwrap_or(0),
+    );
     let d2 = d2.get_mut(..nd).unwrap_or(&mut []);
     let med = median(d2);
     let limit = ((med * CLIP_PER_MEDIAN_Q8) >> 8).max(1);
