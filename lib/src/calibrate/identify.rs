@@ -124,15 +124,7 @@ pub fn identify(
     if lines.len() < 3 || peaks.len() < 3 {
         return Err(CalibrateError::NoConsistentPattern);
     }
-    // u(p) per peak: nominal wavelength (fm) or the pixel (Q16 → fm-like integer).
-    let mut u: Vec<i64, 64> = Vec::new();
-    for p in peaks {
-        let v = match &cfg.nominal {
-            Some(m) => m.wavelength_fm(p.center_px_q16)?,
-            None => p.center_px_q16 as i64,
-        };
-        u.push(v).map_err(|_| CalibrateError::TooManyPoints)?;
-    }
+    let axis = Axis::new(peaks, cfg)?;
     let strong_peaks = strongest(peaks.iter().map(|p| p.snr_q8), HYP_PEAKS);
     let strong_lines = strongest(lines.iter().map(|l| l.strength), HYP_LINES);
     let ends = match &cfg.nominal {
@@ -142,10 +134,25 @@ pub fn identify(
         ),
         None => (0, ((cfg.pixels.max(2) as i64) - 1) << 16),
     };
+    let (first_ok, second_ok) = line_masks(&strong_peaks, &strong_lines, &axis.u, lines, cfg);
+    let search = Search {
+        peaks,
+        axis: &axis,
+        lines,
+        cfg,
+        ends,
+    };
     let mut best: Option<Hypothesis> = None;
+    // Hypotheses in a fixed order (peak pair, line pair, orientation): ties keep the first one found.
+    // The masks skip only pairs `hypothesis` would refuse, so the order of the rest is unchanged.
     for (ii, &i) in strong_peaks.iter().enumerate() {
-        for &j in strong_peaks.iter().skip(ii + 1) {
-            let (Some(&ui), Some(&uj)) = (u.get(i as usize), u.get(j as usize)) else {
+        let first = first_ok.get(ii).copied().unwrap_or(0);
+        if first == 0 {
+            continue;
+        }
+        for (jj, &j) in strong_peaks.iter().enumerate().skip(ii + 1) {
+            let second = second_ok.get(jj).copied().unwrap_or(0);
+            let (Some(&ui), Some(&uj)) = (axis.u.get(i as usize), axis.u.get(j as usize)) else {
                 continue;
             };
             let du = uj - ui;
@@ -153,23 +160,21 @@ pub fn identify(
                 continue;
             }
             for (aa, &a) in strong_lines.iter().enumerate() {
-                for &b in strong_lines.iter().skip(aa + 1) {
-                    for (la, lb) in [(a, b), (b, a)] {
-                        let (Some(ra), Some(rb)) = (lines.get(la as usize), lines.get(lb as usize))
-                        else {
-                            continue;
-                        };
-                        let (wa, wb) = (ra.wavelength_fm, rb.wavelength_fm);
-                        let Some(h) = hypothesis(ui, du, wa, wb, cfg) else {
-                            continue;
-                        };
-                        let floor = best.map_or(1, |b| b.net);
-                        let Some(h) = score(h, peaks, &u, lines, cfg, ends, floor) else {
-                            continue;
-                        };
-                        if better(&h, &best) {
-                            best = Some(h);
-                        }
+                // (a, b): a with peak i, b with peak j; (b, a) the other way round.
+                let fwd = if (first >> aa) & 1 == 1 { second } else { 0 };
+                let rev = if (second >> aa) & 1 == 1 { first } else { 0 };
+                let mut later = (fwd | rev) & !((2u32 << aa).wrapping_sub(1));
+                while later != 0 {
+                    let bb = later.trailing_zeros() as usize;
+                    later &= later - 1;
+                    let Some(&b) = strong_lines.get(bb) else {
+                        continue;
+                    };
+                    if (fwd >> bb) & 1 == 1 {
+                        search.consider(ui, du, a, b, &mut best);
+                    }
+                    if (rev >> bb) & 1 == 1 {
+                        search.consider(ui, du, b, a, &mut best);
                     }
                 }
             }
@@ -178,7 +183,173 @@ pub fn identify(
     let best = best
         .filter(|h| h.net >= 3)
         .ok_or(CalibrateError::NoConsistentPattern)?;
-    refine(best, peaks, &u, lines, cfg)
+    refine(best, peaks, &axis, lines, cfg)
+}
+
+/// The fixed inputs of the hypothesis search.
+struct Search<'a> {
+    peaks: &'a [Peak],
+    axis: &'a Axis,
+    lines: &'a [ReferenceLine],
+    cfg: &'a IdentifyConfig,
+    /// u at the sensor's ends.
+    ends: (i64, i64),
+}
+
+impl Search<'_> {
+    /// The hypothesis through (u_i, line `la`) and (u_i + du, line `lb`): scored, and kept in `best`
+    /// when it beats it.
+    #[inline(never)]
+    fn consider(&self, ui: i64, du: i64, la: u8, lb: u8, best: &mut Option<Hypothesis>) {
+        let lines = self.lines;
+        let (Some(ra), Some(rb)) = (lines.get(la as usize), lines.get(lb as usize)) else {
+            return;
+        };
+        let Some(h) = hypothesis(ui, du, ra.wavelength_fm, rb.wavelength_fm, self.cfg) else {
+            return;
+        };
+        let floor = best.map_or(1, |b| b.net);
+        let Some(h) = score(h, self.peaks, self.axis, lines, self.cfg, self.ends, floor) else {
+            return;
+        };
+        if better(&h, best) {
+            *best = Some(h);
+        }
+    }
+}
+
+/// What every hypothesis reuses about the peaks.
+struct Axis {
+    /// u(p) per peak: nominal wavelength (fm) or the pixel (Q16 → fm-like integer).
+    u: Vec<i64, 64>,
+    /// du/dp per peak: the nominal map's slope (fm per px) or 65 536 (blind: u is the pixel in Q16).
+    du_dp: Vec<i64, 64>,
+    /// Largest |b| (Q30) for which b · u stays within `i64` for every peak.
+    b_max_u: u64,
+    /// Largest |b| (Q30) for which b · du/dp stays within `i64` for every peak.
+    b_max_du: u64,
+}
+
+impl Axis {
+    fn new(peaks: &[Peak], cfg: &IdentifyConfig) -> Result<Axis, CalibrateError> {
+        let mut u: Vec<i64, 64> = Vec::new();
+        let mut du_dp: Vec<i64, 64> = Vec::new();
+        for p in peaks {
+            let (v, d) = match &cfg.nominal {
+                Some(m) => (
+                    m.wavelength_fm(p.center_px_q16)?,
+                    m.slope_fm_per_px_q16(p.center_px_q16).unwrap_or(0) >> 16,
+                ),
+                None => (p.center_px_q16 as i64, 65_536),
+            };
+            u.push(v).map_err(|_| CalibrateError::TooManyPoints)?;
+            du_dp.push(d).map_err(|_| CalibrateError::TooManyPoints)?;
+        }
+        let limit = |vals: &[i64]| {
+            let top = vals
+                .iter()
+                .map(|v| v.unsigned_abs())
+                .max()
+                .unwrap_or(0)
+                .max(1);
+            i64::MAX as u64 / top
+        };
+        Ok(Axis {
+            b_max_u: limit(&u),
+            b_max_du: limit(&du_dp),
+            u,
+            du_dp,
+        })
+    }
+
+    /// λ of peak `k` under the hypothesis: a + b · u (b in Q30), through `i64` where that is exact.
+    fn lam(&self, h: &Hypothesis, k: usize) -> i64 {
+        let uk = self.u.get(k).copied().unwrap_or(0);
+        if h.b_q30.unsigned_abs() <= self.b_max_u {
+            h.a_fm + ((h.b_q30 * uk) >> 30)
+        } else {
+            h.a_fm + wide_q30(h.b_q30, uk) as i64
+        }
+    }
+
+    /// Local dispersion of a hypothesis at peak `k`, fm per pixel.
+    fn dispersion_fm_per_px(&self, h: &Hypothesis, k: usize) -> i64 {
+        let d = self.du_dp.get(k).copied().unwrap_or(0);
+        if h.b_q30.unsigned_abs() <= self.b_max_du {
+            ((h.b_q30 * d) >> 30).unsigned_abs() as i64
+        } else {
+            wide_q30(h.b_q30, d).unsigned_abs() as i64
+        }
+    }
+}
+
+/// (b · v) >> 30 through 128 bits, for products past `i64` (kept out of line: rare).
+#[inline(never)]
+fn wide_q30(b: i64, v: i64) -> i128 {
+    (b as i128 * v as i128) >> 30
+}
+
+/// Per strong peak, the strong lines (bit = position in `strong_lines`) it may be paired with as the
+/// first peak of a hypothesis, and as the second; all lines when calibrating blind.
+///
+/// First: the offset test of [`hypothesis`] itself (|λ − u| ≤ the largest offset at that peak).
+/// Second: a hypothesis through (u_i, λ_a) and (u_j, λ_b) has |b − 1| < (max_scale_error + 2) ppm
+/// (the +2 covers the truncation of b), so λ_b − u_j = (λ_a − u_i) + (b − 1)(u_j − u_i) is within
+/// the largest offset plus that scale error over the strong peaks' span of u. Values beyond 2^61
+/// (nothing an instrument produces) keep every line, so no hypothesis is ever lost.
+fn line_masks(
+    strong_peaks: &[u8],
+    strong_lines: &[u8],
+    u: &[i64],
+    lines: &[ReferenceLine],
+    cfg: &IdentifyConfig,
+) -> (Vec<u32, 20>, Vec<u32, 20>) {
+    let all = (1u32 << strong_lines.len().min(20)).wrapping_sub(1);
+    let us = || {
+        strong_peaks
+            .iter()
+            .filter_map(|&i| u.get(i as usize).copied())
+    };
+    let ws = || {
+        strong_lines
+            .iter()
+            .map(|&l| lines.get(l as usize).map_or(0, |r| r.wavelength_fm))
+    };
+    let mut first: Vec<u32, 20> = Vec::new();
+    let mut second: Vec<u32, 20> = Vec::new();
+    const SANE: u64 = 1 << 61;
+    let sane = us().chain(ws()).all(|v| v.unsigned_abs() <= SANE)
+        && cfg.max_offset_fm.unsigned_abs() <= SANE;
+    let (lo, hi) = (us().min().unwrap_or(0), us().max().unwrap_or(0));
+    let reach = if sane {
+        let span = (hi as i128 - lo as i128).unsigned_abs();
+        let scale = span * (cfg.max_scale_error_ppm as u128 + 2) / 1_000_000 + 1;
+        Some(cfg.max_offset_fm as i128 + scale.min(1 << 64) as i128)
+    } else {
+        None
+    };
+    for ui in us() {
+        let (f, s) = match (&cfg.nominal, reach) {
+            (None, _) => (all, all),
+            (Some(_), reach) => {
+                let mut f = 0u32;
+                let mut s = 0u32;
+                for (bit, w) in ws().enumerate() {
+                    // The same (wrapping) i64 expression as in `hypothesis`.
+                    if w.wrapping_sub(ui).wrapping_abs() <= cfg.max_offset_fm {
+                        f |= 1 << bit;
+                    }
+                    if reach.is_none_or(|r| (w as i128 - ui as i128).abs() <= r) {
+                        s |= 1 << bit;
+                    }
+                }
+                (f, s)
+            }
+        };
+        let _ = first.push(f);
+        let _ = second.push(s);
+    }
+    (first, second)
 }
 
 fn better(h: &Hypothesis, best: &Option<Hypothesis>) -> bool {
@@ -231,16 +402,8 @@ fn hypothesis(ui: i64, du: i64, wa: i64, wb: i64, cfg: &IdentifyConfig) -> Optio
     })
 }
 
-/// Local dispersion of a hypothesis, fm per pixel.
-fn dispersion_fm_per_px(h: &Hypothesis, cfg: &IdentifyConfig, p_q16: i32) -> i64 {
-    let du_dp = match &cfg.nominal {
-        Some(m) => m.slope_fm_per_px_q16(p_q16).unwrap_or(0) >> 16,
-        None => 65_536,
-    };
-    ((h.b_q30 as i128 * du_dp as i128) >> 30).unsigned_abs() as i64
-}
-
-/// Scores a hypothesis; `None` when it cannot reach `floor` (the best net score so far).
+/// Scores a hypothesis; `None` when it cannot reach `floor` (the best net score so far: a
+/// hypothesis below it can never be taken, so its scoring stops as soon as that is certain).
 ///
 /// Net score = peaks landing on a line − lines at least as strong as the weakest matched one that fall
 /// on the sensor with no peak there: a wrong scale that matches three faint lines by chance must
@@ -248,7 +411,7 @@ fn dispersion_fm_per_px(h: &Hypothesis, cfg: &IdentifyConfig, p_q16: i32) -> i64
 fn score(
     mut h: Hypothesis,
     peaks: &[Peak],
-    u: &[i64],
+    axis: &Axis,
     lines: &[ReferenceLine],
     cfg: &IdentifyConfig,
     ends_u: (i64, i64),
@@ -259,14 +422,28 @@ fn score(
     let mut weakest = u32::MAX;
     let mut lam_of: Vec<(i64, i64), 64> = Vec::new();
     let mut matched: Vec<(u32, u32), 64> = Vec::new();
-    for (p, &uk) in peaks.iter().zip(u) {
-        let lam = h.a_fm + (((h.b_q30 as i128) * uk as i128) >> 30) as i64;
-        let tol = (dispersion_fm_per_px(&h, cfg, p.center_px_q16) * cfg.window_q8()) >> 8;
+    let window = cfg.window_q8();
+    let n = peaks.len() as i32;
+    for (k, p) in peaks.iter().enumerate() {
+        if votes + (n - k as i32) < floor {
+            return None;
+        }
+        let lam = axis.lam(&h, k);
+        let tol = (axis.dispersion_fm_per_px(&h, k) * window) >> 8;
         let _ = lam_of.push((lam, tol));
         let (idx, d) = nearest(lines, lam);
         if d <= tol {
             votes += 1;
-            cost += d * 256 / tol.max(1);
+            // 0 ≤ d ≤ tol: below 2^23 the quotient is the same in u32.
+            cost += if tol < 1 << 23 {
+                i64::from(
+                    ((d as u32) << 8)
+                        .checked_div(tol.max(1) as u32)
+                        .unwrap_or(0),
+                )
+            } else {
+                d * 256 / tol.max(1)
+            };
             let strength = lines.get(idx).map_or(0, |l| l.strength);
             weakest = weakest.min(strength);
             let _ = matched.push((p.snr_q8, strength));
@@ -288,6 +465,9 @@ fn score(
             .any(|&(lam, tol)| (lam - l.wavelength_fm).abs() <= tol);
         if !seen {
             misses += 1;
+            if votes - misses < floor {
+                return None;
+            }
         }
     }
     h.net = votes - misses;
@@ -325,14 +505,14 @@ fn nearest(lines: &[ReferenceLine], lam: i64) -> (usize, i64) {
 fn refine(
     h: Hypothesis,
     peaks: &[Peak],
-    u: &[i64],
+    axis: &Axis,
     lines: &[ReferenceLine],
     cfg: &IdentifyConfig,
 ) -> Result<Identified, CalibrateError> {
     let mut pairs: Vec<(u8, u8), 48> = Vec::new();
-    for (k, (p, &uk)) in peaks.iter().zip(u).enumerate() {
-        let lam = h.a_fm + (((h.b_q30 as i128) * uk as i128) >> 30) as i64;
-        let tol = (dispersion_fm_per_px(&h, cfg, p.center_px_q16) * cfg.window_q8()) >> 8;
+    for k in 0..peaks.len() {
+        let lam = axis.lam(&h, k);
+        let tol = (axis.dispersion_fm_per_px(&h, k) * cfg.window_q8()) >> 8;
         let (idx, d) = nearest(lines, lam);
         if d <= tol {
             push_unique(&mut pairs, k as u8, idx as u8, peaks)?;

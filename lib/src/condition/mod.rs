@@ -245,7 +245,7 @@ impl Pixels<'_, '_> {
     fn narrow(&self, plan: &scale::Narrow, out: &mut [i32], flags: &mut [u8]) -> (u16, u16) {
         let linear = self.cfg.linearity.is_empty();
         let (ns, nd) = (self.ns as i64, self.nd as i64);
-        self.each(out, flags, |i, s, d| {
+        self.each(out, flags, &|i, s, d| {
             let (ls, ld) = if linear { (1, 1) } else { self.linearity(s, d) };
             let g = self.gain.map_or(1, |t| t.factor_q14(i));
             // |x| ≤ the bound the plan was made for (< 2^62), see `condition_frame`.
@@ -257,12 +257,16 @@ impl Pixels<'_, '_> {
 
     /// Every pixel through the full 128-bit numerator and `den`. Returns (saturated, clamped).
     fn wide(&self, scale: i128, den: i128, out: &mut [i32], flags: &mut [u8]) -> (u16, u16) {
-        let (ns, nd) = (self.ns, self.nd);
-        self.each(out, flags, |i, s, d| {
+        let (ns, nd) = (self.ns as u64, self.nd as u64);
+        let scale = scale as u64; // ≤ 2^36
+        self.each(out, flags, &|i, s, d| {
             let (ls, ld) = self.linearity(s, d);
-            let g = i128::from(self.gain.map_or(u32::from(ONE_Q14), |t| t.factor_q14(i)));
-            let diff = i128::from(s) * i128::from(ls) * nd - i128::from(d) * i128::from(ld) * ns;
-            div_round(diff * g * scale, den)
+            let g = u64::from(self.gain.map_or(u32::from(ONE_Q14), |t| t.factor_q14(i)));
+            // Each term ≤ 2^32 · 2^16 · 2^8 = 2^56 and g · scale ≤ 2^52 fit u64. `mul_div_i128`
+            // rounds half away from zero like `div_round`, through the exact 256-bit product.
+            let diff = i128::from(u64::from(s) * u64::from(ls) * nd)
+                - i128::from(u64::from(d) * u64::from(ld) * ns);
+            crate::fixed::mul_div_i128(diff, i128::from(g * scale), den).unwrap_or(0)
         })
     }
 
@@ -271,7 +275,7 @@ impl Pixels<'_, '_> {
         &self,
         out: &mut [i32],
         flags: &mut [u8],
-        value: impl Fn(usize, u32, u32) -> i128,
+        value: &dyn Fn(usize, u32, u32) -> i128,
     ) -> (u16, u16) {
         let mut saturated: u16 = 0;
         let mut clamped: u16 = 0;
@@ -309,18 +313,6 @@ fn shot_var_q16(cfg: &ConditionConfig, reference_us: u32, frames: u16) -> Option
         * u64::from(frames.max(1));
     let q = num.checked_div(den)?;
     Some(u32::try_from(q).unwrap_or(u32::MAX))
-}
-
-/// Rounds `num / den` half away from zero for `den > 0`.
-fn div_round(num: i128, den: i128) -> i128 {
-    if den <= 0 {
-        return 0;
-    }
-    if num >= 0 {
-        (num + den / 2) / den
-    } else {
-        -((-num + den / 2) / den)
-    }
 }
 
 #[cfg(test)]

@@ -90,11 +90,12 @@ impl Narrow {
                     -((-y + half) >> k)
                 }
             }
+            // d ≥ 2 here; `checked_div` only keeps a panic path out of the image.
             Divide::By(d) => {
                 if y >= 0 {
-                    (y + d / 2) / d
+                    (y + d / 2).checked_div(d).unwrap_or(0)
                 } else {
-                    -((-y + d / 2) / d)
+                    -(-y + d / 2).checked_div(d).unwrap_or(0)
                 }
             }
         }
@@ -122,8 +123,7 @@ impl Narrow {
 
 /// Greatest common divisor (Euclid; at most ~92 steps for `u64`).
 fn gcd(mut a: u64, mut b: u64) -> u64 {
-    while b != 0 {
-        let r = a % b;
+    while let Some(r) = a.checked_rem(b) {
         a = b;
         b = r;
     }
