@@ -30,6 +30,9 @@ pub const fn mul_div_u128(a: u128, b: u128, c: u128) -> Option<u128> {
         };
         return round_up_half(q, lo & (c - 1), c);
     }
+    if c >> 64 == 0 {
+        return long_div_u64(hi, lo, c as u64);
+    }
     if hi == 0 {
         // Same result as the long division below, through the native 128-bit divide.
         let q = lo / c;
@@ -39,31 +42,6 @@ pub const fn mul_div_u128(a: u128, b: u128, c: u128) -> Option<u128> {
     // The first `skip` quotient bits are 0 (hi has fewer bits than c): start after them.
     let skip = (128 - c.leading_zeros()).saturating_sub(1 + (128 - hi.leading_zeros()));
     let mut i = 128 - skip;
-    if c >> 64 == 0 {
-        // c < 2^64: rem < c fits u64, with the shifted-out bit kept as `carry`.
-        let c64 = c as u64;
-        let mut rem = (if skip == 0 {
-            hi
-        } else {
-            (hi << skip) | (lo >> (128 - skip))
-        }) as u64;
-        let (mut q_hi, mut q_lo) = (0u64, 0u64);
-        while i > 0 {
-            i -= 1;
-            let carry = rem >> 63;
-            rem = (rem << 1) | ((lo >> i) & 1) as u64;
-            if carry == 1 || rem >= c64 {
-                rem = rem.wrapping_sub(c64);
-                if i >= 64 {
-                    q_hi |= 1 << (i - 64);
-                } else {
-                    q_lo |= 1 << i;
-                }
-            }
-        }
-        let q = ((q_hi as u128) << 64) | q_lo as u128;
-        return round_up_half(q, rem as u128, c);
-    }
     let mut rem = if skip == 0 {
         hi
     } else {
@@ -80,6 +58,58 @@ pub const fn mul_div_u128(a: u128, b: u128, c: u128) -> Option<u128> {
         }
     }
     round_up_half(q, rem, c)
+}
+
+/// The long division of (hi, lo) (hi < c) by a divisor below 2^64, rounded half up: the same
+/// quotient bits as the 128-bit loop, in 64-bit halves, starting at the first bit that can be 1.
+///
+/// Work: as many steps as the quotient has bits (≤ 128).
+const fn long_div_u64(hi: u128, lo: u128, c: u64) -> Option<u128> {
+    // N = hi · 2^128 + lo has `len` bits; after `skip` of the 128 steps the partial remainder is
+    // N >> (128 − skip) < 2^(len − 128 + skip) ≤ 2^(bits(c) − 1) ≤ c: those quotient bits are 0.
+    let len = if hi != 0 {
+        256 - hi.leading_zeros()
+    } else {
+        128 - lo.leading_zeros()
+    };
+    let skip = {
+        let s = (64 - c.leading_zeros() + 127).saturating_sub(len);
+        if s > 128 {
+            128
+        } else {
+            s
+        }
+    };
+    // rem = N >> (128 − skip) < c; the bits of lo still to come, top-aligned in (n_hi, n_lo).
+    let mut rem = if skip == 0 {
+        hi as u64
+    } else if skip == 128 {
+        lo as u64
+    } else {
+        ((hi << skip) | (lo >> (128 - skip))) as u64
+    };
+    let rest = if skip == 128 { 0 } else { lo << skip };
+    let (mut n_hi, mut n_lo) = ((rest >> 64) as u64, rest as u64);
+    let (mut q_hi, mut q_lo) = (0u64, 0u64);
+    let mut steps = 128 - skip;
+    while steps > 0 {
+        steps -= 1;
+        let carry = rem >> 63;
+        rem = (rem << 1) | (n_hi >> 63);
+        n_hi = (n_hi << 1) | (n_lo >> 63);
+        n_lo <<= 1;
+        q_hi = (q_hi << 1) | (q_lo >> 63);
+        q_lo <<= 1;
+        if carry == 1 || rem >= c {
+            rem = rem.wrapping_sub(c);
+            q_lo |= 1;
+        }
+    }
+    round_up_half(
+        ((q_hi as u128) << 64) | q_lo as u128,
+        rem as u128,
+        c as u128,
+    )
 }
 
 /// `q` or `q + 1` for the remainder `r` of a division by `c` (half up: 2r ≥ c, i.e. r ≥ c − r);
@@ -268,7 +298,7 @@ mod tests {
                 v >> (128 - bits)
             }
         };
-        let mut seen = [0u32; 4];
+        let mut seen = [0u32; 5];
         for _ in 0..20_000 {
             let (ba, bb, bc) = (
                 (wide(7) as u32) % 129,
@@ -287,9 +317,9 @@ mod tests {
             if want.is_some() {
                 let path = if c.is_power_of_two() {
                     0
-                } else if hi == 0 {
-                    1
                 } else if c >> 64 == 0 {
+                    1 + usize::from(hi != 0) * 3
+                } else if hi == 0 {
                     2
                 } else {
                     3
