@@ -159,6 +159,9 @@ pub fn identify(
             if du == 0 {
                 continue;
             }
+            // With a nominal map, |b − 1| < (max_scale_error + 2) ppm (see `line_masks`), so
+            // |(λ_b − λ_a) − du| = |b − 1| · |du| ≤ `slack`: pairs beyond it cannot pass `hypothesis`.
+            let slack = scale_slack(du, cfg);
             for (aa, &a) in strong_lines.iter().enumerate() {
                 // (a, b): a with peak i, b with peak j; (b, a) the other way round.
                 let fwd = if (first >> aa) & 1 == 1 { second } else { 0 };
@@ -170,10 +173,14 @@ pub fn identify(
                     let Some(&b) = strong_lines.get(bb) else {
                         continue;
                     };
-                    if (fwd >> bb) & 1 == 1 {
+                    let gap = |x: u8, y: u8| {
+                        let w = |l: u8| lines.get(l as usize).map_or(0, |r| r.wavelength_fm);
+                        (w(y) as i128 - w(x) as i128 - du as i128).unsigned_abs()
+                    };
+                    if (fwd >> bb) & 1 == 1 && slack.is_none_or(|s| gap(a, b) <= s) {
                         search.consider(ui, du, a, b, &mut best);
                     }
-                    if (rev >> bb) & 1 == 1 {
+                    if (rev >> bb) & 1 == 1 && slack.is_none_or(|s| gap(b, a) <= s) {
                         search.consider(ui, du, b, a, &mut best);
                     }
                 }
@@ -287,6 +294,17 @@ impl Axis {
 #[inline(never)]
 fn wide_q30(b: i64, v: i64) -> i128 {
     (b as i128 * v as i128) >> 30
+}
+
+/// Largest |(λ_b − λ_a) − du| a nominal-map hypothesis over `du` can have (see `line_masks` for
+/// the bound on b), rounded up; `None` (no limit) when calibrating blind.
+fn scale_slack(du: i64, cfg: &IdentifyConfig) -> Option<u128> {
+    cfg.nominal?;
+    let prod = du.unsigned_abs() as u128 * (cfg.max_scale_error_ppm as u128 + 2);
+    Some(match u64::try_from(prod) {
+        Ok(p) => (p / 1_000_000) as u128 + 1,
+        Err(_) => prod / 1_000_000 + 1,
+    })
 }
 
 /// Per strong peak, the strong lines (bit = position in `strong_lines`) it may be paired with as the
