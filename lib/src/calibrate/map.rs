@@ -93,7 +93,19 @@ impl WavelengthMap {
 
     /// dλ/dp at pixel p: femtometres per pixel, Q16.
     pub fn slope_fm_per_px_q16(&self, p_px_q16: i32) -> Result<i64, CalibrateError> {
+        self.slope_at_x(self.x_q30(p_px_q16))
+    }
+
+    /// [`wavelength_fm`](Self::wavelength_fm) and [`slope_fm_per_px_q16`](Self::slope_fm_per_px_q16)
+    /// at one pixel, sharing the pixel's x (one division less); the first error of the two.
+    pub(crate) fn wavelength_and_slope(&self, p_px_q16: i32) -> Result<(i64, i64), CalibrateError> {
         let x = self.x_q30(p_px_q16);
+        let lam = eval_q30(&self.coeff_fm, self.degree, x)?;
+        Ok((lam, self.slope_at_x(x)?))
+    }
+
+    /// dλ/dp at normalised pixel x (Q30): femtometres per pixel, Q16.
+    fn slope_at_x(&self, x: i64) -> Result<i64, CalibrateError> {
         // dλ/dx = c1 + 2 c2 x + 3 c3 x².
         let d: i128 = if x.unsigned_abs() <= 1 << 30 && self.narrow_slope() {
             // On the sensor (|x| ≤ 1) with every k·c_k below 2^31, |d| stays below 3 · 2^31 and
@@ -159,8 +171,9 @@ impl WavelengthMap {
         for _ in 0..12 {
             let pc = i32::try_from(p.clamp(i32::MIN as i128 / 2, i32::MAX as i128 / 2))
                 .map_err(|_| CalibrateError::Overflow)?;
-            let err = self.wavelength_fm(pc)? as i128 - wavelength_fm as i128;
-            let slope = self.slope_fm_per_px_q16(pc)? as i128;
+            let (lam, slope) = self.wavelength_and_slope(pc)?;
+            let err = lam as i128 - wavelength_fm as i128;
+            let slope = slope as i128;
             if slope == 0 {
                 return Err(CalibrateError::NotMonotone);
             }
