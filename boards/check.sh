@@ -2,7 +2,8 @@
 # Board checks for glowcheck: builds the QEMU report firmware for each Cortex-M core and its host twin,
 # runs the firmware in QEMU and diffs its output with the host's byte for byte (and with the committed
 # golden report), proves at link time that lib's public API has no surviving panic path, checks that
-# the thumbv6m images contain no soft-float routines, and prints image sizes.
+# the thumbv6m images contain no soft-float routines, builds the RP2040 firmware (no panic path of lib
+# or of the board's own code in it), and prints image sizes.
 #
 # Usage: bash boards/check.sh            run every check; non-zero exit on any failure
 #        bash boards/check.sh --bless    also overwrite boards/expected/ (host report, pipeline digest,
@@ -80,19 +81,21 @@ if cargo fmt --version >/dev/null 2>&1; then
 fi
 if cargo clippy --version >/dev/null 2>&1; then
     cargo clippy -q -p glowcheck-report -p glowcheck-host-twin -p glowcheck-pipeline-report \
-        -p glowcheck-pipeline-twin -p glowcheck-float-baseline --all-targets -- -D warnings \
-        && ok "clippy host crates" || fail "clippy on report/host-twin/pipeline-report/pipeline-twin/float-baseline"
+        -p glowcheck-pipeline-twin -p glowcheck-float-baseline -p glowcheck-link --all-targets -- -D warnings \
+        && ok "clippy host crates" || fail "clippy on report/host-twin/pipeline-report/pipeline-twin/float-baseline/link"
     cargo clippy -q -p glowcheck-qemu -p glowcheck-nopanic -p glowcheck-pipeline --target thumbv6m-none-eabi -- -D warnings \
         && ok "clippy thumb crates" || fail "clippy on qemu/nopanic/pipeline"
     cargo clippy -q -p glowcheck-pipeline --features measure --target thumbv6m-none-eabi -- -D warnings \
         && cargo clippy -q -p glowcheck-pipeline --features profile --target thumbv6m-none-eabi -- -D warnings \
         && ok "clippy pipeline measure/profile builds" || fail "clippy on glowcheck-pipeline --features measure/profile"
+    cargo clippy -q -p glowcheck-rp2040 --target thumbv6m-none-eabi -- -D warnings \
+        && ok "clippy rp2040 firmware" || fail "clippy on glowcheck-rp2040"
 fi
 
 # ---------------------------------------------------------------------------------------------------
 stage "unit tests of the shared report code"
-cargo test -q -p glowcheck-report -p glowcheck-pipeline-report -p glowcheck-float-baseline \
-    || fail "cargo test -p glowcheck-report -p glowcheck-pipeline-report -p glowcheck-float-baseline"
+cargo test -q -p glowcheck-report -p glowcheck-pipeline-report -p glowcheck-float-baseline -p glowcheck-link \
+    || fail "cargo test -p glowcheck-report -p glowcheck-pipeline-report -p glowcheck-float-baseline -p glowcheck-link"
 
 # ---------------------------------------------------------------------------------------------------
 stage "build"
@@ -196,6 +199,19 @@ if [ -n "${GLOWSIM:-}" ]; then
 fi
 
 # ---------------------------------------------------------------------------------------------------
+# Calls into core's panic functions in an image, one line per source line (else the last own line
+# before it) with a count.
+panic_sites() { # elf
+    "$objdump" -d -l --demangle --no-show-raw-insn "$1" | awk '
+        /^[0-9a-f]+ <.*>:$/ { fn = $0; next }
+        /^; \/.*:[0-9]+/ { loc = $2; if (loc !~ /\/rustlib\//) own = loc; next }
+        fn !~ /<core::/ && /\tb[a-z.]*\t0x[0-9a-f]+ <core::(panicking|option::unwrap_failed|option::expect_failed|result::unwrap_failed|slice::index::|str::slice_error_fail)/ {
+            where = loc
+            if (loc ~ /\/rustlib\//) { c = loc; sub(/.*\/library\//, "", c); where = own " (in core: " c ")" }
+            n[where]++ }
+        END { for (l in n) printf "    %s (%d)\n", l, n[l] }' | sort
+}
+
 stage "no-panic link proof (thumbv6m, release)"
 np_elf="$CARGO_TARGET_DIR/thumbv6m-none-eabi/release/glowcheck-nopanic"
 api_elf="$out/glowcheck-nopanic.elf"   # every public lib entry point; the proof image when it links
@@ -208,7 +224,7 @@ else
     grep -E "undefined symbol|referenced by|^error(\[|:)" "$out/nopanic.err" | head -n 20 >&2 || cat "$out/nopanic.err" >&2
     # Name the lib modules that hold a panic path (one build each), then link a variant whose panic
     # handler exists and list the source lines next to the calls into core's panic functions.
-    for m in predict fixed condition find calibrate judge check; do
+    for m in acquire predict fixed condition find calibrate judge check; do
         if cargo build -q --release -p glowcheck-nopanic --target thumbv6m-none-eabi \
             --no-default-features --features "$m" >"$out/nopanic-$m.err" 2>&1; then
             echo "  lib::$m: no panic path" >&2
@@ -221,14 +237,7 @@ else
     if cargo build -q --release -p glowcheck-nopanic --target thumbv6m-none-eabi --features locate 2>/dev/null; then
         cp "$np_elf" "$api_elf"
         echo "  panic call sites (source line, else the last own line before it; count):" >&2
-        "$objdump" -d -l --demangle --no-show-raw-insn "$api_elf" | awk '
-            /^[0-9a-f]+ <.*>:$/ { fn = $0; next }
-            /^; \/.*:[0-9]+/ { loc = $2; if (loc !~ /\/rustlib\//) own = loc; next }
-            fn !~ /<core::/ && /\tb[a-z.]*\t0x[0-9a-f]+ <core::(panicking|option::unwrap_failed|option::expect_failed|result::unwrap_failed|slice::index::|str::slice_error_fail)/ {
-                where = loc
-                if (loc ~ /\/rustlib\//) { c = loc; sub(/.*\/library\//, "", c); where = own " (in core: " c ")" }
-                n[where]++ }
-            END { for (l in n) printf "    %s (%d)\n", l, n[l] }' | sort >&2
+        panic_sites "$api_elf" >&2
     fi
 fi
 
@@ -250,6 +259,29 @@ else
 fi
 
 # ---------------------------------------------------------------------------------------------------
+stage "RP2040 firmware builds for thumbv6m (release)"
+# The real board (boards/rp2040): lib's acquisition driver on rp2040-hal pins, timer and ADC, the whole
+# check, the link encoder. rp2040-hal and postcard keep a few panic paths, so the link-time proof
+# cannot apply; instead no panic call site may lie in lib or in the board's own code.
+rp_elf="$out/glowcheck-rp2040.elf"
+rm -f "$rp_elf"
+if cargo build -q --release -p glowcheck-rp2040 --target thumbv6m-none-eabi 2>"$out/rp2040.err"; then
+    cp "$CARGO_TARGET_DIR/thumbv6m-none-eabi/release/glowcheck-rp2040" "$rp_elf"
+    ok "glowcheck-rp2040 builds for thumbv6m-none-eabi"
+    panic_sites "$rp_elf" >"$out/rp2040-panic-sites.txt"
+    own="$(grep -E '/lib/src/|/boards/rp2040/src/' "$out/rp2040-panic-sites.txt" || true)"
+    if [ -z "$own" ]; then
+        ok "glowcheck-rp2040: no panic call site in lib or the board's code ($(wc -l <"$out/rp2040-panic-sites.txt") in its dependencies, see $out/rp2040-panic-sites.txt)"
+    else
+        fail "glowcheck-rp2040 has panic call sites in lib or the board's code:"
+        echo "$own" >&2
+    fi
+else
+    fail "glowcheck-rp2040 build for thumbv6m-none-eabi; see $out/rp2040.err"
+    cat "$out/rp2040.err" >&2
+fi
+
+# ---------------------------------------------------------------------------------------------------
 stage "soft-float symbols (thumbv6m release images)"
 # Soft-float arithmetic, comparison and conversion routines of compiler-builtins/libgcc, and the
 # common libm entry points: none may be in a float-free image.
@@ -259,7 +291,7 @@ float_probe="__aeabi_fadd __aeabi_dmul __adddf3 __mulsf3 __divdf3 __fixsfsi __fi
 int_probe="__aeabi_uidiv __aeabi_uldivmod __aeabi_lmul __udivti3 __multi3 __ashldi3 __clzsi2 __aeabi_memcpy __udivmoddi4"
 for s in $float_probe; do grep -qE "$float_re" <<<"$s" || fail "soft-float filter misses $s"; done
 for s in $int_probe; do grep -qE "$float_re" <<<"$s" && fail "soft-float filter flags integer routine $s"; done
-for elf in "$CARGO_TARGET_DIR/thumbv6m-none-eabi/release/glowcheck-qemu" "$api_elf" "$out/glowcheck-pipeline-thumbv6m-none-eabi.elf"; do
+for elf in "$CARGO_TARGET_DIR/thumbv6m-none-eabi/release/glowcheck-qemu" "$api_elf" "$out/glowcheck-pipeline-thumbv6m-none-eabi.elf" "$rp_elf"; do
     [ -f "$elf" ] || { fail "missing image $elf"; continue; }
     syms="$("$nm" "$elf" | awk '{print $NF}' | sort -u)"
     bad="$(grep -E "$float_re" <<<"$syms" || true)"
@@ -297,12 +329,15 @@ for t in $targets; do
     [ -f "$elf" ] && sizes glowcheck-pipeline "$t" "$elf"
 done
 [ -f "$api_elf" ] && sizes glowcheck-nopanic thumbv6m-none-eabi "$api_elf"
+[ -f "$rp_elf" ] && sizes glowcheck-rp2040 thumbv6m-none-eabi "$rp_elf"
 [ -n "$stack_bytes" ] && echo "glowcheck-nopanic stack_bytes (thumbv6m code, painted and scanned): $stack_bytes" | tee -a "$out/sizes.txt"
 
 # Instruction counts and stack of the whole pipeline on the M0 code (boards/measure.sh): more than 5 %
 # over boards/expected/measure.json fails, any change prints; --bless rewrites the baseline.
 if bash "$here/measure.sh" thumbv6m-none-eabi >"$out/measure.json" 2>"$out/measure.err"; then
     cat "$out/measure.json"
+    grep -q '"count_source": "plugin"' "$out/measure.json" \
+        || echo "  note: instruction counts from SysTick (+- 40), not the counting plugin: $(head -n 1 "$out/measure.err")" >&2
     mgolden="$here/expected/measure.json"
     if [ "$bless" = 1 ]; then
         cp "$out/measure.json" "$mgolden"
@@ -335,7 +370,8 @@ PY
         fail "no instruction-count baseline; create it with: bash boards/check.sh --bless"
     fi
 else
-    fail "boards/measure.sh failed; see $out/measure.err"
+    fail "boards/measure.sh failed (a build, the QEMU run, or a plugin-vs-SysTick cross-check):"
+    cat "$out/measure.err" >&2
 fi
 
 # Size baselines: an image that grew more than 5 % over boards/expected/sizes.txt fails (lib changes

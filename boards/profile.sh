@@ -32,7 +32,7 @@ for line in res.splitlines() + ["0x0"]:
         if cur is not None:
             pairs = list(zip(frames[0::2], frames[1::2]))
             own = [f"{loc.split('/lib/src/')[1]} ({re.sub(r'::h[0-9a-f]{16}$', '', fn)})"
-                   for fn, loc in pairs if "/main/lib/src/" in loc]
+                   for fn, loc in pairs if "/lib/src/" in loc]
             where[cur] = own[0] if own else "outside lib: " + re.sub(r"::h[0-9a-f]{16}$", "", pairs[-1][0] if pairs else "?")
         cur, frames = int(line, 16), []
     else:

@@ -3,6 +3,8 @@
 #![no_main]
 use libfuzzer_sys::fuzz_target;
 
+#[path = "../../host-sim/src/excerpt.rs"]
+mod excerpt;
 #[allow(dead_code)]
 #[path = "../../host-sim/src/trace/mod.rs"]
 mod trace;

@@ -101,7 +101,8 @@ impl Defaults {
         if let Some(m) = top.str_opt("mode")? {
             if !["verify", "calibrate", "blind"].contains(&m) {
                 return Err(format!(
-                    "`mode` = {m:?}: expected \"verify\", \"calibrate\" or \"blind\""
+                    "`mode` = {}: expected \"verify\", \"calibrate\" or \"blind\"",
+                    crate::excerpt::excerpt(m, '"')
                 ));
             }
             d.mode = Some(m.to_string());

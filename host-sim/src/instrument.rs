@@ -27,6 +27,7 @@
 //!
 //! Unknown keys are errors (a misspelt key must not fall back to a default silently); every error names
 //! the key. The plain polynomial is converted to lib's normalised map by [`crate::map_convert`].
+use crate::excerpt::excerpt;
 use crate::map_convert;
 use crate::toml_keys::{parse, Section};
 use glowcheck::calibrate::WavelengthMap;
@@ -177,6 +178,7 @@ fn read_air(a: &Section<'_>) -> Result<Air, String> {
         "standard" | "vacuum" => {
             for k in conditions {
                 if a.value(k).is_some() {
+                    // `medium` is one of the two words matched above.
                     return Err(format!(
                         "`{}` given, but `air.medium` is {medium:?} (use \"measured\")",
                         a.name(k)
@@ -204,7 +206,8 @@ fn read_air(a: &Section<'_>) -> Result<Air, String> {
             Ok(Air::Conditions(c))
         }
         other => Err(format!(
-            "`air.medium` = {other:?}: expected \"standard\", \"vacuum\" or \"measured\""
+            "`air.medium` = {}: expected \"standard\", \"vacuum\" or \"measured\"",
+            excerpt(other, '"')
         )),
     }
 }

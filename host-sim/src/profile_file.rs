@@ -22,6 +22,7 @@
 //! isotope_required = false              # an undeterminable isotope share makes it inconclusive
 //! max_drift_nm = 0.5                    # calibrate modes: largest drift from the stored map
 //! ```
+use crate::excerpt::excerpt;
 use crate::toml_keys::{parse, Section};
 use glowcheck::judge::{profile, ExpectedSpecies, TubeProfile, BUNDLED, MAX_SPECIES};
 use glowcheck::predict::Nucleus;
@@ -44,7 +45,8 @@ pub fn resolve(arg: &str) -> Result<(String, TubeProfile), String> {
     let path = Path::new(arg);
     if !path.exists() {
         return Err(format!(
-            "--profile {arg:?}: neither a bundled profile ({}) nor an existing file",
+            "--profile {}: neither a bundled profile ({}) nor an existing file",
+            excerpt(arg, '"'),
             bundled_names()
         ));
     }
@@ -73,7 +75,7 @@ pub fn parse_profile(text: &str) -> Result<(Option<String>, TubeProfile), String
             .str_opt("nucleus")?
             .ok_or_else(|| format!("missing key `{}` (H, D, He4, ...)", e.name("nucleus")))?;
         let nucleus = Nucleus::from_symbol(sym)
-            .map_err(|err| format!("`{}` = {sym:?}: {err}", e.name("nucleus")))?;
+            .map_err(|err| format!("`{}` = {}: {err}", e.name("nucleus"), excerpt(sym, '"')))?;
         let share = e.numbers_opt("share", 2, 2)?.ok_or_else(|| {
             format!(
                 "missing key `{}` ([min, max] fractions of the element's light)",

@@ -1,5 +1,7 @@
 //! Reading typed values out of a parsed TOML table with errors that name the key, and refusing keys
-//! nobody reads (a typo must not silently fall back to a default).
+//! nobody reads (a typo must not silently fall back to a default). Input quoted in a message is cut to
+//! a short excerpt ([`crate::excerpt`]).
+use crate::excerpt::excerpt;
 use std::cell::RefCell;
 use toml::{Table, Value};
 
@@ -228,8 +230,8 @@ impl<'a> Section<'a> {
         match unknown.first() {
             None => Ok(()),
             Some(k) => Err(format!(
-                "unknown key `{}` (misspelt? the README lists the keys)",
-                self.name(k)
+                "unknown key {} (misspelt? the README lists the keys)",
+                excerpt(&self.name(k), '`')
             )),
         }
     }
@@ -245,7 +247,7 @@ fn number(v: &Value) -> Option<f64> {
 
 fn describe(v: &Value) -> String {
     match v {
-        Value::String(s) => format!("the string {s:?}"),
+        Value::String(s) => format!("the string {}", excerpt(s, '"')),
         Value::Integer(i) => format!("the whole number {i}"),
         Value::Float(f) => format!("the number {f}"),
         Value::Boolean(b) => format!("{b}"),
@@ -254,7 +256,71 @@ fn describe(v: &Value) -> String {
 }
 
 /// Parses TOML text, naming the file in the error.
+///
+/// The parser's own report prints the whole offending line (megabytes, for a huge value); this one
+/// says where, what, and quotes an excerpt of the line.
 pub fn parse(text: &str, what: &str) -> Result<Table, String> {
-    text.parse::<Table>()
-        .map_err(|e| format!("{what}: not valid TOML: {}", e.to_string().trim_end()))
+    text.parse::<Table>().map_err(|e| {
+        let message = e.message().trim_end();
+        let Some(at) = e.span().map(|s| s.start.min(text.len())) else {
+            return format!("{what}: not valid TOML: {message}");
+        };
+        // Byte offsets from the parser fall on character boundaries; `get` keeps a wrong one harmless.
+        let before = text.get(..at).unwrap_or("");
+        let line_start = before.rfind('\n').map_or(0, |i| i + 1);
+        let line_no = before.matches('\n').count() + 1;
+        let column = before.get(line_start..).map_or(0, |s| s.chars().count()) + 1;
+        let rest = text.get(line_start..).unwrap_or("");
+        let line = rest.split('\n').next().unwrap_or("").trim_end_matches('\r');
+        format!(
+            "{what}: not valid TOML: TOML parse error at line {line_no}, column {column}: {message} (line {line_no} is {})",
+            excerpt(line, '"')
+        )
+    })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn parse_errors_say_where_and_quote_the_line() {
+        let e = parse("a = 1\nb = [1,\n\"x\" = 2\n", "test file").unwrap_err();
+        assert!(
+            e.starts_with("test file: not valid TOML: TOML parse error at line 3, column "),
+            "{e}"
+        );
+        let e = parse("[t]\nλ = 1\n", "f").unwrap_err();
+        assert!(e.contains("at line 2, column 1: "), "{e}");
+        assert!(e.ends_with("(line 2 is \"λ = 1\")"), "{e}");
+        let e = parse("name = \"bench\n", "f").unwrap_err();
+        assert!(e.contains("at line 1, column 14: "), "{e}");
+    }
+
+    #[test]
+    fn errors_quote_a_bounded_excerpt() {
+        let huge = "x".repeat(1 << 20);
+        let texts = [
+            format!("pixels = 7{}\n", "7".repeat(1 << 20)),
+            format!("name = \"{huge}\n"),
+            format!("a = 1\na = \"{huge}\"\n"),
+        ];
+        for t in &texts {
+            let e = parse(t, "f").unwrap_err();
+            assert!(
+                e.len() < 400,
+                "{} bytes: {}",
+                e.len(),
+                e.get(..400).unwrap_or(&e)
+            );
+            assert!(e.contains("…") && e.contains(" bytes)"), "{e}");
+        }
+        let table = parse(&format!("v = \"{huge}\"\n{huge} = 1\n"), "f").unwrap();
+        let top = Section::top(&table);
+        let e = top.int_opt("v", 0, 1).unwrap_err();
+        assert!(e.len() < 200 && e.contains("(1048576 bytes)"), "{e}");
+        let e = top.finish().unwrap_err();
+        assert!(e.len() < 200 && e.starts_with("unknown key `xxx"), "{e}");
+        assert!(e.contains("…` (1048576 bytes)"), "{e}");
+    }
 }

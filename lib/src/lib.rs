@@ -19,6 +19,7 @@
 #![forbid(unsafe_code)]
 #![deny(missing_docs)]
 
+pub mod acquire;
 pub mod bounded;
 pub mod calibrate;
 pub mod check;

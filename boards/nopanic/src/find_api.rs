@@ -76,7 +76,8 @@ fn building_blocks(c: &Conditioned, k: &Knobs) {
 
     let mut base = [0i32; PIXELS];
     let mut tmp = [0i32; PIXELS];
-    baseline::estimate_baseline(&c.values, &c.flags, &nm, k.half, &mut base, &mut tmp);
+    let warm = k.reach > k.half;
+    baseline::estimate_baseline(&c.values, &c.flags, &nm, k.half, warm, &mut base, &mut tmp);
     detect::smooth_residual(&c.values, &base, &mut tmp);
 
     let mut cands: Vec<detect::Candidate, { detect::MAX_CANDIDATES }> = Vec::new();
@@ -85,7 +86,7 @@ fn building_blocks(c: &Conditioned, k: &Knobs) {
     ));
     let extra = detect::Candidate {
         pos: k.mark.0,
-        strength: i64::from(k.config.threshold_sigma_q8),
+        strength: i32::from(k.config.threshold_sigma_q8),
     };
     keep_b(detect::push_strongest(&mut cands, extra));
     detect::thin(&mut cands, k.config.min_separation_px_q8);
@@ -99,14 +100,18 @@ fn building_blocks(c: &Conditioned, k: &Knobs) {
     };
     let (s0, s_min, s_max) = k.sigma_q16;
     for cand in cands.iter() {
-        let f = fit::fit_line(&data, cand.pos, s0, s_min, s_max);
+        let f = fit::fit_line(&data, cand.pos, s0, s_min, s_max, k.reach);
         keep(f.center_q16 as u64 ^ f.center_sigma_q16 as u64 ^ f.sigma_q16 as u64);
         keep(f.height_q8 as u64 ^ f.lo as u64 ^ f.hi as u64);
         keep_b(f.converged);
+        keep(u64::from(f.steps));
         keep(fit::area(&f) as u64);
     }
 
     keep(math::exp_neg_q16(s0) as u64);
+    keep(math::mul_u32_wide(k.wide as u32, (k.wide >> 32) as u32));
+    keep(math::mul_i32_wide(k.wide as i32, (k.wide >> 32) as i32) as u64);
+    keep_b(math::above_sigmas(s0, s_min, s_max));
     keep_i(math::isqrt_u128(k.wide as u128) as i128);
     keep(math::isqrt_i64(s_max) as u64);
     keep_i(math::div_round_i128(k.wide, k.den));

@@ -6,7 +6,7 @@
 //! input. Inputs are read with `read_volatile` and results written with `write_volatile`
 //! ([`probe`]), so the optimiser can neither fold the calls to constants nor drop them.
 //!
-//! One module per lib module calls its public functions: [`predict_api`], [`fixed_api`],
+//! One module per lib module calls its public functions: [`acquire_api`], [`predict_api`], [`fixed_api`],
 //! [`condition_api`], [`find_api`], [`calibrate_api`], [`judge_api`] (judge and matching), [`check_api`] (the whole pipeline). A new public function in lib gets its call here.
 //!
 //! When the proof fails, the link error names the undefined symbol. `--features locate` swaps in a
@@ -17,6 +17,7 @@
 #![no_std]
 #![no_main]
 
+mod acquire_api;
 mod calibrate_api;
 mod check_api;
 mod condition_api;
@@ -58,6 +59,9 @@ fn panic(_info: &core::panic::PanicInfo) -> ! {
 fn main() -> ! {
     // `cfg!` is a constant, so a module left out by its feature leaves no code behind: `check.sh`
     // uses that to name the modules that hold a panic path.
+    if cfg!(feature = "acquire") {
+        acquire_api::run();
+    }
     if cfg!(feature = "predict") {
         predict_api::run();
     }

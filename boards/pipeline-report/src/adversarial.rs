@@ -200,7 +200,7 @@ mod tests {
         let mut buf = [0u16; MAX_ADVERSARY_PIXELS];
         for a in ADVERSARIES {
             let n = a.fill(&mut buf);
-            assert!(n >= 1 && n <= MAX_ADVERSARY_PIXELS, "{}", a.name());
+            assert!((1..=MAX_ADVERSARY_PIXELS).contains(&n), "{}", a.name());
             assert!(buf[..n].iter().all(|&v| v <= FULL_SCALE), "{}", a.name());
         }
         assert_eq!(Adversary::SpikeComb4096.fill(&mut buf), 4096);

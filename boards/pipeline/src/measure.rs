@@ -1,15 +1,24 @@
-//! Instruction-count build: each stage of one check runs between two time stamps read from SysTick
-//! on the core clock. Under QEMU's `-icount shift=0` every instruction advances virtual time by
-//! exactly 1 ns, so the ticks are deterministic and proportional to instructions executed; a
-//! register-only loop of a known instruction count, timed the same way, gives the ratio
-//! (`boards/measure.sh` does the division). One tick is 40 instructions on `mps2-an385`'s 25 MHz
-//! clock, so every count is ± 1 tick.
+//! Instruction-count build: each stage of one check runs between two marks. A mark takes a time
+//! stamp from SysTick on the core clock and then calls [`glowcheck_marker`], an address QEMU's
+//! counting plugin (`boards/icount-plugin/`) watches: the plugin writes how many instructions had
+//! executed at each marker hit, exactly. The n-th hit is the n-th call of the marker in the run; the
+//! firmware prints the hit number of every mark (`hits` line, `hits A B` on each adversarial line), so
+//! `boards/measure.sh` pairs the plugin's counts with the stages without relying on their order.
 //!
-//! Stamp pairs: 0 → 1 `Checker::new` (line
+//! The SysTick stamps are the cross-check (and the fallback when the plugin cannot be built): under
+//! QEMU's `-icount shift=0` every instruction advances virtual time by exactly 1 ns, so the ticks are
+//! deterministic and proportional to instructions executed; a register-only loop of a known instruction
+//! count, timed the same way, gives the ratio (`boards/measure.sh` does the division). One tick is 40
+//! instructions on `mps2-an385`'s 25 MHz clock, so a SysTick count is ± 1 tick.
+//!
+//! Mark pairs: 0 → 1 `Checker::new` (line
 //! prediction, once per configuration), 2 → 3 `condition_frame`, 4 → 5 `find_peaks`, 6 → 7
 //! `Checker::check` in calibrate mode (the whole pipeline again, conditioning and peak finding
 //! included), 8 → 9 `Checker::check` in verify mode (no map fit), 10 → 11 the f32 baseline of
-//! conditioning, peak finding and centroiding. The frame is the hydrogen tube (`h-tube`).
+//! conditioning, peak finding and centroiding, 12 → 13 the calibration loop, 14 → 15 nothing (the cost
+//! of a mark itself, which `boards/measure.sh` subtracts from the plugin's counts; a bare pair of
+//! [`stamp`]s, which time the adversarial checks, is measured the same way). The frame is the hydrogen
+//! tube (`h-tube`).
 //!
 //! Stack: before each measured call the free stack is painted again and afterwards scanned, so
 //! each call's depth below its caller's stack pointer is printed on its own.
@@ -40,8 +49,12 @@ use glowcheck_pipeline_report::{check, checker, config_for, mode_name, Case, CAS
 static WRAPS: AtomicU32 = AtomicU32::new(0);
 /// Time stamps (SysTick ticks, low and high word) taken by [`mark`].
 static STAMPS: [AtomicU32; 2 * MARKS] = [const { AtomicU32::new(0) }; 2 * MARKS];
+/// The marker hit number of each mark, for pairing the plugin's counts with [`STAMPS`].
+static HIT_OF: [AtomicU32; MARKS] = [const { AtomicU32::new(0) }; MARKS];
 /// Number of marks.
-const MARKS: usize = 14;
+const MARKS: usize = 16;
+/// Calls of [`glowcheck_marker`] so far.
+static HITS: AtomicU32 = AtomicU32::new(0);
 
 #[cfg(not(feature = "profile"))]
 #[exception]
@@ -133,30 +146,67 @@ fn now() -> u64 {
     }
 }
 
-/// Records time stamp `k`.
+/// The address QEMU's counting plugin watches (`boards/measure.sh` finds it with `llvm-nm`): each
+/// call is one marker hit. Returns the hit's number (0, 1, 2, … in call order). Not inlined, so every
+/// mark executes the same first instruction; the store keeps the call from being optimised away.
+#[inline(never)]
+#[no_mangle]
+extern "C" fn glowcheck_marker() -> u32 {
+    let n = HITS.load(Ordering::Relaxed);
+    HITS.store(n.wrapping_add(1), Ordering::Relaxed);
+    n
+}
+
+/// A SysTick time stamp followed by a marker hit: `(ticks, hit number)`. Stamp first, marker last, so
+/// the instructions between two stamps and between their two hits are the same, give or take the
+/// less-than-a-tick SysTick truncation.
+#[inline(never)]
+fn stamp() -> (u64, u32) {
+    compiler_fence(Ordering::SeqCst);
+    let t = now();
+    let hit = glowcheck_marker();
+    compiler_fence(Ordering::SeqCst);
+    (t, hit)
+}
+
+/// Records time stamp and marker hit `k`.
 #[inline(never)]
 fn mark(k: usize) {
     compiler_fence(Ordering::SeqCst);
     #[cfg(feature = "profile")]
     STAGE.store(k as u32, Ordering::Relaxed);
-    let t = now();
-    if let (Some(lo), Some(hi)) = (STAMPS.get(2 * k), STAMPS.get(2 * k + 1)) {
+    let (t, hit) = stamp();
+    if let (Some(lo), Some(hi), Some(h)) = (STAMPS.get(2 * k), STAMPS.get(2 * k + 1), HIT_OF.get(k))
+    {
         lo.store(t as u32, Ordering::Relaxed);
         hi.store((t >> 32) as u32, Ordering::Relaxed);
+        h.store(hit, Ordering::Relaxed);
     }
     compiler_fence(Ordering::SeqCst);
 }
 
+/// The marker hit number of mark `k`.
+fn hit_of(k: usize) -> u32 {
+    HIT_OF.get(k).map_or(0, |h| h.load(Ordering::Relaxed))
+}
+
+/// The time stamp of mark `k` (SysTick ticks; wraps in the bits from 24 up).
+fn stamp_of(k: usize) -> u64 {
+    let lo = STAMPS.get(2 * k).map_or(0, |s| s.load(Ordering::Relaxed));
+    let hi = STAMPS
+        .get(2 * k + 1)
+        .map_or(0, |s| s.load(Ordering::Relaxed));
+    (u64::from(hi) << 32) | u64::from(lo)
+}
+
 /// Ticks between marks `a` and `b`.
 fn ticks(a: usize, b: usize) -> u64 {
-    let at = |k: usize| {
-        let lo = STAMPS.get(2 * k).map_or(0, |s| s.load(Ordering::Relaxed));
-        let hi = STAMPS
-            .get(2 * k + 1)
-            .map_or(0, |s| s.load(Ordering::Relaxed));
-        (u64::from(hi) << 32) | u64::from(lo)
-    };
-    at(b).saturating_sub(at(a))
+    stamp_of(b).saturating_sub(stamp_of(a))
+}
+
+/// SysTick wraps (so runs of its exception handler) between marks `a` and `b`.
+fn wraps(a: usize, b: usize) -> u64 {
+    (stamp_of(b) >> 24).saturating_sub(stamp_of(a) >> 24)
 }
 
 /// Iterations of the calibration loop (two instructions each: `subs`, `bne`).
@@ -316,6 +366,11 @@ pub fn run(buffers: &mut Buffers<PIXELS>, report: &mut Report, syst: SYST) -> de
     mark(12);
     calibration_loop();
     mark(13);
+    mark(14);
+    mark(15);
+    // The cost of a bare stamp pair, which the adversarial checks are timed with.
+    let (_, empty_stamp_0) = stamp();
+    let (_, empty_stamp_1) = stamp();
     let Ok(mut out) = hio::hstdout() else {
         return debug::EXIT_FAILURE;
     };
@@ -341,7 +396,8 @@ pub fn run(buffers: &mut Buffers<PIXELS>, report: &mut Report, syst: SYST) -> de
     };
     let printed = writeln!(
         out,
-        "ticks calibration {} loop_instructions {} predict {} condition {} find {} check_calibrate {} check_verify {} float_baseline {}\n\
+        "ticks calibration {} loop_instructions {} predict {} condition {} find {} check_calibrate {} check_verify {} float_baseline {} empty {}\n\
+         hits calibration {} {} predict {} {} condition {} {} find {} {} check_calibrate {} {} check_verify {} {} float_baseline {} {} empty {} {} empty_stamp {empty_stamp_0} {empty_stamp_1} total {} calibration_wraps {}\n\
          stack_bytes predict {stack_new} condition {stack_condition} find {stack_find} check_calibrate {stack_calibrate} check_verify {stack_verify} float_baseline {stack_float}\n\
          counts peaks {} lines_calibrate {lines_calibrate} lines_verify {} float_peaks {n_float}",
         ticks(12, 13),
@@ -352,6 +408,25 @@ pub fn run(buffers: &mut Buffers<PIXELS>, report: &mut Report, syst: SYST) -> de
         ticks(6, 7),
         ticks(8, 9),
         ticks(10, 11),
+        ticks(14, 15),
+        hit_of(12),
+        hit_of(13),
+        hit_of(0),
+        hit_of(1),
+        hit_of(2),
+        hit_of(3),
+        hit_of(4),
+        hit_of(5),
+        hit_of(6),
+        hit_of(7),
+        hit_of(8),
+        hit_of(9),
+        hit_of(10),
+        hit_of(11),
+        hit_of(14),
+        hit_of(15),
+        HITS.load(Ordering::Relaxed),
+        wraps(12, 13),
         peaks.len(),
         report.lines.len()
     );
@@ -375,8 +450,8 @@ static mut ADV_BUFFERS: Buffers<MAX_ADVERSARY_PIXELS> = Buffers::new();
 const MODES: [Mode; 3] = [Mode::Verify, Mode::Calibrate, Mode::CalibrateBlind];
 
 /// Times `Checker::check` on the typical frame and on every [`Adversary`] in each mode and prints one
-/// line per check: `adversary NAME MODE pixels N ticks T result VERDICT|error` (`typical h-tube …` for
-/// the reference). The checker of each mode and frame length is built once, outside the timing.
+/// line per check: `adversary NAME MODE pixels N ticks T hits A B result VERDICT|error` (`typical
+/// h-tube …` for the reference; A and B are the marker hits before and after the check). The checker of each mode and frame length is built once, outside the timing.
 /// In the profile build each check's samples carry stage 16 + 3 × adversary + mode (the typical
 /// frame is adversary 15).
 fn adversaries(out: &mut hio::HostStream, report: &mut Report) -> Result<(), ()> {
@@ -406,12 +481,13 @@ fn adversaries(out: &mut hio::HostStream, report: &mut Report) -> Result<(), ()>
             16 + 3 * ADVERSARIES.len() as u32 + mode as u32,
             Ordering::Relaxed,
         );
-        let t0 = now();
+        let (t0, h0) = stamp();
         let r = typical.check(signal, None, None, buffers.workspace(PIXELS), report);
-        let t = now().saturating_sub(t0);
+        let (t1, h1) = stamp();
+        let t = t1.saturating_sub(t0);
         writeln!(
             out,
-            "typical h-tube {} pixels {PIXELS} ticks {t} result {}",
+            "typical h-tube {} pixels {PIXELS} ticks {t} hits {h0} {h1} result {}",
             mode_name(mode),
             if r.is_ok() {
                 report.verdict.as_str()
@@ -420,7 +496,7 @@ fn adversaries(out: &mut hio::HostStream, report: &mut Report) -> Result<(), ()>
             }
         )
         .map_err(|_| ())?;
-        for (_k, a) in ADVERSARIES.iter().copied().enumerate() {
+        for (k, a) in ADVERSARIES.iter().copied().enumerate() {
             let n = a.fill(frame);
             let extras = a.extras();
             let checker = match n {
@@ -442,13 +518,16 @@ fn adversaries(out: &mut hio::HostStream, report: &mut Report) -> Result<(), ()>
             };
             let signal = FrameSum::single(frame.get(..n).unwrap_or(&[])).map_err(|_| ())?;
             #[cfg(feature = "profile")]
-            STAGE.store(16 + 3 * _k as u32 + mode as u32, Ordering::Relaxed);
-            let t0 = now();
+            STAGE.store(16 + 3 * k as u32 + mode as u32, Ordering::Relaxed);
+            #[cfg(not(feature = "profile"))]
+            let _ = k;
+            let (t0, h0) = stamp();
             let r = checker.check(signal, dark_sum, gain_table, buffers.workspace(n), report);
-            let t = now().saturating_sub(t0);
+            let (t1, h1) = stamp();
+            let t = t1.saturating_sub(t0);
             writeln!(
                 out,
-                "adversary {} {} pixels {n} ticks {t} result {}",
+                "adversary {} {} pixels {n} ticks {t} hits {h0} {h1} result {}",
                 a.name(),
                 mode_name(mode),
                 if r.is_ok() {

@@ -6,13 +6,19 @@
 //! - an optional header line (the first meaningful line, when it is not all numbers);
 //! - counts may be decimal (co-added or averaged exports) and are rounded to the nearest whole count,
 //!   halves away from zero; with a semicolon or tab separator a decimal comma is accepted (`812,5`);
-//! - pixel indices must be whole numbers rising by one (starting anywhere, often 0 or 1); the pixel
-//!   index of the result is the position in the file, first value = 0;
-//! - empty lines and lines starting with `#` are skipped.
+//! - pixel indices must be whole numbers 0 ..= 4294967295 rising by one (starting anywhere, often 0 or
+//!   1); the pixel index of the result is the position in the file, first value = 0;
+//! - empty lines and lines starting with `#` are skipped; line ends `\n`, `\r\n` or a bare `\r` (old Mac
+//!   spreadsheet exports); a UTF-8 byte-order mark is skipped by [`Trace::parse_any`].
 //!
 //! The result is a trace with one signal frame and no ADC resolution (CSV does not say).
 
-use super::{Frame, FrameKind, Trace, TraceError, MAX_PIXELS};
+use super::{lines, Frame, FrameKind, Trace, TraceError, MAX_PIXELS};
+use crate::excerpt::excerpt;
+
+/// Largest pixel index column 1 may hold: every index up to it, plus one, is exact in an f64, so
+/// "rising by one" is checked exactly.
+const MAX_PIXEL_INDEX: f64 = u32::MAX as f64;
 
 /// Field separator of a CSV file.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
@@ -75,7 +81,7 @@ pub fn parse(text: &str) -> Result<Trace, TraceError> {
     let mut counts = Vec::new();
     let mut next_pixel: Option<f64> = None;
     let mut first = true;
-    for (idx, raw) in text.lines().enumerate() {
+    for (idx, raw) in lines(text).enumerate() {
         let n = idx + 1;
         let line = raw.trim();
         if line.is_empty() || line.starts_with('#') {
@@ -115,15 +121,18 @@ pub fn parse(text: &str) -> Result<Trace, TraceError> {
             let p = number(fields[0], s).ok_or_else(|| {
                 TraceError::at(
                     n,
-                    format!("expected a pixel index in column 1, found {:?}", fields[0]),
+                    format!(
+                        "expected a pixel index in column 1, found {}",
+                        excerpt(fields[0], '"')
+                    ),
                 )
             })?;
-            if p.fract() != 0.0 || p < 0.0 {
+            if p.fract() != 0.0 || !(0.0..=MAX_PIXEL_INDEX).contains(&p) {
                 return Err(TraceError::at(
                     n,
                     format!(
-                        "expected a whole pixel index >= 0 in column 1, found {:?}",
-                        fields[0]
+                        "expected a whole pixel index 0..={MAX_PIXEL_INDEX} in column 1, found {}",
+                        excerpt(fields[0], '"')
                     ),
                 ));
             }
@@ -132,7 +141,8 @@ pub fn parse(text: &str) -> Result<Trace, TraceError> {
                     return Err(TraceError::at(
                         n,
                         format!(
-                            "expected pixel index {want} (one more than the line before), found {p}"
+                            "expected pixel index {want} (one more than the line before), found {}",
+                            excerpt(fields[0], '"')
                         ),
                     ));
                 }
@@ -143,7 +153,10 @@ pub fn parse(text: &str) -> Result<Trace, TraceError> {
         let c = number(count_field, s).ok_or_else(|| {
             TraceError::at(
                 n,
-                format!("expected a count in column {col}, found {count_field:?}"),
+                format!(
+                    "expected a count in column {col}, found {}",
+                    excerpt(count_field, '"')
+                ),
             )
         })?;
         let r = c.round();
@@ -151,8 +164,9 @@ pub fn parse(text: &str) -> Result<Trace, TraceError> {
             return Err(TraceError::at(
                 n,
                 format!(
-                    "expected a count 0..={} in column {col}, found {count_field:?}",
-                    u32::MAX
+                    "expected a count 0..={} in column {col}, found {}",
+                    u32::MAX,
+                    excerpt(count_field, '"')
                 ),
             ));
         }
@@ -218,5 +232,44 @@ mod tests {
         assert_eq!(e.line, Some(1));
         let e = parse("\n# nothing\n").unwrap_err();
         assert_eq!(e.line, None);
+    }
+
+    #[test]
+    fn pixel_indices_rise_by_one_exactly() {
+        // Past 2^53 an f64 index plus one is the same index: such files once passed as "rising by one".
+        let e = parse("1e20,5\n1e20,6\n").unwrap_err();
+        assert_eq!(e.line, Some(1));
+        assert!(e.message.contains("0..=4294967295"), "{e}");
+        assert_eq!(counts("4294967294,5\n4294967295,6\n"), [5, 6]);
+        let e = parse("4294967295,5\n4294967296,6\n").unwrap_err();
+        assert_eq!(e.line, Some(2));
+        let e = parse("5,1\n7,2\n").unwrap_err();
+        assert_eq!(
+            e.message,
+            "expected pixel index 6 (one more than the line before), found \"7\""
+        );
+    }
+
+    #[test]
+    fn errors_quote_a_bounded_excerpt() {
+        let huge = "7".repeat(1 << 20);
+        let cases = [
+            format!("5\n{huge}x\n"),
+            format!("0,5\n1,{huge}x\n"),
+            format!("0,5\n1,-{huge}\n"),
+            format!("0,5\n{huge}x,6\n"),
+            format!("0,5\n{huge},6\n"),
+            format!("0,5\n1.{huge},6\n"),
+        ];
+        for text in &cases {
+            let m = parse(text).unwrap_err().to_string();
+            assert!(
+                m.len() < 300,
+                "{} bytes: {}",
+                m.len(),
+                m.get(..300).unwrap_or(&m)
+            );
+            assert!(m.contains("…") && m.contains(" bytes)"), "{m}");
+        }
     }
 }

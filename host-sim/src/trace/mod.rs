@@ -2,8 +2,9 @@
 //!
 //! # The glowtrace text format, version 1
 //!
-//! A UTF-8 text file, one item per line, `\n` or `\r\n` line ends. Lines that are empty or start with
-//! `#` (after optional spaces) are comments and carry nothing.
+//! A UTF-8 text file, one item per line. Line ends are `\n`, `\r\n` or a bare `\r` (old Mac style), in
+//! any mix; a UTF-8 byte-order mark at the start is skipped. Lines that are empty or start with `#`
+//! (after optional spaces) are comments and carry nothing.
 //!
 //! ```text
 //! glowtrace 1
@@ -24,8 +25,8 @@
 //! end
 //! ```
 //!
-//! 1. **Magic line.** The first non-comment line is `glowtrace <version>`; this code reads version 1
-//!    and rejects any other version by name.
+//! 1. **Magic line.** The first non-comment line is `glowtrace <version>` and nothing else; this code
+//!    reads version 1 and rejects any other version by name.
 //! 2. **Header keys** (`key: value`, the value trimmed of surrounding spaces):
 //!    - `pixels` (required): pixel count of every frame, 1 to [`MAX_PIXELS`].
 //!    - `adc_bits` (required): ADC resolution, 1 to 24; full scale is 2^bits − 1 counts.
@@ -52,6 +53,9 @@
 //! round-trip form for the map coefficients), so write → read is lossless.
 //!
 //! Plain CSV files (one column of counts, or `pixel,counts`) are read by [`csv`]; see there.
+//!
+//! Errors quote the offending input through [`crate::excerpt`]: at most a few dozen characters, so a
+//! 4 MiB field gives a one-line message.
 
 pub mod csv;
 pub mod error;
@@ -181,6 +185,30 @@ impl Trace {
     }
 }
 
+/// The lines of a text file, for both readers: ends are `\n`, `\r\n` or a bare `\r`; the end of the
+/// last line is optional and does not start an empty line (as [`str::lines`], which knows no bare `\r`).
+fn lines(text: &str) -> impl Iterator<Item = &str> {
+    let mut rest = text;
+    std::iter::from_fn(move || {
+        if rest.is_empty() {
+            return None;
+        }
+        let (line, after) = match rest.find(['\r', '\n']) {
+            Some(end) => {
+                let (line, tail) = rest.split_at(end);
+                let tail = tail
+                    .strip_prefix("\r\n")
+                    .or_else(|| tail.get(1..))
+                    .unwrap_or("");
+                (line, tail)
+            }
+            None => (rest, ""),
+        };
+        rest = after;
+        Some(line)
+    })
+}
+
 /// Writes to standard output; a reader that stops early (`| head`) is not an error.
 pub fn write_stdout(text: &str) -> Result<(), String> {
     use std::io::Write as _;
@@ -189,5 +217,47 @@ pub fn write_stdout(text: &str) -> Result<(), String> {
         Ok(()) => Ok(()),
         Err(e) if e.kind() == std::io::ErrorKind::BrokenPipe => Ok(()),
         Err(e) => Err(format!("cannot write to standard output: {e}")),
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn split(text: &str) -> Vec<&str> {
+        lines(text).collect()
+    }
+
+    #[test]
+    fn lines_end_at_lf_crlf_or_bare_cr() {
+        assert_eq!(split("a\nb\r\nc\rd"), ["a", "b", "c", "d"]);
+        assert_eq!(split("a\rb\r"), ["a", "b"]);
+        // Empty lines are kept, whatever ends them; `\r\r\n` is a bare CR, then CRLF.
+        assert_eq!(split("a\r\rb\n\nc\r\r\n"), ["a", "", "b", "", "c", ""]);
+        assert!(split("").is_empty());
+        assert_eq!(split("\n"), [""]);
+        assert_eq!(split("λ\rμ"), ["λ", "μ"]);
+    }
+
+    #[test]
+    fn lines_agree_with_str_lines_without_bare_cr() {
+        for t in ["", "a", "a\n", "a\n\n", "a\r\nb\r\n", "\n\nx", "x\r\n\r\ny"] {
+            assert_eq!(split(t), t.lines().collect::<Vec<_>>(), "{t:?}");
+        }
+    }
+
+    #[test]
+    fn bare_cr_and_byte_order_mark_read_like_lf() {
+        let lf = "glowtrace 1\npixels: 3\nadc_bits: 8\n# c\nframe signal\n1 2 3\nend\n";
+        let want = Trace::parse_any(lf).unwrap();
+        assert_eq!(Trace::parse_any(&lf.replace('\n', "\r")).unwrap(), want);
+        assert_eq!(Trace::parse_any(&format!("\u{feff}{lf}")).unwrap(), want);
+        let csv = "pixel,counts\n0,5\n1,6\n";
+        let want = Trace::parse_any(csv).unwrap();
+        assert_eq!(Trace::parse_any(&csv.replace('\n', "\r")).unwrap(), want);
+        assert_eq!(Trace::parse_any(&format!("\u{feff}{csv}")).unwrap(), want);
+        // Line numbers count bare-CR line ends.
+        let e = Trace::parse_any("glowtrace 1\rpixels: 3\radc_bits: 8\rframe dark\r1 x 3\rend\r");
+        assert_eq!(e.unwrap_err().line, Some(5));
     }
 }

@@ -1,6 +1,7 @@
 //! Reading and writing the glowtrace text format (specified in the parent module).
 
-use super::{Frame, FrameKind, Trace, TraceError, MAX_ADC_BITS, MAX_PIXELS};
+use super::{lines, Frame, FrameKind, Trace, TraceError, MAX_ADC_BITS, MAX_PIXELS};
+use crate::excerpt::excerpt;
 use std::fmt::Write as _;
 
 /// The magic word of the first line.
@@ -19,7 +20,7 @@ fn is_comment(line: &str) -> bool {
 
 /// True when the first meaningful line starts with the magic word.
 pub fn looks_native(text: &str) -> bool {
-    text.lines()
+    lines(text)
         .find(|l| !is_comment(l))
         .is_some_and(|l| l.split_whitespace().next() == Some(MAGIC))
 }
@@ -112,19 +113,22 @@ fn check(t: &Trace) -> Result<(), TraceError> {
     for n in &t.notes {
         if !valid_value(n) {
             return Err(TraceError::file(format!(
-                "note {n:?} has a line break or surrounding spaces"
+                "note {} has a line break or surrounding spaces",
+                excerpt(n, '"')
             )));
         }
     }
     for (k, v) in &t.extras {
         if !valid_key(k) || !k.contains('.') {
             return Err(TraceError::file(format!(
-                "extra key {k:?} must be lower-case letters, digits, '_' or '.', with a dot"
+                "extra key {} must be lower-case letters, digits, '_' or '.', with a dot",
+                excerpt(k, '"')
             )));
         }
         if !valid_value(v) {
             return Err(TraceError::file(format!(
-                "value of {k} has a line break or surrounding spaces"
+                "value of {} has a line break or surrounding spaces",
+                excerpt(k, '\'')
             )));
         }
     }
@@ -161,7 +165,10 @@ fn parse_uint<T: std::str::FromStr>(line: usize, key: &str, v: &str) -> Result<T
     v.parse::<T>().map_err(|_| {
         TraceError::at(
             line,
-            format!("expected a whole number for {key}, found {v:?}"),
+            format!(
+                "expected a whole number for {key}, found {}",
+                excerpt(v, '"')
+            ),
         )
     })
 }
@@ -172,7 +179,7 @@ pub fn parse(text: &str) -> Result<Trace, TraceError> {
     let mut seen: Vec<&str> = Vec::new();
     let mut state = State::Magic;
     let mut last_line = 0;
-    for (idx, raw) in text.lines().enumerate() {
+    for (idx, raw) in lines(text).enumerate() {
         let n = idx + 1;
         last_line = n;
         if is_comment(raw) {
@@ -188,9 +195,23 @@ pub fn parse(text: &str) -> Result<Trace, TraceError> {
                         format!("expected '{MAGIC} {VERSION}' as the first line"),
                     ));
                 }
-                match words.next().map(|v| v.parse::<u32>()) {
-                    Some(Ok(VERSION)) if words.next().is_none() => State::Header,
-                    Some(Ok(v)) => {
+                match words.next().map(|v| (v, v.parse::<u32>())) {
+                    Some((v, Ok(VERSION))) => {
+                        if words.next().is_some() {
+                            // The line is trimmed and starts with the magic word, then the version.
+                            let after = line.get(MAGIC.len()..).unwrap_or("").trim_start();
+                            let after = after.get(v.len()..).unwrap_or("").trim_start();
+                            return Err(TraceError::at(
+                                n,
+                                format!(
+                                    "unexpected text after the version: {} (expected '{MAGIC} {VERSION}' alone on the line)",
+                                    excerpt(after, '"')
+                                ),
+                            ));
+                        }
+                        State::Header
+                    }
+                    Some((_, Ok(v))) => {
                         return Err(TraceError::at(
                             n,
                             format!("glowtrace version {v} is not supported (this build reads version {VERSION})"),
@@ -199,7 +220,7 @@ pub fn parse(text: &str) -> Result<Trace, TraceError> {
                     _ => {
                         return Err(TraceError::at(
                             n,
-                            format!("expected '{MAGIC} {VERSION}', found {line:?}"),
+                            format!("expected '{MAGIC} {VERSION}', found {}", excerpt(line, '"')),
                         ))
                     }
                 }
@@ -225,7 +246,10 @@ pub fn parse(text: &str) -> Result<Trace, TraceError> {
                         let c: u64 = w.parse().map_err(|_| {
                             TraceError::at(
                                 n,
-                                format!("expected a count (whole number 0..={max}), found {w:?}"),
+                                format!(
+                                    "expected a count (whole number 0..={max}), found {}",
+                                    excerpt(w, '"')
+                                ),
                             )
                         })?;
                         if c > max {
@@ -253,7 +277,10 @@ pub fn parse(text: &str) -> Result<Trace, TraceError> {
             State::Done => {
                 return Err(TraceError::at(
                     n,
-                    format!("expected nothing but comments after 'end', found {line:?}"),
+                    format!(
+                        "expected nothing but comments after 'end', found {}",
+                        excerpt(line, '"')
+                    ),
                 ))
             }
         };
@@ -328,24 +355,34 @@ fn header_line<'a>(
         if line.starts_with("frame") {
             return Err(TraceError::at(
                 n,
-                format!("expected 'frame signal' or 'frame dark', found {line:?}"),
+                format!(
+                    "expected 'frame signal' or 'frame dark', found {}",
+                    excerpt(line, '"')
+                ),
             ));
         }
         return Err(TraceError::at(
             n,
-            format!("expected 'key: value', 'frame signal' or 'frame dark', found {line:?}"),
+            format!(
+                "expected 'key: value', 'frame signal' or 'frame dark', found {}",
+                excerpt(line, '"')
+            ),
         ));
     };
     let (key, v) = (key.trim(), value.trim());
     if !valid_key(key) {
         return Err(TraceError::at(
             n,
-            format!("expected a key of lower-case letters, digits, '_' or '.', found {key:?}"),
+            format!(
+                "expected a key of lower-case letters, digits, '_' or '.', found {}",
+                excerpt(key, '"')
+            ),
         ));
     }
     let repeatable = key == "note" || key.contains('.');
     if !repeatable {
         if seen.contains(&key) {
+            // Only known keys get here (others need a dot or fail below): short names.
             return Err(TraceError::at(n, format!("key '{key}' appears twice")));
         }
         seen.push(key);
@@ -377,8 +414,9 @@ fn header_line<'a>(
                 TraceError::at(
                     n,
                     format!(
-                    "expected a whole number of milli-degrees C for sensor_temp_mc, found {v:?}"
-                ),
+                        "expected a whole number of milli-degrees C for sensor_temp_mc, found {}",
+                        excerpt(v, '"')
+                    ),
                 )
             })?)
         }
@@ -399,7 +437,10 @@ fn header_line<'a>(
                     .ok_or_else(|| {
                         TraceError::at(
                             n,
-                            format!("expected a number in wavelength_nm, found {w:?}"),
+                            format!(
+                                "expected a number in wavelength_nm, found {}",
+                                excerpt(w, '"')
+                            ),
                         )
                     })?;
                 c.push(x);
@@ -423,7 +464,10 @@ fn header_line<'a>(
                 .ok_or_else(|| {
                     TraceError::at(
                         n,
-                        format!("expected a number > 0 for electrons_per_count, found {v:?}"),
+                        format!(
+                            "expected a number > 0 for electrons_per_count, found {}",
+                            excerpt(v, '"')
+                        ),
                     )
                 })?;
             t.electrons_per_count = Some(g);
@@ -433,7 +477,11 @@ fn header_line<'a>(
         k => {
             return Err(TraceError::at(
                 n,
-                format!("unknown key '{k}' (keys of other tools need a dot, like 'tool.{k}')"),
+                format!(
+                    "unknown key {} (keys of other tools need a dot, like {})",
+                    excerpt(k, '\''),
+                    excerpt(&format!("tool.{k}"), '\'')
+                ),
             ))
         }
     }
@@ -533,6 +581,56 @@ mod tests {
         let (l, m) = err_line(&format!("{head}wavelength_nm: 1 2 3 4 5\n"));
         assert_eq!(l, Some(4));
         assert!(m.contains("1 to 4"), "{m}");
+    }
+
+    #[test]
+    fn magic_line_errors_say_what_is_wrong() {
+        let (l, m) = err_line("glowtrace 1 beta\npixels: 3\n");
+        assert_eq!(l, Some(1));
+        assert_eq!(
+            m,
+            "unexpected text after the version: \"beta\" (expected 'glowtrace 1' alone on the line)"
+        );
+        let (_, m) = err_line("  glowtrace   1  beta  two\n");
+        assert!(m.contains("version: \"beta  two\""), "{m}");
+        let (_, m) = err_line("glowtrace 3 beta\n");
+        assert!(m.contains("version 3 is not supported"), "{m}");
+        let (_, m) = err_line("glowtrace one\n");
+        assert_eq!(m, "expected 'glowtrace 1', found \"glowtrace one\"");
+    }
+
+    #[test]
+    fn errors_quote_a_bounded_excerpt() {
+        let huge = "7".repeat(1 << 20);
+        let head = "glowtrace 1\npixels: 3\nadc_bits: 8\n";
+        let cases = [
+            format!("{head}frame signal\n1 2 {huge}\nend\n"),
+            format!("{head}frame signal\n1 2 3\nend\n{huge}\n"),
+            format!("{head}{huge}\n"),
+            format!("{head}frame {huge}\n"),
+            format!("glowtrace 1\npixels: {huge}\n"),
+            format!("glowtrace 1\nsensor_temp_mc: {huge}x\n"),
+            format!("glowtrace 1\nwavelength_nm: {huge}x\n"),
+            format!("glowtrace 1\nelectrons_per_count: -{huge}\n"),
+            format!("glowtrace 1\nK{huge}: 1\n"),
+            format!("glowtrace 1\nk{huge}: 1\n"),
+            format!("glowtrace 1 {huge}\n"),
+            format!("glowtrace x{huge}\n"),
+        ];
+        for text in &cases {
+            let m = parse(text).unwrap_err().to_string();
+            assert!(
+                m.len() < 300,
+                "{} bytes: {}",
+                m.len(),
+                m.get(..300).unwrap_or(&m)
+            );
+            assert!(m.contains("…") && m.contains(" bytes)"), "{m}");
+        }
+        let mut t = sample();
+        t.notes.push(format!("{huge}\n"));
+        let m = to_text(&t).unwrap_err().to_string();
+        assert!(m.len() < 300 && m.contains("(1048577 bytes)"), "{m}");
     }
 
     #[test]

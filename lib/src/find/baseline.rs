@@ -7,57 +7,125 @@
 //! smooths again, so lines drop out within a few rounds while the continuum stays.
 
 use super::noise::NoiseModel;
-use super::smooth::box_symmetric;
+use super::smooth::{
+    box_narrow, box_narrow_in_place, box_symmetric, box_symmetric_in_place, narrow_limit,
+};
 use crate::condition::flags;
 
 /// Clipping level above the baseline, in noise σ.
 pub const CLIP_SIGMA: i64 = 2;
-/// Clip-and-smooth rounds; each removes most of what a line still adds to the baseline.
+/// Clip-and-smooth rounds from a plain smoothing; each removes most of what a line still adds to the
+/// baseline.
 pub const ROUNDS: usize = 16;
+/// Rounds when starting from an earlier baseline of the same frame (the second look of
+/// [`find_peaks`](super::find_peaks), after a better noise estimate): the lines are already out.
+pub const ROUNDS_WARM: usize = 4;
 
 /// Writes the baseline of `frame` into `base`, using `tmp` as scratch (both the frame's length).
 ///
+/// With `warm`, `base` already holds a baseline of this frame and only [`ROUNDS_WARM`] rounds run.
 /// Untrusted pixels (saturated, repaired) are always replaced by the baseline after the first round.
-/// `half` is the box half-width (px). Loop bound: (1 + [`ROUNDS`]) × 2 box passes of O(N).
+/// `half` is the box half-width (px, ≤ 63). Loop bound: one O(N) range check, then ≤ [`ROUNDS`] × (one
+/// clip pass + 2 box passes) + 2 box passes of O(N), N = `base.len()` (not capped here;
+/// [`find_peaks`](super::find_peaks) keeps it ≤ MAX_PIXELS).
 pub fn estimate_baseline(
     frame: &[i32],
     flag: &[u8],
     noise: &NoiseModel,
     half: usize,
+    warm: bool,
     base: &mut [i32],
     tmp: &mut [i32],
 ) {
-    let y = |j: usize| i64::from(frame.get(j).copied().unwrap_or(0));
-    box_symmetric(half, y, tmp);
-    box_symmetric(half, |j| i64::from(tmp.get(j).copied().unwrap_or(0)), base);
-    for _ in 0..ROUNDS {
-        {
-            let b: &[i32] = base;
-            let clipped = |j: usize| {
-                let bj = i64::from(b.get(j).copied().unwrap_or(0));
-                let yj = y(j);
-                let untrusted = flag.get(j).is_some_and(|&f| flags::is_untrusted(f));
-                let r = yj - bj;
-                // r > CLIP_SIGMA·σ  ⟺  r² · 256 > CLIP_SIGMA² · var_q8
-                let high = r > 0
-                    && i128::from(r) * i128::from(r) * 256
-                        > i128::from(CLIP_SIGMA * CLIP_SIGMA) * i128::from(noise.var_q8(bj));
-                if untrusted || high {
-                    bj
-                } else {
-                    yj
-                }
-            };
-            box_symmetric(half, clipped, tmp);
-        }
-        box_symmetric(half, |j| i64::from(tmp.get(j).copied().unwrap_or(0)), base);
+    let limit = narrow_limit(half);
+    if frame.iter().all(|&v| i64::from(v).abs() <= limit) {
+        baseline_narrow(frame, flag, noise, half, warm, base, tmp);
+    } else {
+        baseline_wide(frame, flag, noise, half, warm, base, tmp);
     }
 }
+
+/// [`estimate_baseline`] in `i64` for any frame.
+fn baseline_wide(
+    frame: &[i32],
+    flag: &[u8],
+    noise: &NoiseModel,
+    half: usize,
+    warm: bool,
+    base: &mut [i32],
+    tmp: &mut [i32],
+) {
+    let rounds = if warm {
+        ROUNDS_WARM
+    } else {
+        box_symmetric(
+            half,
+            |j| i64::from(frame.get(j).copied().unwrap_or(0)),
+            base,
+        );
+        box_symmetric_in_place(half, base);
+        ROUNDS
+    };
+    for _ in 0..rounds {
+        // Clipped frame into tmp, one evaluation per pixel; then its triangle back into base.
+        for (((t, &y), &b), &f) in tmp.iter_mut().zip(frame).zip(base.iter()).zip(flag) {
+            let (yj, bj) = (i64::from(y), i64::from(b));
+            let high = super::math::above_sigmas(yj - bj, CLIP_SIGMA << 8, noise.var_q8(bj));
+            *t = if flags::is_untrusted(f) || high { b } else { y };
+        }
+        box_symmetric(half, |j| i64::from(tmp.get(j).copied().unwrap_or(0)), base);
+        box_symmetric_in_place(half, base);
+    }
+}
+
+/// [`estimate_baseline`] for frames within ±[`narrow_limit`] (every ADC frame of ≤ 16 bits, Q4, times a
+/// few hundred co-adds): `i32` box sums and a 32-bit clip test; the same integers as the wide path.
+fn baseline_narrow(
+    frame: &[i32],
+    flag: &[u8],
+    noise: &NoiseModel,
+    half: usize,
+    warm: bool,
+    base: &mut [i32],
+    tmp: &mut [i32],
+) {
+    let rounds = if warm {
+        ROUNDS_WARM
+    } else {
+        box_narrow(half, frame, base);
+        box_narrow_in_place(half, base);
+        ROUNDS
+    };
+    for _ in 0..rounds {
+        for (((t, &y), &b), &f) in tmp.iter_mut().zip(frame).zip(base.iter()).zip(flag) {
+            // r > 2σ ⟺ 64·r² > var_q8 (σ² = var_q8 / 256); |r| < 2^31 under the narrow limit.
+            let r = i64::from(y) - i64::from(b);
+            let high = r > 0 && {
+                let var = noise.var_q8(i64::from(b));
+                let r = r as u32;
+                if r < 1 << 12 {
+                    i64::from((r * r) << 6) > var
+                } else {
+                    // ≥ 2^30 on the left; r < 2^29 keeps 64·r² below 2^64.
+                    r >= 1 << 29
+                        || (super::math::mul_u32_wide(r, r) << 6) > var.max(0).unsigned_abs()
+                }
+            };
+            *t = if flags::is_untrusted(f) || high { b } else { y };
+        }
+        box_narrow(half, tmp, base);
+        box_narrow_in_place(half, base);
+    }
+}
+
+// The narrow clip test is written for 2 σ.
+const _: () = assert!(CLIP_SIGMA == 2);
 
 #[cfg(test)]
 mod tests {
     use super::super::testkit::{pixel_gauss, Rng};
     use super::*;
+    use crate::condition::flags;
 
     fn model(sd: i64) -> NoiseModel {
         NoiseModel {
@@ -65,6 +133,43 @@ mod tests {
             zero_light_level: 0,
             shot_var_per_unit_q16: 0,
             shot_from_data: false,
+        }
+    }
+
+    /// The narrow path gives the wide path's integers.
+    #[test]
+    fn narrow_and_wide_paths_agree() {
+        let mut rng = Rng::new(9);
+        let n = 900;
+        for (sd, kappa) in [(3i64, 0u32), (40, 1 << 16), (200, 5 << 16)] {
+            let frame: Vec<i32> = (0..n as i64)
+                .map(|i| {
+                    (3000
+                        + 2 * i
+                        + pixel_gauss(i, 40_000, 300 << 16, 150_000)
+                        + pixel_gauss(i, 9_000, 610 << 16, 90_000)
+                        + rng.gauss(sd << 16)) as i32
+                })
+                .collect();
+            let mut fl = vec![0u8; n];
+            fl[450] = flags::SATURATED;
+            let nm = NoiseModel {
+                floor_var_q8: sd * sd * 256,
+                zero_light_level: 100,
+                shot_var_per_unit_q16: kappa,
+                shot_from_data: false,
+            };
+            for warm in [false, true] {
+                let (mut b1, mut t1) = (vec![0i32; n], vec![0i32; n]);
+                let (mut b2, mut t2) = (vec![0i32; n], vec![0i32; n]);
+                if warm {
+                    b1.fill(3500);
+                    b2.fill(3500);
+                }
+                baseline_narrow(&frame, &fl, &nm, 20, warm, &mut b1, &mut t1);
+                baseline_wide(&frame, &fl, &nm, 20, warm, &mut b2, &mut t2);
+                assert_eq!(b1, b2, "sd {sd} warm {warm}");
+            }
         }
     }
 
@@ -82,7 +187,7 @@ mod tests {
         let fl = vec![0u8; n];
         let mut base = vec![0i32; n];
         let mut tmp = vec![0i32; n];
-        estimate_baseline(&frame, &fl, &model(10), 24, &mut base, &mut tmp);
+        estimate_baseline(&frame, &fl, &model(10), 24, false, &mut base, &mut tmp);
         for i in [100usize, 240, 256, 270, 400] {
             let truth = 5000 + 4 * i as i32;
             let err = base[i] - truth;
@@ -100,7 +205,7 @@ mod tests {
         let fl = vec![0u8; n];
         let mut base = vec![0i32; n];
         let mut tmp = vec![0i32; n];
-        estimate_baseline(&frame, &fl, &model(100), 24, &mut base, &mut tmp);
+        estimate_baseline(&frame, &fl, &model(100), 24, false, &mut base, &mut tmp);
         for i in (0..n).step_by(37) {
             let err = base[i] - frame[i];
             // Curvature bias of the triangle (variance 400 px²): 20000/300² · 400 / 2 ≈ 44 at the top.

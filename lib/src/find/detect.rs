@@ -20,8 +20,8 @@ const KERNEL_SQ_SUM: i128 = 19;
 pub struct Candidate {
     /// Pixel of the maximum.
     pub pos: usize,
-    /// Smoothed residual there (frame units × 9).
-    pub strength: i64,
+    /// Smoothed residual there (frame units × 9; the smoothed row is `i32`).
+    pub strength: i32,
 }
 
 /// Writes the smoothed residual `Σ k_j (frame − base)[i + j]` (×9) into `out`, replicating edge pixels.
@@ -56,7 +56,9 @@ fn above(v: i64, k_q8: u16, noise: &NoiseModel, level: i64) -> bool {
 ///
 /// Prominence is the height above the higher of the two lowest points reached on each side before the
 /// smoothed residual rises above the candidate (searched up to `reach` px).
-/// Loop bounds: one pass over the pixels, ≤ 2 × `reach` steps per local maximum above threshold.
+/// Loop bounds: one pass over the N = `smooth.len()` pixels (plateau scans included), ≤ 2 × min(`reach`, N)
+/// steps per local maximum above threshold, and ≤ [`MAX_CANDIDATES`] steps for each candidate that
+/// arrives when `out` is full.
 pub fn find_candidates(
     smooth: &[i32],
     base: &[i32],
@@ -85,7 +87,13 @@ pub fn find_candidates(
             let floor_r = valley(smooth, end, v, reach, true);
             let prominence = v - floor_l.max(floor_r);
             if above(prominence, cfg.prominence_sigma_q8, noise, level) {
-                dropped |= push_strongest(out, Candidate { pos, strength: v });
+                dropped |= push_strongest(
+                    out,
+                    Candidate {
+                        pos,
+                        strength: v.clamp(i64::from(i32::MIN), i64::from(i32::MAX)) as i32,
+                    },
+                );
             }
         }
         i = end + 1;
@@ -115,6 +123,8 @@ fn valley(smooth: &[i32], from: usize, peak: i64, reach: usize, rightward: bool)
 }
 
 /// Pushes `c`, or replaces the weakest entry when full and `c` is stronger; returns whether one was lost.
+///
+/// Loop bound: one scan of the ≤ N entries, only when the list is full.
 pub fn push_strongest<const N: usize>(list: &mut Vec<Candidate, N>, c: Candidate) -> bool {
     if list.push(c).is_ok() {
         return false;
@@ -139,17 +149,25 @@ pub fn push_strongest<const N: usize>(list: &mut Vec<Candidate, N>, c: Candidate
 /// Loop bound: candidates² ≤ [`MAX_CANDIDATES`]² (insertion sort, then the pairwise check).
 pub fn thin(list: &mut Vec<Candidate, MAX_CANDIDATES>, min_sep_q8: u16) {
     crate::sort::sort_by_key(list, |c| (core::cmp::Reverse(c.strength), c.pos));
-    let mut kept: Vec<Candidate, MAX_CANDIDATES> = Vec::new();
-    for c in list.iter() {
-        let far = kept
+    // Compacted in place (no second list on the stack): the kept ones are a prefix.
+    let mut kept = 0usize;
+    for idx in 0..list.len() {
+        let Some(c) = list.get(idx).copied() else {
+            break;
+        };
+        let far = list
+            .get(..kept)
+            .unwrap_or(&[])
             .iter()
             .all(|k| (k.pos.abs_diff(c.pos) << 8) >= usize::from(min_sep_q8));
         if far {
-            // Capacity equals the input's, so this cannot fail.
-            let _ = kept.push(*c);
+            if let Some(slot) = list.get_mut(kept) {
+                *slot = c;
+            }
+            kept += 1;
         }
     }
-    *list = kept;
+    list.truncate(kept);
 }
 
 #[cfg(test)]
@@ -229,7 +247,7 @@ mod tests {
                 strength: 1
             }
         ));
-        let mut s: std::vec::Vec<i64> = v.iter().map(|c| c.strength).collect();
+        let mut s: std::vec::Vec<i32> = v.iter().map(|c| c.strength).collect();
         s.sort();
         assert_eq!(s, [7, 9]);
     }

@@ -11,14 +11,17 @@
 //! (`Scaled`), so the solve keeps ≥ 24 significant bits per row even when shot noise makes the core
 //! weights 10⁴× smaller than the wing weights, and cannot overflow (scaled entries < 2^26).
 
-use super::math::{clamp_i64, div_round_i128, exp_neg_q16, isqrt_u128, ONE_Q30};
+use super::math::{
+    clamp_i32, clamp_i64, div_round_i128, exp_neg_q16, isqrt_u128, mul_i32_wide, mul_u32_wide,
+    ONE_Q30,
+};
 use super::noise::NoiseModel;
 use crate::condition::flags;
 
 /// Largest fit half-width (px); with FWHM ≤ 16 px, 2.5 s + 1 < 19 is capped here.
 pub const MAX_HALF: usize = 16;
 /// Gauss–Newton steps at most.
-pub const ITERATIONS: usize = 12;
+pub const ITERATIONS: usize = 6;
 /// Fewest weighted pixels for a 4-parameter fit.
 const MIN_PIXELS: usize = 6;
 
@@ -39,6 +42,8 @@ pub struct Fit {
     pub hi: usize,
     /// Whether the Gauss–Newton steps settled within [`ITERATIONS`]; otherwise the last step is reported.
     pub converged: bool,
+    /// Gauss–Newton steps taken (≤ [`ITERATIONS`]).
+    pub steps: u8,
 }
 
 /// Data the fit reads: the frame, its baseline, flags and noise model.
@@ -76,6 +81,42 @@ impl FitData<'_> {
     }
 }
 
+/// Marks a pixel of the [`Window`] that gets no weight (saturated or repaired).
+const UNUSABLE: i64 = i64::MIN;
+
+/// The fit window's data, gathered once per fit: the residual after baseline and neighbour profiles
+/// (those are fixed during the fit, and each costs an exponential per pixel) and the baseline.
+struct Window {
+    lo: usize,
+    len: usize,
+    resid: [i64; 2 * MAX_HALF + 1],
+    base: [i64; 2 * MAX_HALF + 1],
+}
+
+impl Window {
+    /// Loop bound: ≤ 2 × [`MAX_HALF`] + 1 pixels.
+    fn new(d: &FitData<'_>, lo: usize, hi: usize) -> Self {
+        let mut w = Window {
+            lo,
+            len: 0,
+            resid: [UNUSABLE; 2 * MAX_HALF + 1],
+            base: [0; 2 * MAX_HALF + 1],
+        };
+        for (k, i) in (lo..=hi).enumerate().take(2 * MAX_HALF + 1) {
+            if let (Some(r), Some(b)) = (w.resid.get_mut(k), w.base.get_mut(k)) {
+                *r = if d.usable(i) {
+                    d.resid(i).max(UNUSABLE + 1)
+                } else {
+                    UNUSABLE
+                };
+                *b = d.base_at(i);
+            }
+            w.len = k + 1;
+        }
+        w
+    }
+}
+
 #[derive(Clone, Copy)]
 struct Params {
     a_q8: i64,
@@ -89,12 +130,25 @@ type Mat = [[i128; 4]; 4];
 /// Fits the line whose highest smoothed pixel is `peak`, starting from σ `s0_q16`; σ is kept within
 /// `s_min_q16 … s_max_q16`.
 ///
-/// Loop bounds: ≤ [`ITERATIONS`] + 1 passes over ≤ 2 × [`MAX_HALF`] + 1 pixels.
-pub fn fit_line(d: &FitData<'_>, peak: usize, s0_q16: i64, s_min_q16: i64, s_max_q16: i64) -> Fit {
+/// Loop bounds: ≤ min(`max_steps`, [`ITERATIONS`]) + 2 passes (Gauss–Newton steps, the covariance
+/// pass, the weight-reference pass) over ≤ 2 × [`MAX_HALF`] + 1 pixels, plus one gathering pass taking
+/// ≤ 2 neighbour profiles out of each pixel.
+pub fn fit_line(
+    d: &FitData<'_>,
+    peak: usize,
+    s0_q16: i64,
+    s_min_q16: i64,
+    s_max_q16: i64,
+    max_steps: usize,
+) -> Fit {
     let n = d.frame.len();
     let r0 = d.resid(peak);
     let rl = peak.checked_sub(1).map_or(r0, |j| d.resid(j));
-    let rr = if peak + 1 < n { d.resid(peak + 1) } else { r0 };
+    let rr = if peak.saturating_add(1) < n {
+        d.resid(peak + 1)
+    } else {
+        r0
+    };
     // Parabola through three pixels: δ = (rl − rr) / (2 (rl − 2 r0 + rr)), within ±0.5 px.
     let den = rl - 2 * r0 + rr;
     let delta_q16 = if den < 0 {
@@ -110,7 +164,7 @@ pub fn fit_line(d: &FitData<'_>, peak: usize, s0_q16: i64, s_min_q16: i64, s_max
     let s0 = s0_q16.max(s_min_q16).min(s_max_q16).max(1 << 14);
     let half = ((5 * s0) >> 17).saturating_add(2).clamp(2, MAX_HALF as i64) as usize;
     let lo = peak.saturating_sub(half);
-    let hi = (peak + half).min(n.saturating_sub(1));
+    let hi = peak.saturating_add(half).min(n.saturating_sub(1));
     let start = Params {
         a_q8: (r0 << 8).max(256),
         mu_q16: ((peak as i64) << 16) + delta_q16,
@@ -123,10 +177,13 @@ pub fn fit_line(d: &FitData<'_>, peak: usize, s0_q16: i64, s_min_q16: i64, s_max
         .min()
         .unwrap_or(1)
         .max(1);
+    let win = Window::new(d, lo, hi);
     let mut p = start;
     let mut converged = false;
-    for _ in 0..ITERATIONS {
-        let Some((m, b)) = normal(d, &p, lo, hi, vref) else {
+    let mut steps = 0u8;
+    for _ in 0..max_steps.min(ITERATIONS) {
+        steps += 1;
+        let Some((m, b)) = normal(&win, d.noise, &p, vref) else {
             break;
         };
         let Some(scaled) = Scaled::new(&m) else {
@@ -159,7 +216,7 @@ pub fn fit_line(d: &FitData<'_>, peak: usize, s0_q16: i64, s_min_q16: i64, s_max
             break;
         }
     }
-    let center_sigma_q16 = normal(d, &p, lo, hi, vref)
+    let center_sigma_q16 = normal(&win, d.noise, &p, vref)
         .and_then(|(m, _)| center_sigma(&m, &p, vref))
         .unwrap_or(p.s_q16);
     Fit {
@@ -170,6 +227,7 @@ pub fn fit_line(d: &FitData<'_>, peak: usize, s0_q16: i64, s_min_q16: i64, s_max
         lo,
         hi,
         converged,
+        steps,
     }
 }
 
@@ -181,51 +239,116 @@ pub fn fit_line(d: &FitData<'_>, peak: usize, s0_q16: i64, s_min_q16: i64, s_max
 /// weights, so the centre's rows shrink to a few hundred Q16 steps while the background's stay O(1), and a
 /// gradient rounded to whole steps stops Gauss–Newton short by about one Cramér–Rao σ at SNR 1000.
 /// Magnitudes: w·J·J ≤ 2^60 per pixel, |w·J·e| ≤ 2^70 (e clamped to 2^16 relative), ≤ 33 pixels.
-fn normal(
-    d: &FitData<'_>,
-    p: &Params,
-    lo: usize,
-    hi: usize,
-    vref: i64,
-) -> Option<(Mat, [i128; 4])> {
+fn normal(win: &Window, noise: &NoiseModel, p: &Params, vref: i64) -> Option<(Mat, [i128; 4])> {
     let mut m: Mat = [[0; 4]; 4];
     let mut b = [0i128; 4];
     let mut used = 0usize;
     let s = p.s_q16.max(1);
     let a = p.a_q8.max(1);
-    for i in lo..=hi {
-        if !d.usable(i) {
+    // The line's own products stay in i64 (a library call each on the M0, where an i128 product is
+    // several); only the sums over the window are i128. Bounds (Q30 units): 0 < g ≤ 2^30; |g·u| and
+    // |g·u²| peak at 0.61 and 0.74 × 2^30; w ≤ 2^30 (vref ≤ var); so every w·J and w·J·J < 2^60.
+    let a64 = i128::from(a);
+    // Per-pixel divisions become multiplies by reciprocals taken once per pass (the M0 divides in
+    // software, ~100 instructions each): 1/s in Q24 (s ≥ 2^13 from the FWHM floor of 1 px, so
+    // < 2^27), and 1/a as a 32-bit mantissa `inv_a / 2^(31 + bits(a))`. Relative error < 2^-26.
+    let inv_s_q24 = i32::try_from((1i64 << 40).checked_div(s).unwrap_or(0)).ok();
+    let a_bits = 64 - a.unsigned_abs().leading_zeros();
+    let a_top = a.unsigned_abs() >> a_bits.saturating_sub(31);
+    let top_bits = 64 - a_top.leading_zeros();
+    let inv_a =
+        ((1u64 << (31 + top_bits)).checked_div(a_top).unwrap_or(0)).min(u64::from(u32::MAX)) as u32;
+    for (k, (&resid, &base)) in win.resid.iter().zip(&win.base).take(win.len).enumerate() {
+        if resid == UNUSABLE {
             continue;
         }
-        let u = ((((i as i64) << 16) - p.mu_q16) << 16)
-            .checked_div(s)
-            .unwrap_or(0);
-        let g30 = exp_neg_q16((u.saturating_mul(u)) >> 17);
-        let line_q8 = (i128::from(a) * i128::from(g30)) >> 30;
-        let gu = round_shift(i128::from(g30) * i128::from(u), 16);
-        let guu = round_shift(gu * i128::from(u), 16);
+        let i = win.lo + k;
+        let dx = ((i as i64) << 16) - p.mu_q16;
+        let u = match (inv_s_q24, i32::try_from(dx)) {
+            (Some(inv), Ok(dx)) => mul_i32_wide(dx, inv) >> 24,
+            _ => (dx << 16).checked_div(s).unwrap_or(0),
+        };
+        let u32w = clamp_i32(u);
+        let g30 = exp_neg_q16(mul_i32_wide(u32w, u32w) >> 17);
+        let line_q8 = match i32::try_from(a) {
+            Ok(a32) => i128::from(mul_i32_wide(a32, clamp_i32(g30)) >> 30),
+            Err(_) => (a64 * i128::from(g30)) >> 30,
+        };
+        // |u| < 2^24 (≤ 33 px at σ ≥ 1/5 px, Q16), so g·u < 2^54 and (g·u >> 16)·u < 2^62.
+        let gu = round_shift_i64(mul_i32_wide(clamp_i32(g30), u32w), 16);
+        let guu = round_shift_i64(mul_i32_wide(clamp_i32(gu), u32w), 16);
         let model_q8 = line_q8 + i128::from(p.c_q8);
-        let level = d.base_at(i) + (line_q8 >> 8) as i64;
-        let var = i128::from(d.noise.var_q8(level).max(1));
-        let w = (i128::from(vref) << 30).checked_div(var).unwrap_or(0);
-        let e = (i128::from(d.resid(i)) << 8) - model_q8;
-        let e_rel = (e << 24)
-            .checked_div(i128::from(a))
-            .unwrap_or(0)
-            .clamp(-(1 << 40), 1 << 40);
-        let j = [i128::from(g30), gu, guu, 1 << 30];
-        for (row, &jr) in m.iter_mut().zip(&j) {
-            let wj = round_shift(w * jr, 30);
-            for (cell, &jc) in row.iter_mut().zip(&j) {
-                *cell += wj * jc;
+        let level = base + (line_q8 >> 8) as i64;
+        let var = noise.var_q8(level).max(1);
+        let w = weight_q30(vref, var);
+        let e = (i128::from(resid) << 8) - model_q8;
+        let e_rel = match i32::try_from(e) {
+            // e / a · 2^24 = e · inv_a / 2^(7 + bits(a)); |e| < 2^31 and inv_a < 2^32 keep it in 64 bits.
+            Ok(e32) => {
+                let q = (mul_u32_wide(e32.unsigned_abs(), inv_a) >> (7 + a_bits).min(63)) as i64;
+                if e32 < 0 {
+                    -q
+                } else {
+                    q
+                }
+            }
+            Err(_) => clamp_i64((e << 24).checked_div(a64).unwrap_or(0)),
+        }
+        .clamp(-(1 << 40), 1 << 40);
+        // Every factor below is within ±2^31 (bounds above), so the 32 × 32 → 64-bit product serves.
+        let j = [g30, gu, guu, 1 << 30].map(clamp_i32);
+        let w32 = clamp_i32(w);
+        let wj = j.map(|jr| clamp_i32(round_shift_i64(mul_i32_wide(w32, jr), 30)));
+        // Upper triangle only; the lower one is mirrored after the loop.
+        for (r, (row, &wjr)) in m.iter_mut().zip(&wj).enumerate() {
+            for (cell, &jc) in row.iter_mut().zip(&j).skip(r) {
+                *cell += i128::from(mul_i32_wide(wjr, jc));
             }
         }
-        for (bv, &jr) in b.iter_mut().zip(&j) {
-            *bv += round_shift(w * jr, 30) * e_rel;
+        for (bv, &wjr) in b.iter_mut().zip(&wj) {
+            // |w·J| ≤ 2^30: a 32 × 32-bit product when |e_rel| < 2^31 (all but wild starts).
+            *bv += match i32::try_from(e_rel) {
+                Ok(e32) => i128::from(mul_i32_wide(wjr, e32)),
+                Err(_) => i128::from(wjr) * i128::from(e_rel),
+            };
         }
         used += 1;
     }
+    for r in 1..4 {
+        for c in 0..r {
+            let upper = m.get(c).and_then(|row| row.get(r)).copied().unwrap_or(0);
+            if let Some(cell) = m.get_mut(r).and_then(|row| row.get_mut(c)) {
+                *cell = upper;
+            }
+        }
+    }
     (used >= MIN_PIXELS).then_some((m, b))
+}
+
+/// Fit weight `vref / var` in Q30 (`0 < vref ≤ var`) from a 16-bit reciprocal of `var`'s mantissa: one
+/// 32-bit division, good to 2^-16 relative whatever `vref / var` is (shot noise makes the core's
+/// weights 10⁻⁴ of the wings', and those must keep their digits); wide operands divide in `i128`.
+fn weight_q30(vref: i64, var: i64) -> i64 {
+    let var = var.max(1);
+    if let (Ok(v), Ok(r)) = (u32::try_from(var), u32::try_from(vref.max(0))) {
+        // var = v16 · 2^sh with v16 in [2^15, 2^16); inv ≈ 2^32 / v16 in (2^16, 2^17].
+        let sh = 16 - v.leading_zeros() as i32;
+        let v16 = if sh >= 0 { v >> sh } else { v << -sh };
+        let inv = u32::MAX.checked_div(v16).unwrap_or(0);
+        // vref · inv = vref · 2^(32 + sh) / var, so shifting by sh + 2 leaves vref · 2^30 / var.
+        let p = mul_u32_wide(r, inv);
+        let w = if sh + 2 >= 0 {
+            p >> (sh + 2)
+        } else {
+            p << -(sh + 2)
+        };
+        return i64::try_from(w).unwrap_or(i64::MAX).min(1 << 30);
+    }
+    clamp_i64(
+        (i128::from(vref) << 30)
+            .checked_div(i128::from(var))
+            .unwrap_or(0),
+    )
 }
 
 /// `v / 2^k` rounded to nearest, ties away from zero, so positive and negative terms err alike.
@@ -237,6 +360,22 @@ fn round_shift(v: i128, k: u32) -> i128 {
         return 0;
     }
     let half = 1i128 << (k - 1);
+    if v >= 0 {
+        (v.saturating_add(half)) >> k
+    } else {
+        -((v.saturating_neg().saturating_add(half)) >> k)
+    }
+}
+
+/// [`round_shift`] for `i64` (the same integers).
+fn round_shift_i64(v: i64, k: u32) -> i64 {
+    if k == 0 {
+        return v;
+    }
+    if k > 62 {
+        return 0;
+    }
+    let half = 1i64 << (k - 1);
     if v >= 0 {
         (v.saturating_add(half)) >> k
     } else {
@@ -287,9 +426,12 @@ fn scaled_div(num: i128, den: i128, sh: i32) -> i128 {
 /// keeps ≥ 24 significant bits in every row whatever the weights, while 4×4 Cramer products stay below
 /// 2^110 (Hadamard: |det| ≤ Π diagonal).
 struct Scaled {
-    m: Mat,
     shift: [u32; 4],
     det: i128,
+    /// Cofactors `C[i][k] = (−1)^(i+k) det(minor(i, k))` of the scaled matrix, computed once: the
+    /// determinant, every Cramer numerator `Σ_i b_i C[i][k]` and `[M⁻¹]μμ` are exact integer sums of
+    /// them (the same integers as expanding each determinant afresh, at a quarter of the products).
+    cof: Mat,
 }
 
 impl Scaled {
@@ -309,8 +451,15 @@ impl Scaled {
                 *o = round_shift(v, si + sj);
             }
         }
-        let det = det4(&out);
-        (det > 0).then_some(Self { m: out, shift, det })
+        let mut cof: Mat = [[0; 4]; 4];
+        for (i, row) in cof.iter_mut().enumerate() {
+            for (k, c) in row.iter_mut().enumerate() {
+                let d = det3(minor(&out, i, k));
+                *c = if (i + k) % 2 == 0 { d } else { -d };
+            }
+        }
+        let det: i128 = out[0].iter().zip(&cof[0]).map(|(&v, &c)| v * c).sum();
+        (det > 0).then_some(Self { shift, det, cof })
     }
 
     /// Solves `M x = b` (b in Q54) by Cramer's rule on the scaled matrix; `x` in Q16.
@@ -328,22 +477,22 @@ impl Scaled {
         }
         let mut x = [0i64; 4];
         for (k, (xk, &sk)) in x.iter_mut().zip(&self.shift).enumerate() {
-            let mut mk = self.m;
-            for (row, &bv) in mk.iter_mut().zip(&bs) {
-                if let Some(cell) = row.get_mut(k) {
-                    *cell = bv;
-                }
-            }
+            // det of M with column k replaced by b, expanded along that column.
+            let num: i128 = bs
+                .iter()
+                .zip(self.cof.iter())
+                .map(|(&bv, row)| bv * row.get(k).copied().unwrap_or(0))
+                .sum();
             // x = x'' / 2^k with x'' = det_k / det, then × 2^extra, in Q16.
             let sh = 16 + extra as i32 - sk as i32;
-            *xk = clamp_i64(scaled_div(det4(&mk), self.det, sh));
+            *xk = clamp_i64(scaled_div(num, self.det, sh));
         }
         x
     }
 
     /// `[M⁻¹]μμ` of the unscaled Q60 matrix as a real number, in Q32.
     fn inv_mu_q32(&self) -> Option<i128> {
-        let cof = det3(minor(&self.m, 1, 1));
+        let cof = self.cof[1][1];
         if cof <= 0 {
             return None;
         }
@@ -354,6 +503,16 @@ impl Scaled {
 }
 
 fn det3(m: [[i128; 3]; 3]) -> i128 {
+    let small = |v: &i128| (-(1i128 << 31)..(1 << 31)).contains(v);
+    if m.iter().flatten().all(small) {
+        // Scaled entries are < 2^26: the 2 × 2 minors are exact in i64 (< 2^63), and only the three
+        // outer products need i128. The same integer as the general form below.
+        let [[a, b, c], [d, e, f], [g, h, i]] = m.map(|r| r.map(|v| v as i64));
+        let m1 = i128::from(e * i - f * h);
+        let m2 = i128::from(d * i - f * g);
+        let m3 = i128::from(d * h - e * g);
+        return i128::from(a) * m1 - i128::from(b) * m2 + i128::from(c) * m3;
+    }
     let [[a, b, c], [d, e, f], [g, h, i]] = m;
     a * (e * i - f * h) - b * (d * i - f * g) + c * (d * h - e * g)
 }
@@ -368,15 +527,6 @@ fn minor(m: &Mat, skip_r: usize, skip_c: usize) -> [[i128; 3]; 3] {
         }
     }
     out
-}
-
-fn det4(m: &Mat) -> i128 {
-    let mut det = 0i128;
-    for (c, &v) in m[0].iter().enumerate() {
-        let term = v * det3(minor(m, 0, c));
-        det += if c % 2 == 0 { term } else { -term };
-    }
-    det
 }
 
 /// σ of the centre in px (Q16): `s · sqrt(vref · [M⁻¹]μμ) / A`.
@@ -437,7 +587,38 @@ mod tests {
             noise: nm,
             neighbours: [None, None],
         };
-        fit_line(&d, peak, sigma0, 1 << 15, 8 << 16)
+        fit_line(&d, peak, sigma0, 1 << 15, 8 << 16, ITERATIONS)
+    }
+
+    #[test]
+    fn weights_keep_their_digits_at_every_ratio() {
+        for var in [
+            1i64,
+            2,
+            3,
+            255,
+            256,
+            65_535,
+            65_536,
+            1 << 20,
+            (1 << 28) + 12_345,
+            u32::MAX as i64,
+        ] {
+            for vref in [1i64, 7, var / 10_000 + 1, var / 3 + 1, var] {
+                let vref = vref.min(var);
+                let exact = ((vref as i128) << 30) / var as i128;
+                let got = weight_q30(vref, var) as i128;
+                // 2^-15 relative, plus one step for the truncations.
+                assert!(
+                    (got - exact).abs() <= exact / 32_768 + 1,
+                    "{vref}/{var}: {got} vs {exact}"
+                );
+            }
+        }
+        assert_eq!(
+            weight_q30(5, 1 << 40),
+            ((5i128 << 30) / (1i128 << 40)) as i64
+        );
     }
 
     #[test]
@@ -505,7 +686,7 @@ mod tests {
             noise: &nm,
             neighbours: [None, None],
         };
-        let f = fit_line(&d, 60, s, 1 << 15, 8 << 16);
+        let f = fit_line(&d, 60, s, 1 << 15, 8 << 16, ITERATIONS);
         assert!(f.converged);
         assert!(
             (f.center_q16 - c).abs() < 700,

@@ -13,10 +13,34 @@ pub const FWHM_PER_SIGMA_Q16: i64 = 154_325;
 /// sqrt(2π) in Q16 (area of a unit-height Gaussian per unit σ).
 pub const SQRT_2PI_Q16: i64 = 164_274;
 
+/// 2^(−k/16) in Q30 for k = 0 … 15 (Python `decimal`, 50 digits, rounded to nearest).
+const EXP2_SIXTEENTHS_Q30: [i64; 16] = [
+    1_073_741_824,
+    1_028_218_693,
+    984_625_594,
+    942_880_699,
+    902_905_651,
+    864_625_413,
+    827_968_132,
+    792_865_000,
+    759_250_125,
+    727_060_411,
+    696_235_434,
+    666_717_336,
+    638_450_708,
+    611_382_493,
+    585_461_881,
+    560_640_218,
+];
+/// 1/n in Q30 for the Taylor terms n = 2 … 5.
+const INV_Q30: [i64; 4] = [536_870_912, 357_913_941, 268_435_456, 214_748_365];
+
 /// e^(−x) for `x` in Q16 (x ≥ 0; negative x is taken as 0), result in Q30.
 ///
-/// Range reduction to 2^(−k)·e^(−t) with t < ln 2, then a degree-10 alternating Taylor series
-/// (truncation < 7e-9, below one Q30 step above 2^-27). Loop bound: 10 terms. Results below 2^-30 are 0.
+/// e^(−x) = 2^(−y) with y = x·log2 e, split into whole, sixteenths (table) and a rest r < 1/16 whose
+/// e^(−r·ln 2) (argument < 0.0434) is a degree-5 Taylor polynomial: truncation < 2^30 · 0.0434⁶/720 ≈
+/// 10⁻⁵ Q30 steps, so the result is within a few Q30 steps of e^(−x) (the table's and the products'
+/// rounding). Multiplies only: the Cortex-M0 has no divide instruction. Results below 2^-30 are 0.
 pub fn exp_neg_q16(x_q16: i64) -> i64 {
     if x_q16 <= 0 {
         return ONE_Q30;
@@ -26,25 +50,34 @@ pub fn exp_neg_q16(x_q16: i64) -> i64 {
         return 0;
     }
     // y = x · log2(e) in Q30; x < 2^21 so the product stays below 2^52.
-    let y_q30 = (x_q16 * LOG2E_Q30) >> 16;
+    // Every factor below is < 2^31, so each product is one 32 × 32 → 64-bit multiply.
+    let m = |a: i64, b: i64| mul_i32_wide(a as i32, b as i32);
+    let y_q30 = m(x_q16, LOG2E_Q30) >> 16;
     let k = y_q30 >> 30;
     let f_q30 = y_q30 & (ONE_Q30 - 1);
-    // t = f · ln 2 in Q30, t < ln 2.
-    let t = (f_q30 * LN2_Q30) >> 30;
+    let sixteenth = (f_q30 >> 26) as usize;
+    // t = (f − sixteenth/16) · ln 2 in Q30, t < ln 2 / 16.
+    let t = m(f_q30 & ((1 << 26) - 1), LN2_Q30) >> 30;
+    // Horner: p = 1 − t·(1 − t/2·(1 − t/3·(1 − t/4·(1 − t/5)))).
     let mut p = ONE_Q30;
-    for n in (1..=10i64).rev() {
-        p = ONE_Q30 - ((t * p) >> 30) / n;
+    for &inv in INV_Q30.iter().rev() {
+        let t_n = m(t, inv) >> 30;
+        p = ONE_Q30 - (m(t_n, p) >> 30);
     }
+    p = ONE_Q30 - (m(t, p) >> 30);
+    let e = (m(EXP2_SIXTEENTHS_Q30.get(sixteenth).copied().unwrap_or(0), p) + (1 << 29)) >> 30;
     if k >= 62 {
         0
     } else {
-        p >> k
+        e >> k
     }
 }
 
 pub use crate::fixed::isqrt_u128;
 
 /// Floor of the square root of a non-negative `i64` (negative inputs give 0).
+///
+/// Loop bound: ≤ 64 steps ([`isqrt_u128`]).
 pub fn isqrt_i64(v: i64) -> i64 {
     if v <= 0 {
         0
@@ -59,7 +92,7 @@ pub fn div_round_i128(num: i128, den: i128) -> i128 {
         return 0;
     }
     let (num, den) = if den < 0 {
-        (num.saturating_neg(), -den)
+        (num.saturating_neg(), den.wrapping_neg())
     } else {
         (num, den)
     };
@@ -76,6 +109,57 @@ pub fn div_round_i128(num: i128, den: i128) -> i128 {
 /// `num / den` rounded half away from zero for `i64`; 0 when `den` is 0.
 pub fn div_round_i64(num: i64, den: i64) -> i64 {
     div_round_i128(i128::from(num), i128::from(den)) as i64
+}
+
+/// `a · b` in full 64 bits from four 16 × 16-bit products: the Cortex-M0 has only a 32-bit multiply,
+/// and a general 64-bit product (`__aeabi_lmul`) costs three times as many instructions.
+#[inline]
+pub fn mul_u32_wide(a: u32, b: u32) -> u64 {
+    let (a1, a0) = (a >> 16, a & 0xffff);
+    let (b1, b0) = (b >> 16, b & 0xffff);
+    let mid = u64::from(a1 * b0) + u64::from(a0 * b1);
+    (u64::from(a1 * b1) << 32) + (mid << 16) + u64::from(a0 * b0)
+}
+
+/// Signed [`mul_u32_wide`].
+#[inline]
+pub fn mul_i32_wide(a: i32, b: i32) -> i64 {
+    let p = mul_u32_wide(a.unsigned_abs(), b.unsigned_abs()) as i64;
+    if (a < 0) != (b < 0) {
+        -p
+    } else {
+        p
+    }
+}
+
+/// Whether `r > k·σ` for `k_q8` (Q8) and `σ² = var_q8 / 256`, i.e. `r² · 2^16 · 256 > k_q8² · var_q8`,
+/// exactly; in `u64` when the operands allow (the per-pixel case), `u128` otherwise.
+pub fn above_sigmas(r: i64, k_q8: i64, var_q8: i64) -> bool {
+    if r <= 0 {
+        return false;
+    }
+    let (r, k, v) = (
+        r.unsigned_abs(),
+        k_q8.unsigned_abs(),
+        var_q8.max(0).unsigned_abs(),
+    );
+    if r < 1 << 20 && k < 1 << 16 {
+        // r² · 2^24 < 2^64; k² · v overflowing u64 means it exceeds the left side.
+        let lhs = mul_u32_wide(r as u32, r as u32) << 24;
+        let k2 = (k * k) as u32;
+        let rhs = if v >> 32 == 0 {
+            Some(mul_u32_wide(k2, v as u32))
+        } else {
+            u64::from(k2).checked_mul(v)
+        };
+        return match rhs {
+            Some(rhs) => lhs > rhs,
+            None => false,
+        };
+    }
+    // r² < 2^128; beyond 2^104 the left side exceeds any k² · v (< 2^127).
+    let lhs = u128::from(r) * u128::from(r);
+    lhs >= 1 << 104 || lhs << 24 > u128::from(k) * u128::from(k) * u128::from(v)
 }
 
 /// Clamps an `i128` into `i64`.
@@ -106,6 +190,12 @@ mod tests {
             let got = exp_neg_q16(x);
             assert!((got - want).abs() <= 4, "x={x} got {got} want {want}");
         }
+        // A dense sweep against a 30-term series in i128 (an independent long-hand evaluation).
+        for x in (0..(21i64 << 16)).step_by(4099) {
+            let want = exp_series_i128(x);
+            let got = exp_neg_q16(x);
+            assert!((got - want).abs() <= 3, "x={x} got {got} want {want}");
+        }
         assert_eq!(exp_neg_q16(-5), ONE_Q30);
         assert_eq!(exp_neg_q16(30 << 16), 0);
         // Monotone non-increasing over the whole range used by the fit.
@@ -115,6 +205,21 @@ mod tests {
             assert!(v <= prev);
             prev = v;
         }
+    }
+
+    /// e^(−x) (x in Q16) in Q30 by e^(−x) = (e^(−x/64))^64 with a 30-term series in Q60.
+    fn exp_series_i128(x_q16: i64) -> i64 {
+        let one: i128 = 1 << 60;
+        let t = (i128::from(x_q16) << 44) / 64; // x/64 in Q60
+        let (mut term, mut sum) = (one, one);
+        for n in 1..30 {
+            term = -((term * t) >> 60) / n;
+            sum += term;
+        }
+        for _ in 0..6 {
+            sum = (sum * sum) >> 60;
+        }
+        ((sum + (1 << 29)) >> 30) as i64
     }
 
     #[test]
@@ -129,6 +234,59 @@ mod tests {
             let r = isqrt_u128(v);
             assert!(r * r <= v && (r + 1) * (r + 1) > v);
         }
+    }
+
+    #[test]
+    fn sigma_test_matches_wide_arithmetic() {
+        let wide = |r: i64, k: i64, v: i64| {
+            r > 0
+                && (r as i128) * (r as i128) * (1 << 24)
+                    > (k as i128) * (k as i128) * (v.max(0) as i128)
+        };
+        for r in [
+            -5i64,
+            0,
+            1,
+            7,
+            1000,
+            (1 << 20) - 1,
+            1 << 20,
+            1 << 31,
+            1 << 40,
+        ] {
+            for k in [0i64, 256, 512, 1115, 65_535, 1 << 16] {
+                for v in [0i64, 1, 256, 10_000, 1 << 40, i64::MAX] {
+                    assert_eq!(above_sigmas(r, k, v), wide(r, k, v), "{r} {k} {v}");
+                }
+            }
+        }
+        // Around the edge: r = 2σ exactly is not above.
+        assert!(!above_sigmas(20, 512, 100 * 256));
+        assert!(above_sigmas(21, 512, 100 * 256));
+    }
+
+    #[test]
+    fn wide_products_are_exact() {
+        let probes = [
+            0u32,
+            1,
+            2,
+            0xffff,
+            0x1_0000,
+            0x1234_5678,
+            0x8000_0000,
+            u32::MAX - 1,
+            u32::MAX,
+        ];
+        for &a in &probes {
+            for &b in &probes {
+                assert_eq!(mul_u32_wide(a, b), u64::from(a) * u64::from(b));
+                let (x, y) = (a as i32, b as i32);
+                assert_eq!(mul_i32_wide(x, y), i64::from(x) * i64::from(y), "{x} {y}");
+            }
+        }
+        assert_eq!(mul_i32_wide(i32::MIN, i32::MIN), 1 << 62);
+        assert_eq!(mul_i32_wide(i32::MIN, 1), i64::from(i32::MIN));
     }
 
     #[test]

@@ -63,6 +63,13 @@ use math::{isqrt_i64, FWHM_PER_SIGMA_Q16};
 
 /// Shortest frame peak finding accepts (pixels): the noise estimate needs a dozen second differences.
 pub const MIN_PIXELS: usize = 16;
+/// Gauss–Newton steps per frame at full allowance (24 lines × 6 steps): the strongest lines are fitted
+/// first, and once the budget is spent every further fit gets [`MIN_STEPS`]. A typical frame of a dozen
+/// lines takes 50–90 steps and never reaches it; a frame of 64 noise bumps would take ~400 (each fit
+/// runs to the step limit), which is what kept its work above twice a typical frame's.
+pub const STEP_BUDGET: usize = 144;
+/// Gauss–Newton steps every line gets, budget or not (from the 3-pixel parabola and half-width start).
+pub const MIN_STEPS: usize = 2;
 /// `i32` scratch cells needed per frame pixel (baseline and one work row).
 pub const SCRATCH_PER_PIXEL: usize = 2;
 /// Fits narrower than this fraction of `FindConfig::fwhm_min_px_q8` (Q8: 5/8) are dropped as single-pixel
@@ -83,13 +90,17 @@ pub const SPIKE_FWHM_Q8: u32 = 160;
 /// On return (also `Ok` with no peaks) the first `frame.len()` cells of `scratch` hold the baseline the
 /// peaks stand on (frame units), for callers that need the continuum; the rest is work space.
 ///
-/// Loop bounds, with N = `frame.len()` ≤ [`MAX_PIXELS`]: two looks, each a noise estimate O(N) (two
-/// insertion-sort medians of ≤ 64 values per 64-px block and 4 refit rounds over ≤ 64 blocks), a baseline of (1 + 16 rounds) ×
-/// 2 box passes of O(N), and detection O(N) plus ≤ 2 × 4·FWHMmax px of prominence search per local
-/// maximum above threshold; masking ≤ 128 candidates × ≤ 6·FWHMmax px;
-/// thinning ≤ 128² comparisons; ≤ 2 × 64 fits of ≤ 13 Gauss–Newton passes over ≤ 33 px (the second
-/// only for lines with a neighbour in reach, taking ≤ 2 neighbour profiles out); blend marking
-/// ≤ 64 comparisons; final sort of ≤ 64 peaks (all sorts are insertion sorts without panic paths).
+/// Loop bounds, with N = `frame.len()` ≤ [`MAX_PIXELS`] and W = FWHMmax ≤ 16 px: two noise estimates
+/// O(N) (see [`noise::estimate`]); baselines of 16 rounds (first look) and 4 rounds (second look),
+/// each a clip pass and 2 box passes of O(N), plus 2 box passes once; two detections of O(N) plus
+/// ≤ 2 × 4W px of prominence search per local maximum above threshold and ≤ 128 steps per candidate
+/// arriving at a full list; masking ≤ 128 candidates × (≤ 2W + 6W + 1 px); thinning ≤ 128²
+/// comparisons; ≤ 2 × 64 fits over ≤ 33 px, each ≤ 6 Gauss–Newton steps plus a weight and a
+/// covariance pass, ≤ [`STEP_BUDGET`] + 2 × 64 × [`MIN_STEPS`] steps in all (the first fits after a
+/// ≤ 2W px width search, the second only for lines with a neighbour in reach, taking ≤ 2 neighbour
+/// profiles out); ≤ 64 × 33 px saturation checks; blend marking ≤ 64 comparisons; one O(N) count of
+/// untrusted pixels; insertion sorts of ≤ 64 fits, ≤ 64 peaks and ≤ 256 baseline samples (≤ 32 640
+/// steps, the largest). All sorts are insertion sorts without panic paths.
 pub fn find_peaks(
     cfg: &FindConfig,
     frame: &[i32],
@@ -126,7 +137,7 @@ pub fn find_peaks(
     // Two looks: the first finds the lines, the second re-estimates the noise away from them (dense
     // strong lines inflate every block's second differences) and detects again with the better model.
     for look in 0..2 {
-        baseline::estimate_baseline(frame, flag, &nm, 2 * fwhm_max_px, base, tmp);
+        baseline::estimate_baseline(frame, flag, &nm, 2 * fwhm_max_px, look == 1, base, tmp);
         detect::smooth_residual(frame, base, tmp);
         cands.clear();
         truncated = detect::find_candidates(tmp, base, &nm, cfg, 4 * fwhm_max_px, &mut cands);
@@ -169,33 +180,39 @@ pub fn find_peaks(
     };
     // First fits, each line alone, in centre order.
     let mut fits: Vec<(fit::Fit, usize, i64), MAX_PEAKS> = Vec::new();
+    let mut budget = STEP_BUDGET;
     for c in cands.iter() {
         let s0 = half_width_sigma(&data, c.pos, fwhm_max_px)
             .max(s_min)
             .min(s_max);
-        let f = fit::fit_line(&data, c.pos, s0, s_min, s_max);
+        let f = fit::fit_line(&data, c.pos, s0, s_min, s_max, budget.max(MIN_STEPS));
+        budget = budget.saturating_sub(usize::from(f.steps));
         // Capacity: at most MAX_PEAKS candidates remain.
         let _ = fits.push((f, c.pos, s0));
     }
     crate::sort::sort_by_key(&mut fits, |(f, _, _)| f.center_q16);
-    // Lines whose windows reach a neighbour are fitted again with the neighbours' profiles taken out.
-    // Pushed one by one: `collect` into a heapless Vec panics when full (it cannot be, but the check stays).
-    let mut first: Vec<fit::Fit, MAX_PEAKS> = Vec::new();
-    for (f, _, _) in fits.iter() {
-        let _ = first.push(*f);
-    }
-    for (k, (f, pos, s0)) in fits.iter_mut().enumerate() {
-        let prev = k.checked_sub(1).and_then(|j| first.get(j)).copied();
-        let next = first.get(k + 1).copied();
+    // Lines whose windows reach a neighbour are fitted again with the neighbours' first fits taken out:
+    // the next line's is still in `fits`, the previous line's is kept aside before it is replaced.
+    let mut prev_first: Option<fit::Fit> = None;
+    for k in 0..fits.len() {
+        let Some(&(f, pos, s0)) = fits.get(k) else {
+            break;
+        };
+        let next = fits.get(k + 1).map(|(n, _, _)| *n);
         let touches = |n: &fit::Fit| {
             let reach = ((f.hi - f.lo) as i64) << 15;
             (n.center_q16 - f.center_q16).abs() < reach + 3 * n.sigma_q16
         };
-        let prev = prev.filter(touches);
+        let prev = prev_first.filter(touches);
         let next = next.filter(touches);
+        prev_first = Some(f);
         if prev.is_some() || next.is_some() {
             data.neighbours = [prev, next];
-            *f = fit::fit_line(&data, *pos, *s0, s_min, s_max);
+            let refit = fit::fit_line(&data, pos, s0, s_min, s_max, budget.max(MIN_STEPS));
+            budget = budget.saturating_sub(usize::from(refit.steps));
+            if let Some(slot) = fits.get_mut(k) {
+                slot.0 = refit;
+            }
         }
     }
     let spike_limit_q16 = u32::from(cfg.fwhm_min_px_q8) * 256 * SPIKE_FWHM_Q8 / 256;
@@ -473,6 +490,17 @@ mod tests {
         // Shot-dominated: κ = 16 (Q4 counts, 1 e⁻ per count), read σ = 2 counts = 32 units.
         for (fwhm_q8, snr) in [(640, 30), (640, 300), (1024, 100), (2048, 1000)] {
             check_centroid(fwhm_q8, snr, 32, 16 << 16, 16 * 50, 90 + snr as u64);
+        }
+    }
+
+    #[test]
+    fn centroid_near_crlb_when_the_core_dominates_the_noise() {
+        // A bright narrow line on a dark background, like the bench's SNR-1000 cells: height 4·10⁵ units
+        // of shot noise (κ = 1) over a read floor of 2 units, so the core pixels' variance is ~10⁵ ×
+        // the wings' and their fit weights must keep their digits (a 16-bit weight quotient once gave
+        // 14–79 × CRLB). "SNR" here is relative to the floor: the peak's own SNR is ~630.
+        for fwhm_q8 in [512, 640, 1536] {
+            check_centroid(fwhm_q8, 200_000, 2, 1 << 16, 0, 300 + fwhm_q8 as u64);
         }
     }
 

@@ -45,15 +45,22 @@ pub struct NoiseModel {
 
 impl NoiseModel {
     /// Variance at a signal level (frame units), Q8.
+    #[inline]
     pub fn var_q8(&self, level: i64) -> i64 {
         let light = level.saturating_sub(self.zero_light_level).max(0);
-        let shot = (i128::from(light) * i128::from(self.shot_var_per_unit_q16)) >> 8;
-        self.floor_var_q8
-            .saturating_add(shot.clamp(0, i128::from(i64::MAX)) as i64)
-            .max(1)
+        // light < 2^31 keeps the product below 2^63 (the per-pixel case; i128 on M0 is a library call).
+        let shot = if light < 1 << 31 {
+            (super::math::mul_u32_wide(light as u32, self.shot_var_per_unit_q16) >> 8) as i64
+        } else {
+            let wide = (i128::from(light) * i128::from(self.shot_var_per_unit_q16)) >> 8;
+            wide.clamp(0, i128::from(i64::MAX)) as i64
+        };
+        self.floor_var_q8.saturating_add(shot).max(1)
     }
 
     /// Noise σ at a signal level (frame units, rounded down, ≥ 0).
+    ///
+    /// Work: one square root (≤ 64 steps).
     pub fn sigma(&self, level: i64) -> i64 {
         isqrt_i64(self.var_q8(level) >> 8)
     }
@@ -70,8 +77,9 @@ struct Block {
 ///
 /// `known_shot_q16` fixes κ; otherwise it is fitted and kept ≥ 0. When the block levels span too little
 /// to tell shot from read noise, κ is 0 and the floor absorbs the continuum's shot noise.
-/// Loop bounds: one pass over the pixels, two insertion-sort medians (≤ 64² steps) per block,
-/// [`FIT_ROUNDS`] × blocks.
+/// Loop bounds: N = min(`frame.len()`, [`MAX_PIXELS`]) pixels in ≤ 64 blocks, each with two passes over
+/// ≤ 64 values and two insertion-sort medians (≤ 2 016 steps each); then [`FIT_ROUNDS`] × 2 passes over
+/// the blocks and ≤ 2 + [`FIT_ROUNDS`] insertion-sort medians of ≤ 64 block variances.
 pub fn estimate(
     frame: &[i32],
     flag: &[u8],

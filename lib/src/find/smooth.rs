@@ -12,34 +12,209 @@ pub fn box_symmetric<F: Fn(usize) -> i64>(half: usize, src: F, dst: &mut [i32]) 
     if n == 0 {
         return;
     }
-    // Window [lo, hi] inclusive with a running sum.
+    // Window [lo, hi] inclusive with a running sum: |src| < 2^31 (i32 frame values) and ≤ 4096 px,
+    // so |sum| < 2^43 and i64 cannot overflow.
     let mut lo = 0usize;
     let mut hi = 0usize;
-    let mut sum: i128 = i128::from(src(0));
+    let mut sum: i64 = src(0);
+    let mut recip = Reciprocal::new(1);
     for (i, d) in dst.iter_mut().enumerate() {
         let h = half.min(i).min(n - 1 - i);
         let (want_lo, want_hi) = (i - h, i + h);
         while hi < want_hi {
             hi += 1;
-            sum += i128::from(src(hi));
+            sum = sum.saturating_add(src(hi));
         }
         while lo < want_lo {
-            sum -= i128::from(src(lo));
+            sum = sum.saturating_sub(src(lo));
             lo += 1;
         }
-        let mean = div_round(sum, (2 * h + 1) as i128);
-        *d = mean.clamp(i128::from(i32::MIN), i128::from(i32::MAX)) as i32;
+        // The width changes only near the edges: the reciprocal is rebuilt ≤ 2 × `half` times.
+        let width = u32::try_from(2 * h + 1).unwrap_or(u32::MAX);
+        if recip.den != width {
+            recip = Reciprocal::new(width);
+        }
+        let mean = recip.div_round(sum);
+        *d = mean.clamp(i64::from(i32::MIN), i64::from(i32::MAX)) as i32;
     }
 }
 
-fn div_round(num: i128, den: i128) -> i128 {
-    if den <= 0 {
-        return 0;
+/// [`box_symmetric`] of `buf` onto itself (the same integers): the values the window leaves behind were
+/// already overwritten, so the last [`RING`] originals are kept in a ring. `half` is capped at
+/// `RING / 2 − 1` (a line finder's windows are far smaller). Loop bound: 2 × `buf.len()`.
+pub fn box_symmetric_in_place(half: usize, buf: &mut [i32]) {
+    let n = buf.len();
+    if n == 0 {
+        return;
     }
-    if num >= 0 {
-        (num + den / 2) / den
-    } else {
-        -((-num + den / 2) / den)
+    let half = half.min(RING / 2 - 1);
+    let mut ring = [0i32; RING];
+    let mut lo = 0usize;
+    let mut hi = 0usize;
+    let mut sum: i64 = i64::from(buf.first().copied().unwrap_or(0));
+    let mut recip = Reciprocal::new(1);
+    for i in 0..n {
+        let h = half.min(i).min(n - 1 - i);
+        let (want_lo, want_hi) = (i - h, i + h);
+        while hi < want_hi {
+            hi += 1;
+            sum = sum.saturating_add(i64::from(buf.get(hi).copied().unwrap_or(0)));
+        }
+        while lo < want_lo {
+            // lo < i: overwritten, its original is in the ring (i − lo ≤ half < RING).
+            sum = sum.saturating_sub(i64::from(ring.get(lo % RING).copied().unwrap_or(0)));
+            lo += 1;
+        }
+        let width = u32::try_from(2 * h + 1).unwrap_or(u32::MAX);
+        if recip.den != width {
+            recip = Reciprocal::new(width);
+        }
+        let mean = recip
+            .div_round(sum)
+            .clamp(i64::from(i32::MIN), i64::from(i32::MAX)) as i32;
+        if let (Some(slot), Some(cell)) = (ring.get_mut(i % RING), buf.get_mut(i)) {
+            *slot = *cell;
+            *cell = mean;
+        }
+    }
+}
+
+/// Largest `max |v|` for which [`box_narrow`] and [`box_narrow_in_place`] may be used with `half`:
+/// every window sum plus the rounding half-width stays below 2^31, so `i32` sums and the reciprocal's
+/// 32-bit path serve (the integers are the same as [`box_symmetric`]'s).
+pub fn narrow_limit(half: usize) -> i64 {
+    let width = i64::try_from(2 * half + 1).unwrap_or(i64::MAX).max(1);
+    ((1i64 << 31) - 1 - width) / width
+}
+
+/// [`box_symmetric`] over a slice whose values are within ±[`narrow_limit`]: `i32` sums, one 32 × 32-bit
+/// product per pixel. Loop bound: 2 × `dst.len()`.
+pub fn box_narrow(half: usize, src: &[i32], dst: &mut [i32]) {
+    let n = dst.len();
+    if n == 0 {
+        return;
+    }
+    let at = |j: usize| src.get(j).copied().unwrap_or(0);
+    let (mut lo, mut hi) = (0usize, 0usize);
+    let mut sum: i32 = at(0);
+    let mut recip = Reciprocal::new(1);
+    for (i, d) in dst.iter_mut().enumerate() {
+        let h = half.min(i).min(n - 1 - i);
+        while hi < i + h {
+            hi += 1;
+            sum = sum.wrapping_add(at(hi));
+        }
+        while lo < i - h {
+            sum = sum.wrapping_sub(at(lo));
+            lo += 1;
+        }
+        let width = (2 * h + 1) as u32;
+        if recip.den != width {
+            recip = Reciprocal::new(width);
+        }
+        *d = recip.div_round_narrow(sum);
+    }
+}
+
+/// [`box_symmetric_in_place`] under the same condition as [`box_narrow`]. Loop bound: 2 × `buf.len()`.
+pub fn box_narrow_in_place(half: usize, buf: &mut [i32]) {
+    let n = buf.len();
+    if n == 0 {
+        return;
+    }
+    let half = half.min(RING / 2 - 1);
+    let mut ring = [0i32; RING];
+    let (mut lo, mut hi) = (0usize, 0usize);
+    let mut sum: i32 = buf.first().copied().unwrap_or(0);
+    let mut recip = Reciprocal::new(1);
+    for i in 0..n {
+        let h = half.min(i).min(n - 1 - i);
+        while hi < i + h {
+            hi += 1;
+            sum = sum.wrapping_add(buf.get(hi).copied().unwrap_or(0));
+        }
+        while lo < i - h {
+            sum = sum.wrapping_sub(ring.get(lo % RING).copied().unwrap_or(0));
+            lo += 1;
+        }
+        let width = (2 * h + 1) as u32;
+        if recip.den != width {
+            recip = Reciprocal::new(width);
+        }
+        let mean = recip.div_round_narrow(sum);
+        if let (Some(slot), Some(cell)) = (ring.get_mut(i % RING), buf.get_mut(i)) {
+            *slot = *cell;
+            *cell = mean;
+        }
+    }
+}
+
+/// Originals [`box_symmetric_in_place`] keeps (a power of two).
+const RING: usize = 128;
+
+/// Division by a fixed small width through a multiply (the Cortex-M0 has no divide instruction and a
+/// library division costs ~100 instructions per pixel and pass). Exact: with `s = 31 + ⌈log2 d⌉` and
+/// `m = ⌈2^s / d⌉ ≤ 2^32 − 1` (d ≥ 2), `⌊a·m / 2^s⌋ = ⌊a / d⌋` for every `a < 2^31`: `m·d − 2^s < d`
+/// makes the error term `a·(m·d − 2^s) / (d·2^s)` smaller than `1/d` because `a < 2^s / d`. Larger `a`
+/// divide directly; d = 1 needs no division.
+#[derive(Clone, Copy)]
+struct Reciprocal {
+    den: u32,
+    m: u32,
+    s: u32,
+}
+
+impl Reciprocal {
+    /// [`Reciprocal::div_round`] for sums with `|sum| + den/2 < 2^31` (callers check [`narrow_limit`]).
+    #[inline(always)]
+    fn div_round_narrow(&self, sum: i32) -> i32 {
+        let a = sum.unsigned_abs().wrapping_add(self.den / 2);
+        let q = if self.den == 1 {
+            sum.unsigned_abs()
+        } else {
+            let hi = (super::math::mul_u32_wide(a, self.m) >> 32) as u32;
+            hi >> (self.s - 32)
+        };
+        let q = q as i32;
+        if sum < 0 {
+            -q
+        } else {
+            q
+        }
+    }
+
+    fn new(den: u32) -> Self {
+        let den = den.clamp(1, 1 << 16);
+        let s = 31 + (32 - (den - 1).leading_zeros());
+        let m = ((1u64 << s) + u64::from(den) - 1)
+            .checked_div(u64::from(den))
+            .unwrap_or(0);
+        Self {
+            den,
+            m: u32::try_from(m).unwrap_or(u32::MAX),
+            s,
+        }
+    }
+
+    /// `num / den` rounded half away from zero (the same integers as a plain rounding division).
+    fn div_round(&self, num: i64) -> i64 {
+        let a = num.unsigned_abs().saturating_add(u64::from(self.den / 2));
+        let q = if self.den == 1 {
+            num.unsigned_abs()
+        } else if a < 1 << 31 {
+            // s ≥ 32 for den ≥ 2: take the high word, then a 32-bit shift (a variable 64-bit shift is
+            // a library call on the M0).
+            let hi = (super::math::mul_u32_wide(a as u32, self.m) >> 32) as u32;
+            u64::from(hi >> (self.s - 32))
+        } else {
+            a.checked_div(u64::from(self.den)).unwrap_or(0)
+        };
+        let q = i64::try_from(q).unwrap_or(i64::MAX);
+        if num < 0 {
+            -q
+        } else {
+            q
+        }
     }
 }
 
@@ -62,5 +237,91 @@ mod tests {
         assert_eq!(one, [7]);
         let mut none: [i32; 0] = [];
         box_symmetric(5, |_| 7, &mut none);
+    }
+
+    #[test]
+    fn in_place_box_equals_the_copying_one() {
+        let src: Vec<i32> = (0..300)
+            .map(|i: i32| ((i * 7919) % 1013) - 400 + i * 3)
+            .collect();
+        for half in [0usize, 1, 2, 5, 17, 32, 63, 200] {
+            let mut want = vec![0i32; src.len()];
+            box_symmetric(half.min(63), |j| i64::from(src[j]), &mut want);
+            let mut got = src.clone();
+            box_symmetric_in_place(half, &mut got);
+            assert_eq!(got, want, "half {half}");
+        }
+        let mut one = [9i32];
+        box_symmetric_in_place(4, &mut one);
+        assert_eq!(one, [9]);
+    }
+
+    #[test]
+    fn narrow_boxes_equal_the_wide_ones() {
+        let mut x = 0x2545_f491u32;
+        for (half, amp) in [
+            (0usize, 1000i64),
+            (3, 1 << 20),
+            (10, 1 << 24),
+            (32, narrow_limit(32)),
+            (63, narrow_limit(63)),
+        ] {
+            let src: Vec<i32> = (0..700)
+                .map(|_| {
+                    x ^= x << 13;
+                    x ^= x >> 17;
+                    x ^= x << 5;
+                    ((i64::from(x) % (2 * amp + 1)) - amp) as i32
+                })
+                .collect();
+            let mut want = vec![0i32; src.len()];
+            box_symmetric(half, |j| i64::from(src[j]), &mut want);
+            let mut got = vec![0i32; src.len()];
+            box_narrow(half, &src, &mut got);
+            assert_eq!(got, want, "half {half}");
+            let mut inplace = src.clone();
+            box_narrow_in_place(half, &mut inplace);
+            let mut wide_inplace = src.clone();
+            box_symmetric_in_place(half, &mut wide_inplace);
+            assert_eq!(inplace, wide_inplace, "in place, half {half}");
+        }
+    }
+
+    /// The multiply path gives exactly the rounding division, around every rounding edge and both
+    /// signs, for every width a box can have.
+    #[test]
+    fn reciprocal_division_is_exact() {
+        fn plain(num: i64, den: i64) -> i64 {
+            if num >= 0 {
+                (num + den / 2) / den
+            } else {
+                -((-num + den / 2) / den)
+            }
+        }
+        for den in (1..=300u32).chain([65_535, 65_536]) {
+            let r = Reciprocal::new(den);
+            let d = i64::from(den);
+            let mut probes = vec![0i64, 1, (1 << 31) - 1, 1 << 31, 1 << 40, i64::MAX / 2];
+            for k in [
+                1i64,
+                2,
+                3,
+                1000,
+                65_535,
+                1 << 20,
+                (1 << 31) / d - 1,
+                (1 << 31) / d,
+            ] {
+                for off in -2..=2 {
+                    probes.push(k * d + off);
+                    probes.push(k * d + d / 2 + off);
+                }
+            }
+            for p in probes {
+                for v in [p, -p] {
+                    assert_eq!(r.div_round(v), plain(v, d), "{v} / {den}");
+                }
+            }
+        }
     }
 }

@@ -101,6 +101,8 @@ const E18: i128 = 1_000_000_000_000_000_000;
 
 impl Air {
     /// (n − 1) × 10²⁰ at a vacuum wavelength; `None` in vacuum mode or below 200 nm.
+    ///
+    /// Work: fixed, ≤ 5 [`mul_div_i128`](crate::fixed::mul_div_i128) (≤ 128 loop steps each).
     pub fn refractivity_e20(&self, vacuum_fm: u64) -> Option<i128> {
         if vacuum_fm < AIR_MIN_VACUUM_FM {
             return None;
@@ -128,6 +130,8 @@ impl Air {
     }
 
     /// Air wavelength in fm for a vacuum wavelength in fm; `None` in vacuum mode or below 200 nm.
+    ///
+    /// Work: fixed, ≤ 6 [`mul_div_i128`](crate::fixed::mul_div_i128).
     pub fn air_wavelength_fm(&self, vacuum_fm: u64) -> Option<u64> {
         let nm1 = self.refractivity_e20(vacuum_fm)?;
         let fm = mul_div_i128(vacuum_fm as i128, E20, E20 + nm1)?;

@@ -29,7 +29,8 @@ impl Lines {
     /// vacuum wavelength; air values per `air`.
     ///
     /// Work: every line in the window is predicted twice; lines outside it are mostly skipped by a
-    /// Bohr estimate, at most 780 such estimates per full pass.
+    /// Bohr estimate, at most 780 such estimates per full pass. Each `next()` looks at the heads of all
+    /// 39 series; a full pass yields ≤ 780 lines.
     pub fn new(
         nucleus: Nucleus,
         from_fm: u64,
