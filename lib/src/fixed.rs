@@ -9,9 +9,9 @@ pub const Q80_ONE: u128 = 1 << 80;
 /// `a * b / c` rounded to nearest, through a 256-bit product.
 ///
 /// `None` when `c == 0` or the quotient does not fit in 128 bits. Work: a shift for a power-of-two
-/// `c`, one native division when the product fits 128 bits, else at most 128 fixed loop steps (as
-/// many as the quotient has bits), in 64-bit arithmetic when `c` < 2^64. Every path gives the exact
-/// quotient and remainder, so the rounding is the same whichever runs.
+/// `c`, else at most 128 fixed loop steps (as many as the quotient has bits), in 64-bit arithmetic
+/// when `c` < 2^64. Every path gives the exact quotient and remainder, so the rounding is the same
+/// whichever runs.
 pub const fn mul_div_u128(a: u128, b: u128, c: u128) -> Option<u128> {
     if c == 0 {
         return None;
@@ -33,13 +33,9 @@ pub const fn mul_div_u128(a: u128, b: u128, c: u128) -> Option<u128> {
     if c >> 64 == 0 {
         return long_div_u64(hi, lo, c as u64);
     }
-    if hi == 0 {
-        // Same result as the long division below, through the native 128-bit divide.
-        let q = lo / c;
-        return round_up_half(q, lo - q * c, c);
-    }
-    // Schoolbook long division of (hi, lo) by c, one bit at a time; `rem < c` holds between steps.
-    // The first `skip` quotient bits are 0 (hi has fewer bits than c): start after them.
+    // Schoolbook long division of (hi, lo) by c ≥ 2^64, one bit at a time; `rem < c` holds between
+    // steps. The first `skip` quotient bits are 0 (hi has fewer bits than c): start after them, so
+    // a quotient below 2^64 (hi = 0) takes at most 65 steps.
     let skip = (128 - c.leading_zeros()).saturating_sub(1 + (128 - hi.leading_zeros()));
     let mut i = 128 - skip;
     let mut rem = if skip == 0 {
