@@ -486,6 +486,7 @@ fn score(mut h: Hypothesis, search: &Search<'_>, floor: i32) -> Option<Hypothesi
         (true, false) => Cursor::Down(lines.len()),
     };
     let n = scored.len() as i32;
+    let mut seen_lines = [false; MAX_REFERENCE_LINES];
     for (m, &k) in scored.iter().enumerate() {
         if votes + (n - m as i32) < floor {
             return None;
@@ -503,6 +504,10 @@ fn score(mut h: Hypothesis, search: &Search<'_>, floor: i32) -> Option<Hypothesi
         let (idx, d) = cursor.nearest(lines, lam);
         if d <= tol {
             votes += 1;
+            // This line is seen (a peak lies within its window): no search for it below.
+            if let Some(seen) = seen_lines.get_mut(idx) {
+                *seen = true;
+            }
             // 0 ≤ d ≤ tol: below 2^23 the quotient is the same in u32.
             cost += if tol < 1 << 23 {
                 i64::from(
@@ -525,13 +530,15 @@ fn score(mut h: Hypothesis, search: &Search<'_>, floor: i32) -> Option<Hypothesi
     let (e0, e1) = (lam_end(ends_u.0), lam_end(ends_u.1));
     let (lo, hi) = (e0.min(e1), e0.max(e1));
     let mut misses = 0i32;
-    for l in lines
+    for (i, l) in lines
         .iter()
-        .filter(|l| l.strength >= weakest && (lo..=hi).contains(&l.wavelength_fm))
+        .enumerate()
+        .filter(|(_, l)| l.strength >= weakest && (lo..=hi).contains(&l.wavelength_fm))
     {
-        let seen = lam_of
-            .iter()
-            .any(|&(lam, tol)| (lam - l.wavelength_fm).abs() <= tol);
+        let seen = seen_lines.get(i).copied().unwrap_or(false)
+            || lam_of
+                .iter()
+                .any(|&(lam, tol)| (lam - l.wavelength_fm).abs() <= tol);
         if !seen {
             misses += 1;
             if votes - misses < floor {
@@ -544,11 +551,11 @@ fn score(mut h: Hypothesis, search: &Search<'_>, floor: i32) -> Option<Hypothesi
     // Brighter peaks should sit on lines expected to be stronger (a tie-breaker: detector response
     // and self-absorption bend this, but rarely reverse a whole series).
     let mut concord = 0i32;
+    // sign(x − y) of two u32 as −1, 0, 1 (the same as through i64).
+    let sign = |x: u32, y: u32| i32::from(x > y) - i32::from(x < y);
     for (i, a) in matched.iter().enumerate() {
         for b in matched.iter().skip(i + 1) {
-            let s1 = (a.0 as i64 - b.0 as i64).signum();
-            let s2 = (a.1 as i64 - b.1 as i64).signum();
-            concord += (s1 * s2) as i32;
+            concord += sign(a.0, b.0) * sign(a.1, b.1);
         }
     }
     h.concord = concord;
