@@ -352,6 +352,7 @@ fn weight_q30(vref: i64, var: i64) -> i64 {
 }
 
 /// `v / 2^k` rounded to nearest, ties away from zero, so positive and negative terms err alike.
+#[inline(never)]
 fn round_shift(v: i128, k: u32) -> i128 {
     if k == 0 {
         return v;
@@ -502,6 +503,7 @@ impl Scaled {
     }
 }
 
+#[inline(never)]
 fn det3(m: [[i128; 3]; 3]) -> i128 {
     let small = |v: &i128| (-(1i128 << 31)..(1 << 31)).contains(v);
     if m.iter().flatten().all(small) {
@@ -530,6 +532,7 @@ fn minor(m: &Mat, skip_r: usize, skip_c: usize) -> [[i128; 3]; 3] {
 }
 
 /// σ of the centre in px (Q16): `s · sqrt(vref · [M⁻¹]μμ) / A`.
+#[inline(never)]
 fn center_sigma(m: &Mat, p: &Params, vref: i64) -> Option<i64> {
     let inv_q32 = Scaled::new(m)?.inv_mu_q32()?;
     // vref is Q8, so sqrt(vref · inv) is Q20 in frame units.

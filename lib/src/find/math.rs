@@ -86,7 +86,9 @@ pub fn isqrt_i64(v: i64) -> i64 {
     }
 }
 
-/// `num / den` rounded half away from zero; 0 when `den` is 0. `den` may be negative.
+/// `num / den` rounded half away from zero; 0 when `den` is 0. `den` may be negative. Out of line:
+/// a 128-bit division with its rounding is large code and never runs per pixel.
+#[inline(never)]
 pub fn div_round_i128(num: i128, den: i128) -> i128 {
     if den == 0 {
         return 0;
@@ -160,6 +162,20 @@ pub fn above_sigmas(r: i64, k_q8: i64, var_q8: i64) -> bool {
     // r² < 2^128; beyond 2^104 the left side exceeds any k² · v (< 2^127).
     let lhs = u128::from(r) * u128::from(r);
     lhs >= 1 << 104 || lhs << 24 > u128::from(k) * u128::from(k) * u128::from(v)
+}
+
+/// `a · b` in `i128`, `None` on overflow. Out of line on purpose: on the M0 every inlined 128-bit
+/// product is a few hundred bytes of code, and these run a few hundred times per frame, not per pixel.
+#[inline(never)]
+pub fn checked_mul_i128(a: i128, b: i128) -> Option<i128> {
+    a.checked_mul(b)
+}
+
+/// `a · b` in `i128` for operands whose product is known to fit (wraps otherwise); out of line for the
+/// same reason as [`checked_mul_i128`].
+#[inline(never)]
+pub fn mul_i128(a: i128, b: i128) -> i128 {
+    a.wrapping_mul(b)
 }
 
 /// Clamps an `i128` into `i64`.

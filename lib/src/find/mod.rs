@@ -91,7 +91,7 @@ pub const SPIKE_FWHM_Q8: u32 = 160;
 /// peaks stand on (frame units), for callers that need the continuum; the rest is work space.
 ///
 /// Loop bounds, with N = `frame.len()` ≤ [`MAX_PIXELS`] and W = FWHMmax ≤ 16 px: two noise estimates
-/// O(N) (see [`noise::estimate`]); baselines of 16 rounds (first look) and 4 rounds (second look),
+/// O(N) (see [`noise::estimate`]); baselines of 8 rounds (first look) and 4 rounds (second look),
 /// each a clip pass and 2 box passes of O(N), plus 2 box passes once; two detections of O(N) plus
 /// ≤ 2 × 4W px of prominence search per local maximum above threshold and ≤ 128 steps per candidate
 /// arriving at a full list; masking ≤ 128 candidates × (≤ 2W + 6W + 1 px); thinning ≤ 128²

@@ -11,7 +11,7 @@
 //! thresholds and a reported centre σ for almost 2× their true noise σ.
 
 use super::mask::LineMask;
-use super::math::{div_round_i128, isqrt_i64};
+use super::math::{checked_mul_i128, div_round_i128, isqrt_i64, mul_i128};
 use crate::condition::{flags, MAX_PIXELS};
 
 /// Pixels per noise block.
@@ -52,8 +52,7 @@ impl NoiseModel {
         let shot = if light < 1 << 31 {
             (super::math::mul_u32_wide(light as u32, self.shot_var_per_unit_q16) >> 8) as i64
         } else {
-            let wide = (i128::from(light) * i128::from(self.shot_var_per_unit_q16)) >> 8;
-            wide.clamp(0, i128::from(i64::MAX)) as i64
+            wide_shot(light, self.shot_var_per_unit_q16)
         };
         self.floor_var_q8.saturating_add(shot).max(1)
     }
@@ -64,6 +63,14 @@ impl NoiseModel {
     pub fn sigma(&self, level: i64) -> i64 {
         isqrt_i64(self.var_q8(level) >> 8)
     }
+}
+
+/// Shot variance (Q8) of a level beyond 2^31 frame units: out of line, it never runs for ADC frames.
+#[cold]
+#[inline(never)]
+fn wide_shot(light: i64, shot_q16: u32) -> i64 {
+    let wide = (i128::from(light) * i128::from(shot_q16)) >> 8;
+    wide.clamp(0, i128::from(i64::MAX)) as i64
 }
 
 #[derive(Clone, Copy, Default)]
@@ -115,6 +122,7 @@ pub fn fallback(known_shot_q16: Option<u32>) -> NoiseModel {
     }
 }
 
+#[inline(never)]
 fn block_stats(frame: &[i32], flag: &[u8], mask: &LineMask, start: usize, end: usize) -> Block {
     let trusted =
         |i: usize| !mask.is_set(i) && flag.get(i).is_some_and(|&f| !flags::is_untrusted(f));
@@ -167,11 +175,13 @@ fn block_stats(frame: &[i32], flag: &[u8], mask: &LineMask, start: usize, end: u
 }
 
 /// Upper median; sorts `v` (insertion sort, ≤ 64² steps: core's select keeps a panic path).
+#[inline(never)]
 fn median(v: &mut [i64]) -> i64 {
     crate::sort::sort_by_key(v, |x| *x);
     v.get(v.len() / 2).copied().unwrap_or(0)
 }
 
+#[inline(never)]
 fn fit(blocks: &mut [Block], known: Option<u32>) -> NoiseModel {
     // Lines only raise a block's level, so the lowest level is the no-light level (clamped ≤ 2^40 so the
     // products below stay inside i128).
@@ -195,7 +205,7 @@ fn fit(blocks: &mut [Block], known: Option<u32>) -> NoiseModel {
         // Reject blocks that lines inflate, judged against the current model.
         for b in blocks.iter_mut().filter(|b| b.used) {
             let pred = i128::from(model.var_q8(b.level));
-            if i128::from(b.var_q8) * 256 > pred * REJECT_ABOVE_Q8 {
+            if mul_i128(i128::from(b.var_q8), 256) > mul_i128(pred, REJECT_ABOVE_Q8) {
                 b.used = false;
             }
         }
@@ -211,18 +221,19 @@ fn fit(blocks: &mut [Block], known: Option<u32>) -> NoiseModel {
         for b in blocks.iter().filter(|b| b.used) {
             let pred = i128::from(model.var_q8(b.level)).max(1);
             // w in Q16, ≤ 2^16 · (vref/pred)², capped.
-            let w = ((vref << 16) / pred)
-                .saturating_mul(vref)
+            let w = checked_mul_i128((vref << 16) / pred, vref)
+                .unwrap_or(i128::MAX)
                 .checked_div(pred)
                 .unwrap_or(1)
                 .clamp(1, 1 << 24);
             let x = i128::from(b.level);
             let y = i128::from(b.var_q8);
             sw += w;
-            sx += w * x;
-            sy += w * y;
-            sxx += w * x * x;
-            sxy += w * x * y;
+            let wx = mul_i128(w, x);
+            sx += wx;
+            sy += mul_i128(w, y);
+            sxx += mul_i128(wx, x);
+            sxy += mul_i128(wx, y);
             lmin = lmin.min(b.level);
             lmax = lmax.max(b.level);
         }
@@ -230,14 +241,12 @@ fn fit(blocks: &mut [Block], known: Option<u32>) -> NoiseModel {
             break;
         }
         // Extreme frames (values near the i32 limits) could overflow the products: then κ stays 0.
-        let det = sw
-            .checked_mul(sxx)
-            .and_then(|a| sx.checked_mul(sx).and_then(|b| a.checked_sub(b)))
+        let det = checked_mul_i128(sw, sxx)
+            .and_then(|a| checked_mul_i128(sx, sx).and_then(|b| a.checked_sub(b)))
             .unwrap_or(0);
-        let num = sw
-            .checked_mul(sxy)
-            .and_then(|a| sx.checked_mul(sy).and_then(|b| a.checked_sub(b)))
-            .and_then(|v| v.checked_mul(256));
+        let num = checked_mul_i128(sw, sxy)
+            .and_then(|a| checked_mul_i128(sx, sy).and_then(|b| a.checked_sub(b)))
+            .and_then(|v| checked_mul_i128(v, 256));
         // Shot noise is only separable from the floor when the continuum spans a useful range of levels.
         let mean_level = div_round_i128(sx, sw).max(0);
         let span = i128::from(lmax.saturating_sub(lmin));
@@ -247,8 +256,10 @@ fn fit(blocks: &mut [Block], known: Option<u32>) -> NoiseModel {
             let k_q16 = div_round_i128(num, det).clamp(0, i128::from(u32::MAX));
             // The line's value at level 0, moved to the no-light level (it is negative for a frame
             // that still carries its bias).
-            let floor = div_round_i128(sy.saturating_sub(k_q16.saturating_mul(sx) >> 8), sw)
-                .saturating_add((i128::from(zero) * k_q16) >> 8);
+            let ksx =
+                checked_mul_i128(k_q16, sx).unwrap_or(if sx < 0 { i128::MIN } else { i128::MAX });
+            let floor = div_round_i128(sy.saturating_sub(ksx >> 8), sw)
+                .saturating_add(mul_i128(i128::from(zero), k_q16) >> 8);
             if floor >= 0 {
                 model.shot_var_per_unit_q16 = k_q16 as u32;
                 model.floor_var_q8 = floor.clamp(0, i128::from(i64::MAX)) as i64;
@@ -256,7 +267,7 @@ fn fit(blocks: &mut [Block], known: Option<u32>) -> NoiseModel {
                 continue;
             }
             // Negative even there: all noise is shot noise, through the origin.
-            if let (true, Some(n0)) = (sxx > 0, sxy.checked_mul(256)) {
+            if let (true, Some(n0)) = (sxx > 0, checked_mul_i128(sxy, 256)) {
                 let k = div_round_i128(n0, sxx).clamp(0, i128::from(u32::MAX));
                 model.shot_var_per_unit_q16 = k as u32;
                 model.floor_var_q8 = 0;

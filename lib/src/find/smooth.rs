@@ -95,24 +95,29 @@ pub fn box_narrow(half: usize, src: &[i32], dst: &mut [i32]) {
         return;
     }
     let at = |j: usize| src.get(j).copied().unwrap_or(0);
-    let (mut lo, mut hi) = (0usize, 0usize);
-    let mut sum: i32 = at(0);
-    let mut recip = Reciprocal::new(1);
-    for (i, d) in dst.iter_mut().enumerate() {
-        let h = half.min(i).min(n - 1 - i);
-        while hi < i + h {
-            hi += 1;
-            sum = sum.wrapping_add(at(hi));
+    let mut w = Window::new(at(0));
+    // Edges with shrinking windows step by step; the interior (constant width) in a tight loop.
+    let (a, b) = interior(half, n);
+    for i in (0..n).filter(|&i| i <= a || i >= b) {
+        if i == b && a < b {
+            w.sync_interior(b, half);
         }
-        while lo < i - h {
-            sum = sum.wrapping_sub(at(lo));
-            lo += 1;
+        let mean = w.step(i, half, n, &at);
+        if let Some(d) = dst.get_mut(i) {
+            *d = mean;
         }
-        let width = (2 * h + 1) as u32;
-        if recip.den != width {
-            recip = Reciprocal::new(width);
+        if i == a && a < b {
+            let recip = Reciprocal::new(width(half));
+            let mut sum = w.sum;
+            let adds = src.get(a + 1 + half..b + half).unwrap_or(&[]);
+            let subs = src.get(a - half..b - half - 1).unwrap_or(&[]);
+            let outs = dst.get_mut(a + 1..b).unwrap_or(&mut []);
+            for ((o, &plus), &minus) in outs.iter_mut().zip(adds).zip(subs) {
+                sum = sum.wrapping_add(plus).wrapping_sub(minus);
+                *o = recip.div_round_narrow(sum);
+            }
+            w.sum = sum;
         }
-        *d = recip.div_round_narrow(sum);
     }
 }
 
@@ -124,28 +129,107 @@ pub fn box_narrow_in_place(half: usize, buf: &mut [i32]) {
     }
     let half = half.min(RING / 2 - 1);
     let mut ring = [0i32; RING];
-    let (mut lo, mut hi) = (0usize, 0usize);
-    let mut sum: i32 = buf.first().copied().unwrap_or(0);
-    let mut recip = Reciprocal::new(1);
-    for i in 0..n {
+    let mut w = Window::new(buf.first().copied().unwrap_or(0));
+    let (a, b) = interior(half, n);
+    let mut i = 0usize;
+    while i < n {
+        if i == b && a < b {
+            w.sync_interior(b, half);
+        }
+        // A general step; values leaving the window come from the ring (they are overwritten).
         let h = half.min(i).min(n - 1 - i);
-        while hi < i + h {
-            hi += 1;
-            sum = sum.wrapping_add(buf.get(hi).copied().unwrap_or(0));
+        while w.hi < i + h {
+            w.hi += 1;
+            w.sum = w.sum.wrapping_add(buf.get(w.hi).copied().unwrap_or(0));
         }
-        while lo < i - h {
-            sum = sum.wrapping_sub(ring.get(lo % RING).copied().unwrap_or(0));
-            lo += 1;
+        while w.lo < i - h {
+            w.sum = w
+                .sum
+                .wrapping_sub(ring.get(w.lo % RING).copied().unwrap_or(0));
+            w.lo += 1;
         }
-        let width = (2 * h + 1) as u32;
-        if recip.den != width {
-            recip = Reciprocal::new(width);
+        if w.recip.den != width(h) {
+            w.recip = Reciprocal::new(width(h));
         }
-        let mean = recip.div_round_narrow(sum);
+        let mean = w.recip.div_round_narrow(w.sum);
         if let (Some(slot), Some(cell)) = (ring.get_mut(i % RING), buf.get_mut(i)) {
             *slot = *cell;
             *cell = mean;
         }
+        if i == a && a < b {
+            let recip = Reciprocal::new(width(half));
+            let mut sum = w.sum;
+            for j in a + 1..b {
+                let plus = buf.get(j + half).copied().unwrap_or(0);
+                let minus = ring.get((j - half - 1) % RING).copied().unwrap_or(0);
+                sum = sum.wrapping_add(plus).wrapping_sub(minus);
+                if let (Some(slot), Some(cell)) = (ring.get_mut(j % RING), buf.get_mut(j)) {
+                    *slot = *cell;
+                    *cell = recip.div_round_narrow(sum);
+                }
+            }
+            w.sum = sum;
+            i = b;
+            continue;
+        }
+        i += 1;
+    }
+}
+
+/// Box width for a half-width.
+fn width(h: usize) -> u32 {
+    u32::try_from(2 * h + 1).unwrap_or(u32::MAX)
+}
+
+/// The first and last pixel of constant window width are `a` and `b − 1` (`a` is stepped generally,
+/// `a + 1 .. b` by the tight loop); `(n, n)` when no window reaches full width inside the frame.
+fn interior(half: usize, n: usize) -> (usize, usize) {
+    if n > 2 * half + 1 {
+        (half, n - half)
+    } else {
+        (n, n)
+    }
+}
+
+/// A running window sum for the stepped (edge) pixels of the narrow boxes.
+struct Window {
+    lo: usize,
+    hi: usize,
+    sum: i32,
+    recip: Reciprocal,
+}
+
+impl Window {
+    fn new(first: i32) -> Self {
+        Self {
+            lo: 0,
+            hi: 0,
+            sum: first,
+            recip: Reciprocal::new(1),
+        }
+    }
+
+    /// After the tight loop ran to `b − 1`: its window was `[b − 1 − half, b − 1 + half]`.
+    fn sync_interior(&mut self, b: usize, half: usize) {
+        self.lo = b - 1 - half;
+        self.hi = b - 1 + half;
+    }
+
+    /// Moves the window to pixel `i` (width `2 min(half, i, n − 1 − i) + 1`) and returns its mean.
+    fn step(&mut self, i: usize, half: usize, n: usize, at: &impl Fn(usize) -> i32) -> i32 {
+        let h = half.min(i).min(n - 1 - i);
+        while self.hi < i + h {
+            self.hi += 1;
+            self.sum = self.sum.wrapping_add(at(self.hi));
+        }
+        while self.lo < i - h {
+            self.sum = self.sum.wrapping_sub(at(self.lo));
+            self.lo += 1;
+        }
+        if self.recip.den != width(h) {
+            self.recip = Reciprocal::new(width(h));
+        }
+        self.recip.div_round_narrow(self.sum)
     }
 }
 
@@ -284,6 +368,31 @@ mod tests {
             let mut wide_inplace = src.clone();
             box_symmetric_in_place(half, &mut wide_inplace);
             assert_eq!(inplace, wide_inplace, "in place, half {half}");
+        }
+    }
+
+    #[test]
+    fn narrow_boxes_equal_the_wide_ones_at_every_size() {
+        let mut x = 0x0bad_cafeu32;
+        for n in (1..=140).chain([255, 256, 257, 1000]) {
+            for half in [0usize, 1, 2, 3, 5, 8, 16, 31, 32, 63] {
+                let src: Vec<i32> = (0..n)
+                    .map(|_| {
+                        x ^= x << 13;
+                        x ^= x >> 17;
+                        x ^= x << 5;
+                        (x % 2_000_001) as i32 - 1_000_000
+                    })
+                    .collect();
+                let mut want = vec![0i32; n];
+                box_symmetric(half, |j| i64::from(src[j]), &mut want);
+                let mut got = vec![0i32; n];
+                box_narrow(half, &src, &mut got);
+                assert_eq!(got, want, "n {n} half {half}");
+                let mut inplace = src.clone();
+                box_narrow_in_place(half, &mut inplace);
+                assert_eq!(inplace, want, "in place, n {n} half {half}");
+            }
         }
     }
 
