@@ -8,7 +8,10 @@ pub const Q80_ONE: u128 = 1 << 80;
 
 /// `a * b / c` rounded to nearest, through a 256-bit product.
 ///
-/// `None` when `c == 0` or the quotient does not fit in 128 bits. Work: 128 fixed loop steps.
+/// `None` when `c == 0` or the quotient does not fit in 128 bits. Work: a shift for a power-of-two
+/// `c`, else at most 128 fixed loop steps (as many as the quotient has bits), in 64-bit arithmetic
+/// when `c` < 2^64. Every path gives the exact quotient and remainder, so the rounding is the same
+/// whichever runs.
 pub const fn mul_div_u128(a: u128, b: u128, c: u128) -> Option<u128> {
     if c == 0 {
         return None;
@@ -17,19 +20,30 @@ pub const fn mul_div_u128(a: u128, b: u128, c: u128) -> Option<u128> {
     if hi >= c {
         return None;
     }
-    if hi == 0 {
-        // Same result as the long division below, through the native 128-bit divide.
-        let (q, r) = (lo / c, lo % c);
-        return if r >= c - r {
-            q.checked_add(1)
+    if c.is_power_of_two() {
+        // c = 2^k with hi < c: the quotient (hi, lo) >> k fits 128 bits.
+        let k = c.trailing_zeros();
+        let q = if k == 0 {
+            lo
         } else {
-            Some(q)
+            (hi << (128 - k)) | (lo >> k)
         };
+        return round_up_half(q, lo & (c - 1), c);
     }
-    // Schoolbook long division of (hi, lo) by c, one bit at a time; `rem < c` holds between steps.
-    let mut rem = hi;
+    if c >> 64 == 0 {
+        return long_div_u64(hi, lo, c as u64);
+    }
+    // Schoolbook long division of (hi, lo) by c ≥ 2^64, one bit at a time; `rem < c` holds between
+    // steps. The first `skip` quotient bits are 0 (hi has fewer bits than c): start after them, so
+    // a quotient below 2^64 (hi = 0) takes at most 65 steps.
+    let skip = (128 - c.leading_zeros()).saturating_sub(1 + (128 - hi.leading_zeros()));
+    let mut i = 128 - skip;
+    let mut rem = if skip == 0 {
+        hi
+    } else {
+        (hi << skip) | (lo >> (128 - skip))
+    };
     let mut q: u128 = 0;
-    let mut i = 128;
     while i > 0 {
         i -= 1;
         let carry = rem >> 127;
@@ -39,14 +53,69 @@ pub const fn mul_div_u128(a: u128, b: u128, c: u128) -> Option<u128> {
             q |= 1 << i;
         }
     }
-    // Round half up: rem >= c - rem  <=>  2 rem >= c.
-    if rem >= c - rem {
-        if q == u128::MAX {
-            return None;
+    round_up_half(q, rem, c)
+}
+
+/// The long division of (hi, lo) (hi < c) by a divisor below 2^64, rounded half up: the same
+/// quotient bits as the 128-bit loop, in 64-bit halves, starting at the first bit that can be 1.
+///
+/// Work: as many steps as the quotient has bits (≤ 128).
+const fn long_div_u64(hi: u128, lo: u128, c: u64) -> Option<u128> {
+    // N = hi · 2^128 + lo has `len` bits; after `skip` of the 128 steps the partial remainder is
+    // N >> (128 − skip) < 2^(len − 128 + skip) ≤ 2^(bits(c) − 1) ≤ c: those quotient bits are 0.
+    let len = if hi != 0 {
+        256 - hi.leading_zeros()
+    } else {
+        128 - lo.leading_zeros()
+    };
+    let skip = {
+        let s = (64 - c.leading_zeros() + 127).saturating_sub(len);
+        if s > 128 {
+            128
+        } else {
+            s
         }
-        q += 1;
+    };
+    // rem = N >> (128 − skip) < c; the bits of lo still to come, top-aligned in (n_hi, n_lo).
+    let mut rem = if skip == 0 {
+        hi as u64
+    } else if skip == 128 {
+        lo as u64
+    } else {
+        ((hi << skip) | (lo >> (128 - skip))) as u64
+    };
+    let rest = if skip == 128 { 0 } else { lo << skip };
+    let (mut n_hi, mut n_lo) = ((rest >> 64) as u64, rest as u64);
+    let (mut q_hi, mut q_lo) = (0u64, 0u64);
+    let mut steps = 128 - skip;
+    while steps > 0 {
+        steps -= 1;
+        let carry = rem >> 63;
+        rem = (rem << 1) | (n_hi >> 63);
+        n_hi = (n_hi << 1) | (n_lo >> 63);
+        n_lo <<= 1;
+        q_hi = (q_hi << 1) | (q_lo >> 63);
+        q_lo <<= 1;
+        if carry == 1 || rem >= c {
+            rem = rem.wrapping_sub(c);
+            q_lo |= 1;
+        }
     }
-    Some(q)
+    round_up_half(
+        ((q_hi as u128) << 64) | q_lo as u128,
+        rem as u128,
+        c as u128,
+    )
+}
+
+/// `q` or `q + 1` for the remainder `r` of a division by `c` (half up: 2r ≥ c, i.e. r ≥ c − r);
+/// `None` when `q + 1` overflows.
+const fn round_up_half(q: u128, r: u128, c: u128) -> Option<u128> {
+    if r >= c - r {
+        q.checked_add(1)
+    } else {
+        Some(q)
+    }
 }
 
 /// Signed `a * b / c` rounded to nearest (ties away from zero).
@@ -66,6 +135,10 @@ pub const fn mul_div_i128(a: i128, b: i128, c: i128) -> Option<i128> {
 /// Full 256-bit product of two u128 values as (high, low) halves.
 const fn mul_wide(a: u128, b: u128) -> (u128, u128) {
     const MASK: u128 = u64::MAX as u128;
+    if a >> 64 == 0 && b >> 64 == 0 {
+        // Both below 2^64: the product fits 128 bits (the general sum below gives the same).
+        return (0, a * b);
+    }
     let (a1, a0) = (a >> 64, a & MASK);
     let (b1, b0) = (b >> 64, b & MASK);
     let p00 = a0 * b0;
@@ -79,12 +152,35 @@ const fn mul_wide(a: u128, b: u128) -> (u128, u128) {
     (hi, lo)
 }
 
-/// Floor square root of a u128 (bit-by-bit, at most 64 steps).
+/// Floor square root of a u128 (bit-by-bit, at most 64 steps; in u64 below 2^64, the same root).
 pub const fn isqrt_u128(x: u128) -> u128 {
+    if x >> 64 == 0 {
+        return isqrt_u64(x as u64) as u128;
+    }
     let mut rem = x;
     let mut root: u128 = 0;
     let mut bit: u128 = 1 << 126;
     // Start at the highest bit pair that can be set: small arguments skip most of the 64 steps.
+    while bit > rem {
+        bit >>= 2;
+    }
+    while bit > 0 {
+        if rem >= root + bit {
+            rem -= root + bit;
+            root = (root >> 1) + bit;
+        } else {
+            root >>= 1;
+        }
+        bit >>= 2;
+    }
+    root
+}
+
+/// Floor square root of a u64 (bit-by-bit, at most 32 steps).
+const fn isqrt_u64(x: u64) -> u64 {
+    let mut rem = x;
+    let mut root: u64 = 0;
+    let mut bit: u64 = 1 << 62;
     while bit > rem {
         bit >>= 2;
     }
@@ -106,7 +202,7 @@ pub const fn div_round_u128(a: u128, b: u128) -> Option<u128> {
         return None;
     }
     let q = a / b;
-    let r = a % b;
+    let r = a - q * b;
     if r >= b - r {
         Some(q + 1)
     } else {
@@ -147,6 +243,118 @@ mod tests {
             mul_div_u128(u128::MAX, u128::MAX, u128::MAX),
             Some(u128::MAX)
         );
+    }
+
+    /// The plain 128-step long division (and 4-product multiply), as `mul_div_u128` first was.
+    fn reference_mul_div(a: u128, b: u128, c: u128) -> Option<u128> {
+        if c == 0 {
+            return None;
+        }
+        const MASK: u128 = u64::MAX as u128;
+        let (a1, a0) = (a >> 64, a & MASK);
+        let (b1, b0) = (b >> 64, b & MASK);
+        let (p00, p01, p10, p11) = (a0 * b0, a0 * b1, a1 * b0, a1 * b1);
+        let mid = (p00 >> 64) + (p01 & MASK) + (p10 & MASK);
+        let lo = (p00 & MASK) | (mid << 64);
+        let hi = p11 + (p01 >> 64) + (p10 >> 64) + (mid >> 64);
+        if hi >= c {
+            return None;
+        }
+        let mut rem = hi;
+        let mut q: u128 = 0;
+        for i in (0..128).rev() {
+            let carry = rem >> 127;
+            rem = (rem << 1) | ((lo >> i) & 1);
+            if carry == 1 || rem >= c {
+                rem = rem.wrapping_sub(c);
+                q |= 1 << i;
+            }
+        }
+        if rem >= c - rem {
+            q.checked_add(1)
+        } else {
+            Some(q)
+        }
+    }
+
+    #[test]
+    fn every_division_path_gives_the_long_divisions_result() {
+        let mut seed = 0x9e37_79b9_7f4a_7c15u64;
+        let mut next = || {
+            seed ^= seed << 13;
+            seed ^= seed >> 7;
+            seed ^= seed << 17;
+            seed
+        };
+        let mut wide = |bits: u32| -> u128 {
+            let v = (u128::from(next()) << 64) | u128::from(next());
+            if bits == 0 {
+                0
+            } else {
+                v >> (128 - bits)
+            }
+        };
+        let mut seen = [0u32; 5];
+        for _ in 0..20_000 {
+            let (ba, bb, bc) = (
+                (wide(7) as u32) % 129,
+                (wide(7) as u32) % 129,
+                (wide(7) as u32) % 129,
+            );
+            let (a, b) = (wide(ba), wide(bb));
+            let c = if bc % 5 == 0 {
+                1u128 << (bc % 128)
+            } else {
+                wide(bc)
+            };
+            let want = reference_mul_div(a, b, c);
+            assert_eq!(mul_div_u128(a, b, c), want, "{a} * {b} / {c}");
+            let (hi, _) = mul_wide(a, b);
+            if want.is_some() {
+                let path = if c.is_power_of_two() {
+                    0
+                } else if c >> 64 == 0 {
+                    1 + usize::from(hi != 0) * 3
+                } else if hi == 0 {
+                    2
+                } else {
+                    3
+                };
+                seen[path] += 1;
+            }
+        }
+        assert!(seen.iter().all(|&n| n > 50), "paths exercised: {seen:?}");
+        // Hand-picked edges: quotient just fits, ties, divisors next to 2^64.
+        for (a, b, c) in [
+            (u128::MAX, u128::MAX, u128::MAX),
+            (u128::MAX, 3, 4),
+            (1 << 64, 1 << 64, (1 << 64) + 1),
+            (u64::MAX as u128, u64::MAX as u128, u64::MAX as u128 - 1),
+            (5, 1, 2),
+            (7, 1, 2),
+        ] {
+            assert_eq!(mul_div_u128(a, b, c), reference_mul_div(a, b, c));
+        }
+    }
+
+    #[test]
+    fn isqrt_and_div_round_agree_across_the_u64_boundary() {
+        for x in [
+            (1u128 << 64) - 1,
+            1 << 64,
+            (1 << 64) + 1,
+            u64::MAX as u128 * u64::MAX as u128,
+            (1 << 62) + 12_345,
+        ] {
+            let r = isqrt_u128(x);
+            assert!(
+                r * r <= x && (r + 1).checked_mul(r + 1).is_none_or(|s| s > x),
+                "{x}"
+            );
+        }
+        assert_eq!(div_round_u128(7, 2), Some(4));
+        assert_eq!(div_round_u128(5, 3), Some(2));
+        assert_eq!(div_round_u128(4, 3), Some(1));
     }
 
     #[test]

@@ -153,13 +153,16 @@ pub fn fit_map(points: &[FitPoint], degree: u8, pixels: u16) -> Result<MapFit, C
     let mut sum_w: i128 = 0;
     let mut chi2_q8: i128 = 0;
     for pt in points {
-        let r = (map.wavelength_fm(pt.center_px_q16)? - pt.wavelength_fm) as i128;
+        // λ and slope share the pixel's x. (The weight below cannot fail: σ_min ≤ σ, so the first
+        // error is the map's either way.)
+        let (lam, slope) = map.wavelength_and_slope(pt.center_px_q16)?;
+        let r = (lam - pt.wavelength_fm) as i128;
         let s = pt.sigma_px_q16.max(1) as i128;
         let w =
             mul_div_i128(sigma_min * sigma_min, 1 << 20, s * s).ok_or(CalibrateError::Overflow)?;
         sum_wr2 = sum_wr2.saturating_add(w.saturating_mul(r * r));
         sum_w += w;
-        let slope = map.slope_fm_per_px_q16(pt.center_px_q16)?.unsigned_abs() as i128;
+        let slope = slope.unsigned_abs() as i128;
         let s_fm = ((pt.sigma_px_q16.max(1) as i128 * slope) >> 32).max(1);
         chi2_q8 += mul_div_i128(r * r, 256, s_fm * s_fm).ok_or(CalibrateError::Overflow)?;
     }

@@ -6,9 +6,12 @@
 //! the hypothesis scores by how many other peaks then land on a predicted line (consensus). The
 //! best one seeds a least-squares fit, which is refined by re-matching with tighter windows.
 //!
-//! Work bound: at most C(12,2) peak pairs × C(20,2) line pairs × 2 orientations = 25 080 hypotheses,
-//! each scoring ≤ 64 peaks with a binary search over ≤ 48 lines (and, for those that can still win,
-//! ≤ 48 lines against ≤ 64 peaks for missing strong lines); then 4 refit rounds.
+//! Work bound: at most C(12,2) peak pairs × C(20,2) line pairs × 2 orientations = 25 080 hypotheses
+//! (with a nominal map only the line pairs within its offset and scale tolerance are tried), each
+//! scoring the ≤ 16 strongest peaks against ≤ 48 lines (one walk along the sorted
+//! lines, or a binary search each), stopping as soon as it cannot beat the best so far, and for those
+//! that can still win ≤ 48 lines against ≤ 16 peaks for missing strong lines; then 4 refit rounds
+//! over all ≤ 64 peaks.
 use super::error::CalibrateError;
 use super::fit::{fit_map, FitPoint, MapFit};
 use super::map::WavelengthMap;
@@ -21,6 +24,11 @@ pub const MAX_REFERENCE_LINES: usize = 48;
 const HYP_PEAKS: usize = 12;
 /// Strongest predicted lines used to form hypotheses.
 const HYP_LINES: usize = 20;
+/// Strongest peaks a hypothesis is scored on (refinement then matches every peak): all of a lamp's
+/// frame (the demo tubes show 13–16), while a frame of 64 noise peaks costs the search about what
+/// 16 real ones do (measured on the Cortex-M0: a random-walk frame's blind search is 1.9 × the
+/// hydrogen tube's, down from 6 ×).
+const SCORE_PEAKS: usize = 16;
 
 /// A predicted line offered to identification (air or vacuum, matching the map's medium).
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
@@ -113,6 +121,8 @@ struct Hypothesis {
 /// Identifies peaks against `lines` (sorted by wavelength) and fits the map.
 ///
 /// Peaks must be sorted by centre (as [`find_peaks`](crate::find::find_peaks) returns them).
+/// Work: ≤ 25 080 pair hypotheses, each scored on the 16 strongest peaks at most, then ≤ 5 fits over
+/// all ≤ 64 peaks (see the module docs).
 pub fn identify(
     peaks: &[Peak],
     lines: &[ReferenceLine],
@@ -124,17 +134,12 @@ pub fn identify(
     if lines.len() < 3 || peaks.len() < 3 {
         return Err(CalibrateError::NoConsistentPattern);
     }
-    // u(p) per peak: nominal wavelength (fm) or the pixel (Q16 → fm-like integer).
-    let mut u: Vec<i64, 64> = Vec::new();
-    for p in peaks {
-        let v = match &cfg.nominal {
-            Some(m) => m.wavelength_fm(p.center_px_q16)?,
-            None => p.center_px_q16 as i64,
-        };
-        u.push(v).map_err(|_| CalibrateError::TooManyPoints)?;
-    }
-    let strong_peaks = strongest(peaks.iter().map(|p| p.snr_q8), HYP_PEAKS);
-    let strong_lines = strongest(lines.iter().map(|l| l.strength), HYP_LINES);
+    let axis = Axis::new(peaks, lines, cfg)?;
+    let strong_peaks: Vec<u8, 20> = strongest(peaks.iter().map(|p| p.snr_q8), HYP_PEAKS);
+    let strong_lines: Vec<u8, 20> = strongest(lines.iter().map(|l| l.strength), HYP_LINES);
+    // The peaks hypotheses are scored on, in frame order.
+    let mut scored: Vec<u8, SCORE_PEAKS> = strongest(peaks.iter().map(|p| p.snr_q8), SCORE_PEAKS);
+    crate::sort::sort_by_key(&mut scored, |&k| k);
     let ends = match &cfg.nominal {
         Some(m) => (
             m.wavelength_fm(0)?,
@@ -142,34 +147,55 @@ pub fn identify(
         ),
         None => (0, ((cfg.pixels.max(2) as i64) - 1) << 16),
     };
+    let (first_ok, second_ok) = line_masks(&strong_peaks, &strong_lines, &axis.u, lines, cfg);
+    let search = Search {
+        peaks,
+        scored: &scored,
+        axis: &axis,
+        lines,
+        cfg,
+        ends,
+    };
     let mut best: Option<Hypothesis> = None;
+    // Hypotheses in a fixed order (peak pair, line pair, orientation): ties keep the first one found.
+    // The masks skip only pairs `hypothesis` would refuse, so the order of the rest is unchanged.
     for (ii, &i) in strong_peaks.iter().enumerate() {
-        for &j in strong_peaks.iter().skip(ii + 1) {
-            let (Some(&ui), Some(&uj)) = (u.get(i as usize), u.get(j as usize)) else {
+        let first = first_ok.get(ii).copied().unwrap_or(0);
+        if first == 0 {
+            continue;
+        }
+        for (jj, &j) in strong_peaks.iter().enumerate().skip(ii + 1) {
+            let second = second_ok.get(jj).copied().unwrap_or(0);
+            let (Some(&ui), Some(&uj)) = (axis.u.get(i as usize), axis.u.get(j as usize)) else {
                 continue;
             };
             let du = uj - ui;
             if du == 0 {
                 continue;
             }
+            // With a nominal map, |b − 1| < (max_scale_error + 2) ppm (see `line_masks`), so
+            // |(λ_b − λ_a) − du| = |b − 1| · |du| ≤ `slack`: pairs beyond it cannot pass `hypothesis`.
+            let slack = scale_slack(du, cfg);
             for (aa, &a) in strong_lines.iter().enumerate() {
-                for &b in strong_lines.iter().skip(aa + 1) {
-                    for (la, lb) in [(a, b), (b, a)] {
-                        let (Some(ra), Some(rb)) = (lines.get(la as usize), lines.get(lb as usize))
-                        else {
-                            continue;
-                        };
-                        let (wa, wb) = (ra.wavelength_fm, rb.wavelength_fm);
-                        let Some(h) = hypothesis(ui, du, wa, wb, cfg) else {
-                            continue;
-                        };
-                        let floor = best.map_or(1, |b| b.net);
-                        let Some(h) = score(h, peaks, &u, lines, cfg, ends, floor) else {
-                            continue;
-                        };
-                        if better(&h, &best) {
-                            best = Some(h);
-                        }
+                // (a, b): a with peak i, b with peak j; (b, a) the other way round.
+                let fwd = if (first >> aa) & 1 == 1 { second } else { 0 };
+                let rev = if (second >> aa) & 1 == 1 { first } else { 0 };
+                let mut later = (fwd | rev) & !((2u32 << aa).wrapping_sub(1));
+                while later != 0 {
+                    let bb = later.trailing_zeros() as usize;
+                    later &= later - 1;
+                    let Some(&b) = strong_lines.get(bb) else {
+                        continue;
+                    };
+                    let gap = |x: u8, y: u8| {
+                        let w = |l: u8| lines.get(l as usize).map_or(0, |r| r.wavelength_fm);
+                        (w(y) as i128 - w(x) as i128 - du as i128).unsigned_abs()
+                    };
+                    if (fwd >> bb) & 1 == 1 && slack.is_none_or(|s| gap(a, b) <= s) {
+                        search.consider(ui, du, a, b, &mut best);
+                    }
+                    if (rev >> bb) & 1 == 1 && slack.is_none_or(|s| gap(b, a) <= s) {
+                        search.consider(ui, du, b, a, &mut best);
                     }
                 }
             }
@@ -178,7 +204,202 @@ pub fn identify(
     let best = best
         .filter(|h| h.net >= 3)
         .ok_or(CalibrateError::NoConsistentPattern)?;
-    refine(best, peaks, &u, lines, cfg)
+    refine(best, peaks, &axis, lines, cfg)
+}
+
+/// The fixed inputs of the hypothesis search.
+struct Search<'a> {
+    peaks: &'a [Peak],
+    /// Indices of the peaks hypotheses are scored on (≤ [`SCORE_PEAKS`], ascending).
+    scored: &'a [u8],
+    axis: &'a Axis,
+    lines: &'a [ReferenceLine],
+    cfg: &'a IdentifyConfig,
+    /// u at the sensor's ends.
+    ends: (i64, i64),
+}
+
+impl Search<'_> {
+    /// The hypothesis through (u_i, line `la`) and (u_i + du, line `lb`): scored, and kept in `best`
+    /// when it beats it.
+    #[inline(never)]
+    fn consider(&self, ui: i64, du: i64, la: u8, lb: u8, best: &mut Option<Hypothesis>) {
+        let lines = self.lines;
+        let (Some(ra), Some(rb)) = (lines.get(la as usize), lines.get(lb as usize)) else {
+            return;
+        };
+        let Some(h) = hypothesis(ui, du, ra.wavelength_fm, rb.wavelength_fm, self.cfg) else {
+            return;
+        };
+        let floor = best.map_or(1, |b| b.net);
+        let Some(h) = score(h, self, floor) else {
+            return;
+        };
+        if better(&h, best) {
+            *best = Some(h);
+        }
+    }
+}
+
+/// What every hypothesis reuses about the peaks.
+struct Axis {
+    /// u(p) per peak: nominal wavelength (fm) or the pixel (Q16 → fm-like integer).
+    u: Vec<i64, 64>,
+    /// du/dp per peak: the nominal map's slope (fm per px) or 65 536 (blind: u is the pixel in Q16).
+    du_dp: Vec<i64, 64>,
+    /// Largest |b| (Q30) for which b · u stays within `i64` for every peak.
+    b_max_u: u64,
+    /// Largest |b| (Q30) for which b · du/dp stays within `i64` for every peak.
+    b_max_du: u64,
+    /// du/dp is the same at every peak.
+    uniform_du: bool,
+    /// u never falls from one peak to the next (so neither does λ for b ≥ 0, nor rises for b < 0).
+    monotone: bool,
+    /// The reference lines are sorted by wavelength (as `identify` requires; checked, not assumed).
+    lines_sorted: bool,
+}
+
+impl Axis {
+    fn new(
+        peaks: &[Peak],
+        lines: &[ReferenceLine],
+        cfg: &IdentifyConfig,
+    ) -> Result<Axis, CalibrateError> {
+        let mut u: Vec<i64, 64> = Vec::new();
+        let mut du_dp: Vec<i64, 64> = Vec::new();
+        for p in peaks {
+            let (v, d) = match &cfg.nominal {
+                Some(m) => (
+                    m.wavelength_fm(p.center_px_q16)?,
+                    m.slope_fm_per_px_q16(p.center_px_q16).unwrap_or(0) >> 16,
+                ),
+                None => (p.center_px_q16 as i64, 65_536),
+            };
+            u.push(v).map_err(|_| CalibrateError::TooManyPoints)?;
+            du_dp.push(d).map_err(|_| CalibrateError::TooManyPoints)?;
+        }
+        let limit = |vals: &[i64]| {
+            let top = vals
+                .iter()
+                .map(|v| v.unsigned_abs())
+                .max()
+                .unwrap_or(0)
+                .max(1);
+            i64::MAX as u64 / top
+        };
+        Ok(Axis {
+            b_max_u: limit(&u),
+            b_max_du: limit(&du_dp),
+            uniform_du: du_dp.windows(2).all(|w| matches!(w, [a, b] if a == b)),
+            monotone: u.windows(2).all(|w| matches!(w, [a, b] if a <= b)),
+            lines_sorted: lines
+                .windows(2)
+                .all(|w| matches!(w, [a, b] if a.wavelength_fm <= b.wavelength_fm)),
+            u,
+            du_dp,
+        })
+    }
+
+    /// λ of peak `k` under the hypothesis: a + b · u (b in Q30), through `i64` where that is exact.
+    #[inline(always)]
+    fn lam(&self, h: &Hypothesis, k: usize) -> i64 {
+        let uk = self.u.get(k).copied().unwrap_or(0);
+        if h.b_q30.unsigned_abs() <= self.b_max_u {
+            h.a_fm + ((h.b_q30 * uk) >> 30)
+        } else {
+            h.a_fm + wide_q30(h.b_q30, uk) as i64
+        }
+    }
+
+    /// Local dispersion of a hypothesis at peak `k`, fm per pixel.
+    fn dispersion_fm_per_px(&self, h: &Hypothesis, k: usize) -> i64 {
+        let d = self.du_dp.get(k).copied().unwrap_or(0);
+        if h.b_q30.unsigned_abs() <= self.b_max_du {
+            ((h.b_q30 * d) >> 30).unsigned_abs() as i64
+        } else {
+            wide_q30(h.b_q30, d).unsigned_abs() as i64
+        }
+    }
+}
+
+/// (b · v) >> 30 through 128 bits, for products past `i64` (kept out of line: rare).
+#[inline(never)]
+fn wide_q30(b: i64, v: i64) -> i128 {
+    (b as i128 * v as i128) >> 30
+}
+
+/// Largest |(λ_b − λ_a) − du| a nominal-map hypothesis over `du` can have (see `line_masks` for
+/// the bound on b), rounded up; `None` (no limit) when calibrating blind.
+fn scale_slack(du: i64, cfg: &IdentifyConfig) -> Option<u128> {
+    cfg.nominal?;
+    let prod = du.unsigned_abs() as u128 * (cfg.max_scale_error_ppm as u128 + 2);
+    Some(match u64::try_from(prod) {
+        Ok(p) => (p / 1_000_000) as u128 + 1,
+        Err(_) => prod / 1_000_000 + 1,
+    })
+}
+
+/// Per strong peak, the strong lines (bit = position in `strong_lines`) it may be paired with as the
+/// first peak of a hypothesis, and as the second; all lines when calibrating blind.
+///
+/// First: the offset test of [`hypothesis`] itself (|λ − u| ≤ the largest offset at that peak).
+/// Second: a hypothesis through (u_i, λ_a) and (u_j, λ_b) has |b − 1| < (max_scale_error + 2) ppm
+/// (the +2 covers the truncation of b), so λ_b − u_j = (λ_a − u_i) + (b − 1)(u_j − u_i) is within
+/// the largest offset plus that scale error over the strong peaks' span of u. Values beyond 2^61
+/// (nothing an instrument produces) keep every line, so no hypothesis is ever lost.
+fn line_masks(
+    strong_peaks: &[u8],
+    strong_lines: &[u8],
+    u: &[i64],
+    lines: &[ReferenceLine],
+    cfg: &IdentifyConfig,
+) -> (Vec<u32, 20>, Vec<u32, 20>) {
+    let all = (1u32 << strong_lines.len().min(20)).wrapping_sub(1);
+    let us = || {
+        strong_peaks
+            .iter()
+            .filter_map(|&i| u.get(i as usize).copied())
+    };
+    let ws = || {
+        strong_lines
+            .iter()
+            .map(|&l| lines.get(l as usize).map_or(0, |r| r.wavelength_fm))
+    };
+    let mut first: Vec<u32, 20> = Vec::new();
+    let mut second: Vec<u32, 20> = Vec::new();
+    const SANE: u64 = 1 << 61;
+    let sane = us().chain(ws()).all(|v| v.unsigned_abs() <= SANE)
+        && cfg.max_offset_fm.unsigned_abs() <= SANE;
+    let (lo, hi) = (us().min().unwrap_or(0), us().max().unwrap_or(0));
+    let reach = if sane {
+        let span = (hi as i128 - lo as i128).unsigned_abs();
+        let scale = span * (cfg.max_scale_error_ppm as u128 + 2) / 1_000_000 + 1;
+        Some(cfg.max_offset_fm as i128 + scale.min(1 << 64) as i128)
+    } else {
+        None
+    };
+    for ui in us() {
+        let (f, s) = match (&cfg.nominal, reach) {
+            (None, _) => (all, all),
+            (Some(_), reach) => {
+                let mut f = 0u32;
+                let mut s = 0u32;
+                for (bit, w) in ws().enumerate() {
+                    // The same (wrapping) i64 expression as in `hypothesis`.
+                    if w.wrapping_sub(ui).wrapping_abs() <= cfg.max_offset_fm {
+                        f |= 1 << bit;
+                    }
+                    if reach.is_none_or(|r| (w as i128 - ui as i128).abs() <= r) {
+                        s |= 1 << bit;
+                    }
+                }
+                (f, s)
+            }
+        };
+        let _ = first.push(f);
+        let _ = second.push(s);
+    }
+    (first, second)
 }
 
 fn better(h: &Hypothesis, best: &Option<Hypothesis>) -> bool {
@@ -188,12 +409,12 @@ fn better(h: &Hypothesis, best: &Option<Hypothesis>) -> bool {
     }
 }
 
-/// Indices of the `k` (≤ 20) largest of at most 64 values, largest first, ties by index.
-fn strongest(values: impl Iterator<Item = u32>, k: usize) -> Vec<u8, 20> {
+/// Indices of the `k` (≤ N) largest of at most 64 values, largest first, ties by index.
+fn strongest<const N: usize>(values: impl Iterator<Item = u32>, k: usize) -> Vec<u8, N> {
     let mut all: Vec<(u32, u8), 64> =
         crate::bounded::collect_bounded(values.enumerate().map(|(i, v)| (v, i as u8)));
     crate::sort::sort_by_key(&mut all, |&(v, _)| core::cmp::Reverse(v));
-    crate::bounded::collect_bounded(all.iter().take(k.min(20)).map(|&(_, i)| i))
+    crate::bounded::collect_bounded(all.iter().take(k.min(N)).map(|&(_, i)| i))
 }
 
 /// The hypothesis through (u_i, wa) and (u_i + du, wb), if it is within the search range.
@@ -231,42 +452,72 @@ fn hypothesis(ui: i64, du: i64, wa: i64, wb: i64, cfg: &IdentifyConfig) -> Optio
     })
 }
 
-/// Local dispersion of a hypothesis, fm per pixel.
-fn dispersion_fm_per_px(h: &Hypothesis, cfg: &IdentifyConfig, p_q16: i32) -> i64 {
-    let du_dp = match &cfg.nominal {
-        Some(m) => m.slope_fm_per_px_q16(p_q16).unwrap_or(0) >> 16,
-        None => 65_536,
-    };
-    ((h.b_q30 as i128 * du_dp as i128) >> 30).unsigned_abs() as i64
-}
-
-/// Scores a hypothesis; `None` when it cannot reach `floor` (the best net score so far).
+/// Scores a hypothesis; `None` when it cannot reach `floor` (the best net score so far: a
+/// hypothesis below it can never be taken, so its scoring stops as soon as that is certain).
 ///
 /// Net score = peaks landing on a line − lines at least as strong as the weakest matched one that fall
 /// on the sensor with no peak there: a wrong scale that matches three faint lines by chance must
 /// explain why the strong ones are missing.
-fn score(
-    mut h: Hypothesis,
-    peaks: &[Peak],
-    u: &[i64],
-    lines: &[ReferenceLine],
-    cfg: &IdentifyConfig,
-    ends_u: (i64, i64),
-    floor: i32,
-) -> Option<Hypothesis> {
+fn score(mut h: Hypothesis, search: &Search<'_>, floor: i32) -> Option<Hypothesis> {
+    let Search {
+        peaks,
+        scored,
+        axis,
+        lines,
+        cfg,
+        ends: ends_u,
+    } = *search;
     let mut votes = 0i32;
     let mut cost = 0i64;
     let mut weakest = u32::MAX;
-    let mut lam_of: Vec<(i64, i64), 64> = Vec::new();
-    let mut matched: Vec<(u32, u32), 64> = Vec::new();
-    for (p, &uk) in peaks.iter().zip(u) {
-        let lam = h.a_fm + (((h.b_q30 as i128) * uk as i128) >> 30) as i64;
-        let tol = (dispersion_fm_per_px(&h, cfg, p.center_px_q16) * cfg.window_q8()) >> 8;
+    let mut lam_of: Vec<(i64, i64), SCORE_PEAKS> = Vec::new();
+    let mut matched: Vec<(u32, u32), SCORE_PEAKS> = Vec::new();
+    let window = cfg.window_q8();
+    // One dispersion for every peak when du/dp is the same everywhere (blind: u is the pixel).
+    let uniform_tol = axis
+        .uniform_du
+        .then(|| (axis.dispersion_fm_per_px(&h, 0) * window) >> 8);
+    // λ runs monotonically over the peaks (u sorted): the nearest line moves one way only. With
+    // |a| ≤ 2^61 and |b · u| ≤ 2^61 no λ wraps, so the order holds.
+    let bounded = h.a_fm.unsigned_abs() <= 1 << 61 && h.b_q30.unsigned_abs() <= axis.b_max_u / 4;
+    let mut cursor = match (axis.monotone && axis.lines_sorted && bounded, h.b_q30 >= 0) {
+        (false, _) => Cursor::Search,
+        (true, true) => Cursor::Up(0),
+        (true, false) => Cursor::Down(lines.len()),
+    };
+    let n = scored.len() as i32;
+    let mut seen_lines = [false; MAX_REFERENCE_LINES];
+    for (m, &k) in scored.iter().enumerate() {
+        if votes + (n - m as i32) < floor {
+            return None;
+        }
+        let k = k as usize;
+        let Some(p) = peaks.get(k) else {
+            continue;
+        };
+        let lam = axis.lam(&h, k);
+        let tol = match uniform_tol {
+            Some(t) => t,
+            None => (axis.dispersion_fm_per_px(&h, k) * window) >> 8,
+        };
         let _ = lam_of.push((lam, tol));
-        let (idx, d) = nearest(lines, lam);
+        let (idx, d) = cursor.nearest(lines, lam);
         if d <= tol {
             votes += 1;
-            cost += d * 256 / tol.max(1);
+            // This line is seen (a peak lies within its window): no search for it below.
+            if let Some(seen) = seen_lines.get_mut(idx) {
+                *seen = true;
+            }
+            // 0 ≤ d ≤ tol: below 2^23 the quotient is the same in u32.
+            cost += if tol < 1 << 23 {
+                i64::from(
+                    ((d as u32) << 8)
+                        .checked_div(tol.max(1) as u32)
+                        .unwrap_or(0),
+                )
+            } else {
+                d * 256 / tol.max(1)
+            };
             let strength = lines.get(idx).map_or(0, |l| l.strength);
             weakest = weakest.min(strength);
             let _ = matched.push((p.snr_q8, strength));
@@ -279,15 +530,20 @@ fn score(
     let (e0, e1) = (lam_end(ends_u.0), lam_end(ends_u.1));
     let (lo, hi) = (e0.min(e1), e0.max(e1));
     let mut misses = 0i32;
-    for l in lines
+    for (i, l) in lines
         .iter()
-        .filter(|l| l.strength >= weakest && (lo..=hi).contains(&l.wavelength_fm))
+        .enumerate()
+        .filter(|(_, l)| l.strength >= weakest && (lo..=hi).contains(&l.wavelength_fm))
     {
-        let seen = lam_of
-            .iter()
-            .any(|&(lam, tol)| (lam - l.wavelength_fm).abs() <= tol);
+        let seen = seen_lines.get(i).copied().unwrap_or(false)
+            || lam_of
+                .iter()
+                .any(|&(lam, tol)| (lam - l.wavelength_fm).abs() <= tol);
         if !seen {
             misses += 1;
+            if votes - misses < floor {
+                return None;
+            }
         }
     }
     h.net = votes - misses;
@@ -295,20 +551,58 @@ fn score(
     // Brighter peaks should sit on lines expected to be stronger (a tie-breaker: detector response
     // and self-absorption bend this, but rarely reverse a whole series).
     let mut concord = 0i32;
+    // sign(x − y) of two u32 as −1, 0, 1 (the same as through i64).
+    let sign = |x: u32, y: u32| i32::from(x > y) - i32::from(x < y);
     for (i, a) in matched.iter().enumerate() {
         for b in matched.iter().skip(i + 1) {
-            let s1 = (a.0 as i64 - b.0 as i64).signum();
-            let s2 = (a.1 as i64 - b.1 as i64).signum();
-            concord += (s1 * s2) as i32;
+            concord += sign(a.0, b.0) * sign(a.1, b.1);
         }
     }
     h.concord = concord;
     Some(h)
 }
 
+/// Where the nearest-line search starts for the next peak.
+enum Cursor {
+    /// Binary search every time (λ not known to be monotone).
+    Search,
+    /// λ rises from peak to peak: the partition point only moves up from here.
+    Up(usize),
+    /// λ falls from peak to peak: the partition point only moves down from here.
+    Down(usize),
+}
+
+impl Cursor {
+    /// [`nearest`]: the same partition point (first line with λ_line ≥ λ), found by walking from the
+    /// previous one; over a hypothesis the walk is at most the line count in all.
+    fn nearest(&mut self, lines: &[ReferenceLine], lam: i64) -> (usize, i64) {
+        let below = |i: usize| lines.get(i).is_some_and(|l| l.wavelength_fm < lam);
+        let pos = match self {
+            Cursor::Search => return nearest(lines, lam),
+            Cursor::Up(pos) => {
+                while *pos < lines.len() && below(*pos) {
+                    *pos += 1;
+                }
+                *pos
+            }
+            Cursor::Down(pos) => {
+                while *pos > 0 && !below(*pos - 1) {
+                    *pos -= 1;
+                }
+                *pos
+            }
+        };
+        nearest_around(lines, lam, pos)
+    }
+}
+
 /// (index, |distance|) of the line nearest to `lam`.
 fn nearest(lines: &[ReferenceLine], lam: i64) -> (usize, i64) {
-    let pos = lines.partition_point(|l| l.wavelength_fm < lam);
+    nearest_around(lines, lam, lines.partition_point(|l| l.wavelength_fm < lam))
+}
+
+/// The nearer of the lines either side of partition point `pos` (the lower one on a tie).
+fn nearest_around(lines: &[ReferenceLine], lam: i64, pos: usize) -> (usize, i64) {
     let mut best = (0usize, i64::MAX);
     for idx in [pos.wrapping_sub(1), pos] {
         if let Some(l) = lines.get(idx) {
@@ -325,14 +619,14 @@ fn nearest(lines: &[ReferenceLine], lam: i64) -> (usize, i64) {
 fn refine(
     h: Hypothesis,
     peaks: &[Peak],
-    u: &[i64],
+    axis: &Axis,
     lines: &[ReferenceLine],
     cfg: &IdentifyConfig,
 ) -> Result<Identified, CalibrateError> {
     let mut pairs: Vec<(u8, u8), 48> = Vec::new();
-    for (k, (p, &uk)) in peaks.iter().zip(u).enumerate() {
-        let lam = h.a_fm + (((h.b_q30 as i128) * uk as i128) >> 30) as i64;
-        let tol = (dispersion_fm_per_px(&h, cfg, p.center_px_q16) * cfg.window_q8()) >> 8;
+    for k in 0..peaks.len() {
+        let lam = axis.lam(&h, k);
+        let tol = (axis.dispersion_fm_per_px(&h, k) * cfg.window_q8()) >> 8;
         let (idx, d) = nearest(lines, lam);
         if d <= tol {
             push_unique(&mut pairs, k as u8, idx as u8, peaks)?;
@@ -342,8 +636,8 @@ fn refine(
     for round in 0..4 {
         let mut next: Vec<(u8, u8), 48> = Vec::new();
         for (k, p) in peaks.iter().enumerate() {
-            let lam = fit.map.wavelength_fm(p.center_px_q16)?;
-            let disp = fit.map.slope_fm_per_px_q16(p.center_px_q16)?.abs() >> 16;
+            let (lam, slope) = fit.map.wavelength_and_slope(p.center_px_q16)?;
+            let disp = slope.abs() >> 16;
             let sigma_win = (p.center_sigma_px_q16 as i64 * cfg.final_window_sigma_q8 as i64) >> 16;
             // Windows shrink from the search width towards the final one over the rounds.
             let search = cfg.window_q8() >> (round + 1);
@@ -354,16 +648,12 @@ fn refine(
                 push_unique(&mut next, k as u8, idx as u8, peaks)?;
             }
         }
-        if next.len() < 3 {
+        // The same pairs again: their fit is the one in hand (fits are deterministic), done.
+        if next.len() < 3 || next == pairs {
             break;
         }
-        let refit = fit_pairs(&next, peaks, lines, cfg)?;
-        let same = next == pairs;
+        fit = fit_pairs(&next, peaks, lines, cfg)?;
         pairs = next;
-        fit = refit;
-        if same {
-            break;
-        }
     }
     Ok(Identified { fit, pairs })
 }

@@ -93,17 +93,60 @@ impl WavelengthMap {
 
     /// dλ/dp at pixel p: femtometres per pixel, Q16.
     pub fn slope_fm_per_px_q16(&self, p_px_q16: i32) -> Result<i64, CalibrateError> {
-        let x = self.x_q30(p_px_q16) as i128;
+        self.slope_at_x(self.x_q30(p_px_q16))
+    }
+
+    /// [`wavelength_fm`](Self::wavelength_fm) and [`slope_fm_per_px_q16`](Self::slope_fm_per_px_q16)
+    /// at one pixel, sharing the pixel's x (one division less); the first error of the two.
+    pub(crate) fn wavelength_and_slope(&self, p_px_q16: i32) -> Result<(i64, i64), CalibrateError> {
+        let x = self.x_q30(p_px_q16);
+        let lam = eval_q30(&self.coeff_fm, self.degree, x)?;
+        Ok((lam, self.slope_at_x(x)?))
+    }
+
+    /// dλ/dp at normalised pixel x (Q30): femtometres per pixel, Q16.
+    fn slope_at_x(&self, x: i64) -> Result<i64, CalibrateError> {
         // dλ/dx = c1 + 2 c2 x + 3 c3 x².
-        let mut d: i128 = 0;
-        for k in (1..=self.degree as usize).rev() {
-            let c = *self.coeff_fm.get(k).ok_or(CalibrateError::Overflow)? as i128;
-            d = ((d * x) >> 30) + c * k as i128;
-        }
-        let v = (d << 32)
-            .checked_div(self.half_width_px_q16 as i128)
-            .ok_or(CalibrateError::Degenerate)?;
+        let d: i128 = if x.unsigned_abs() <= 1 << 30 && self.narrow_slope() {
+            // On the sensor (|x| ≤ 1) with every k·c_k below 2^31, |d| stays below 3 · 2^31 and
+            // d · x below 2^63: the same integers in i64.
+            let mut d: i64 = 0;
+            for k in (1..=self.degree as usize).rev() {
+                let c = *self.coeff_fm.get(k).ok_or(CalibrateError::Overflow)?;
+                d = ((d * x) >> 30) + c * k as i64;
+            }
+            d as i128
+        } else {
+            let x = x as i128;
+            let mut d: i128 = 0;
+            for k in (1..=self.degree as usize).rev() {
+                let c = *self.coeff_fm.get(k).ok_or(CalibrateError::Overflow)? as i128;
+                d = ((d * x) >> 30) + c * k as i128;
+            }
+            d
+        };
+        let v = if d.unsigned_abs() < 1 << 31 {
+            // d · 2^32 fits i64: the same truncating division, without the 128-bit routine.
+            ((d as i64) << 32)
+                .checked_div(self.half_width_px_q16 as i64)
+                .ok_or(CalibrateError::Degenerate)? as i128
+        } else {
+            (d << 32)
+                .checked_div(self.half_width_px_q16 as i128)
+                .ok_or(CalibrateError::Degenerate)?
+        };
         i64::try_from(v).map_err(|_| CalibrateError::Overflow)
+    }
+
+    /// Degree ≤ 3 and |k · c_k| < 2^31 for k ≥ 1 (every real sensor: c_1 is half the span in fm).
+    fn narrow_slope(&self) -> bool {
+        self.degree <= 3
+            && self
+                .coeff_fm
+                .iter()
+                .enumerate()
+                .skip(1)
+                .all(|(k, c)| c.unsigned_abs().saturating_mul(k as u64) < 1 << 31)
     }
 
     /// Pixel (px, Q16) where the map gives `wavelength_fm`: Newton steps from the linear guess, at most
@@ -113,22 +156,38 @@ impl WavelengthMap {
         if c1 == 0 {
             return Err(CalibrateError::NotMonotone);
         }
-        let x0 = ((wavelength_fm as i128 - c0) << 30)
-            .checked_div(c1)
-            .ok_or(CalibrateError::NotMonotone)?;
+        let off = wavelength_fm as i128 - c0;
+        let x0 = if off.unsigned_abs() < 1 << 32 && c1.unsigned_abs() < 1 << 63 {
+            // off · 2^30 fits i64: the same truncating division.
+            ((off as i64) << 30)
+                .checked_div(c1 as i64)
+                .ok_or(CalibrateError::NotMonotone)? as i128
+        } else {
+            (off << 30)
+                .checked_div(c1)
+                .ok_or(CalibrateError::NotMonotone)?
+        };
         let mut p = self.center_px_q16 as i128 + ((x0 * self.half_width_px_q16 as i128) >> 30);
         for _ in 0..12 {
             let pc = i32::try_from(p.clamp(i32::MIN as i128 / 2, i32::MAX as i128 / 2))
                 .map_err(|_| CalibrateError::Overflow)?;
-            let err = self.wavelength_fm(pc)? as i128 - wavelength_fm as i128;
-            let slope = self.slope_fm_per_px_q16(pc)? as i128;
+            let (lam, slope) = self.wavelength_and_slope(pc)?;
+            let err = lam as i128 - wavelength_fm as i128;
+            let slope = slope as i128;
             if slope == 0 {
                 return Err(CalibrateError::NotMonotone);
             }
             // err fm / (slope fm/px Q16) = px; in Q16: err << 32 / slope.
-            let step = (err << 32)
-                .checked_div(slope)
-                .ok_or(CalibrateError::NotMonotone)?;
+            let step = if err.unsigned_abs() < 1 << 31 {
+                // err · 2^32 fits i64 (and slope is an i64): the same truncating division.
+                ((err as i64) << 32)
+                    .checked_div(slope as i64)
+                    .ok_or(CalibrateError::NotMonotone)? as i128
+            } else {
+                (err << 32)
+                    .checked_div(slope)
+                    .ok_or(CalibrateError::NotMonotone)?
+            };
             p -= step;
             if step == 0 {
                 break;
@@ -140,6 +199,20 @@ impl WavelengthMap {
 
 /// Σ c_k x^k by Horner, x in Q30, result in the coefficients' unit.
 pub(crate) fn eval_q30(coeff: &[i64; 4], degree: u8, x_q30: i64) -> Result<i64, CalibrateError> {
+    let narrow = x_q30.unsigned_abs() <= 1 << 30
+        && degree <= 3
+        && coeff.first().is_some_and(|c| c.unsigned_abs() <= 1 << 62)
+        && coeff.iter().skip(1).all(|c| c.unsigned_abs() < 1 << 31);
+    if narrow {
+        // |x| ≤ 1 and |c_k| < 2^31 (k ≥ 1): the accumulator stays below 2^33 before the last
+        // product, so every step is the same integer in i64.
+        let mut acc: i64 = 0;
+        for k in (0..=degree as usize).rev() {
+            let c = *coeff.get(k).ok_or(CalibrateError::Overflow)?;
+            acc = ((acc * x_q30 + (1 << 29)) >> 30) + c;
+        }
+        return Ok(acc);
+    }
     let x = x_q30 as i128;
     let mut acc: i128 = 0;
     for k in (0..=degree as usize).rev() {
@@ -193,6 +266,80 @@ mod tests {
             let back = m.pixel_q16(lam).unwrap();
             assert!((back - p).abs() <= 2, "{p} → {lam} → {back}");
         }
+    }
+
+    /// λ, slope and inverse through 128-bit arithmetic only, as the map first computed them.
+    fn reference(m: &WavelengthMap, p: i32) -> (Option<i64>, Option<i64>) {
+        let x = m.x_q30(p) as i128;
+        let mut acc: i128 = 0;
+        for k in (0..=m.degree as usize).rev() {
+            acc = ((acc * x + (1 << 29)) >> 30) + m.coeff_fm[k] as i128;
+        }
+        let mut d: i128 = 0;
+        for k in (1..=m.degree as usize).rev() {
+            d = ((d * x) >> 30) + m.coeff_fm[k] as i128 * k as i128;
+        }
+        let v = (d << 32).checked_div(m.half_width_px_q16 as i128);
+        (
+            i64::try_from(acc).ok(),
+            v.and_then(|v| i64::try_from(v).ok()),
+        )
+    }
+
+    fn reference_pixel(m: &WavelengthMap, w: i64) -> Option<i32> {
+        let [c0, c1, _, _] = m.coeff_fm.map(|c| c as i128);
+        let x0 = ((w as i128 - c0) << 30).checked_div(c1)?;
+        let mut p = m.center_px_q16 as i128 + ((x0 * m.half_width_px_q16 as i128) >> 30);
+        for _ in 0..12 {
+            let pc = i32::try_from(p.clamp(i32::MIN as i128 / 2, i32::MAX as i128 / 2)).ok()?;
+            let (lam, slope) = reference(m, pc);
+            let err = lam? as i128 - w as i128;
+            let step = (err << 32).checked_div(slope? as i128)?;
+            p -= step;
+            if step == 0 {
+                break;
+            }
+        }
+        i32::try_from(p).ok()
+    }
+
+    #[test]
+    fn narrow_arithmetic_gives_the_wide_results() {
+        let mut seed = 0x1234_5678_9abc_def1u64;
+        let mut next = |m: u64| {
+            seed ^= seed << 13;
+            seed ^= seed >> 7;
+            seed ^= seed << 17;
+            seed % m
+        };
+        let mut checked = 0;
+        for round in 0..3000 {
+            let big = round % 7 == 0;
+            let c1 = 1 + next(if big { 1 << 40 } else { 400_000_000 }) as i64;
+            let coeff = [
+                next(2_000_000_000) as i64,
+                c1,
+                next(2 * c1 as u64 / 40 + 1) as i64 - c1 / 40,
+                next(c1 as u64 / 200 + 1) as i64 - c1 / 400,
+            ];
+            let degree = 1 + next(3) as u8;
+            let pixels = 16 + next(4000) as u16;
+            let Ok(m) = WavelengthMap::new(pixels, degree, coeff) else {
+                continue;
+            };
+            for _ in 0..8 {
+                let p = next(u64::from(pixels) << 17) as i32 - (i32::from(pixels) << 15);
+                let (lam, slope) = reference(&m, p);
+                assert_eq!(m.wavelength_fm(p).ok(), lam, "{m:?} at {p}");
+                assert_eq!(m.slope_fm_per_px_q16(p).ok(), slope, "{m:?} at {p}");
+                if let Some(w) = lam {
+                    let w = w + next(2_000_001) as i64 - 1_000_000;
+                    assert_eq!(m.pixel_q16(w).ok(), reference_pixel(&m, w), "{m:?} λ {w}");
+                }
+                checked += 1;
+            }
+        }
+        assert!(checked > 10_000, "{checked}");
     }
 
     #[test]

@@ -274,34 +274,28 @@ impl Checker {
 
     /// Match window of one line: twice the allowed position error plus 3 σ of the map, ≥ 1 px (Q16).
     fn base_window_px_q16(&self, f: &Feature, m: &MapInUse) -> i32 {
+        self.base_window_with_slope(f, m, feature_slope(f, m))
+    }
+
+    /// [`base_window_px_q16`](Self::base_window_px_q16) with the feature's |slope| (≥ 1) known.
+    fn base_window_with_slope(&self, f: &Feature, m: &MapInUse, slope: i64) -> i32 {
         let p = f.predicted_px_q16;
         let tol_fm = 2 * self.cfg.profile.max_line_error_fm as i64 + 3 * m.sigma_fm(p) as i64;
-        let slope = m
-            .map
-            .slope_fm_per_px_q16(p)
-            .unwrap_or(0)
-            .unsigned_abs()
-            .max(1) as i64;
-        (((tol_fm as i128) << 32) / slope as i128).clamp(1 << 16, 64 << 16) as i32
+        (shl32_div(tol_fm, slope)).clamp(1 << 16, 64 << 16) as i32
     }
 
     /// Match window of a feature: the line window plus the reach of a blend's members (its centre
     /// moves with the unknown mix).
     fn window_px_q16(&self, f: &Feature, m: &MapInUse) -> i32 {
-        let slope = m
-            .map
-            .slope_fm_per_px_q16(f.predicted_px_q16)
-            .unwrap_or(0)
-            .unsigned_abs()
-            .max(1) as i64;
+        let slope = feature_slope(f, m);
         let reach = f
             .members
             .iter()
             .filter_map(|&i| self.catalogue.get(i as usize))
-            .map(|c| (((c.wavelength_fm - f.predicted_fm).abs() as i128) << 32) / slope as i128)
+            .map(|c| shl32_div((c.wavelength_fm - f.predicted_fm).abs(), slope))
             .max()
             .unwrap_or(0);
-        (self.base_window_px_q16(f, m) as i128 + reach).clamp(1 << 16, 64 << 16) as i32
+        (self.base_window_with_slope(f, m, slope) as i128 + reach).clamp(1 << 16, 64 << 16) as i32
     }
 
     /// Instrument line σ (px, Q16): median FWHM of matched, unsaturated, unblended peaks, else the
@@ -462,6 +456,8 @@ impl Checker {
         m: &MapInUse,
     ) -> Vec<Pair, 40> {
         let matched: Vec<Pair, 40> = pairs.clone();
+        // Member pixels and windows are the same for every leftover peak: inverted once each.
+        let mut px = LinePixels::new();
         for (k, pk) in peaks.iter().enumerate() {
             if matched.iter().any(|p| p.peak as usize == k) {
                 continue;
@@ -470,7 +466,7 @@ impl Checker {
                 features.get(p.feature as usize).is_some_and(|f| {
                     f.members.len() > 1
                         && self
-                            .nearest_member(f, pk, m)
+                            .nearest_member_in(f, pk, m, &mut px)
                             .is_some_and(|(_, d)| d <= self.base_window_px_q16(f, m))
                 })
             });
@@ -492,12 +488,23 @@ impl Checker {
         pk: &Peak,
         m: &MapInUse,
     ) -> Option<(&'c CatalogueLine, i32)> {
+        self.nearest_member_in(f, pk, m, &mut LinePixels::new())
+    }
+
+    /// [`nearest_member`](Self::nearest_member) with the member pixels kept in `px`.
+    fn nearest_member_in<'c>(
+        &'c self,
+        f: &Feature,
+        pk: &Peak,
+        m: &MapInUse,
+        px: &mut LinePixels,
+    ) -> Option<(&'c CatalogueLine, i32)> {
         let mut best: Option<(&CatalogueLine, i32)> = None;
         for &i in f.members.iter() {
             let Some(c) = self.catalogue.get(i as usize) else {
                 continue;
             };
-            let Ok(px) = m.map.pixel_q16(c.wavelength_fm) else {
+            let Some(px) = px.get(i, c, &m.map) else {
                 continue;
             };
             let d = px.saturating_sub(pk.center_px_q16).saturating_abs();
@@ -874,6 +881,58 @@ impl Checker {
     }
 }
 
+/// Pixels of catalogue lines on the map in use, each inverted (a Newton iteration) on first use.
+struct LinePixels {
+    px: [i32; MAX_CATALOGUE],
+    /// Bit i: line i looked up; `placed` bit i: it has a pixel.
+    known: u64,
+    placed: u64,
+}
+
+impl LinePixels {
+    fn new() -> LinePixels {
+        LinePixels {
+            px: [0; MAX_CATALOGUE],
+            known: 0,
+            placed: 0,
+        }
+    }
+
+    /// Pixel of catalogue line `i` (= `line`), `None` where the map cannot place it.
+    fn get(&mut self, i: u8, line: &CatalogueLine, map: &WavelengthMap) -> Option<i32> {
+        let (Some(slot), true) = (self.px.get_mut(i as usize), i < 64) else {
+            return map.pixel_q16(line.wavelength_fm).ok();
+        };
+        let bit = 1u64 << i;
+        if self.known & bit == 0 {
+            self.known |= bit;
+            if let Ok(p) = map.pixel_q16(line.wavelength_fm) {
+                *slot = p;
+                self.placed |= bit;
+            }
+        }
+        (self.placed & bit != 0).then_some(*slot)
+    }
+}
+
+/// |dλ/dp| at a feature's predicted pixel (fm/px, Q16), at least 1 (0 when the map cannot say).
+fn feature_slope(f: &Feature, m: &MapInUse) -> i64 {
+    m.map
+        .slope_fm_per_px_q16(f.predicted_px_q16)
+        .unwrap_or(0)
+        .unsigned_abs()
+        .max(1) as i64
+}
+
+/// (v · 2^32) / d truncated, for d ≥ 1: in `i64` when |v| < 2^31 (the same quotient), else 128-bit.
+fn shl32_div(v: i64, d: i64) -> i128 {
+    if v.unsigned_abs() < 1 << 31 {
+        i128::from((v << 32).checked_div(d).unwrap_or(0))
+    } else {
+        ((v as i128) << 32).checked_div(d as i128).unwrap_or(0)
+    }
+}
+
 fn same(a: &CatalogueLine, b: &CatalogueLine) -> bool {
     a.nucleus == b.nucleus && a.lower == b.lower && a.upper == b.upper
 }
@@ -914,3 +973,4 @@ fn drift_fm(fitted: &WavelengthMap, stored: &WavelengthMap, pixels: u16) -> Opti
 }
 
 const _: () = assert!(MAX_FEATURES <= 64);
+const _: () = assert!(MAX_CATALOGUE <= 64);

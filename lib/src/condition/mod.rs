@@ -49,6 +49,7 @@ pub mod flags;
 pub mod gain;
 pub mod info;
 mod repair;
+mod scale;
 pub mod stack;
 
 pub use config::{ConditionConfig, LinearityKnot, MAX_BAD_PIXELS, MAX_LINEARITY_KNOTS, ONE_Q14};
@@ -107,44 +108,39 @@ pub fn condition_frame(
         cfg.reference_us
     };
     // out = (S·lin_s/ns − D·lin_d/nd) · gain · 16 · ref / int, with lin and gain in Q14.
-    // Worst case numerator: 2^24 · 2^16 · 2^8 · 2^16 · 2^4 · 2^32 = 2^100 < 2^127.
+    // Worst case numerator: 2^32 · 2^16 · 2^8 · 2^16 · 2^4 · 2^32 = 2^108 < 2^127.
     let den = ns * nd * (1i128 << 28) * i128::from(cfg.integration_us);
     let scale = i128::from(reference_us) << OUTPUT_FRAC_BITS;
+    let px = Pixels {
+        cfg,
+        signal,
+        dark,
+        gain,
+        ns,
+        nd,
+    };
 
-    let mut saturated: u16 = 0;
-    let mut clamped: u16 = 0;
-    for (i, (o, f)) in out.iter_mut().zip(flags.iter_mut()).enumerate() {
-        let fs = cfg.full_scale_counts;
-        let s = signal.sum_at(i, fs);
-        let d = match dark {
-            Some(d) => d.sum_at(i, fs),
-            None => Some(0),
-        };
-        let sat = s.is_none() || d.is_none();
-        // A saturated signal keeps its clipped level so the line stays visible, just flagged. A saturated
-        // dark keeps its clipped level too: taken as 0 it would leave a hot pixel standing at full scale,
-        // a fake line; clipped, signal − dark is about 0 (the signal is clipped as well) and nothing shows.
-        let s = s.unwrap_or(u32::from(fs).saturating_mul(u32::try_from(ns).unwrap_or(1)));
-        let d = d.unwrap_or(u32::from(fs).saturating_mul(u32::try_from(nd).unwrap_or(1)));
-        let lin_s = i128::from(cfg.linearity_q14(s, signal.frames()));
-        let lin_d = i128::from(cfg.linearity_q14(d, dark.map_or(1, |x| x.frames())));
-        let g = i128::from(gain.map_or(u32::from(ONE_Q14), |t| t.factor_q14(i)));
-        let diff = i128::from(s) * lin_s * nd - i128::from(d) * lin_d * ns;
-        let v = div_round(diff * g * scale, den);
-        let mut mark = if sat { flags::SATURATED } else { 0 };
-        if sat {
-            saturated = saturated.saturating_add(1);
-        }
-        *o = match i32::try_from(v) {
-            Ok(x) => x,
-            Err(_) => {
-                mark |= flags::CLAMPED;
-                clamped = clamped.saturating_add(1);
-                v.clamp(i128::from(i32::MIN), i128::from(i32::MAX)) as i32
+    // The same value as round(numerator / den) through a reduced frame constant (see `scale`): the
+    // Q14 factors that are 1.0 on every pixel (no linearity curve, no gain table) move into it.
+    let linear = cfg.linearity.is_empty();
+    let unit_bits = if linear { 14 } else { 0 } + if gain.is_none() { 14 } else { 0 };
+    let factor_max = |unit: bool| if unit { 1 } else { u128::from(u16::MAX) };
+    let x_max = (u128::from(signal.max_count()) * factor_max(linear) * nd as u128)
+        .max(u128::from(dark.map_or(0, |d| d.max_count())) * factor_max(linear) * ns as u128)
+        * factor_max(gain.is_none());
+    let plan = scale::Reduced::new((scale as u128) << unit_bits, den as u128)
+        .and_then(|r| r.narrow(x_max));
+
+    let (saturated, clamped) = match (plan, signal.raw()) {
+        (Some(plan), Some(raw)) if dark.is_none() && gain.is_none() && linear => {
+            match plan.unsigned_u16() {
+                Some(mad) => raw_readout(raw, cfg.full_scale_counts, mad, out, flags),
+                None => px.narrow(&plan, out, flags),
             }
-        };
-        *f = mark;
-    }
+        }
+        (Some(plan), _) => px.narrow(&plan, out, flags),
+        (None, _) => px.wide(scale, den, out, flags),
+    };
     let repaired = repair::repair_bad_pixels(&cfg.bad_pixels, out, flags);
 
     Ok(ConditionedInfo {
@@ -157,30 +153,166 @@ pub fn condition_frame(
     })
 }
 
+/// One readout, no dark, gain or linearity curve, and a frame constant that is a multiply and shift
+/// in `u32` (`mad` = multiplier, add, shift; see [`scale::Narrow::unsigned_u16`]): the common case,
+/// a few instructions per pixel. Returns (saturated, clamped) pixel counts.
+fn raw_readout(
+    raw: &[u16],
+    full_scale_counts: u16,
+    (mul, add, shift): (u32, u32, u32),
+    out: &mut [i32],
+    flags: &mut [u8],
+) -> (u16, u16) {
+    // ≤ i32::MAX by construction of `mad`: no clamping. One readout at the actual exposure is a
+    // plain multiply (add = shift = 0), worth a loop of its own on a core with 8 low registers.
+    let saturated = if add == 0 && shift == 0 {
+        raw_loop(raw, full_scale_counts, out, flags, |s| s * mul)
+    } else {
+        raw_loop(raw, full_scale_counts, out, flags, |s| {
+            (s * mul + add) >> shift
+        })
+    };
+    (u16::try_from(saturated).unwrap_or(u16::MAX), 0)
+}
+
+/// The pixel loop of [`raw_readout`]; returns the saturated pixel count.
+#[inline(never)]
+fn raw_loop(
+    raw: &[u16],
+    full_scale_counts: u16,
+    out: &mut [i32],
+    flags: &mut [u8],
+    value: impl Fn(u32) -> u32,
+) -> u32 {
+    // At most MAX_PIXELS saturated pixels: no overflow.
+    let mut saturated: u32 = 0;
+    let fs = u32::from(full_scale_counts);
+    for ((o, f), &r) in out.iter_mut().zip(flags.iter_mut()).zip(raw) {
+        // A saturated pixel (r ≥ full scale) keeps its clipped level (full scale × 1 readout),
+        // flagged. Branch-free: `sat` is the sign of fs − 1 − r (both below 2^16), `mask` all ones
+        // when saturated.
+        let r = u32::from(r);
+        let sat = fs.wrapping_sub(1).wrapping_sub(r) >> 31;
+        let mask = 0u32.wrapping_sub(sat);
+        saturated += sat;
+        *o = value(r - (r.wrapping_sub(fs) & mask)) as i32;
+        *f = (sat as u8) * flags::SATURATED;
+    }
+    saturated
+}
+
+/// What every pixel of a frame is computed from.
+struct Pixels<'c, 'f> {
+    cfg: &'c ConditionConfig,
+    signal: FrameSum<'f>,
+    dark: Option<FrameSum<'f>>,
+    gain: Option<GainTable<'f>>,
+    /// Readouts in the signal and the dark (≥ 1).
+    ns: i128,
+    nd: i128,
+}
+
+impl Pixels<'_, '_> {
+    /// Summed signal and dark counts of pixel `i` (clipped where saturated) and whether either
+    /// saturated.
+    fn counts(&self, i: usize) -> (u32, u32, bool) {
+        let fs = self.cfg.full_scale_counts;
+        let s = self.signal.sum_at(i, fs);
+        let d = match self.dark {
+            Some(d) => d.sum_at(i, fs),
+            None => Some(0),
+        };
+        let sat = s.is_none() || d.is_none();
+        // A saturated signal keeps its clipped level so the line stays visible, just flagged. A saturated
+        // dark keeps its clipped level too: taken as 0 it would leave a hot pixel standing at full scale,
+        // a fake line; clipped, signal − dark is about 0 (the signal is clipped as well) and nothing shows.
+        let s = s.unwrap_or(u32::from(fs).saturating_mul(u32::try_from(self.ns).unwrap_or(1)));
+        let d = d.unwrap_or(u32::from(fs).saturating_mul(u32::try_from(self.nd).unwrap_or(1)));
+        (s, d, sat)
+    }
+
+    /// Linearity factors (Q14) of signal and dark counts.
+    fn linearity(&self, s: u32, d: u32) -> (u32, u32) {
+        (
+            self.cfg.linearity_q14(s, self.signal.frames()),
+            self.cfg
+                .linearity_q14(d, self.dark.map_or(1, |x| x.frames())),
+        )
+    }
+
+    /// Every pixel in `i64` through `plan`, the Q14 factors that are 1.0 left out of x (they are in
+    /// the plan's constant). Returns (saturated, clamped) pixel counts.
+    fn narrow(&self, plan: &scale::Narrow, out: &mut [i32], flags: &mut [u8]) -> (u16, u16) {
+        let linear = self.cfg.linearity.is_empty();
+        let (ns, nd) = (self.ns as i64, self.nd as i64);
+        self.each(out, flags, &|i, s, d| {
+            let (ls, ld) = if linear { (1, 1) } else { self.linearity(s, d) };
+            let g = self.gain.map_or(1, |t| t.factor_q14(i));
+            // |x| ≤ the bound the plan was made for (< 2^62), see `condition_frame`.
+            let x = (i64::from(s) * i64::from(ls) * nd - i64::from(d) * i64::from(ld) * ns)
+                * i64::from(g);
+            i128::from(plan.apply(x))
+        })
+    }
+
+    /// Every pixel through the full 128-bit numerator and `den`. Returns (saturated, clamped).
+    fn wide(&self, scale: i128, den: i128, out: &mut [i32], flags: &mut [u8]) -> (u16, u16) {
+        let (ns, nd) = (self.ns as u64, self.nd as u64);
+        let scale = scale as u64; // ≤ 2^36
+        self.each(out, flags, &|i, s, d| {
+            let (ls, ld) = self.linearity(s, d);
+            let g = u64::from(self.gain.map_or(u32::from(ONE_Q14), |t| t.factor_q14(i)));
+            // Each term ≤ 2^32 · 2^16 · 2^8 = 2^56 and g · scale ≤ 2^52 fit u64. `mul_div_i128`
+            // rounds half away from zero like `div_round`, through the exact 256-bit product.
+            let diff = i128::from(u64::from(s) * u64::from(ls) * nd)
+                - i128::from(u64::from(d) * u64::from(ld) * ns);
+            crate::fixed::mul_div_i128(diff, i128::from(g * scale), den).unwrap_or(0)
+        })
+    }
+
+    /// Runs `value(i, signal, dark)` over the pixels, clamping to `i32` and flagging.
+    fn each(
+        &self,
+        out: &mut [i32],
+        flags: &mut [u8],
+        value: &dyn Fn(usize, u32, u32) -> i128,
+    ) -> (u16, u16) {
+        let mut saturated: u16 = 0;
+        let mut clamped: u16 = 0;
+        for (i, (o, f)) in out.iter_mut().zip(flags.iter_mut()).enumerate() {
+            let (s, d, sat) = self.counts(i);
+            let v = value(i, s, d);
+            let mut mark = if sat { flags::SATURATED } else { 0 };
+            if sat {
+                saturated = saturated.saturating_add(1);
+            }
+            *o = match i32::try_from(v) {
+                Ok(x) => x,
+                Err(_) => {
+                    mark |= flags::CLAMPED;
+                    clamped = clamped.saturating_add(1);
+                    v.clamp(i128::from(i32::MIN), i128::from(i32::MAX)) as i32
+                }
+            };
+            *f = mark;
+        }
+        (saturated, clamped)
+    }
+}
+
 /// Shot-noise slope of the output: var(y) = y · K / (G · frames), K = 16 · ref / int, G in e⁻/count.
 fn shot_var_q16(cfg: &ConditionConfig, reference_us: u32, frames: u16) -> Option<u32> {
     if cfg.electrons_per_count_q8 == 0 {
         return None;
     }
-    // 2^32 (ref) · 2^4 · 2^16 · 2^8 fits u128 easily; result saturates to u32.
-    let num = u128::from(reference_us) << (OUTPUT_FRAC_BITS + 16 + 8);
-    let den = u128::from(cfg.integration_us)
-        * u128::from(cfg.electrons_per_count_q8)
-        * u128::from(frames.max(1));
+    // 2^32 (ref) · 2^4 · 2^16 · 2^8 = 2^60 and 2^32 · 2^16 · 2^16 = 2^64 (exclusive) fit u64; the
+    // result saturates to u32.
+    let num = u64::from(reference_us) << (OUTPUT_FRAC_BITS + 16 + 8);
+    let den = u64::from(cfg.integration_us)
+        * u64::from(cfg.electrons_per_count_q8)
+        * u64::from(frames.max(1));
     let q = num.checked_div(den)?;
     Some(u32::try_from(q).unwrap_or(u32::MAX))
-}
-
-/// Rounds `num / den` half away from zero for `den > 0`.
-fn div_round(num: i128, den: i128) -> i128 {
-    if den <= 0 {
-        return 0;
-    }
-    if num >= 0 {
-        (num + den / 2) / den
-    } else {
-        -((-num + den / 2) / den)
-    }
 }
 
 #[cfg(test)]
@@ -380,6 +512,117 @@ mod tests {
         let sum = [4000u32];
         let (_, _, info) = run(&cfg, FrameSum::stacked(&sum, 4).unwrap(), None, None, 1);
         assert_eq!(info.shot_var_per_unit_q16, Some(2 << 16));
+    }
+
+    /// The conditioning formula term by term through 128-bit numbers, as the stage first did it.
+    fn reference(
+        cfg: &ConditionConfig,
+        sig: FrameSum<'_>,
+        dark: Option<FrameSum<'_>>,
+        gain: Option<GainTable<'_>>,
+    ) -> Vec<(i32, u8)> {
+        let ns = i128::from(sig.frames());
+        let nd = i128::from(dark.map_or(1, |d| d.frames()));
+        let r = if cfg.reference_us == 0 {
+            cfg.integration_us
+        } else {
+            cfg.reference_us
+        };
+        let den = ns * nd * (1 << 28) * i128::from(cfg.integration_us);
+        let fs = cfg.full_scale_counts;
+        (0..sig.len())
+            .map(|i| {
+                let s = sig.sum_at(i, fs);
+                let d = dark.map_or(Some(0), |d| d.sum_at(i, fs));
+                let sat = s.is_none() || d.is_none();
+                let s = s.unwrap_or(u32::from(fs).saturating_mul(ns as u32));
+                let d = d.unwrap_or(u32::from(fs).saturating_mul(nd as u32));
+                let ls = i128::from(cfg.linearity_q14(s, sig.frames()));
+                let ld = i128::from(cfg.linearity_q14(d, dark.map_or(1, |x| x.frames())));
+                let g = i128::from(gain.map_or(16384, |t| t.factor_q14(i)));
+                let num =
+                    (i128::from(s) * ls * nd - i128::from(d) * ld * ns) * g * (i128::from(r) << 4);
+                let v = if num >= 0 {
+                    (num + den / 2) / den
+                } else {
+                    -((-num + den / 2) / den)
+                };
+                let mut f = if sat { flags::SATURATED } else { 0 };
+                let o = match i32::try_from(v) {
+                    Ok(x) => x,
+                    Err(_) => {
+                        f |= flags::CLAMPED;
+                        v.clamp(i32::MIN.into(), i32::MAX.into()) as i32
+                    }
+                };
+                (o, f)
+            })
+            .collect()
+    }
+
+    #[test]
+    fn every_arithmetic_path_gives_the_wide_formulas_integers() {
+        let mut seed = 0x2545_f491_4f6c_dd1du64;
+        let mut next = |m: u64| {
+            seed ^= seed << 13;
+            seed ^= seed >> 7;
+            seed ^= seed << 17;
+            seed % m
+        };
+        for round in 0..400 {
+            let n = 1 + next(40) as usize;
+            let fs = [255u16, 4095, 16383, u16::MAX][next(4) as usize];
+            let mut cfg =
+                ConditionConfig::new(fs, [1, 7, 1000, 100_000, u32::MAX][next(5) as usize]);
+            cfg.reference_us = [0, 3, 2000, 100_000, u32::MAX][next(5) as usize];
+            if round % 3 == 1 {
+                for (lvl, f) in [
+                    (0u16, 16384u16),
+                    (fs / 3, 17000 + next(30_000) as u16),
+                    (fs - 1, u16::MAX),
+                ] {
+                    let _ = cfg.linearity.push(LinearityKnot {
+                        level_counts: lvl,
+                        factor_q14: f,
+                    });
+                }
+            }
+            let frames_s = [1u16, 1, 2, 3, 256][next(5) as usize];
+            let frames_d = [1u16, 2, 5, 256][next(4) as usize];
+            let raw: Vec<u16> = (0..n)
+                .map(|_| next(u64::from(fs) + 2).min(u64::from(u16::MAX)) as u16)
+                .collect();
+            let sums: Vec<u32> = (0..n)
+                .map(|_| match next(8) {
+                    0 => SATURATED_SUM,
+                    1 => u32::MAX - 1,
+                    _ => next(u64::from(fs) * u64::from(frames_s) + 1) as u32,
+                })
+                .collect();
+            let dsums: Vec<u32> = (0..n)
+                .map(|_| {
+                    if next(9) == 0 {
+                        SATURATED_SUM
+                    } else {
+                        next(u64::from(fs) * u64::from(frames_d)) as u32
+                    }
+                })
+                .collect();
+            let gains: Vec<u16> = (0..n)
+                .map(|_| 1 + next(u64::from(u16::MAX)) as u16)
+                .collect();
+            let sig = if frames_s == 1 && round % 2 == 0 {
+                FrameSum::single(&raw).unwrap()
+            } else {
+                FrameSum::stacked(&sums, frames_s).unwrap()
+            };
+            let dark = (next(3) != 0).then(|| FrameSum::stacked(&dsums, frames_d).unwrap());
+            let gain = (next(3) == 0).then(|| GainTable::new(&gains).unwrap());
+            let (out, fl, _) = run(&cfg, sig, dark, gain, n);
+            let want = reference(&cfg, sig, dark, gain);
+            let got: Vec<(i32, u8)> = out.into_iter().zip(fl).collect();
+            assert_eq!(got, want, "round {round}: {cfg:?}");
+        }
     }
 
     #[test]

@@ -122,6 +122,23 @@ impl<'a> FrameSum<'a> {
         self.frames
     }
 
+    /// The readout itself when this is a single raw readout (the conditioning fast path).
+    pub(crate) fn raw(&self) -> Option<&'a [u16]> {
+        match self.counts {
+            Counts::Raw(r) => Some(r),
+            Counts::Sum(_) => None,
+        }
+    }
+
+    /// Largest count [`sum_at`](Self::sum_at) can return, or a clipped pixel can stand for:
+    /// `u16::MAX` for a raw readout, `u32::MAX` for a sum. Bounds the conditioning arithmetic.
+    pub(crate) fn max_count(&self) -> u32 {
+        match self.counts {
+            Counts::Raw(_) => u32::from(u16::MAX),
+            Counts::Sum(_) => u32::MAX,
+        }
+    }
+
     /// Summed counts of pixel `i`, or `None` when saturated (by `full_scale_counts` for a raw readout, by
     /// the [`SATURATED_SUM`] mark for a stack) or out of range.
     pub(crate) fn sum_at(&self, i: usize, full_scale_counts: u16) -> Option<u32> {
