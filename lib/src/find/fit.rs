@@ -89,6 +89,8 @@ const UNUSABLE: i64 = i64::MIN;
 struct Window {
     lo: usize,
     len: usize,
+    /// Smallest modelled variance at the baseline over the window (Q8, ≥ 1).
+    vref: i64,
     resid: [i64; 2 * MAX_HALF + 1],
     base: [i64; 2 * MAX_HALF + 1],
 }
@@ -99,6 +101,7 @@ impl Window {
         let mut w = Window {
             lo,
             len: 0,
+            vref: i64::MAX,
             resid: [UNUSABLE; 2 * MAX_HALF + 1],
             base: [0; 2 * MAX_HALF + 1],
         };
@@ -110,9 +113,11 @@ impl Window {
                     UNUSABLE
                 };
                 *b = d.base_at(i);
+                w.vref = w.vref.min(d.noise.var_q8(*b));
             }
             w.len = k + 1;
         }
+        w.vref = if w.len == 0 { 1 } else { w.vref.max(1) };
         w
     }
 }
@@ -171,21 +176,21 @@ pub fn fit_line(
         s_q16: s0,
         c_q8: 0,
     };
-    // Weights are relative to the smallest variance in the window so none exceeds 1.
-    let vref = (lo..=hi)
-        .map(|i| d.noise.var_q8(d.base_at(i)))
-        .min()
-        .unwrap_or(1)
-        .max(1);
     let win = Window::new(d, lo, hi);
+    // Weights are relative to the smallest variance in the window so none exceeds 1.
+    let vref = win.vref;
     let mut p = start;
     let mut converged = false;
     let mut steps = 0u8;
+    // The normal matrix of the last step and the parameters it was taken at: its inverse gives the
+    // centre's σ (a settled fit moved < 2^-14 px since, and a pass per fit is saved).
+    let mut last: Option<(Mat, Params)> = None;
     for _ in 0..max_steps.min(ITERATIONS) {
         steps += 1;
         let Some((m, b)) = normal(&win, d.noise, &p, vref) else {
             break;
         };
+        last = Some((m, p));
         let Some(scaled) = Scaled::new(&m) else {
             break;
         };
@@ -205,6 +210,7 @@ pub fn fit_line(
         // The centre must stay inside the window, or the fit has wandered onto something else.
         if p.mu_q16 < (lo as i64) << 16 || p.mu_q16 > (hi as i64) << 16 {
             p = start;
+            last = None;
             break;
         }
         // Settled: centre moved < 2^-14 px, height and σ by < 2^-12 relative.
@@ -216,9 +222,11 @@ pub fn fit_line(
             break;
         }
     }
-    let center_sigma_q16 = normal(&win, d.noise, &p, vref)
-        .and_then(|(m, _)| center_sigma(&m, &p, vref))
-        .unwrap_or(p.s_q16);
+    let center_sigma_q16 = match last {
+        Some((m, q)) => center_sigma(&m, &q, vref),
+        None => normal(&win, d.noise, &p, vref).and_then(|(m, _)| center_sigma(&m, &p, vref)),
+    }
+    .unwrap_or(p.s_q16);
     Fit {
         center_q16: p.mu_q16,
         center_sigma_q16,
@@ -452,13 +460,7 @@ impl Scaled {
                 *o = round_shift(v, si + sj);
             }
         }
-        let mut cof: Mat = [[0; 4]; 4];
-        for (i, row) in cof.iter_mut().enumerate() {
-            for (k, c) in row.iter_mut().enumerate() {
-                let d = det3(minor(&out, i, k));
-                *c = if (i + k) % 2 == 0 { d } else { -d };
-            }
-        }
+        let cof = cofactors(&out);
         let det: i128 = out[0].iter().zip(&cof[0]).map(|(&v, &c)| v * c).sum();
         (det > 0).then_some(Self { shift, det, cof })
     }
@@ -501,6 +503,47 @@ impl Scaled {
         let k = self.shift.get(1).copied().unwrap_or(0);
         Some(scaled_div(cof, self.det, 92 - 2 * k as i32))
     }
+}
+
+/// The other three indices of 0..4, for each one left out.
+const OTHERS: [[usize; 3]; 4] = [[1, 2, 3], [0, 2, 3], [0, 1, 3], [0, 1, 2]];
+
+/// Cofactors of a symmetric 4 × 4 matrix: the 10 of the upper triangle, mirrored (the same integers
+/// as expanding all 16, since `C[i][k] = C[k][i]` for a symmetric matrix). Entries within ±2^31 (the
+/// scaled normal matrix's are < 2^26) are read straight from an `i32` copy; others take the general path.
+fn cofactors(m: &Mat) -> Mat {
+    let mut cof: Mat = [[0; 4]; 4];
+    let small = m
+        .iter()
+        .flatten()
+        .all(|v| (-(1i128 << 31)..(1 << 31)).contains(v));
+    let m32 = m.map(|r| r.map(|v| v as i32));
+    for i in 0..4 {
+        for k in i..4 {
+            let d = match (small, OTHERS.get(i), OTHERS.get(k)) {
+                (true, Some(&[r0, r1, r2]), Some(&[c0, c1, c2])) => {
+                    let at = |r: usize, c: usize| {
+                        m32.get(r).and_then(|x| x.get(c)).copied().unwrap_or(0)
+                    };
+                    let p = mul_i32_wide;
+                    let m1 = p(at(r1, c1), at(r2, c2)) - p(at(r1, c2), at(r2, c1));
+                    let m2 = p(at(r1, c0), at(r2, c2)) - p(at(r1, c2), at(r2, c0));
+                    let m3 = p(at(r1, c0), at(r2, c1)) - p(at(r1, c1), at(r2, c0));
+                    mul_i32_i64(at(r0, c0), m1) - mul_i32_i64(at(r0, c1), m2)
+                        + mul_i32_i64(at(r0, c2), m3)
+                }
+                _ => det3(minor(m, i, k)),
+            };
+            let d = if (i + k) % 2 == 0 { d } else { -d };
+            if let Some(c) = cof.get_mut(i).and_then(|row| row.get_mut(k)) {
+                *c = d;
+            }
+            if let Some(c) = cof.get_mut(k).and_then(|row| row.get_mut(i)) {
+                *c = d;
+            }
+        }
+    }
+    cof
 }
 
 #[inline(never)]
@@ -593,6 +636,32 @@ mod tests {
             neighbours: [None, None],
         };
         fit_line(&d, peak, sigma0, 1 << 15, 8 << 16, ITERATIONS)
+    }
+
+    #[test]
+    fn cofactors_equal_the_expansion() {
+        let mut x = 0x7777_1234u64;
+        for _ in 0..200 {
+            let mut m: Mat = [[0; 4]; 4];
+            for i in 0..4 {
+                for k in i..4 {
+                    x ^= x << 13;
+                    x ^= x >> 7;
+                    x ^= x << 17;
+                    let v = (x % (1 << 27)) as i128 - (1 << 26);
+                    m[i][k] = v;
+                    m[k][i] = v;
+                }
+            }
+            let got = cofactors(&m);
+            for i in 0..4 {
+                for k in 0..4 {
+                    let d = det3(minor(&m, i, k));
+                    let want = if (i + k) % 2 == 0 { d } else { -d };
+                    assert_eq!(got[i][k], want);
+                }
+            }
+        }
     }
 
     #[test]
