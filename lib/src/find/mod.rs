@@ -63,13 +63,14 @@ use math::{isqrt_i64, FWHM_PER_SIGMA_Q16};
 
 /// Shortest frame peak finding accepts (pixels): the noise estimate needs a dozen second differences.
 pub const MIN_PIXELS: usize = 16;
-/// Gauss–Newton steps per frame at full allowance (24 lines × 6 steps): the strongest lines are fitted
-/// first, and once the budget is spent every further fit gets [`MIN_STEPS`]. A typical frame of a dozen
-/// lines takes 50–90 steps and never reaches it; a frame of 64 noise bumps would take ~400 (each fit
-/// runs to the step limit), which is what kept its work above twice a typical frame's.
-pub const STEP_BUDGET: usize = 144;
-/// Gauss–Newton steps every line gets, budget or not (from the 3-pixel parabola and half-width start).
-pub const MIN_STEPS: usize = 2;
+/// Gauss–Newton steps per frame at full allowance (16 lines × 6 steps): the strongest lines are fitted
+/// first; once the budget is spent every further first fit gets [`MIN_STEPS`] and no neighbour refit.
+/// A typical frame of a dozen lines takes 50–90 steps and never reaches it; a frame of 64 noise bumps
+/// would take ~400 (each fit runs to the step limit), which kept its work at 3 × a typical frame's.
+pub const STEP_BUDGET: usize = 96;
+/// Gauss–Newton steps every line gets, budget or not (from the 3-pixel parabola and half-width start,
+/// one step lands within a small fraction of the noise-limited scatter).
+pub const MIN_STEPS: usize = 1;
 /// `i32` scratch cells needed per frame pixel (baseline and one work row).
 pub const SCRATCH_PER_PIXEL: usize = 2;
 /// Fits narrower than this fraction of `FindConfig::fwhm_min_px_q8` (Q8: 5/8) are dropped as single-pixel
@@ -208,7 +209,7 @@ pub fn find_peaks(
         let prev = prev_first.filter(touches);
         let next = next.filter(touches);
         prev_first = Some(f);
-        if prev.is_some() || next.is_some() {
+        if budget > 0 && (prev.is_some() || next.is_some()) {
             data.neighbours = [prev, next];
             // The same start width as the first fit (it reads frame and baseline only).
             let s0 = half_width_sigma(&data, pos, fwhm_max_px)
