@@ -639,6 +639,7 @@ mod tests {
     }
 
     #[test]
+    #[allow(clippy::needless_range_loop)] // index arithmetic is the point of the test
     fn cofactors_equal_the_expansion() {
         let mut x = 0x7777_1234u64;
         for _ in 0..200 {
