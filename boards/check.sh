@@ -338,6 +338,22 @@ if bash "$here/measure.sh" thumbv6m-none-eabi >"$out/measure.json" 2>"$out/measu
     cat "$out/measure.json"
     grep -q '"count_source": "plugin"' "$out/measure.json" \
         || echo "  note: instruction counts from SysTick (+- 40), not the counting plugin: $(head -n 1 "$out/measure.err")" >&2
+    # Adversarial frames (boards/pipeline-report/src/adversarial.rs): every check's instructions within
+    # 2 x the typical frame's in the same mode (scaled by pixels / 2048 above 2048 px). Not blessable.
+    if python3 - "$out/measure.json" <<'PY'
+import json, sys
+d = json.loads(open(sys.argv[1]).readline())
+over = [f"{a['frame']} ({a['mode']}): {a['ratio']:.2f} x" for a in d.get("adversarial", []) if a["ratio"] > 2.0]
+print(f"  adversarial frames: {len(d.get('adversarial', []))} checks, worst {d.get('adversarial_worst_ratio')} x ({d.get('adversarial_worst')})")
+for o in over:
+    print("  over 2 x: " + o, file=sys.stderr)
+sys.exit(1 if over or not d.get("adversarial") else 0)
+PY
+    then
+        ok "adversarial frames within 2 x the typical frame's instructions"
+    else
+        fail "an adversarial frame took more than 2 x the typical frame's instructions (see above)"
+    fi
     mgolden="$here/expected/measure.json"
     if [ "$bless" = 1 ]; then
         cp "$out/measure.json" "$mgolden"
