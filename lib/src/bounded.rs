@@ -5,6 +5,9 @@
 use heapless::Vec;
 
 /// The first `N` items of `items` (the rest are dropped, which callers size never to happen).
+///
+/// Loop bound: pulls at most N + 1 items from `items` (stops at the first that does not fit); the
+/// iterator's own work per item is the caller's.
 pub fn collect_bounded<T, const N: usize>(items: impl IntoIterator<Item = T>) -> Vec<T, N> {
     let mut out = Vec::new();
     for item in items {

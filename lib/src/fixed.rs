@@ -119,6 +119,9 @@ const fn round_up_half(q: u128, r: u128, c: u128) -> Option<u128> {
 }
 
 /// Signed `a * b / c` rounded to nearest (ties away from zero).
+///
+/// `None` when `c == 0` or the quotient does not fit in `i128`. Work: one [`mul_div_u128`] (≤ 128
+/// loop steps).
 pub const fn mul_div_i128(a: i128, b: i128, c: i128) -> Option<i128> {
     let negative = (a < 0) ^ (b < 0) ^ (c < 0);
     let q = match mul_div_u128(a.unsigned_abs(), b.unsigned_abs(), c.unsigned_abs()) {

@@ -47,6 +47,8 @@ pub struct MapFit {
 
 impl MapFit {
     /// 1-σ uncertainty of the map's wavelength at pixel p (px, Q16), femtometres.
+    ///
+    /// Work: fixed, ≤ 4 × 4 terms of two [`mul_div_i128`] each and one square root (≤ 64 steps).
     pub fn sigma_fm_at(&self, p_px_q16: i32) -> u64 {
         let x = self.map.x_q30(p_px_q16) as i128;
         let d = self.map.degree as usize;
@@ -79,7 +81,8 @@ impl MapFit {
 
 /// Fits a polynomial of `degree` (1…3) through `points` for a sensor of `pixels` pixels.
 ///
-/// Work: one pass over the points (≤ [`MAX_FIT_POINTS`]) plus a fixed 4 × 9 elimination.
+/// Work: three passes over the points (≤ [`MAX_FIT_POINTS`]: weights, normal sums, residuals), a fixed
+/// 4 × 4 × 9 Gauss–Jordan, and the 66-slope monotonicity check of [`WavelengthMap::with_frame`].
 pub fn fit_map(points: &[FitPoint], degree: u8, pixels: u16) -> Result<MapFit, CalibrateError> {
     if !(1..=3).contains(&degree) || points.len() < degree as usize + 1 {
         return Err(CalibrateError::TooFewPoints);

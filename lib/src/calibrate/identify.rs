@@ -10,8 +10,9 @@
 //! (with a nominal map only the line pairs within its offset and scale tolerance are tried), each
 //! scoring the ≤ 16 strongest peaks against ≤ 48 lines (one walk along the sorted
 //! lines, or a binary search each), stopping as soon as it cannot beat the best so far, and for those
-//! that can still win ≤ 48 lines against ≤ 16 peaks for missing strong lines; then 4 refit rounds
-//! over all ≤ 64 peaks.
+//! that can still win ≤ 48 lines against ≤ 16 peaks for missing strong lines and ≤ 16·15/2 = 120
+//! matched pairs for the strength-order tie-breaker; then a first match and ≤ 4 refit rounds over all
+//! ≤ 64 peaks (≤ 5 map fits).
 use super::error::CalibrateError;
 use super::fit::{fit_map, FitPoint, MapFit};
 use super::map::WavelengthMap;
@@ -121,8 +122,10 @@ struct Hypothesis {
 /// Identifies peaks against `lines` (sorted by wavelength) and fits the map.
 ///
 /// Peaks must be sorted by centre (as [`find_peaks`](crate::find::find_peaks) returns them).
-/// Work: ≤ 25 080 pair hypotheses, each scored on the 16 strongest peaks at most, then ≤ 5 fits over
-/// all ≤ 64 peaks (see the module docs).
+/// Work bound: ≤ 25 080 hypotheses (C(12,2) peak pairs × C(20,2) line pairs × 2), each scoring the
+/// ≤ 16 strongest peaks against ≤ 48 lines and, while it can still win, ≤ 48 × 16 miss checks and
+/// ≤ 120 peak pairs for strength order; then ≤ 5 matching passes over ≤ 64 peaks and ≤ 5 map fits.
+/// Worst case about 2.5 × 10⁷ inner steps (see the module docs).
 pub fn identify(
     peaks: &[Peak],
     lines: &[ReferenceLine],

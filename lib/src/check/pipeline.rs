@@ -102,10 +102,15 @@ impl Checker {
     /// Checks one frame into `report` (overwritten). `signal` (and `dark`) are raw readouts or
     /// co-added sums; `work` holds buffers for the configured pixel count.
     ///
-    /// Work, for N pixels and the fixed capacities (64 peaks, 48 predicted lines): conditioning and
-    /// peak finding O(N) (see [`condition_frame`] and [`find_peaks`]); in calibrate modes the bounded
-    /// identification search of [`identify()`]; matching ≤ 40 features × 64 peaks; one isotope pair fit
-    /// of ≤ 162 shift steps × 64 px; judging ≤ 64 peaks.
+    /// Work, for N pixels and the fixed capacities (64 peaks, 48 predicted lines, 40 features):
+    /// conditioning and peak finding O(N) (see [`condition_frame`] and [`find_peaks`], whose fits share
+    /// a budget of [`STEP_BUDGET`](crate::find::STEP_BUDGET) Gauss–Newton steps); the bounded search of
+    /// [`identify()`] (≤ 25 080 hypotheses, each scored on ≤ 16 peaks) at most once: in calibrate
+    /// modes for the map, in verify mode to test for a shifted scale when fewer lines matched than
+    /// peaks were found; matching ≤ 40 features × 64 peaks and ≤ 64 × 40 × 4 member tests, with ≤ 338
+    /// map inversions (≤ 12 Newton steps each); one isotope pair fit of ≤ 615 pair and ≤ 379
+    /// single-line steps × ≤ 64 px ([`share_by_profile`]); leftovers ≤ 64 peaks × (40 pairs + 27
+    /// markers); judging ≤ 40 lines and ≤ 3 species × 40 pairs × 4 members.
     pub fn check(
         &self,
         signal: FrameSum<'_>,

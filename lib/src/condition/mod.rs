@@ -75,7 +75,8 @@ pub const OUTPUT_FRAC_BITS: u32 = 4;
 /// On error nothing is written.
 ///
 /// Loop bounds: one pass over the pixels (≤ [`MAX_PIXELS`]), each doing ≤ 2 linearity look-ups
-/// (≤ [`MAX_LINEARITY_KNOTS`] steps), then ≤ [`MAX_BAD_PIXELS`] repairs of ≤ 2 × [`MAX_REPAIR_REACH`] steps.
+/// (≤ [`MAX_LINEARITY_KNOTS`] steps), then ≤ [`MAX_BAD_PIXELS`] repairs of ≤ 2 × [`MAX_REPAIR_REACH`] steps,
+/// after a config check of ≤ [`MAX_BAD_PIXELS`] + 2 × [`MAX_LINEARITY_KNOTS`] steps.
 pub fn condition_frame(
     cfg: &ConditionConfig,
     signal: FrameSum<'_>,

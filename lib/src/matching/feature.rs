@@ -3,7 +3,7 @@
 //! Hα and Dα lie 0.18 nm apart; on a sensor with a 1 nm line width they form one peak whose centre
 //! depends on the mix. Grouping them keeps the matcher from inventing a second peak and lets the
 //! isotope analysis read the mix off the blend.
-use super::catalogue::CatalogueLine;
+use super::catalogue::{CatalogueLine, MAX_CATALOGUE};
 use super::error::MatchError;
 use crate::calibrate::WavelengthMap;
 use crate::predict::Nucleus;
@@ -31,6 +31,8 @@ pub struct Feature {
 }
 
 /// Expected share (‰) of a nucleus from the priors; nuclei not listed get 0.
+///
+/// Loop bound: `priors.len()` (≤ [`MAX_NUCLEI`](super::catalogue::MAX_NUCLEI) in the pipeline).
 pub fn prior_share(priors: &[(Nucleus, u16)], nucleus: Nucleus) -> u16 {
     priors
         .iter()
@@ -41,7 +43,9 @@ pub fn prior_share(priors: &[(Nucleus, u16)], nucleus: Nucleus) -> u16 {
 /// Groups the catalogue (sorted by wavelength) into features: a line joins the previous feature when
 /// its pixel is closer than `merge_px_q16` to that feature's last member.
 ///
-/// Work: one pass over ≤ 48 lines, each one map inversion (≤ 12 Newton steps).
+/// Lines past [`MAX_CATALOGUE`] are ignored: member indices are `u8`, and a catalogue never holds
+/// more. Work: one pass over ≤ [`MAX_CATALOGUE`] lines, each one map inversion (≤ 12 Newton steps),
+/// then [`settle`] for each of the ≤ [`MAX_FEATURES`] features.
 pub fn group(
     catalogue: &[CatalogueLine],
     map: &WavelengthMap,
@@ -50,7 +54,7 @@ pub fn group(
 ) -> Result<Vec<Feature, MAX_FEATURES>, MatchError> {
     let mut out: Vec<Feature, MAX_FEATURES> = Vec::new();
     let mut last_px: Option<i32> = None;
-    for (i, line) in catalogue.iter().enumerate() {
+    for (i, line) in catalogue.iter().enumerate().take(MAX_CATALOGUE) {
         // A line the map cannot place (a fitted map extrapolated far off the sensor) is not on it.
         let Ok(px) = map.pixel_q16(line.wavelength_fm) else {
             continue;
@@ -85,6 +89,9 @@ pub fn group(
 }
 
 /// Recomputes a feature's expected position, primary and rate from per-nucleus shares (‰).
+///
+/// Work: ≤ [`MAX_MEMBERS`] members × `shares.len()` look-ups, then one map inversion (≤ 12 Newton
+/// steps).
 pub fn settle(
     f: &mut Feature,
     catalogue: &[CatalogueLine],
@@ -116,4 +123,43 @@ pub fn settle(
     f.expected = total as u64;
     f.predicted_px_q16 = map.pixel_q16(f.predicted_fm).unwrap_or(f.predicted_px_q16);
     Ok(())
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn line(wavelength_fm: i64) -> CatalogueLine {
+        CatalogueLine {
+            nucleus: Nucleus::H1,
+            lower: 2,
+            upper: 3,
+            wavelength_fm,
+            strength: 1000,
+        }
+    }
+
+    #[test]
+    fn lines_past_the_catalogue_capacity_do_not_alias_member_indices() {
+        // 400 … 700 nm over 2048 px; 10 mm is far off the sensor, where the map cannot place a line.
+        let map = WavelengthMap::new(2048, 1, [550_000_000, 150_000_000, 0, 0]).unwrap();
+        let far = 10_000_000_000_000;
+        assert!(map.pixel_q16(far).is_err());
+        // 10 placeable lines, unplaceable ones up to index 255, then placeable ones again: indices
+        // from 256 on would wrap to 0, 1, … as `u8`.
+        let cat: std::vec::Vec<CatalogueLine> = (0..300i64)
+            .map(|i| match i {
+                0..=9 => line(410_000_000 + i * 20_000_000),
+                10..=255 => line(far),
+                _ => line(405_000_000 + (i - 256) * 5_000_000),
+            })
+            .collect();
+        let features = group(&cat, &map, &[(Nucleus::H1, 1000)], 3 << 16).unwrap();
+        assert_eq!(features.len(), 10);
+        for (k, f) in features.iter().enumerate() {
+            assert_eq!(f.members.as_slice(), &[k as u8]);
+            assert_eq!(f.primary, k as u8);
+            assert_eq!(f.predicted_fm, cat[k].wavelength_fm);
+        }
+    }
 }

@@ -90,8 +90,8 @@ pub struct PairWindow<'a> {
 /// Share from a two-Gaussian fit with fixed separation. `None` when the frame does not constrain it
 /// (no signal, singular fit).
 ///
-/// Work: ≤ 129 + 3 × 33 pair steps and ≤ 193 + 5 × 33 single-line steps, each ≤ 64 px × ≤ 2
-/// exponentials, then one 3 × 3 Fisher pass.
+/// Work: ≤ 129 + 3 × 33 + 3 × 129 = 615 pair steps and ≤ 214 + 5 × 33 = 379 single-line steps, each
+/// over ≤ 64 px with ≤ 2 pixel-averaged Gaussians of 3 exponentials, then one 3 × 3 Fisher pass.
 pub fn share_by_profile(w: &PairWindow<'_>) -> Option<ShareEstimate> {
     let sigma = w.sigma_px_q16.max(1 << 12) as i64;
     let lo_c = w.a_px_q16.min(w.b_px_q16) as i64;

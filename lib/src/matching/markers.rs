@@ -55,6 +55,8 @@ pub const MARKERS: [Marker; 27] = [
 ];
 
 /// Index of the marker nearest to `wavelength_fm` within `window_fm`.
+///
+/// Loop bound: the 27 [`MARKERS`].
 pub fn nearest_marker(wavelength_fm: i64, window_fm: i64) -> Option<u8> {
     let mut best: Option<(u8, i64)> = None;
     for (i, mk) in MARKERS.iter().enumerate() {
