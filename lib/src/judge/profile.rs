@@ -113,16 +113,22 @@ pub const BUNDLED: [(&str, TubeProfile); 4] = [
 
 impl TubeProfile {
     /// The expected species that are present in the list.
+    ///
+    /// At most [`MAX_SPECIES`] items.
     pub fn expected(&self) -> impl Iterator<Item = &ExpectedSpecies> {
         self.species.iter().flatten()
     }
 
     /// The primary species (first listed); `None` for a profile with no species.
+    ///
+    /// Loop bound: ≤ [`MAX_SPECIES`] slots.
     pub fn primary(&self) -> Option<Nucleus> {
         self.expected().next().map(|s| s.nucleus)
     }
 
     /// A bundled profile by name.
+    ///
+    /// Loop bound: the 4 [`BUNDLED`] names.
     pub fn bundled(name: &str) -> Option<TubeProfile> {
         BUNDLED.iter().find(|(n, _)| *n == name).map(|(_, p)| *p)
     }
