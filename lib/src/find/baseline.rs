@@ -40,82 +40,67 @@ pub fn estimate_baseline(
 ) {
     let limit = narrow_limit(half);
     if frame.iter().all(|&v| i64::from(v).abs() <= limit) {
-        baseline_narrow(frame, flag, noise, half, warm, base, tmp);
+        // Every ADC frame of ≤ 16 bits (Q4) times a few hundred co-adds: `i32` box sums.
+        let from = |src: &[i32], dst: &mut [i32]| box_narrow(half, src, dst);
+        rounds(frame, flag, noise, warm, base, tmp, from, |b| {
+            box_narrow_in_place(half, b)
+        });
     } else {
-        baseline_wide(frame, flag, noise, half, warm, base, tmp);
+        let from = |src: &[i32], dst: &mut [i32]| {
+            box_symmetric(half, |j| i64::from(src.get(j).copied().unwrap_or(0)), dst)
+        };
+        rounds(frame, flag, noise, warm, base, tmp, from, |b| {
+            box_symmetric_in_place(half, b)
+        });
     }
 }
 
-/// [`estimate_baseline`] in `i64` for any frame.
-fn baseline_wide(
+/// The clip-and-smooth rounds with a triangle made of `from` (box of a row into another) and `in_place`
+/// (box of a row onto itself): the narrow and the wide boxes give the same integers where both apply.
+#[allow(clippy::too_many_arguments)]
+fn rounds(
     frame: &[i32],
     flag: &[u8],
     noise: &NoiseModel,
-    half: usize,
     warm: bool,
     base: &mut [i32],
     tmp: &mut [i32],
+    from: impl Fn(&[i32], &mut [i32]),
+    in_place: impl Fn(&mut [i32]),
 ) {
     let rounds = if warm {
         ROUNDS_WARM
     } else {
-        box_symmetric(
-            half,
-            |j| i64::from(frame.get(j).copied().unwrap_or(0)),
-            base,
-        );
-        box_symmetric_in_place(half, base);
+        from(frame, base);
+        in_place(base);
         ROUNDS
     };
     for _ in 0..rounds {
         // Clipped frame into tmp, one evaluation per pixel; then its triangle back into base.
         for (((t, &y), &b), &f) in tmp.iter_mut().zip(frame).zip(base.iter()).zip(flag) {
-            let (yj, bj) = (i64::from(y), i64::from(b));
-            let high = super::math::above_sigmas(yj - bj, CLIP_SIGMA << 8, noise.var_q8(bj));
+            let r = i64::from(y) - i64::from(b);
+            // The variance only where the residual is positive (half the pixels of a flat stretch).
+            let high = r > 0 && above_clip(r, noise.var_q8(i64::from(b)));
             *t = if flags::is_untrusted(f) || high { b } else { y };
         }
-        box_symmetric(half, |j| i64::from(tmp.get(j).copied().unwrap_or(0)), base);
-        box_symmetric_in_place(half, base);
+        from(tmp, base);
+        in_place(base);
     }
 }
 
-/// [`estimate_baseline`] for frames within ±[`narrow_limit`] (every ADC frame of ≤ 16 bits, Q4, times a
-/// few hundred co-adds): `i32` box sums and a 32-bit clip test; the same integers as the wide path.
-fn baseline_narrow(
-    frame: &[i32],
-    flag: &[u8],
-    noise: &NoiseModel,
-    half: usize,
-    warm: bool,
-    base: &mut [i32],
-    tmp: &mut [i32],
-) {
-    let rounds = if warm {
-        ROUNDS_WARM
-    } else {
-        box_narrow(half, frame, base);
-        box_narrow_in_place(half, base);
-        ROUNDS
-    };
-    for _ in 0..rounds {
-        for (((t, &y), &b), &f) in tmp.iter_mut().zip(frame).zip(base.iter()).zip(flag) {
-            // r > 2σ ⟺ 64·r² > var_q8 (σ² = var_q8 / 256); |r| < 2^31 under the narrow limit.
-            let r = i64::from(y) - i64::from(b);
-            let high = r > 0 && {
-                let var = noise.var_q8(i64::from(b));
-                let r = r as u32;
-                if r < 1 << 12 {
-                    i64::from((r * r) << 6) > var
-                } else {
-                    // ≥ 2^30 on the left; r < 2^29 keeps 64·r² below 2^64.
-                    r >= 1 << 29
-                        || (super::math::mul_u32_wide(r, r) << 6) > var.max(0).unsigned_abs()
-                }
-            };
-            *t = if flags::is_untrusted(f) || high { b } else { y };
+/// Whether a residual `r` stands more than [`CLIP_SIGMA`] σ above the baseline (σ² = `var_q8` / 256):
+/// `64·r² > var_q8`, in 32-bit arithmetic for the residuals of ADC frames, exactly
+/// [`above_sigmas`](super::math::above_sigmas) otherwise.
+#[inline(always)]
+fn above_clip(r: i64, var_q8: i64) -> bool {
+    match u32::try_from(r) {
+        Ok(0) | Err(_) if r <= 0 => false,
+        Ok(r32) if r32 < 1 << 12 => i64::from((r32 * r32) << 6) > var_q8,
+        // ≥ 2^30 on the left; r < 2^29 keeps 64·r² below 2^64.
+        Ok(r32) if r32 < 1 << 29 => {
+            (super::math::mul_u32_wide(r32, r32) << 6) > var_q8.max(0).unsigned_abs()
         }
-        box_narrow(half, tmp, base);
-        box_narrow_in_place(half, base);
+        _ => super::math::above_sigmas(r, CLIP_SIGMA << 8, var_q8),
     }
 }
 
@@ -134,6 +119,38 @@ mod tests {
             zero_light_level: 0,
             shot_var_per_unit_q16: 0,
             shot_from_data: false,
+        }
+    }
+
+    #[test]
+    fn clip_test_is_exact() {
+        for r in [
+            -5i64,
+            0,
+            1,
+            2,
+            100,
+            4095,
+            4096,
+            70_000,
+            (1 << 29) - 1,
+            1 << 29,
+            1 << 31,
+            1 << 40,
+        ] {
+            for var in [
+                0i64,
+                1,
+                64,
+                6_400,
+                1 << 30,
+                (1 << 30) + 1,
+                1 << 40,
+                i64::MAX,
+            ] {
+                let want = super::super::math::above_sigmas(r, CLIP_SIGMA << 8, var);
+                assert_eq!(above_clip(r, var), want, "r {r} var {var}");
+            }
         }
     }
 
@@ -167,8 +184,16 @@ mod tests {
                     b1.fill(3500);
                     b2.fill(3500);
                 }
-                baseline_narrow(&frame, &fl, &nm, 20, warm, &mut b1, &mut t1);
-                baseline_wide(&frame, &fl, &nm, 20, warm, &mut b2, &mut t2);
+                let narrow = |src: &[i32], dst: &mut [i32]| box_narrow(20, src, dst);
+                rounds(&frame, &fl, &nm, warm, &mut b1, &mut t1, narrow, |b| {
+                    box_narrow_in_place(20, b)
+                });
+                let wide = |src: &[i32], dst: &mut [i32]| {
+                    box_symmetric(20, |j| i64::from(src.get(j).copied().unwrap_or(0)), dst)
+                };
+                rounds(&frame, &fl, &nm, warm, &mut b2, &mut t2, wide, |b| {
+                    box_symmetric_in_place(20, b)
+                });
                 assert_eq!(b1, b2, "sd {sd} warm {warm}");
             }
         }
