@@ -488,19 +488,12 @@ fn adversaries(out: &mut hio::HostStream, report: &mut Report) -> Result<(), ()>
             16 + 3 * ADVERSARIES.len() as u32 + mode as u32,
             Ordering::Relaxed,
         );
-        let (t0, h0) = stamp();
-        let r = typical.check(signal, None, None, buffers.workspace(PIXELS), report);
-        let (t1, h1) = stamp();
-        let t = t1.saturating_sub(t0);
+        let line = timed(|| typical.check(signal, None, None, buffers.workspace(PIXELS), report));
         writeln!(
             out,
-            "typical h-tube {} pixels {PIXELS} ticks {t} hits {h0} {h1} result {}",
+            "typical h-tube {} pixels {PIXELS} {}",
             mode_name(mode),
-            if r.is_ok() {
-                report.verdict.as_str()
-            } else {
-                "error"
-            }
+            line.with(report)
         )
         .map_err(|_| ())?;
         for (k, a) in ADVERSARIES.iter().copied().enumerate() {
@@ -528,23 +521,59 @@ fn adversaries(out: &mut hio::HostStream, report: &mut Report) -> Result<(), ()>
             STAGE.store(16 + 3 * k as u32 + mode as u32, Ordering::Relaxed);
             #[cfg(not(feature = "profile"))]
             let _ = k;
-            let (t0, h0) = stamp();
-            let r = checker.check(signal, dark_sum, gain_table, buffers.workspace(n), report);
-            let (t1, h1) = stamp();
-            let t = t1.saturating_sub(t0);
+            let line =
+                timed(|| checker.check(signal, dark_sum, gain_table, buffers.workspace(n), report));
             writeln!(
                 out,
-                "adversary {} {} pixels {n} ticks {t} hits {h0} {h1} result {}",
+                "adversary {} {} pixels {n} {}",
                 a.name(),
                 mode_name(mode),
-                if r.is_ok() {
-                    report.verdict.as_str()
-                } else {
-                    "error"
-                }
+                line.with(report)
             )
             .map_err(|_| ())?;
         }
     }
     Ok(())
+}
+
+/// Ticks and marker hits around one timed check, and whether it gave a report.
+struct Timed {
+    ticks: u64,
+    hits: (u32, u32),
+    ok: bool,
+}
+
+/// Runs `check` between two stamps.
+fn timed<E>(check: impl FnOnce() -> Result<(), E>) -> Timed {
+    let (t0, h0) = stamp();
+    let ok = check().is_ok();
+    let (t1, h1) = stamp();
+    Timed {
+        ticks: t1.saturating_sub(t0),
+        hits: (h0, h1),
+        ok,
+    }
+}
+
+impl Timed {
+    /// `ticks T hits A B result VERDICT|error`, the tail of a measurement line.
+    fn with<'a>(&'a self, report: &'a Report) -> impl core::fmt::Display + 'a {
+        struct Tail<'a>(&'a Timed, &'a Report);
+        impl core::fmt::Display for Tail<'_> {
+            fn fmt(&self, f: &mut core::fmt::Formatter<'_>) -> core::fmt::Result {
+                let t = self.0;
+                let result = if t.ok {
+                    self.1.verdict.as_str()
+                } else {
+                    "error"
+                };
+                write!(
+                    f,
+                    "ticks {} hits {} {} result {result}",
+                    t.ticks, t.hits.0, t.hits.1
+                )
+            }
+        }
+        Tail(self, report)
+    }
 }
