@@ -30,6 +30,22 @@ pub fn excerpt(text: &str, mark: char) -> String {
     }
 }
 
+/// Test check shared by the readers: `message` quotes an oversized input as an excerpt and stays
+/// under `limit` bytes.
+#[cfg(test)]
+pub fn assert_bounded(message: &str, limit: usize) {
+    assert!(
+        message.len() < limit,
+        "{} bytes: {}",
+        message.len(),
+        message.get(..limit).unwrap_or(message)
+    );
+    assert!(
+        message.contains("…") && message.contains(" bytes)"),
+        "{message}"
+    );
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

@@ -307,13 +307,7 @@ mod tests {
         ];
         for t in &texts {
             let e = parse(t, "f").unwrap_err();
-            assert!(
-                e.len() < 400,
-                "{} bytes: {}",
-                e.len(),
-                e.get(..400).unwrap_or(&e)
-            );
-            assert!(e.contains("…") && e.contains(" bytes)"), "{e}");
+            crate::excerpt::assert_bounded(&e, 400);
         }
         let table = parse(&format!("v = \"{huge}\"\n{huge} = 1\n"), "f").unwrap();
         let top = Section::top(&table);

@@ -619,13 +619,7 @@ mod tests {
         ];
         for text in &cases {
             let m = parse(text).unwrap_err().to_string();
-            assert!(
-                m.len() < 300,
-                "{} bytes: {}",
-                m.len(),
-                m.get(..300).unwrap_or(&m)
-            );
-            assert!(m.contains("…") && m.contains(" bytes)"), "{m}");
+            crate::excerpt::assert_bounded(&m, 300);
         }
         let mut t = sample();
         t.notes.push(format!("{huge}\n"));
