@@ -14,8 +14,8 @@
 # 2 000 000 plus the loop function's fixed instructions (counted in its disassembly). Without a C
 # compiler the plugin cannot be built: the counts are then SysTick's (+- 40), and stderr says so.
 # Stages: condition = condition_frame, find = find_peaks, calibrate = check(calibrate mode) -
-# check(verify mode), match = check(verify) - condition - find (matching AND judging: lib runs
-# them inside Checker::check with no public seam, so "judge" is null), total = check(calibrate).
+# check(verify mode), judge = from `Stage::Matched` to `Stage::Judged` of the verify check
+# (`Checker::check_traced`), match = check(verify) - condition - find - judge, total = check(calibrate).
 # Sizes: the digest image of boards/pipeline (the same code without the f32 baseline), minus the
 # 3 embedded 4096-byte test frames for flash. Stack: deepest lib call, each call measured on a freshly
 # painted stack below its caller's stack pointer.
@@ -111,7 +111,7 @@ for t in $targets; do
         /^adversary / { na++; an[na] = $2; am[na] = $3; ap[na] = kv($0, "pixels"); at[na] = kv($0, "ticks"); aa[na] = kv($0, "hits"); ab[na] = kv2($0, "hits"); ar[na] = kv($0, "result") }
         END {
             per = int(kv(tk, "loop_instructions") / kv(tk, "calibration") + 0.5)
-            n = split("predict condition find check_calibrate check_verify float_baseline calibration", names, " ")
+            n = split("predict condition find check_calibrate check_verify float_baseline calibration judge", names, " ")
             for (i = 1; i <= n; i++) sys[names[i]] = kv(tk, names[i]) * per
             if (plugin) {
                 if (hits_seen != kv(hl, "total")) { printf "measure.sh: %s: plugin saw %d marker hits, the firmware made %d\n", target, hits_seen, kv(hl, "total") > "/dev/stderr"; bad = 1 }
@@ -130,12 +130,13 @@ for t in $targets; do
                 for (i = 1; i <= na; i++) ai[i] = at[i] * per
                 source = "systick"
             }
-            c = ins["condition"]; f = ins["find"]; cal = ins["check_calibrate"]; ver = ins["check_verify"]
+            # The verify check holds the judge pair of marks: the cost of one more pair comes off.
+            c = ins["condition"]; f = ins["find"]; cal = ins["check_calibrate"]; ver = ins["check_verify"] - (plugin ? empty : 0); j = ins["judge"]
             fb = ins["float_baseline"]; pr = ins["predict"]
             stack = 0; k = split("predict condition find check_calibrate check_verify", sk, " ")
             for (i = 1; i <= k; i++) if (kv(st, sk[i]) + 0 > stack) stack = kv(st, sk[i]) + 0
-            printf "{\"target\": \"%s\", \"pixels\": 2048, \"count_source\": \"%s\", \"instructions\": {\"condition\": %d, \"find\": %d, \"calibrate\": %d, \"match\": %d, \"judge\": null, \"total\": %d}, ", target, source, c, f, cal - ver, ver - c - f, cal
-            printf "\"systick_instructions\": {\"condition\": %d, \"find\": %d, \"calibrate\": %d, \"match\": %d, \"judge\": null, \"total\": %d}, ", sys["condition"], sys["find"], sys["check_calibrate"] - sys["check_verify"], sys["check_verify"] - sys["condition"] - sys["find"], sys["check_calibrate"]
+            printf "{\"target\": \"%s\", \"pixels\": 2048, \"count_source\": \"%s\", \"instructions\": {\"condition\": %d, \"find\": %d, \"calibrate\": %d, \"match\": %d, \"judge\": %d, \"total\": %d}, ", target, source, c, f, cal - ver, ver - c - f - j, j, cal
+            printf "\"systick_instructions\": {\"condition\": %d, \"find\": %d, \"calibrate\": %d, \"match\": %d, \"judge\": %d, \"total\": %d}, ", sys["condition"], sys["find"], sys["check_calibrate"] - sys["check_verify"], sys["check_verify"] - sys["condition"] - sys["find"] - sys["judge"], sys["judge"], sys["check_calibrate"]
             if (plugin) printf "\"systick_max_disagreement_instructions\": %d, \"mark_overhead_instructions\": %d, \"stamp_overhead_instructions\": %d, \"calibration_loop_instructions\": %d, ", worst_disagree, empty, empty_stamp, ins["calibration"]
             else printf "\"systick_max_disagreement_instructions\": null, \"mark_overhead_instructions\": null, \"stamp_overhead_instructions\": null, \"calibration_loop_instructions\": null, "
             printf "\"instructions_per_pixel\": %.1f, \"float_baseline_instructions\": %d, \"float_baseline_ratio\": %.3f, ", (c + f) / 2048, fb, fb / (c + f)

@@ -116,4 +116,13 @@ pub fn run() {
         }
         Err(e) => keep_error(e),
     }
+    // The traced form, its stages kept (the closure's argument is opaque to the optimiser).
+    let mut stages = 0u64;
+    let traced = checker.check_traced(signal, None, None, buffers.workspace(N), &mut report, |s| {
+        stages = stages.wrapping_mul(5).wrapping_add(s as u64)
+    });
+    keep(stages);
+    if let Err(e) = traced {
+        keep_error(e);
+    }
 }

@@ -34,7 +34,7 @@ use cortex_m::peripheral::SYST;
 use cortex_m_rt::exception;
 use cortex_m_semihosting::{debug, hio};
 use glowcheck::check::Buffers;
-use glowcheck::check::Checker;
+use glowcheck::check::{Checker, Stage};
 use glowcheck::condition::{condition_frame, FrameSum};
 use glowcheck::condition::{GainTable, GAIN_MAX_Q14};
 use glowcheck::find::{find_peaks, PeakList};
@@ -52,7 +52,7 @@ static STAMPS: [AtomicU32; 2 * MARKS] = [const { AtomicU32::new(0) }; 2 * MARKS]
 /// The marker hit number of each mark, for pairing the plugin's counts with [`STAMPS`].
 static HIT_OF: [AtomicU32; MARKS] = [const { AtomicU32::new(0) }; MARKS];
 /// Number of marks.
-const MARKS: usize = 16;
+const MARKS: usize = 18;
 /// Calls of [`glowcheck_marker`] so far.
 static HITS: AtomicU32 = AtomicU32::new(0);
 
@@ -337,12 +337,21 @@ pub fn run(buffers: &mut Buffers<PIXELS>, report: &mut Report, syst: SYST) -> de
         c
     });
     let lines_calibrate = report.lines.len();
-    let (checked_verify, stack_verify) = stack_of(|| {
-        mark(8);
-        let c = check(&verify, &verify_case, buffers.workspace(PIXELS), report);
-        mark(9);
-        c
-    });
+    // Verify mode with marks 16 → 17 around judging (lib reports its stages to the closure).
+    let (checked_verify, stack_verify) =
+        stack_of(|| {
+            mark(8);
+            let c =
+                verify.check_traced(signal, None, None, buffers.workspace(PIXELS), report, |s| {
+                    match s {
+                        Stage::Matched => mark(16),
+                        Stage::Judged => mark(17),
+                        _ => {}
+                    }
+                });
+            mark(9);
+            c
+        });
     if checked.is_err() || checked_verify.is_err() {
         return debug::EXIT_FAILURE;
     }
@@ -400,8 +409,8 @@ pub fn run(buffers: &mut Buffers<PIXELS>, report: &mut Report, syst: SYST) -> de
     };
     let printed = writeln!(
         out,
-        "ticks calibration {} loop_instructions {} predict {} condition {} find {} check_calibrate {} check_verify {} float_baseline {} empty {}\n\
-         hits calibration {} {} predict {} {} condition {} {} find {} {} check_calibrate {} {} check_verify {} {} float_baseline {} {} empty {} {} empty_stamp {empty_stamp_0} {empty_stamp_1} total {} calibration_wraps {}\n\
+        "ticks calibration {} loop_instructions {} predict {} condition {} find {} check_calibrate {} check_verify {} float_baseline {} empty {} judge {}\n\
+         hits calibration {} {} predict {} {} condition {} {} find {} {} check_calibrate {} {} check_verify {} {} float_baseline {} {} empty {} {} judge {} {} empty_stamp {empty_stamp_0} {empty_stamp_1} total {} calibration_wraps {}\n\
          stack_bytes predict {stack_new} condition {stack_condition} find {stack_find} check_calibrate {stack_calibrate} check_verify {stack_verify} float_baseline {stack_float}\n\
          counts peaks {} lines_calibrate {lines_calibrate} lines_verify {} float_peaks {n_float}",
         ticks(12, 13),
@@ -413,6 +422,7 @@ pub fn run(buffers: &mut Buffers<PIXELS>, report: &mut Report, syst: SYST) -> de
         ticks(8, 9),
         ticks(10, 11),
         ticks(14, 15),
+        ticks(16, 17),
         hit_of(12),
         hit_of(13),
         hit_of(0),
@@ -429,6 +439,8 @@ pub fn run(buffers: &mut Buffers<PIXELS>, report: &mut Report, syst: SYST) -> de
         hit_of(11),
         hit_of(14),
         hit_of(15),
+        hit_of(16),
+        hit_of(17),
         HITS.load(Ordering::Relaxed),
         wraps(12, 13),
         peaks.len(),

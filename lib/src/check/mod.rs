@@ -10,11 +10,13 @@
 mod config;
 mod error;
 mod pipeline;
+mod stage;
 mod workspace;
 
 pub use config::{Config, StoredMap};
 pub use error::CheckError;
 pub use pipeline::Checker;
+pub use stage::Stage;
 pub use workspace::{Buffers, Workspace};
 
 #[cfg(test)]

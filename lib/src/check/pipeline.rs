@@ -1,6 +1,7 @@
 //! The whole job for one frame: condition → find → calibrate → match → judge, into one [`Report`].
 use super::config::Config;
 use super::error::CheckError;
+use super::stage::Stage;
 use super::workspace::Workspace;
 use crate::bounded::collect_bounded;
 use crate::calibrate::{
@@ -119,6 +120,20 @@ impl Checker {
         work: Workspace<'_>,
         report: &mut Report,
     ) -> Result<(), CheckError> {
+        self.check_traced(signal, dark, gain, work, report, |_| {})
+    }
+
+    /// [`check`](Self::check), calling `at` after each [`Stage`] the frame reaches (for timing or a
+    /// progress display; the result is the same). Work as for `check`.
+    pub fn check_traced(
+        &self,
+        signal: FrameSum<'_>,
+        dark: Option<FrameSum<'_>>,
+        gain: Option<GainTable<'_>>,
+        work: Workspace<'_>,
+        report: &mut Report,
+        mut at: impl FnMut(Stage),
+    ) -> Result<(), CheckError> {
         let cfg = &self.cfg;
         if signal.len() != cfg.pixels as usize {
             return Err(CheckError::WrongPixelCount);
@@ -130,11 +145,13 @@ impl Checker {
             peaks,
         } = work;
         let info = condition_frame(&cfg.condition, signal, dark, gain, frame, flags)?;
+        at(Stage::Conditioned);
         let mut fcfg = cfg.find;
         if fcfg.shot_var_per_unit_q16.is_none() {
             fcfg.shot_var_per_unit_q16 = info.shot_var_per_unit_q16;
         }
         let found = find_peaks(&fcfg, frame, flags, scratch, peaks)?;
+        at(Stage::PeaksFound);
         let peaks: &PeakList = peaks;
         let base = scratch.get(..frame.len()).unwrap_or(&[]);
         *report = Report::new();
@@ -175,6 +192,7 @@ impl Checker {
             }
         };
         report.map = Some(in_use.map);
+        at(Stage::Calibrated);
         // Closer than 1.5 line widths, two lines may show as one peak (peak finding's own blend limit);
         // a pair that does show as two is split again after matching.
         let merge_q16 = ((cfg.line_fwhm_px_q8 as i32) << 8) * 3 / 2;
@@ -199,8 +217,10 @@ impl Checker {
         if cfg.mode == Mode::Verify && self.shifted_scale(peaks, report) {
             // The stored scale explains the peaks worse than a shifted one: said in the reasons.
         }
+        at(Stage::Matched);
         self.judge(&features, &pairs, peaks, report);
         report.decide();
+        at(Stage::Judged);
         Ok(())
     }
 
