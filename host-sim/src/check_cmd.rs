@@ -104,14 +104,9 @@ pub fn lib_config(
             .push(b)
             .map_err(|_| "too many bad pixels for the firmware's map".to_string())?;
     }
-    let mut find = FindConfig::DEFAULT;
     // Widen the accepted line widths when the instrument's lies outside the defaults (2–12 px).
     let fwhm_q8 = (inst.line_fwhm_px * 256.0).round() as u16;
-    find.fwhm_min_px_q8 = find.fwhm_min_px_q8.min((fwhm_q8 / 2).max(256));
-    find.fwhm_max_px_q8 = find
-        .fwhm_max_px_q8
-        .max(fwhm_q8.saturating_mul(3) / 2)
-        .min(16 << 8);
+    let find = FindConfig::for_line_fwhm(fwhm_q8);
     Ok(Config {
         pixels: inst.pixels,
         condition,

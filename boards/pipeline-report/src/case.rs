@@ -64,15 +64,9 @@ pub fn config_for(pixels: u16, profile: TubeProfile, mode: Mode) -> Result<Confi
     let map = WavelengthMap::new(pixels, 2, BENCH_MAP_FM)?;
     let mut condition = ConditionConfig::new((1 << 14) - 1, 100_000);
     condition.electrons_per_count_q8 = 2 * 256;
-    // Accepted line widths around the instrument's 3 px, as `glowsim check` sets them: half of it
-    // (≥ 1 px) up to 1.5 × (≤ 16 px), each only widening the defaults.
+    // Accepted line widths around the instrument's 3 px, as `glowsim check` sets them.
     let fwhm_q8: u16 = 3 * 256;
-    let mut find = FindConfig::DEFAULT;
-    find.fwhm_min_px_q8 = find.fwhm_min_px_q8.min((fwhm_q8 / 2).max(256));
-    find.fwhm_max_px_q8 = find
-        .fwhm_max_px_q8
-        .max(fwhm_q8.saturating_mul(3) / 2)
-        .min(16 << 8);
+    let find = FindConfig::for_line_fwhm(fwhm_q8);
     Ok(Config {
         pixels,
         condition,

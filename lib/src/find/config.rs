@@ -43,6 +43,19 @@ impl FindConfig {
         shot_var_per_unit_q16: None,
     };
 
+    /// [`DEFAULT`](Self::DEFAULT) with the accepted line widths widened, where needed, to cover an
+    /// instrument whose lines are `line_fwhm_px_q8` wide (Q8 px): from half of it (≥ 1 px) to 1.5 × it
+    /// (≤ 16 px). The host's `glowsim check` and the firmware configure peak finding the same way.
+    pub fn for_line_fwhm(line_fwhm_px_q8: u16) -> Self {
+        let mut c = Self::DEFAULT;
+        c.fwhm_min_px_q8 = c.fwhm_min_px_q8.min((line_fwhm_px_q8 / 2).max(256));
+        c.fwhm_max_px_q8 = c
+            .fwhm_max_px_q8
+            .max(line_fwhm_px_q8.saturating_mul(3) / 2)
+            .min(16 << 8);
+        c
+    }
+
     /// Checks ranges: 1 px ≤ FWHM min ≤ FWHM max ≤ 16 px; threshold and prominence > 0.
     pub(crate) fn check(&self) -> Result<(), FindError> {
         let ok = self.fwhm_min_px_q8 >= 256
@@ -83,5 +96,20 @@ mod tests {
         let mut c = FindConfig::DEFAULT;
         c.threshold_sigma_q8 = 0;
         assert_eq!(c.check(), Err(FindError::BadConfig));
+    }
+
+    #[test]
+    fn line_width_only_widens_the_defaults_within_the_limits() {
+        // 3 px lines: the minimum goes down to 1.5 px, the default maximum (12 px) already covers 4.5.
+        let c = FindConfig::for_line_fwhm(3 << 8);
+        assert_eq!((c.fwhm_min_px_q8, c.fwhm_max_px_q8), (384, 12 << 8));
+        // 1.5 px: minimum down to 0.75 px, held at 1 px.
+        assert_eq!(FindConfig::for_line_fwhm(384).fwhm_min_px_q8, 256);
+        // 10 px: maximum up to 15 px; 14 px would ask for 21 px and gets 16.
+        assert_eq!(FindConfig::for_line_fwhm(10 << 8).fwhm_max_px_q8, 15 << 8);
+        assert_eq!(FindConfig::for_line_fwhm(14 << 8).fwhm_max_px_q8, 16 << 8);
+        for w in [0u16, 1, 256, 3 << 8, 16 << 8, u16::MAX] {
+            assert_eq!(FindConfig::for_line_fwhm(w).check(), Ok(()), "{w}");
+        }
     }
 }
