@@ -642,21 +642,8 @@ impl Checker {
                 snr_q8: pk.snr_q8,
                 hint: nearest_marker(w, window),
             };
-            if report.unexplained.push(entry).is_err() {
-                let weakest = report
-                    .unexplained
-                    .iter()
-                    .enumerate()
-                    .min_by_key(|(_, u)| u.snr_q8)
-                    .map(|(i, u)| (i, u.snr_q8));
-                if let Some((i, s)) = weakest {
-                    if entry.snr_q8 > s {
-                        if let Some(slot) = report.unexplained.get_mut(i) {
-                            *slot = entry;
-                        }
-                    }
-                }
-            }
+            // Full: the faintest listed peak gives way to a brighter one.
+            crate::bounded::push_keep_strongest(&mut report.unexplained, entry, |u| u.snr_q8);
         }
         crate::sort::sort_by_key(&mut report.unexplained, |u| u.wavelength_fm);
         report.scores.unexplained_permille = if total > 0 {

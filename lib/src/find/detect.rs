@@ -126,22 +126,7 @@ fn valley(smooth: &[i32], from: usize, peak: i64, reach: usize, rightward: bool)
 ///
 /// Loop bound: one scan of the ≤ N entries, only when the list is full.
 pub fn push_strongest<const N: usize>(list: &mut Vec<Candidate, N>, c: Candidate) -> bool {
-    if list.push(c).is_ok() {
-        return false;
-    }
-    let weakest = list
-        .iter()
-        .enumerate()
-        .min_by_key(|(_, x)| x.strength)
-        .map(|(k, x)| (k, x.strength));
-    if let Some((k, s)) = weakest {
-        if c.strength > s {
-            if let Some(slot) = list.get_mut(k) {
-                *slot = c;
-            }
-        }
-    }
-    true
+    crate::bounded::push_keep_strongest(list, c, |x| x.strength)
 }
 
 /// Keeps, strongest first, only candidates at least `min_sep_q8` px (Q8) from every stronger one kept.

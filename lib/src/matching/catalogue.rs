@@ -72,21 +72,8 @@ pub fn build(
                 wavelength_fm: w,
                 strength: kramers_strength(line.lower, line.upper),
             };
-            if out.push(entry).is_err() {
-                // Full: replace the weakest if this one is stronger.
-                let weakest = out
-                    .iter()
-                    .enumerate()
-                    .min_by_key(|(_, l)| l.strength)
-                    .map(|(i, l)| (i, l.strength));
-                if let Some((i, s)) = weakest {
-                    if entry.strength > s {
-                        if let Some(slot) = out.get_mut(i) {
-                            *slot = entry;
-                        }
-                    }
-                }
-            }
+            // Full: the weakest line gives way to a stronger one.
+            crate::bounded::push_keep_strongest(&mut out, entry, |l| l.strength);
         }
     }
     // Lines under 1/300 of the strongest are the crowded members near a series limit: closer to each
