@@ -40,6 +40,14 @@ struct MapInUse {
 }
 
 impl MapInUse {
+    /// |dλ/dp| at a pixel (fm/px, Q16); 0 where the map cannot say.
+    fn slope_abs(&self, p_q16: i32) -> u64 {
+        self.map
+            .slope_fm_per_px_q16(p_q16)
+            .unwrap_or(0)
+            .unsigned_abs()
+    }
+
     fn sigma_fm(&self, p_q16: i32) -> u64 {
         match &self.fit {
             Some(f) => f.sigma_fm_at(p_q16),
@@ -570,11 +578,7 @@ impl Checker {
             let Ok(measured) = m.map.wavelength_fm(pk.center_px_q16) else {
                 continue;
             };
-            let slope = m
-                .map
-                .slope_fm_per_px_q16(pk.center_px_q16)
-                .unwrap_or(0)
-                .unsigned_abs() as u128;
+            let slope = m.slope_abs(pk.center_px_q16) as u128;
             let c = (pk.center_sigma_px_q16 as u128 * slope) >> 32;
             let s = m.sigma_fm(pk.center_px_q16) as u128;
             // A line within 2.5 line widths of another feature (series-limit crowding) or sharing its
@@ -630,11 +634,7 @@ impl Checker {
             let Ok(w) = m.map.wavelength_fm(pk.center_px_q16) else {
                 continue;
             };
-            let slope = m
-                .map
-                .slope_fm_per_px_q16(pk.center_px_q16)
-                .unwrap_or(0)
-                .unsigned_abs() as i64;
+            let slope = m.slope_abs(pk.center_px_q16) as i64;
             let window = (3 * (slope >> 16)).max(300_000);
             let entry = UnexplainedPeak {
                 wavelength_fm: w,
@@ -929,11 +929,7 @@ impl LinePixels {
 
 /// |dλ/dp| at a feature's predicted pixel (fm/px, Q16), at least 1 (0 when the map cannot say).
 fn feature_slope(f: &Feature, m: &MapInUse) -> i64 {
-    m.map
-        .slope_fm_per_px_q16(f.predicted_px_q16)
-        .unwrap_or(0)
-        .unsigned_abs()
-        .max(1) as i64
+    m.slope_abs(f.predicted_px_q16).max(1) as i64
 }
 
 /// (v · 2^32) / d truncated, for d ≥ 1: in `i64` when |v| < 2^31 (the same quotient), else 128-bit.
