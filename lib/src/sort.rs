@@ -1,4 +1,5 @@
-//! A sort for the short lists of the pipeline (≤ 128 entries, most ≤ 64) with no panic path.
+//! A sort and a selection for the short lists of the pipeline (≤ 256 entries, most ≤ 64) with no
+//! panic path.
 //!
 //! core's `sort_unstable` keeps a panic for comparators that break total order; an insertion sort
 //! over `get_mut` windows has none, and for lists this short it is as fast. Stable, O(n²), n ≤ 128
@@ -27,6 +28,61 @@ pub fn sort_by_key<T, K: Ord>(v: &mut [T], key: impl Fn(&T) -> K) {
     }
 }
 
+/// The element a full sort would put at index `k` (`None` for `k ≥ v.len()`); reorders `v`. Hoare
+/// selection with a median-of-three pivot: ~3n comparisons on typical data instead of the n²/4 of
+/// sorting first, the same value as `sort` then `v[k]` whatever the order (equal keys are equal
+/// values). Loop bound: each partition round shrinks the range by ≥ 1, so ≤ n rounds of ≤ n steps.
+pub fn select_kth<T: Ord + Copy>(v: &mut [T], k: usize) -> Option<T> {
+    if k >= v.len() {
+        return None;
+    }
+    let (mut lo, mut hi) = (0usize, v.len() - 1);
+    while lo < hi {
+        let mid = lo + (hi - lo) / 2;
+        // Median of three as pivot value.
+        let (a, b, c) = (*v.get(lo)?, *v.get(mid)?, *v.get(hi)?);
+        let pivot = a.max(b).min(a.min(b).max(c));
+        // Three-way partition of lo..=hi: [< pivot][== pivot][> pivot].
+        let (mut lt, mut i, mut gt) = (lo, lo, hi);
+        while i <= gt {
+            let x = *v.get(i)?;
+            if x < pivot {
+                swap_checked(v, lt, i);
+                lt += 1;
+                i += 1;
+            } else if x > pivot {
+                swap_checked(v, i, gt);
+                if gt == 0 {
+                    break;
+                }
+                gt -= 1;
+            } else {
+                i += 1;
+            }
+        }
+        if k < lt {
+            hi = lt.checked_sub(1)?;
+        } else if k > gt {
+            lo = gt + 1;
+        } else {
+            return Some(pivot);
+        }
+    }
+    v.get(k).copied()
+}
+
+/// Swaps two entries; out-of-range indices leave `v` as it is (`slice::swap` keeps a panic path).
+fn swap_checked<T: Copy>(v: &mut [T], a: usize, b: usize) {
+    if let (Some(&x), Some(&y)) = (v.get(a), v.get(b)) {
+        if let Some(s) = v.get_mut(a) {
+            *s = y;
+        }
+        if let Some(s) = v.get_mut(b) {
+            *s = x;
+        }
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -38,5 +94,34 @@ mod tests {
         assert_eq!(v, [(0, 'd'), (1, 'b'), (2, 'e'), (3, 'a'), (3, 'c')]);
         let mut e: [u8; 0] = [];
         sort_by_key(&mut e, |x| *x);
+    }
+
+    #[test]
+    fn selection_equals_sorting() {
+        let mut x = 0x1357_9bdfu32;
+        for n in 1..=300usize {
+            for spread in [3u32, 50, 1_000_000] {
+                let v: Vec<i64> = (0..n)
+                    .map(|_| {
+                        x ^= x << 13;
+                        x ^= x >> 17;
+                        x ^= x << 5;
+                        i64::from(x % spread) - i64::from(spread / 2)
+                    })
+                    .collect();
+                let mut sorted = v.clone();
+                sorted.sort();
+                for k in [0, n / 2, n - 1] {
+                    let mut w = v.clone();
+                    assert_eq!(select_kth(&mut w, k), Some(sorted[k]), "n {n} k {k}");
+                }
+                let mut asc = sorted.clone();
+                assert_eq!(select_kth(&mut asc, n / 2), Some(sorted[n / 2]));
+                let mut desc: Vec<i64> = sorted.iter().rev().copied().collect();
+                assert_eq!(select_kth(&mut desc, n / 2), Some(sorted[n / 2]));
+            }
+        }
+        assert_eq!(select_kth::<i64>(&mut [], 0), None);
+        assert_eq!(select_kth(&mut [5i64], 1), None);
     }
 }

@@ -164,49 +164,6 @@ pub fn above_sigmas(r: i64, k_q8: i64, var_q8: i64) -> bool {
     lhs >= 1 << 104 || lhs << 24 > u128::from(k) * u128::from(k) * u128::from(v)
 }
 
-/// The element a full sort would put at index `k` (`None` for `k ≥ v.len()`); reorders `v`. Hoare
-/// selection with a median-of-three pivot: ~3n comparisons on typical data instead of the n²/4 of
-/// sorting first, the same value as `sort` then `v[k]` whatever the order (equal keys are equal
-/// values). Loop bound: each partition round shrinks the range by ≥ 1, so ≤ n rounds of ≤ n steps.
-pub fn select_kth<T: Ord + Copy>(v: &mut [T], k: usize) -> Option<T> {
-    if k >= v.len() {
-        return None;
-    }
-    let (mut lo, mut hi) = (0usize, v.len() - 1);
-    while lo < hi {
-        let mid = lo + (hi - lo) / 2;
-        // Median of three as pivot value.
-        let (a, b, c) = (*v.get(lo)?, *v.get(mid)?, *v.get(hi)?);
-        let pivot = a.max(b).min(a.min(b).max(c));
-        // Three-way partition of lo..=hi: [< pivot][== pivot][> pivot].
-        let (mut lt, mut i, mut gt) = (lo, lo, hi);
-        while i <= gt {
-            let x = *v.get(i)?;
-            if x < pivot {
-                swap_checked(v, lt, i);
-                lt += 1;
-                i += 1;
-            } else if x > pivot {
-                swap_checked(v, i, gt);
-                if gt == 0 {
-                    break;
-                }
-                gt -= 1;
-            } else {
-                i += 1;
-            }
-        }
-        if k < lt {
-            hi = lt.checked_sub(1)?;
-        } else if k > gt {
-            lo = gt + 1;
-        } else {
-            return Some(pivot);
-        }
-    }
-    v.get(k).copied()
-}
-
 /// `a · b` for a 32-bit and a 64-bit factor in full (< 2^95), from two 32 × 32 → 64-bit products:
 /// a general 128-bit product is several library calls on the M0.
 pub fn mul_i32_i64(a: i32, b: i64) -> i128 {
@@ -214,18 +171,6 @@ pub fn mul_i32_i64(a: i32, b: i64) -> i128 {
     let low = mul_u32_wide(a.unsigned_abs(), lo) as i128;
     let low = if a < 0 { -low } else { low };
     (i128::from(mul_i32_wide(a, hi)) << 32) + low
-}
-
-/// Swaps two entries; out-of-range indices leave `v` as it is (`slice::swap` keeps a panic path).
-fn swap_checked<T: Copy>(v: &mut [T], a: usize, b: usize) {
-    if let (Some(&x), Some(&y)) = (v.get(a), v.get(b)) {
-        if let Some(s) = v.get_mut(a) {
-            *s = y;
-        }
-        if let Some(s) = v.get_mut(b) {
-            *s = x;
-        }
-    }
 }
 
 /// `a · b` in `i128`, `None` on overflow. Out of line on purpose: on the M0 every inlined 128-bit
@@ -367,35 +312,6 @@ mod tests {
         }
         assert_eq!(mul_i32_wide(i32::MIN, i32::MIN), 1 << 62);
         assert_eq!(mul_i32_wide(i32::MIN, 1), i64::from(i32::MIN));
-    }
-
-    #[test]
-    fn selection_equals_sorting() {
-        let mut x = 0x1357_9bdfu32;
-        for n in 1..=300usize {
-            for spread in [3u32, 50, 1_000_000] {
-                let v: Vec<i64> = (0..n)
-                    .map(|_| {
-                        x ^= x << 13;
-                        x ^= x >> 17;
-                        x ^= x << 5;
-                        i64::from(x % spread) - i64::from(spread / 2)
-                    })
-                    .collect();
-                let mut sorted = v.clone();
-                sorted.sort();
-                for k in [0, n / 2, n - 1] {
-                    let mut w = v.clone();
-                    assert_eq!(select_kth(&mut w, k), Some(sorted[k]), "n {n} k {k}");
-                }
-                let mut asc = sorted.clone();
-                assert_eq!(select_kth(&mut asc, n / 2), Some(sorted[n / 2]));
-                let mut desc: Vec<i64> = sorted.iter().rev().copied().collect();
-                assert_eq!(select_kth(&mut desc, n / 2), Some(sorted[n / 2]));
-            }
-        }
-        assert_eq!(select_kth::<i64>(&mut [], 0), None);
-        assert_eq!(select_kth(&mut [5i64], 1), None);
     }
 
     #[test]

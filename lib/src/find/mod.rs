@@ -281,7 +281,7 @@ fn median_of_base(base: &[i32], work: &mut [i32]) -> i64 {
         k += 1;
     }
     let s = work.get_mut(..k).unwrap_or(&mut []);
-    i64::from(math::select_kth(s, k / 2).unwrap_or(0))
+    i64::from(crate::sort::select_kth(s, k / 2).unwrap_or(0))
 }
 
 /// σ (Q16 px) from the half-maximum width of the residual around `pos`, searched ≤ `max_px` each way.

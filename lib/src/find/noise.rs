@@ -154,7 +154,7 @@ fn block_stats(frame: &[i32], flag: &[u8], mask: &LineMask, start: usize, end: u
         return Block::default();
     }
     let level = i64::from(
-        super::math::select_kth(lv.get_mut(..nl).unwrap_or(&mut []), nl / 2).unwrap_or(0),
+        crate::sort::select_kth(lv.get_mut(..nl).unwrap_or(&mut []), nl / 2).unwrap_or(0),
     );
     let d2 = d2.get_mut(..nd).unwrap_or(&mut []);
     let med = median(d2);
@@ -180,10 +180,10 @@ fn block_stats(frame: &[i32], flag: &[u8], mask: &LineMask, start: usize, end: u
     }
 }
 
-/// Upper median; reorders `v` ([`select_kth`](super::math::select_kth): core's select keeps a panic path).
+/// Upper median; reorders `v` ([`select_kth`](crate::sort::select_kth): core's select keeps a panic path).
 #[inline(never)]
 fn median(v: &mut [i64]) -> i64 {
-    super::math::select_kth(v, v.len() / 2).unwrap_or(0)
+    crate::sort::select_kth(v, v.len() / 2).unwrap_or(0)
 }
 
 #[inline(never)]
