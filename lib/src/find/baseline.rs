@@ -1,10 +1,15 @@
-//! Continuum and stray-light removal by iterated clipped smoothing.
+//! Continuum and stray-light removal by iterated clipped smoothing on a coarse grid.
 //!
-//! A triangular moving average (two box passes, windows shrinking symmetrically at the frame edges) of
-//! width well above the widest line follows a smooth
-//! continuum such as a deuterium lamp's, and stray light, but a line pulls it up. Each round replaces the
-//! pixels standing more than [`CLIP_SIGMA`] noise σ above the current baseline by the baseline itself and
-//! smooths again, so lines drop out within a few rounds while the continuum stays.
+//! The frame is first reduced to the means of blocks of [`COARSE_PX`] pixels (trusted pixels only): a
+//! continuum is smooth on that scale, and the rounds below then run on 1/16 of the points, which is what
+//! makes the baseline cost a few instructions per pixel instead of ~40 box passes over the frame.
+//! On the block means, a triangular moving average (two box passes, windows shrinking symmetrically at
+//! the edges) about as wide as the old per-pixel one (≈ 2 × `half` + 1 px) follows a smooth continuum
+//! such as a deuterium lamp's, and stray light, but a line pulls it up. Each round replaces the blocks
+//! standing more than [`CLIP_SIGMA`] noise σ (of a block mean) above the current baseline by the
+//! baseline itself and smooths again, so lines drop out within a few rounds while the continuum stays.
+//! The pixel baseline is the straight line between neighbouring block centres (extended beyond the
+//! first and the last).
 
 use super::noise::NoiseModel;
 use super::smooth::{
@@ -14,77 +19,231 @@ use crate::condition::flags;
 
 /// Clipping level above the baseline, in noise σ.
 pub const CLIP_SIGMA: i64 = 2;
-/// Clip-and-smooth rounds from a plain smoothing; each removes most of what a line still adds to the
-/// baseline. Eight keep a 1000-σ line of the widest FWHM within σ/2 of the continuum (tested below;
-/// six do not); the centroid bench and the check sweeps are unchanged from sixteen.
-pub const ROUNDS: usize = 8;
-/// Rounds when starting from an earlier baseline of the same frame (the second look of
-/// [`find_peaks`](super::find_peaks), after a better noise estimate): the lines are already out.
-pub const ROUNDS_WARM: usize = 4;
+/// Clip-and-bridge rounds from a plain smoothing: the first takes out the strong lines, the next ones
+/// the wings and weak lines the first baseline stood too high to see. Four keep a 1000-σ line of the
+/// widest FWHM within σ/2 of the continuum (tested below).
+pub const ROUNDS: usize = 4;
+/// Pixels per coarse block (a power of two: the interpolation divides by shifting).
+pub const COARSE_PX: usize = 16;
+const COARSE_SHIFT: u32 = COARSE_PX.trailing_zeros();
+/// Fewest trusted pixels for a block mean to count; emptier blocks are treated like untrusted pixels.
+const MIN_TRUSTED: u32 = 4;
+/// Coarse cells [`estimate_baseline`] needs in `tmp`, per frame pixel: three rows of block values.
+pub const fn coarse_cells(n: usize) -> usize {
+    3 * n.div_ceil(COARSE_PX)
+}
 
-/// Writes the baseline of `frame` into `base`, using `tmp` as scratch (both the frame's length).
+/// Writes the baseline of `frame` into `base`, using `tmp` as scratch (at least
+/// [`coarse_cells`]`(frame.len())` cells; a frame-length row always suffices).
 ///
-/// With `warm`, `base` already holds a baseline of this frame and only [`ROUNDS_WARM`] rounds run.
-/// Untrusted pixels (saturated, repaired) are always replaced by the baseline after the first round.
-/// `half` is the box half-width (px, ≤ 63). Loop bound: one O(N) range check, then ≤ [`ROUNDS`] × (one
-/// clip pass + 2 box passes) + 2 box passes of O(N), N = `base.len()` (not capped here;
-/// [`find_peaks`](super::find_peaks) keeps it ≤ MAX_PIXELS).
+/// `half` is the smoothing half-width (px): the box on the block means spans about 2 × `half` + 1 px.
+/// Untrusted pixels (saturated, repaired) are left out of the block means. Loop bound: one O(N) pass
+/// for the block means, ≤ [`ROUNDS`] + 1 rounds of a clip pass and 2 box passes over ⌈N/16⌉ blocks,
+/// one O(N) interpolation, N = `base.len()` (not capped here; [`find_peaks`](super::find_peaks) keeps
+/// it ≤ MAX_PIXELS).
 pub fn estimate_baseline(
     frame: &[i32],
     flag: &[u8],
     noise: &NoiseModel,
     half: usize,
-    warm: bool,
     base: &mut [i32],
     tmp: &mut [i32],
 ) {
-    let limit = narrow_limit(half);
-    if frame.iter().all(|&v| i64::from(v).abs() <= limit) {
-        // Every ADC frame of ≤ 16 bits (Q4) times a few hundred co-adds: `i32` box sums.
-        let from = |src: &[i32], dst: &mut [i32]| box_narrow(half, src, dst);
-        rounds(frame, flag, noise, warm, base, tmp, from, |b| {
-            box_narrow_in_place(half, b)
+    let n = frame.len().min(base.len());
+    let nb = n.div_ceil(COARSE_PX);
+    let (means, rest) = tmp.split_at_mut(nb.min(tmp.len()));
+    let (cbase, rest) = rest.split_at_mut(nb.min(rest.len()));
+    let ctmp = rest.get_mut(..nb).unwrap_or(&mut []);
+    if ctmp.len() < nb {
+        // Scratch too small for the coarse rows (find_peaks never passes less): the plain level.
+        base.fill(0);
+        return;
+    }
+    let mut cflag = [0u8; crate::condition::MAX_PIXELS.div_ceil(COARSE_PX)];
+    let cflag = cflag.get_mut(..nb).unwrap_or(&mut []);
+    block_means(frame, flag, means, cflag);
+    // A block mean of m pixels has 1/m of the pixel variance (16 for all but the last block).
+    let coarse_noise = NoiseModel {
+        floor_var_q8: noise.floor_var_q8 >> COARSE_SHIFT,
+        zero_light_level: noise.zero_light_level,
+        shot_var_per_unit_q16: noise.shot_var_per_unit_q16 >> COARSE_SHIFT,
+        shot_from_data: noise.shot_from_data,
+    };
+    // Box half-width in blocks for a width of ≈ 2·half + 1 px.
+    let hc = ((2 * half + 1) / (2 * COARSE_PX)).max(1);
+    let limit = narrow_limit(hc);
+    if means.iter().all(|&v| i64::from(v).abs() <= limit) {
+        let from = |src: &[i32], dst: &mut [i32]| box_narrow(hc, src, dst);
+        rounds(means, cflag, &coarse_noise, cbase, ctmp, from, |b| {
+            box_narrow_in_place(hc, b)
         });
     } else {
         let from = |src: &[i32], dst: &mut [i32]| {
-            box_symmetric(half, |j| i64::from(src.get(j).copied().unwrap_or(0)), dst)
+            box_symmetric(hc, |j| i64::from(src.get(j).copied().unwrap_or(0)), dst)
         };
-        rounds(frame, flag, noise, warm, base, tmp, from, |b| {
-            box_symmetric_in_place(half, b)
+        rounds(means, cflag, &coarse_noise, cbase, ctmp, from, |b| {
+            box_symmetric_in_place(hc, b)
         });
+    }
+    interpolate(cbase, base.get_mut(..n).unwrap_or(&mut []));
+}
+
+/// Means of the trusted pixels of each block into `means` (rounded down), `cflag` marking blocks with
+/// fewer than [`MIN_TRUSTED`] as untrusted. Loop bound: one pass over `frame`.
+fn block_means(frame: &[i32], flag: &[u8], means: &mut [i32], cflag: &mut [u8]) {
+    for (k, (m, cf)) in means.iter_mut().zip(cflag.iter_mut()).enumerate() {
+        let lo = k * COARSE_PX;
+        let hi = (lo + COARSE_PX).min(frame.len());
+        let vals = frame.get(lo..hi).unwrap_or(&[]);
+        let fl = flag.get(lo..hi).unwrap_or(&[]);
+        let (mut sum, mut cnt) = (0i64, 0u32);
+        for (&v, &f) in vals.iter().zip(fl) {
+            if !flags::is_untrusted(f) {
+                sum += i64::from(v);
+                cnt += 1;
+            }
+        }
+        *cf = if cnt < MIN_TRUSTED {
+            flags::SATURATED
+        } else {
+            0
+        };
+        // Floor division (a shift for full blocks), the same on every target.
+        let mean = if cnt == COARSE_PX as u32 {
+            sum >> COARSE_SHIFT
+        } else {
+            sum.div_euclid(i64::from(cnt.max(1)))
+        };
+        *m = mean.clamp(i64::from(i32::MIN), i64::from(i32::MAX)) as i32;
+    }
+    // Untrusted blocks start at the last trusted level before them (the first trusted one for a
+    // leading run), so the first smoothing is not pulled by a saturated or empty block.
+    let mut fill = means
+        .iter()
+        .zip(cflag.iter())
+        .find(|(_, &f)| f == 0)
+        .map(|(&m, _)| m);
+    for (m, &f) in means.iter_mut().zip(cflag.iter()) {
+        match (f, fill) {
+            (0, _) => fill = Some(*m),
+            (_, Some(v)) => *m = v,
+            _ => {}
+        }
+    }
+}
+
+/// The pixel baseline: straight lines between block centres (block k's centre is pixel 16k + 8, the
+/// last block's the middle of its pixels), the end segments extended beyond the first and last centre.
+/// Loop bound: one pass over `base`.
+fn interpolate(coarse: &[i32], base: &mut [i32]) {
+    let n = base.len();
+    let nb = coarse.len();
+    let centre = |k: usize| {
+        let lo = k * COARSE_PX;
+        lo + (n.min(lo + COARSE_PX) - lo) / 2
+    };
+    // Before the first centre and after the last the end segments run on (a sloping continuum stays
+    // followed up to the edge pixel); a single block is flat.
+    let line = |k: usize, i: usize| -> i32 {
+        let (a, b) = (centre(k), centre(k + 1));
+        let (ya, yb) = (
+            i64::from(coarse.get(k).copied().unwrap_or(0)),
+            i64::from(coarse.get(k + 1).copied().unwrap_or(0)),
+        );
+        let span = b.saturating_sub(a).max(1) as i64;
+        let t = i as i64 - a as i64;
+        (ya + ((yb - ya) * t).div_euclid(span)).clamp(i64::from(i32::MIN), i64::from(i32::MAX))
+            as i32
+    };
+    let c0 = centre(0).min(n);
+    let cl = centre(nb.saturating_sub(1)).min(n);
+    if nb < 2 {
+        base.fill(coarse.first().copied().unwrap_or(0));
+        return;
+    }
+    for (i, v) in base.iter_mut().enumerate().take(c0) {
+        *v = line(0, i);
+    }
+    for (i, v) in base.iter_mut().enumerate().skip(cl) {
+        *v = line(nb - 2, i);
+    }
+    for k in 0..nb.saturating_sub(1) {
+        let (a, b) = (centre(k), centre(k + 1));
+        let (Some(&ya), Some(&yb)) = (coarse.get(k), coarse.get(k + 1)) else {
+            break;
+        };
+        let span = b.saturating_sub(a).max(1);
+        let d = i64::from(yb) - i64::from(ya);
+        let seg = base.get_mut(a..b).unwrap_or(&mut []);
+        if span == COARSE_PX && d.unsigned_abs() < 1 << 26 {
+            // |d·t| < 2^30: 32-bit products, a shift for the division.
+            let d32 = d as i32;
+            for (t, v) in seg.iter_mut().enumerate() {
+                *v = ya.wrapping_add((d32 * t as i32) >> COARSE_SHIFT);
+            }
+        } else {
+            for (t, v) in seg.iter_mut().enumerate() {
+                let step = (d * t as i64).div_euclid(span as i64);
+                *v = (i64::from(ya) + step).clamp(i64::from(i32::MIN), i64::from(i32::MAX)) as i32;
+            }
+        }
     }
 }
 
 /// The clip-and-smooth rounds with a triangle made of `from` (box of a row into another) and `in_place`
 /// (box of a row onto itself): the narrow and the wide boxes give the same integers where both apply.
-#[allow(clippy::too_many_arguments)]
 fn rounds(
     frame: &[i32],
     flag: &[u8],
     noise: &NoiseModel,
-    warm: bool,
     base: &mut [i32],
     tmp: &mut [i32],
     from: impl Fn(&[i32], &mut [i32]),
     in_place: impl Fn(&mut [i32]),
 ) {
-    let rounds = if warm {
-        ROUNDS_WARM
-    } else {
-        from(frame, base);
-        in_place(base);
-        ROUNDS
-    };
-    for _ in 0..rounds {
-        // Clipped frame into tmp, one evaluation per pixel; then its triangle back into base.
-        for (((t, &y), &b), &f) in tmp.iter_mut().zip(frame).zip(base.iter()).zip(flag) {
+    from(frame, base);
+    in_place(base);
+    for _ in 0..ROUNDS {
+        // Values standing above the baseline (and untrusted ones) are bridged in tmp by the straight
+        // line between the nearest kept values on either side, then the triangle is taken again: a
+        // line leaves the baseline in one round instead of fading by a constant share per round.
+        let mut last_kept: Option<(usize, i32)> = None;
+        for (i, ((&y, &b), &f)) in frame.iter().zip(base.iter()).zip(flag).enumerate() {
             let r = i64::from(y) - i64::from(b);
-            // The variance only where the residual is positive (half the pixels of a flat stretch).
-            let high = r > 0 && above_clip(r, noise.var_q8(i64::from(b)));
-            *t = if flags::is_untrusted(f) || high { b } else { y };
+            // The variance only where the residual is positive (half the values of a flat stretch).
+            let high = flags::is_untrusted(f) || (r > 0 && above_clip(r, noise.var_q8(i64::from(b))));
+            if high {
+                continue;
+            }
+            let from_k = last_kept.map_or(0, |(k, _)| k + 1);
+            let start = last_kept.map_or(y, |(_, v)| v);
+            bridge(tmp.get_mut(from_k..i).unwrap_or(&mut []), start, y);
+            if let Some(t) = tmp.get_mut(i) {
+                *t = y;
+            }
+            last_kept = Some((i, y));
+        }
+        match last_kept {
+            Some((k, v)) => tmp.get_mut(k + 1..).unwrap_or(&mut []).fill(v),
+            // Nothing kept: the baseline as it is.
+            None => {
+                for (t, &b) in tmp.iter_mut().zip(base.iter()) {
+                    *t = b;
+                }
+            }
         }
         from(tmp, base);
         in_place(base);
+    }
+}
+
+/// Fills `gap` with the straight line from `a` (the value before it) to `b` (the value after it).
+/// Loop bound: `gap.len()`.
+fn bridge(gap: &mut [i32], a: i32, b: i32) {
+    let span = gap.len() as i64 + 1;
+    let d = i64::from(b) - i64::from(a);
+    for (t, v) in gap.iter_mut().enumerate() {
+        *v = (i64::from(a) + (d * (t as i64 + 1)).div_euclid(span)) as i32;
     }
 }
 
@@ -177,25 +336,19 @@ mod tests {
                 shot_var_per_unit_q16: kappa,
                 shot_from_data: false,
             };
-            for warm in [false, true] {
-                let (mut b1, mut t1) = (vec![0i32; n], vec![0i32; n]);
-                let (mut b2, mut t2) = (vec![0i32; n], vec![0i32; n]);
-                if warm {
-                    b1.fill(3500);
-                    b2.fill(3500);
-                }
-                let narrow = |src: &[i32], dst: &mut [i32]| box_narrow(20, src, dst);
-                rounds(&frame, &fl, &nm, warm, &mut b1, &mut t1, narrow, |b| {
-                    box_narrow_in_place(20, b)
-                });
-                let wide = |src: &[i32], dst: &mut [i32]| {
-                    box_symmetric(20, |j| i64::from(src.get(j).copied().unwrap_or(0)), dst)
-                };
-                rounds(&frame, &fl, &nm, warm, &mut b2, &mut t2, wide, |b| {
-                    box_symmetric_in_place(20, b)
-                });
-                assert_eq!(b1, b2, "sd {sd} warm {warm}");
-            }
+            let (mut b1, mut t1) = (vec![0i32; n], vec![0i32; n]);
+            let (mut b2, mut t2) = (vec![0i32; n], vec![0i32; n]);
+            let narrow = |src: &[i32], dst: &mut [i32]| box_narrow(20, src, dst);
+            rounds(&frame, &fl, &nm, &mut b1, &mut t1, narrow, |b| {
+                box_narrow_in_place(20, b)
+            });
+            let wide = |src: &[i32], dst: &mut [i32]| {
+                box_symmetric(20, |j| i64::from(src.get(j).copied().unwrap_or(0)), dst)
+            };
+            rounds(&frame, &fl, &nm, &mut b2, &mut t2, wide, |b| {
+                box_symmetric_in_place(20, b)
+            });
+            assert_eq!(b1, b2, "sd {sd}");
         }
     }
 
@@ -213,7 +366,7 @@ mod tests {
         let fl = vec![0u8; n];
         let mut base = vec![0i32; n];
         let mut tmp = vec![0i32; n];
-        estimate_baseline(&frame, &fl, &model(10), 24, false, &mut base, &mut tmp);
+        estimate_baseline(&frame, &fl, &model(10), 24, &mut base, &mut tmp);
         for i in [100usize, 240, 256, 270, 400] {
             let truth = 5000 + 4 * i as i32;
             let err = base[i] - truth;
@@ -231,11 +384,13 @@ mod tests {
         let fl = vec![0u8; n];
         let mut base = vec![0i32; n];
         let mut tmp = vec![0i32; n];
-        estimate_baseline(&frame, &fl, &model(100), 24, false, &mut base, &mut tmp);
+        estimate_baseline(&frame, &fl, &model(100), 24, &mut base, &mut tmp);
         for i in (0..n).step_by(37) {
             let err = base[i] - frame[i];
-            // Curvature bias of the triangle (variance 400 px²): 20000/300² · 400 / 2 ≈ 44 at the top.
-            assert!(err.abs() <= 50, "px {i}: off by {err}");
+            // Curvature bias of the smoothing: block mean (21 px²) + triangle of 3-block boxes
+            // (2 × 171 px²) ≈ 383 px², 20000/300² · 383 / 2 ≈ 43 at the top, plus up to
+            // 20000/300² · 8² / 2 ≈ 7 from the straight lines between block centres.
+            assert!(err.abs() <= 55, "px {i}: off by {err}");
         }
     }
 }

@@ -51,6 +51,15 @@ fn above(v: i64, k_q8: u16, noise: &NoiseModel, level: i64) -> bool {
     }
 }
 
+/// Largest `v` that [`above`] refuses at every level: `isqrt(k² · 19 · var_min / 2^24)`.
+fn least_above(k_q8: u16, noise: &NoiseModel) -> i64 {
+    let var_min = noise.floor_var_q8.max(1);
+    let k = i128::from(k_q8);
+    let lim = (k * k * KERNEL_SQ_SUM).saturating_mul(i128::from(var_min)) >> 24;
+    let lim = u128::try_from(lim).unwrap_or(0);
+    i64::try_from(super::math::isqrt_u128(lim)).unwrap_or(i64::MAX)
+}
+
 /// Collects candidates into `out`, strongest kept when more than [`MAX_CANDIDATES`] qualify; returns
 /// whether any were dropped for lack of room.
 ///
@@ -69,6 +78,9 @@ pub fn find_candidates(
 ) -> bool {
     let n = smooth.len();
     let at = |j: usize| i64::from(smooth.get(j).copied().unwrap_or(i32::MIN));
+    // No level has less variance than the floor: maxima at or below this cannot pass the threshold,
+    // and most maxima of a noise stretch are turned away here without a variance.
+    let v_min = least_above(cfg.threshold_sigma_q8, noise);
     let mut dropped = false;
     let mut i = 0usize;
     while i < n {
@@ -82,7 +94,7 @@ pub fn find_candidates(
         let right = if end + 1 < n { at(end + 1) } else { i64::MIN };
         let pos = i + (end - i) / 2;
         let level = i64::from(base.get(pos).copied().unwrap_or(0));
-        if v > left && v > right && above(v, cfg.threshold_sigma_q8, noise, level) {
+        if v > v_min && v > left && v > right && above(v, cfg.threshold_sigma_q8, noise, level) {
             let floor_l = valley(smooth, i, v, reach, false);
             let floor_r = valley(smooth, end, v, reach, true);
             let prominence = v - floor_l.max(floor_r);

@@ -34,6 +34,11 @@ impl LineMask {
         }
     }
 
+    /// The mask bits of pixels `64·w … 64·w + 63` (bit k = pixel 64·w + k); 0 past the limit.
+    pub fn word(&self, w: usize) -> u64 {
+        self.bits.get(w).copied().unwrap_or(0)
+    }
+
     /// Whether pixel `i` is masked; pixels past the limit are not.
     pub fn is_set(&self, i: usize) -> bool {
         self.bits

@@ -138,7 +138,7 @@ pub fn find_peaks(
     // Two looks: the first finds the lines, the second re-estimates the noise away from them (dense
     // strong lines inflate every block's second differences) and detects again with the better model.
     for look in 0..2 {
-        baseline::estimate_baseline(frame, flag, &nm, 2 * fwhm_max_px, look == 1, base, tmp);
+        baseline::estimate_baseline(frame, flag, &nm, 2 * fwhm_max_px, base, tmp);
         detect::smooth_residual(frame, base, tmp);
         cands.clear();
         truncated = detect::find_candidates(tmp, base, &nm, cfg, 4 * fwhm_max_px, &mut cands);
