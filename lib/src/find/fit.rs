@@ -1,29 +1,36 @@
-//! Sub-pixel centre of one line: a weighted least-squares Gaussian fit in fixed point.
+//! Sub-pixel centre of one line: a noise-weighted least-squares Gaussian fit in 32-bit fixed point.
 //!
-//! Model `m(x) = A·exp(−(x−μ)²/2s²) + c` over a window of ±(2.5 s + 1) px. Each Gauss–Newton step
-//! weights pixels by the inverse of the modelled variance at baseline + line (read floor plus shot
-//! noise), which makes the fit the maximum-likelihood estimate for Gaussian noise and brings the centre
-//! scatter to the Cramér–Rao bound. The centre uncertainty comes from the inverse of the same normal
-//! matrix (the Fisher information of the noise model). Saturated and repaired pixels get no weight.
+//! Model `m(x) = A·exp(−(x−μ)²/2s²) + c` over a window of ±(2.5 s + 2) px. Each Gauss–Newton step
+//! whitens every pixel — its residual and Jacobian row multiplied by `τ = σ_min/σ_i`, σ_i from the noise
+//! model at baseline + line (read floor plus shot noise) — which makes the fit the maximum-likelihood
+//! estimate for Gaussian noise and brings the centre scatter to the Cramér–Rao bound. Whitening also
+//! keeps the arithmetic small: the whitened Jacobian has |J| ≤ 1 whatever the range of the weights
+//! (shot noise makes the core's 10⁻⁴ of the wings'), so every normal-matrix product is one 32-bit
+//! multiply and no parameter loses its digits to another. The centre uncertainty comes from the same
+//! normal matrix: the centre is eliminated last, so its final pivot is 1 / [M⁻¹]μμ. Saturated and
+//! repaired pixels get no weight.
 //!
-//! Parameters are updated in relative form (ΔA/A, Δμ/s, Δs/s, Δc/A). The normal sums are kept unrounded
-//! (Q60) and each parameter is rescaled by a power of two before the 4×4 Cramer solve in `i128`
-//! (`Scaled`), so the solve keeps ≥ 24 significant bits per row even when shot noise makes the core
-//! weights 10⁴× smaller than the wing weights, and cannot overflow (scaled entries < 2^26).
+//! Parameters are updated in relative form (ΔA/A, Δμ/s, Δs/s, Δc/A). Values are taken in *reduced
+//! units*, the frame units shifted right until the window's largest residual is below 2^16 (a shift
+//! of 0 for all but the strongest lines of ADC frames; the noise there is far above the step).
 
-use super::math::{
-    clamp_i32, clamp_i64, div_round_i128, exp_neg_q16, isqrt_u128, mul_i32_i64, mul_i32_wide,
-    mul_u32_wide, ONE_Q30,
-};
+use super::math::mul_i32_wide;
 use super::noise::NoiseModel;
 use crate::condition::flags;
 
-/// Largest fit half-width (px); with FWHM ≤ 16 px, 2.5 s + 1 < 19 is capped here.
+/// Largest fit half-width (px); with FWHM ≤ 16 px, 2.5 s + 2 < 19 is capped here.
 pub const MAX_HALF: usize = 16;
 /// Gauss–Newton steps at most.
 pub const ITERATIONS: usize = 6;
 /// Fewest weighted pixels for a 4-parameter fit.
 const MIN_PIXELS: usize = 6;
+/// Centre movement (Q16 px) below which a step counts as settled.
+const SETTLED_Q16: i64 = 16;
+/// Window cells.
+const W: usize = 2 * MAX_HALF + 1;
+/// Steps that refresh the weights from the current model (later steps move the model by less than
+/// the weights' own 0.4 % table precision).
+const WEIGHT_STEPS: u8 = 2;
 
 /// Result of one fit.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -61,64 +68,172 @@ pub struct FitData<'a> {
     pub neighbours: [Option<Fit>; 2],
 }
 
-impl FitData<'_> {
-    fn resid(&self, i: usize) -> i64 {
-        let y = self.frame.get(i).copied().unwrap_or(0);
-        let b = self.base.get(i).copied().unwrap_or(0);
-        let mut r = i64::from(y) - i64::from(b);
-        for f in self.neighbours.iter().flatten() {
-            r = r.saturating_sub(profile(f, i));
+/// Marks a pixel of the [`Window`] that gets no weight (saturated or repaired).
+const UNUSABLE: i32 = i32::MIN;
+
+/// 2^(−i/64) in Q15 for i = 0 … 64 (Python `decimal`, 50 digits, rounded to nearest).
+const EXP2_Q15: [u16; 65] = [
+    32768, 32415, 32066, 31720, 31379, 31041, 30706, 30376, 30048, 29725, 29405, 29088, 28774, 28464,
+    28158, 27855, 27554, 27258, 26964, 26674, 26386, 26102, 25821, 25543, 25268, 24995, 24726, 24460,
+    24196, 23936, 23678, 23423, 23170, 22921, 22674, 22430, 22188, 21949, 21713, 21479, 21247, 21019,
+    20792, 20568, 20347, 20127, 19911, 19696, 19484, 19274, 19066, 18861, 18658, 18457, 18258, 18061,
+    17867, 17674, 17484, 17296, 17109, 16925, 16743, 16562, 16384,
+];
+/// log2(e) in Q14.
+const LOG2E_Q14: i32 = 23_637;
+
+/// e^(−x) in Q14 for `x` ≥ 0 in Q12 (negative x is taken as 0; beyond 11, where e^(−x) < 2^-15, 0),
+/// through 2^(−y): a 64-step table of 2^(−f) with straight-line interpolation, relative error
+/// ≲ 10⁻⁴ (y's last bit, the curvature term (ln 2 / 64)² / 8 and the rounding) — far below the noise
+/// of any line this fits, and the same on both sides of a line, so it moves no centre. Multiplies and
+/// shifts only.
+#[inline]
+pub fn exp_neg_q14(x_q12: i32) -> i32 {
+    if x_q12 >= 11 << 12 {
+        return 0;
+    }
+    let x = x_q12.max(0);
+    // x < 2^15.5 and LOG2E_Q14 < 2^14.6: the product stays below 2^31.
+    let y = (x * LOG2E_Q14) >> 12; // Q14
+    let k = y >> 14;
+    let f = (y & 16383) as usize;
+    let (i, rem) = (f >> 8, (f & 255) as i32);
+    let t0 = i32::from(EXP2_Q15.get(i).copied().unwrap_or(0));
+    let t1 = i32::from(EXP2_Q15.get(i + 1).copied().unwrap_or(0));
+    let v = t0 - (((t0 - t1) * rem + 128) >> 8);
+    ((v + (1 << k)) >> (k + 1)).max(0)
+}
+
+/// `1/sqrt(v)` as a mantissa and power of two: `round(2^15·sqrt(64/(t + ½)))` for the top byte `t`
+/// ∈ [64, 256) of `v` normalised by an even shift (relative error ≤ 0.4 %: enough for weights, whose
+/// error only costs a little efficiency, never a bias). Built at compile time from integers.
+const RSQRT_Q15: [u16; 192] = rsqrt_table();
+
+const fn rsqrt_table() -> [u16; 192] {
+    let mut t = [0u16; 192];
+    let mut i = 0;
+    while i < 192 {
+        // 2^30 · 64 / (i + 64 + ½) = 2^31 · 64 / (2i + 129).
+        let v = (1u128 << 37) / (2 * i as u128 + 129);
+        let r = crate::fixed::isqrt_u128(v);
+        t[i] = if r > u16::MAX as u128 {
+            u16::MAX
+        } else {
+            r as u16
+        };
+        i += 1;
+    }
+    t
+}
+
+/// `1/sqrt(v)` ≈ `m · 2^h / 2^47` with `m` in (2^14, 2^15·1.01] (v ≥ 1): `(m, h)`.
+#[inline]
+fn rsqrt_parts(v: u64) -> (i32, u32) {
+    let v = v.max(1);
+    let lz = v.leading_zeros() & !1;
+    let top = ((v << lz) >> 56) as usize; // in [64, 256)
+    let m = i32::from(RSQRT_Q15.get(top.saturating_sub(64)).copied().unwrap_or(1 << 14));
+    (m, lz / 2)
+}
+
+/// A fitted neighbour's profile, ready for evaluation at many pixels (1/s taken once).
+#[derive(Clone, Copy)]
+struct Shape {
+    mu_q16: i64,
+    s_q16: i64,
+    /// 1/s in Q14 (s ≥ 2^12, so < 2^18).
+    inv_s_q14: i32,
+    height_q8: i64,
+}
+
+impl Shape {
+    fn new(f: &Fit) -> Self {
+        let s = f.sigma_q16.max(1 << 12);
+        Self {
+            mu_q16: f.center_q16,
+            s_q16: s,
+            inv_s_q14: i32::try_from((1i64 << 30) / s).unwrap_or(i32::MAX),
+            height_q8: f.height_q8,
         }
-        r
     }
 
-    fn base_at(&self, i: usize) -> i64 {
-        i64::from(self.base.get(i).copied().unwrap_or(0))
-    }
-
-    fn usable(&self, i: usize) -> bool {
-        self.flag.get(i).is_some_and(|&f| !flags::is_untrusted(f))
+    /// Height at pixel `i` (frame units); 0 beyond 8 σ.
+    fn at(&self, i: usize) -> i64 {
+        let dx = ((i as i64) << 16) - self.mu_q16;
+        if dx.abs() > 8 * self.s_q16 {
+            return 0;
+        }
+        let g = exp_neg_q14(half_square_q12(u_q14(dx, self.inv_s_q14)));
+        // |height| < 2^47 for any frame of i32 values; g ≤ 2^14.
+        (self.height_q8.clamp(-(1 << 47), 1 << 47) * i64::from(g)) >> 22
     }
 }
 
-/// Marks a pixel of the [`Window`] that gets no weight (saturated or repaired).
-const UNUSABLE: i64 = i64::MIN;
+/// (x − μ)/s in Q14 from `dx` (Q16 px, |dx| ≤ 8 s) and 1/s (Q14), clamped to ±8 (just inside ±2^17).
+///
+/// The centre keeps its full Q16 resolution: `dx` is split into 256ths so each 32-bit product stays
+/// below 2^26 (|dx| ≤ 8 s gives |dx / 2^8 · 1/s| ≤ 2^25).
+#[inline]
+fn u_q14(dx_q16: i64, inv_s_q14: i32) -> i32 {
+    let dx = dx_q16.clamp(-(1 << 30), 1 << 30) as i32;
+    let (dh, dl) = (dx >> 8, dx & 255);
+    let hi = i64::from(dh) * i64::from(inv_s_q14);
+    let lo = (dl * inv_s_q14) >> 8;
+    ((hi + i64::from(lo)) >> 8).clamp(-(1 << 17) + 1, (1 << 17) - 1) as i32
+}
+
+/// u²/2 in Q12 for u in Q14 (|u| < 2^17): (|u|/2)² < 2^32 fits `u32`.
+#[inline]
+fn half_square_q12(u: i32) -> i32 {
+    let h = u.unsigned_abs() >> 1;
+    ((h * h) >> 15) as i32
+}
 
 /// The fit window's data, gathered once per fit: the residual after baseline and neighbour profiles
-/// (those are fixed during the fit, and each costs an exponential per pixel) and the baseline.
+/// (those are fixed during the fit) and the baseline.
 struct Window {
     lo: usize,
     len: usize,
-    /// Smallest modelled variance at the baseline over the window (Q8, ≥ 1).
-    vref: i64,
-    resid: [i64; 2 * MAX_HALF + 1],
-    base: [i64; 2 * MAX_HALF + 1],
+    resid: [i32; W],
+    base: [i32; W],
+    /// Residuals of every pixel, the unusable ones too (they still give a start height: a saturated
+    /// core is a lower bound of the line's).
+    raw: [i32; W],
 }
 
 impl Window {
-    /// Loop bound: ≤ 2 × [`MAX_HALF`] + 1 pixels.
+    /// Loop bound: ≤ [`W`] pixels, each taking ≤ 2 neighbour profiles out.
     fn new(d: &FitData<'_>, lo: usize, hi: usize) -> Self {
         let mut w = Window {
             lo,
             len: 0,
-            vref: i64::MAX,
-            resid: [UNUSABLE; 2 * MAX_HALF + 1],
-            base: [0; 2 * MAX_HALF + 1],
+            resid: [UNUSABLE; W],
+            base: [0; W],
+            raw: [0; W],
         };
-        for (k, i) in (lo..=hi).enumerate().take(2 * MAX_HALF + 1) {
-            if let (Some(r), Some(b)) = (w.resid.get_mut(k), w.base.get_mut(k)) {
-                *r = if d.usable(i) {
-                    d.resid(i).max(UNUSABLE + 1)
-                } else {
-                    UNUSABLE
-                };
-                *b = d.base_at(i);
-                w.vref = w.vref.min(d.noise.var_q8(*b));
+        let shapes = d.neighbours.map(|n| n.map(|f| Shape::new(&f)));
+        for (k, i) in (lo..=hi).enumerate().take(W) {
+            let y = i64::from(d.frame.get(i).copied().unwrap_or(0));
+            let b = d.base.get(i).copied().unwrap_or(0);
+            let usable = d.flag.get(i).is_some_and(|&f| !flags::is_untrusted(f));
+            if let (Some(r), Some(bb), Some(raw)) =
+                (w.resid.get_mut(k), w.base.get_mut(k), w.raw.get_mut(k))
+            {
+                let mut v = y - i64::from(b);
+                for s in shapes.iter().flatten() {
+                    v = v.saturating_sub(s.at(i));
+                }
+                *raw = v.clamp(i64::from(i32::MIN) + 1, i64::from(i32::MAX)) as i32;
+                *r = if usable { *raw } else { UNUSABLE };
+                *bb = b;
             }
             w.len = k + 1;
         }
-        w.vref = if w.len == 0 { 1 } else { w.vref.max(1) };
         w
+    }
+
+    fn resid_at(&self, k: usize) -> Option<i32> {
+        self.resid.get(k).copied().filter(|&r| r != UNUSABLE)
     }
 }
 
@@ -130,14 +245,29 @@ struct Params {
     c_q8: i64,
 }
 
-type Mat = [[i128; 4]; 4];
+/// Per-pixel whitening factors τ (Q12, ≤ 4096) of one weight pass and the noise scale they imply.
+struct Weights {
+    tau: [i32; W],
+    /// Variance (Q8, frame units) and τ of the pixel with the largest τ: σ_ε of the whitened
+    /// residual is `sqrt(var_ref / 256) · τ_ref / 2^reduce` in reduced units × Q12.
+    var_ref_q8: i64,
+    tau_ref: i32,
+}
+
+/// Normal equations of one step: `n` = Σ J_w J_wᵀ (parameter order A, μ, s, c; < 2^30 each),
+/// `b` = Σ J_w ε.
+struct Normal {
+    n: [[i32; 4]; 4],
+    b: [i64; 4],
+    used: usize,
+}
 
 /// Fits the line whose highest smoothed pixel is `peak`, starting from σ `s0_q16`; σ is kept within
 /// `s_min_q16 … s_max_q16`.
 ///
-/// Loop bounds: ≤ min(`max_steps`, [`ITERATIONS`]) + 2 passes (Gauss–Newton steps, the covariance
-/// pass, the weight-reference pass) over ≤ 2 × [`MAX_HALF`] + 1 pixels, plus one gathering pass taking
-/// ≤ 2 neighbour profiles out of each pixel.
+/// Loop bounds: one gathering pass over ≤ 2 × [`MAX_HALF`] + 1 pixels (taking ≤ 2 neighbour profiles
+/// out of each), then ≤ min(`max_steps`, [`ITERATIONS`]) Gauss–Newton steps, each one pass over the
+/// window (the first [`WEIGHT_STEPS`] with a weight pass) and a 4 × 4 elimination.
 pub fn fit_line(
     d: &FitData<'_>,
     peak: usize,
@@ -147,55 +277,69 @@ pub fn fit_line(
     max_steps: usize,
 ) -> Fit {
     let n = d.frame.len();
-    let r0 = d.resid(peak);
-    let rl = peak.checked_sub(1).map_or(r0, |j| d.resid(j));
-    let rr = if peak.saturating_add(1) < n {
-        d.resid(peak + 1)
-    } else {
-        r0
-    };
-    // Parabola through three pixels: δ = (rl − rr) / (2 (rl − 2 r0 + rr)), within ±0.5 px.
-    let den = rl - 2 * r0 + rr;
-    let delta_q16 = if den < 0 {
-        ((i128::from(rl) - i128::from(rr)) << 16)
-            .checked_div(2 * i128::from(den))
-            .unwrap_or(0)
-            .clamp(-(1 << 15), 1 << 15) as i64
-    } else {
-        0
-    };
     // max/min, not clamp: clamp panics on crossed bounds, and these come from the caller.
     let s_max_q16 = s_max_q16.max(s_min_q16);
     let s0 = s0_q16.max(s_min_q16).min(s_max_q16).max(1 << 14);
     let half = ((5 * s0) >> 17).saturating_add(2).clamp(2, MAX_HALF as i64) as usize;
     let lo = peak.saturating_sub(half);
     let hi = peak.saturating_add(half).min(n.saturating_sub(1));
+    let win = Window::new(d, lo, hi);
+    let at = |i: usize| {
+        i.checked_sub(lo)
+            .filter(|&k| k < win.len)
+            .and_then(|k| win.raw.get(k).copied())
+    };
+    let r0 = i64::from(at(peak).unwrap_or(0));
+    let rl = peak.checked_sub(1).and_then(at).map_or(r0, i64::from);
+    let rr = at(peak + 1).map_or(r0, i64::from);
+    // Parabola through three pixels: δ = (rl − rr) / (2 (rl − 2 r0 + rr)), within ±0.5 px.
+    let den = rl - 2 * r0 + rr;
+    let delta_q16 = if den < 0 {
+        ((rl - rr) << 16)
+            .checked_div(2 * den)
+            .unwrap_or(0)
+            .clamp(-(1 << 15), 1 << 15)
+    } else {
+        0
+    };
     let start = Params {
         a_q8: (r0 << 8).max(256),
         mu_q16: ((peak as i64) << 16) + delta_q16,
         s_q16: s0,
         c_q8: 0,
     };
-    let win = Window::new(d, lo, hi);
-    // Weights are relative to the smallest variance in the window so none exceeds 1.
-    let vref = win.vref;
+    // Reduced units: the largest residual (or the start height) below 2^16.
+    let big = (0..win.len)
+        .filter_map(|k| win.resid_at(k))
+        .map(|r| r.unsigned_abs())
+        .max()
+        .unwrap_or(0)
+        .max(u32::try_from(r0.unsigned_abs()).unwrap_or(u32::MAX));
+    let reduce = (32 - big.leading_zeros()).saturating_sub(16);
     let mut p = start;
     let mut converged = false;
     let mut steps = 0u8;
-    // The normal matrix of the last step and the parameters it was taken at: its inverse gives the
-    // centre's σ (a settled fit moved < 2^-14 px since, and a pass per fit is saved).
-    let mut last: Option<(Mat, Params)> = None;
+    let mut weights: Option<Weights> = None;
+    // The last step's centre pivot (and its scale) and the weights it used: the centre's σ.
+    let mut last: Option<(Solved, i64)> = None;
     for _ in 0..max_steps.min(ITERATIONS) {
         steps += 1;
-        let Some((m, b)) = normal(&win, d.noise, &p, vref) else {
+        if steps <= WEIGHT_STEPS || weights.is_none() {
+            weights = Some(weigh(&win, d.noise, &p, reduce));
+        }
+        let Some(wt) = weights.as_ref() else {
             break;
         };
-        last = Some((m, p));
-        let Some(scaled) = Scaled::new(&m) else {
+        let nm = normal(&win, wt, &p, reduce);
+        if nm.used < MIN_PIXELS {
+            break;
+        }
+        let a_red = reduced(p.a_q8, reduce).max(1);
+        let Some(sol) = solve(&nm, a_red) else {
             break;
         };
-        let step = scaled.solve(&b);
-        let [da, dmu, ds, dc] = step;
+        let [da, dmu, ds, dc] = sol.x;
+        last = Some((sol, wt.var_ref_q8.saturating_mul(i64::from(wt.tau_ref))));
         let da = da.clamp(-(1 << 15), 1 << 15);
         let dmu = dmu.clamp(-(1 << 15), 1 << 15);
         let ds = ds.clamp(-(1 << 14) - (1 << 12), 1 << 14);
@@ -213,20 +357,21 @@ pub fn fit_line(
             last = None;
             break;
         }
-        // Settled: centre moved < 2^-14 px, height and σ by < 2^-12 relative.
-        let settled = (p.mu_q16 - before.mu_q16).abs() <= 4
-            && ((p.a_q8 - before.a_q8).abs() << 12) <= before.a_q8
-            && ((p.s_q16 - before.s_q16).abs() << 12) <= before.s_q16;
+        // Settled: centre moved ≤ 2^-12 px, height and σ by ≤ 2^-10 relative — the band the 32-bit
+        // model's own rounding leaves a noiseless fit bouncing in (≤ 1/4 of the Cramér–Rao σ of a
+        // 1000-σ line).
+        let settled = (p.mu_q16 - before.mu_q16).abs() <= SETTLED_Q16
+            && ((p.a_q8 - before.a_q8).abs() << 10) <= before.a_q8
+            && ((p.s_q16 - before.s_q16).abs() << 10) <= before.s_q16;
         if settled {
             converged = true;
             break;
         }
     }
-    let center_sigma_q16 = match last {
-        Some((m, q)) => center_sigma(&m, &q, vref),
-        None => normal(&win, d.noise, &p, vref).and_then(|(m, _)| center_sigma(&m, &p, vref)),
-    }
-    .unwrap_or(p.s_q16);
+    let center_sigma_q16 = last
+        .as_ref()
+        .and_then(|(sol, _)| center_sigma(sol, weights.as_ref()?, &p))
+        .unwrap_or(p.s_q16);
     Fit {
         center_q16: p.mu_q16,
         center_sigma_q16,
@@ -239,364 +384,247 @@ pub fn fit_line(
     }
 }
 
-/// Normal matrix `Σ w J Jᵀ` (Q60) and gradient `Σ w J e` (Q54), with weights `vref / var`, unrounded.
+/// `v_q8` (frame units, Q8) in reduced units, clamped to ±2^16.
+fn reduced(v_q8: i64, reduce: u32) -> i32 {
+    (v_q8 >> (8 + reduce).min(63)).clamp(-(1 << 16), 1 << 16) as i32
+}
+
+/// The line (without offset) in reduced units at the window's pixels, with its Jacobian, for `p`.
+struct Model {
+    inv_s_q14: i32,
+    a_red: i32,
+    c_red: i32,
+}
+
+impl Model {
+    fn new(p: &Params, reduce: u32) -> Self {
+        Self {
+            inv_s_q14: i32::try_from((1i64 << 30) / p.s_q16.max(1 << 12)).unwrap_or(i32::MAX),
+            a_red: reduced(p.a_q8, reduce).max(1),
+            c_red: reduced(p.c_q8, reduce),
+        }
+    }
+
+    /// `(g, g·u, g·u²)` in Q14 at pixel `i`.
+    #[inline]
+    fn shape(&self, p: &Params, i: usize) -> (i32, i32, i32) {
+        let dx = ((i as i64) << 16) - p.mu_q16;
+        let u = u_q14(dx, self.inv_s_q14);
+        let g = exp_neg_q14(half_square_q12(u));
+        // |g·u| ≤ 2^14 · (2^17 − 1) < 2^31; |g·u| peaks at 0.61 (Q14 < 10^4), so |gu·u| < 2^31 too.
+        let gu = (g * u) >> 14;
+        let guu = (gu * u) >> 14;
+        (g, gu, guu)
+    }
+}
+
+/// Whitening factors from the noise model at baseline + current line: τ ∝ 1/σ, the largest 4096-ish.
 ///
-/// Weights and Jacobian are Q30 and the residual Q24 relative to the height; the sums stay at full
-/// precision in `i128` and are only rescaled per parameter in [`Scaled`]. Rounding them to one common
-/// Q-format instead loses the centre: where shot noise dominates, the core weights are ~1e-4 of the wing
-/// weights, so the centre's rows shrink to a few hundred Q16 steps while the background's stay O(1), and a
-/// gradient rounded to whole steps stops Gauss–Newton short by about one Cramér–Rao σ at SNR 1000.
-/// Magnitudes: w·J·J ≤ 2^60 per pixel, |w·J·e| ≤ 2^70 (e clamped to 2^16 relative), ≤ 33 pixels.
-fn normal(win: &Window, noise: &NoiseModel, p: &Params, vref: i64) -> Option<(Mat, [i128; 4])> {
-    let mut m: Mat = [[0; 4]; 4];
-    let mut b = [0i128; 4];
-    let mut used = 0usize;
-    let s = p.s_q16.max(1);
-    let a = p.a_q8.max(1);
-    // The line's own products stay in i64 (a library call each on the M0, where an i128 product is
-    // several); only the sums over the window are i128. Bounds (Q30 units): 0 < g ≤ 2^30; |g·u| and
-    // |g·u²| peak at 0.61 and 0.74 × 2^30; w ≤ 2^30 (vref ≤ var); so every w·J and w·J·J < 2^60.
-    let a64 = i128::from(a);
-    // Per-pixel divisions become multiplies by reciprocals taken once per pass (the M0 divides in
-    // software, ~100 instructions each): 1/s in Q24 (s ≥ 2^13 from the FWHM floor of 1 px, so
-    // < 2^27), and 1/a as a 32-bit mantissa `inv_a / 2^(31 + bits(a))`. Relative error < 2^-26.
-    let inv_s_q24 = i32::try_from((1i64 << 40).checked_div(s).unwrap_or(0)).ok();
-    let a_bits = 64 - a.unsigned_abs().leading_zeros();
-    let a_top = a.unsigned_abs() >> a_bits.saturating_sub(31);
-    let top_bits = 64 - a_top.leading_zeros();
-    let inv_a =
-        ((1u64 << (31 + top_bits)).checked_div(a_top).unwrap_or(0)).min(u64::from(u32::MAX)) as u32;
-    for (k, (&resid, &base)) in win.resid.iter().zip(&win.base).take(win.len).enumerate() {
-        if resid == UNUSABLE {
+/// Loop bound: 2 passes over the window.
+fn weigh(win: &Window, noise: &NoiseModel, p: &Params, reduce: u32) -> Weights {
+    let model = Model::new(p, reduce);
+    let mut parts = [(0i32, 0u32); W];
+    let mut vars = [0i64; W];
+    let mut top = 0u32;
+    for (k, ((part, var), &base)) in parts
+        .iter_mut()
+        .zip(vars.iter_mut())
+        .zip(win.base.iter())
+        .enumerate()
+        .take(win.len)
+    {
+        if win.resid_at(k).is_none() {
             continue;
         }
-        let i = win.lo + k;
-        let dx = ((i as i64) << 16) - p.mu_q16;
-        let u = match (inv_s_q24, i32::try_from(dx)) {
-            (Some(inv), Ok(dx)) => mul_i32_wide(dx, inv) >> 24,
-            _ => (dx << 16).checked_div(s).unwrap_or(0),
-        };
-        let u32w = clamp_i32(u);
-        let g30 = exp_neg_q16(mul_i32_wide(u32w, u32w) >> 17);
-        let line_q8 = match i32::try_from(a) {
-            Ok(a32) => i128::from(mul_i32_wide(a32, clamp_i32(g30)) >> 30),
-            Err(_) => (a64 * i128::from(g30)) >> 30,
-        };
-        // |u| < 2^24 (≤ 33 px at σ ≥ 1/5 px, Q16), so g·u < 2^54 and (g·u >> 16)·u < 2^62.
-        let gu = round_shift_i64(mul_i32_wide(clamp_i32(g30), u32w), 16);
-        let guu = round_shift_i64(mul_i32_wide(clamp_i32(gu), u32w), 16);
-        let model_q8 = line_q8 + i128::from(p.c_q8);
-        let level = base + (line_q8 >> 8) as i64;
-        let var = noise.var_q8(level).max(1);
-        let w = weight_q30(vref, var);
-        let e = (i128::from(resid) << 8) - model_q8;
-        let e_rel = match i32::try_from(e) {
-            // e / a · 2^24 = e · inv_a / 2^(7 + bits(a)); |e| < 2^31 and inv_a < 2^32 keep it in 64 bits.
-            Ok(e32) => {
-                let q = (mul_u32_wide(e32.unsigned_abs(), inv_a) >> (7 + a_bits).min(63)) as i64;
-                if e32 < 0 {
-                    -q
-                } else {
-                    q
-                }
+        let (g, _, _) = model.shape(p, win.lo + k);
+        // The line in frame units: reduced units × 2^reduce (reduce ≤ 16, so < 2^46).
+        let line = (i64::from(model.a_red * g) << reduce.min(16)) >> 14;
+        *var = noise.var_q8(i64::from(base).saturating_add(line.max(0)));
+        *part = rsqrt_parts(var.unsigned_abs());
+        top = top.max(part.1);
+    }
+    let mut w = Weights {
+        tau: [0; W],
+        var_ref_q8: 1,
+        tau_ref: 0,
+    };
+    for ((t, &(m, h)), &var) in w.tau.iter_mut().zip(parts.iter()).zip(vars.iter()) {
+        if m == 0 {
+            continue;
+        }
+        let drop = top - h;
+        *t = if drop >= 31 { 0 } else { (m >> drop) >> 3 };
+        if *t > w.tau_ref {
+            w.tau_ref = *t;
+            w.var_ref_q8 = var;
+        }
+    }
+    w
+}
+
+/// The whitened normal equations at `p`. Bounds: |J| ≤ 2^14 (Q14), τ ≤ 2^12, so |J_w| ≤ 2^12 and
+/// each product < 2^24 (sums over ≤ 33 px < 2^30); |ε| = |e·τ| < 2^17 · 2^12.
+///
+/// Loop bound: one pass over the window.
+fn normal(win: &Window, wt: &Weights, p: &Params, reduce: u32) -> Normal {
+    let model = Model::new(p, reduce);
+    let mut nm = Normal {
+        n: [[0; 4]; 4],
+        b: [0; 4],
+        used: 0,
+    };
+    for (k, (&r, &tau)) in win.resid.iter().zip(wt.tau.iter()).enumerate().take(win.len) {
+        if r == UNUSABLE || tau == 0 {
+            continue;
+        }
+        let (g, gu, guu) = model.shape(p, win.lo + k);
+        let r_red = (r >> reduce.min(31)).clamp(-(1 << 17), 1 << 17);
+        let m = ((model.a_red * g) >> 14) + model.c_red;
+        let e = (r_red - m).clamp(-(1 << 17), 1 << 17);
+        let eps = e * tau;
+        let j = [g, gu, guu, 1 << 14].map(|v| (v * tau) >> 14);
+        for (r_idx, (row, &jr)) in nm.n.iter_mut().zip(&j).enumerate() {
+            for (cell, &jc) in row.iter_mut().zip(&j).skip(r_idx) {
+                *cell += jr * jc;
             }
-            Err(_) => clamp_i64((e << 24).checked_div(a64).unwrap_or(0)),
         }
-        .clamp(-(1 << 40), 1 << 40);
-        // Every factor below is within ±2^31 (bounds above), so the 32 × 32 → 64-bit product serves.
-        let j = [g30, gu, guu, 1 << 30].map(clamp_i32);
-        let w32 = clamp_i32(w);
-        let wj = j.map(|jr| clamp_i32(round_shift_i64(mul_i32_wide(w32, jr), 30)));
-        // Upper triangle only; the lower one is mirrored after the loop.
-        for (r, (row, &wjr)) in m.iter_mut().zip(&wj).enumerate() {
-            for (cell, &jc) in row.iter_mut().zip(&j).skip(r) {
-                *cell += i128::from(mul_i32_wide(wjr, jc));
-            }
+        for (bv, &jr) in nm.b.iter_mut().zip(&j) {
+            *bv += mul_i32_wide(jr, eps);
         }
-        for (bv, &wjr) in b.iter_mut().zip(&wj) {
-            // |w·J| ≤ 2^30: a 32 × 32-bit product when |e_rel| < 2^31 (all but wild starts).
-            *bv += match i32::try_from(e_rel) {
-                Ok(e32) => i128::from(mul_i32_wide(wjr, e32)),
-                Err(_) => i128::from(wjr) * i128::from(e_rel),
-            };
-        }
-        used += 1;
+        nm.used += 1;
     }
     for r in 1..4 {
         for c in 0..r {
-            let upper = m.get(c).and_then(|row| row.get(r)).copied().unwrap_or(0);
-            if let Some(cell) = m.get_mut(r).and_then(|row| row.get_mut(c)) {
+            let upper = nm.n.get(c).and_then(|row| row.get(r)).copied().unwrap_or(0);
+            if let Some(cell) = nm.n.get_mut(r).and_then(|row| row.get_mut(c)) {
                 *cell = upper;
             }
         }
     }
-    (used >= MIN_PIXELS).then_some((m, b))
+    nm
 }
 
-/// Fit weight `vref / var` in Q30 (`0 < vref ≤ var`) from a 16-bit reciprocal of `var`'s mantissa: one
-/// 32-bit division, good to 2^-16 relative whatever `vref / var` is (shot noise makes the core's
-/// weights 10⁻⁴ of the wings', and those must keep their digits); wide operands divide in `i128`.
-fn weight_q30(vref: i64, var: i64) -> i64 {
-    let var = var.max(1);
-    if let (Ok(v), Ok(r)) = (u32::try_from(var), u32::try_from(vref.max(0))) {
-        // var = v16 · 2^sh with v16 in [2^15, 2^16); inv ≈ 2^32 / v16 in (2^16, 2^17].
-        let sh = 16 - v.leading_zeros() as i32;
-        let v16 = if sh >= 0 { v >> sh } else { v << -sh };
-        let inv = u32::MAX.checked_div(v16).unwrap_or(0);
-        // vref · inv = vref · 2^(32 + sh) / var, so shifting by sh + 2 leaves vref · 2^30 / var.
-        let p = mul_u32_wide(r, inv);
-        let w = if sh + 2 >= 0 {
-            p >> (sh + 2)
-        } else {
-            p << -(sh + 2)
-        };
-        return i64::try_from(w).unwrap_or(i64::MAX).min(1 << 30);
-    }
-    clamp_i64(
-        (i128::from(vref) << 30)
-            .checked_div(i128::from(var))
-            .unwrap_or(0),
-    )
+/// Order in which the parameters are eliminated (A, s, c, then μ): the centre last, so its final
+/// pivot is 1 / [M⁻¹]μμ of the scaled matrix.
+const ORDER: [usize; 4] = [0, 2, 3, 1];
+
+/// A solved step: `x` = relative parameter changes (Q16, order A, μ, s, c), and the centre's final
+/// pivot `mu_pivot` of the matrix scaled by 2^`mu_shift` on the centre's row and column.
+struct Solved {
+    x: [i64; 4],
+    mu_pivot: i64,
+    mu_shift: u32,
 }
 
-/// `v / 2^k` rounded to nearest, ties away from zero, so positive and negative terms err alike.
-#[inline(never)]
-fn round_shift(v: i128, k: u32) -> i128 {
-    if k == 0 {
-        return v;
-    }
-    if k > 126 {
-        return 0;
-    }
-    let half = 1i128 << (k - 1);
-    if v >= 0 {
-        (v.saturating_add(half)) >> k
-    } else {
-        -((v.saturating_neg().saturating_add(half)) >> k)
-    }
+fn bit_len(v: u64) -> u32 {
+    64 - v.leading_zeros()
 }
 
-/// [`round_shift`] for `i64` (the same integers).
-fn round_shift_i64(v: i64, k: u32) -> i64 {
-    if k == 0 {
-        return v;
+/// `a · b / 2^30`, `None` beyond `i64`.
+fn mul_shr30(a: i64, b: i64) -> Option<i64> {
+    if a.unsigned_abs() < 1 << 32 && b.unsigned_abs() < 1 << 31 {
+        return Some((a * b) >> 30);
     }
-    if k > 62 {
-        return 0;
-    }
-    let half = 1i64 << (k - 1);
-    if v >= 0 {
-        (v.saturating_add(half)) >> k
-    } else {
-        -((v.saturating_neg().saturating_add(half)) >> k)
-    }
+    i64::try_from((i128::from(a) * i128::from(b)) >> 30).ok()
 }
 
-/// Bits needed for |v|.
-fn bit_len(v: i128) -> u32 {
-    128 - v.unsigned_abs().leading_zeros()
-}
-
-/// Rounded `num · 2^sh / den` for `den > 0`, saturating near `±2^125`; 0 when `den ≤ 0`.
+/// Solves the step `N x = b / A` by Gaussian elimination on `S N S` (S = diag 2^d puts every diagonal
+/// in [2^27, 2^30), so no row loses its digits) with `b` normalised to [2^30, 2^31); `None` when `N`
+/// is not positive definite to the arithmetic's precision.
 ///
-/// The shift is split between the numerator (as far as it has headroom) and the denominator, so large
-/// determinants keep ≥ 60 significant bits instead of overflowing.
-fn scaled_div(num: i128, den: i128, sh: i32) -> i128 {
-    if den <= 0 {
-        return 0;
-    }
-    let room = 125i32.saturating_sub(bit_len(num) as i32).max(0);
-    let (up, down) = if sh >= 0 {
-        let up = sh.min(room);
-        (up, sh - up)
-    } else {
-        (0, sh)
+/// Loop bound: a fixed 4 × 4 elimination (6 divisions forward, 4 back, 4 by A).
+fn solve(nm: &Normal, a_red: i32) -> Option<Solved> {
+    let at = |r: usize, c: usize| {
+        i64::from(
+            nm.n.get(r)
+                .and_then(|row| row.get(c))
+                .copied()
+                .unwrap_or(0),
+        )
     };
-    let n = num << up.clamp(0, 125);
-    if down > 0 {
-        let d = den >> down.clamp(0, 127);
-        if d == 0 {
-            return if n >= 0 { 1 << 125 } else { -(1 << 125) };
-        }
-        return div_round_i128(n, d);
-    }
-    // down ≤ 0: multiply the denominator, or divide the numerator when the denominator has no room.
-    let k = down.unsigned_abs();
-    let droom = 125u32.saturating_sub(bit_len(den));
-    if k <= droom {
-        div_round_i128(n, den << k)
-    } else {
-        div_round_i128(round_shift(n, k - droom), den << droom)
-    }
-}
-
-/// Normal equations with each parameter rescaled by a power of two so every diagonal entry lies in
-/// [2^24, 2^26): `M' = D⁻¹ M D⁻¹` with `D = diag(2^k)`. Exact and deterministic (shifts only), and it
-/// keeps ≥ 24 significant bits in every row whatever the weights, while 4×4 Cramer products stay below
-/// 2^110 (Hadamard: |det| ≤ Π diagonal).
-struct Scaled {
-    shift: [u32; 4],
-    det: i128,
-    /// Cofactors `C[i][k] = (−1)^(i+k) det(minor(i, k))` of the scaled matrix, computed once: the
-    /// determinant, every Cramer numerator `Σ_i b_i C[i][k]` and `[M⁻¹]μμ` are exact integer sums of
-    /// them (the same integers as expanding each determinant afresh, at a quarter of the products).
-    cof: Mat,
-}
-
-impl Scaled {
-    /// `None` when `m` (Q60) is not positive definite.
-    fn new(m: &Mat) -> Option<Self> {
-        let mut shift = [0u32; 4];
-        for (k, (sh, row)) in shift.iter_mut().zip(m.iter()).enumerate() {
-            let diag = row.get(k).copied().unwrap_or(0);
-            if diag <= 0 {
-                return None;
-            }
-            *sh = bit_len(diag).saturating_sub(25) / 2;
-        }
-        let mut out: Mat = [[0; 4]; 4];
-        for ((orow, row), &si) in out.iter_mut().zip(m.iter()).zip(&shift) {
-            for ((o, &v), &sj) in orow.iter_mut().zip(row.iter()).zip(&shift) {
-                *o = round_shift(v, si + sj);
-            }
-        }
-        let cof = cofactors(&out);
-        let det: i128 = out[0].iter().zip(&cof[0]).map(|(&v, &c)| v * c).sum();
-        (det > 0).then_some(Self { shift, det, cof })
-    }
-
-    /// Solves `M x = b` (b in Q54) by Cramer's rule on the scaled matrix; `x` in Q16.
-    fn solve(&self, b: &[i128; 4]) -> [i64; 4] {
-        // b' = D⁻¹ b in the scaled matrix's Q60, then one common shift keeps |b'| ≤ 2^36 (Cramer
-        // numerators then stay below 2^36 · 6 · 2^78 · 4 < 2^120).
-        let mut bs = [0i128; 4];
-        for ((o, &v), &k) in bs.iter_mut().zip(b).zip(&self.shift) {
-            *o = round_shift(v.saturating_mul(1 << 6), k);
-        }
-        let big = bs.iter().map(|&v| bit_len(v)).max().unwrap_or(0);
-        let extra = big.saturating_sub(36);
-        for v in bs.iter_mut() {
-            *v = round_shift(*v, extra);
-        }
-        let mut x = [0i64; 4];
-        for (k, (xk, &sk)) in x.iter_mut().zip(&self.shift).enumerate() {
-            // det of M with column k replaced by b, expanded along that column.
-            let num: i128 = bs
-                .iter()
-                .zip(self.cof.iter())
-                .map(|(&bv, row)| bv * row.get(k).copied().unwrap_or(0))
-                .sum();
-            // x = x'' / 2^k with x'' = det_k / det, then × 2^extra, in Q16.
-            let sh = 16 + extra as i32 - sk as i32;
-            *xk = clamp_i64(scaled_div(num, self.det, sh));
-        }
-        x
-    }
-
-    /// `[M⁻¹]μμ` of the unscaled Q60 matrix as a real number, in Q32.
-    fn inv_mu_q32(&self) -> Option<i128> {
-        let cof = self.cof[1][1];
-        if cof <= 0 {
+    let mut d = [0u32; 4];
+    for (dk, &p) in d.iter_mut().zip(ORDER.iter()) {
+        let diag = at(p, p);
+        if diag <= 0 {
             return None;
         }
-        // [M⁻¹]μμ = cof'/det' · 2^(60 − 2k).
-        let k = self.shift.get(1).copied().unwrap_or(0);
-        Some(scaled_div(cof, self.det, 92 - 2 * k as i32))
+        *dk = 29u32.saturating_sub(bit_len(diag.unsigned_abs())) / 2;
     }
-}
-
-/// The other three indices of 0..4, for each one left out.
-const OTHERS: [[usize; 3]; 4] = [[1, 2, 3], [0, 2, 3], [0, 1, 3], [0, 1, 2]];
-
-/// Cofactors of a symmetric 4 × 4 matrix: the 10 of the upper triangle, mirrored (the same integers
-/// as expanding all 16, since `C[i][k] = C[k][i]` for a symmetric matrix). Entries within ±2^31 (the
-/// scaled normal matrix's are < 2^26) are read straight from an `i32` copy; others take the general path.
-fn cofactors(m: &Mat) -> Mat {
-    let mut cof: Mat = [[0; 4]; 4];
-    let small = m
-        .iter()
-        .flatten()
-        .all(|v| (-(1i128 << 31)..(1 << 31)).contains(v));
-    let m32 = m.map(|r| r.map(|v| v as i32));
-    for i in 0..4 {
-        for k in i..4 {
-            let d = match (small, OTHERS.get(i), OTHERS.get(k)) {
-                (true, Some(&[r0, r1, r2]), Some(&[c0, c1, c2])) => {
-                    let at = |r: usize, c: usize| {
-                        m32.get(r).and_then(|x| x.get(c)).copied().unwrap_or(0)
-                    };
-                    let p = mul_i32_wide;
-                    let m1 = p(at(r1, c1), at(r2, c2)) - p(at(r1, c2), at(r2, c1));
-                    let m2 = p(at(r1, c0), at(r2, c2)) - p(at(r1, c2), at(r2, c0));
-                    let m3 = p(at(r1, c0), at(r2, c1)) - p(at(r1, c1), at(r2, c0));
-                    mul_i32_i64(at(r0, c0), m1) - mul_i32_i64(at(r0, c1), m2)
-                        + mul_i32_i64(at(r0, c2), m3)
-                }
-                _ => det3(minor(m, i, k)),
-            };
-            let d = if (i + k) % 2 == 0 { d } else { -d };
-            if let Some(c) = cof.get_mut(i).and_then(|row| row.get_mut(k)) {
-                *c = d;
-            }
-            if let Some(c) = cof.get_mut(k).and_then(|row| row.get_mut(i)) {
-                *c = d;
-            }
+    let mut m = [[0i64; 4]; 4];
+    for (i, row) in m.iter_mut().enumerate() {
+        for (j, cell) in row.iter_mut().enumerate() {
+            let (pi, pj) = (ORDER.get(i).copied()?, ORDER.get(j).copied()?);
+            *cell = at(pi, pj) << (d.get(i)? + d.get(j)?);
         }
     }
-    cof
-}
-
-#[inline(never)]
-fn det3(m: [[i128; 3]; 3]) -> i128 {
-    let small = |v: &i128| (-(1i128 << 31)..(1 << 31)).contains(v);
-    if m.iter().flatten().all(small) {
-        // Scaled entries are < 2^26: the 2 × 2 minors are exact in i64 (< 2^63), and only the three
-        // outer products need i128. The same integer as the general form below.
-        // 32 × 32 → 64 and 32 × 64 → 96-bit products from 32-bit multiplies (the M0 has no wider one).
-        let [[a, b, c], [d, e, f], [g, h, i]] = m.map(|r| r.map(|v| v as i32));
-        let p = mul_i32_wide;
-        let m1 = p(e, i) - p(f, h);
-        let m2 = p(d, i) - p(f, g);
-        let m3 = p(d, h) - p(e, g);
-        return mul_i32_i64(a, m1) - mul_i32_i64(b, m2) + mul_i32_i64(c, m3);
+    // b scaled by S, then by a common power of two into [2^30, 2^31).
+    let mut b = [0i128; 4];
+    for (i, bv) in b.iter_mut().enumerate() {
+        *bv = i128::from(nm.b.get(ORDER.get(i).copied()?).copied()?) << d.get(i)?;
     }
-    let [[a, b, c], [d, e, f], [g, h, i]] = m;
-    a * (e * i - f * h) - b * (d * i - f * g) + c * (d * h - e * g)
-}
-
-fn minor(m: &Mat, skip_r: usize, skip_c: usize) -> [[i128; 3]; 3] {
-    let mut out = [[0i128; 3]; 3];
-    let rows = m.iter().enumerate().filter(|(r, _)| *r != skip_r);
-    for (orow, (_, row)) in out.iter_mut().zip(rows) {
-        let cols = row.iter().enumerate().filter(|(c, _)| *c != skip_c);
-        for (o, (_, &v)) in orow.iter_mut().zip(cols) {
-            *o = v;
+    let top = b.iter().map(|v| 128 - v.unsigned_abs().leading_zeros()).max()?;
+    let bs = top as i32 - 31;
+    let mut bn = [0i64; 4];
+    for (o, &v) in bn.iter_mut().zip(b.iter()) {
+        let v = if bs >= 0 { v >> bs } else { v << -bs };
+        *o = i64::try_from(v).ok()?;
+    }
+    for p in 0..4 {
+        let piv = m.get(p)?.get(p).copied()?;
+        if piv < 1 << 8 {
+            return None;
+        }
+        for i in p + 1..4 {
+            let f = (m.get(i)?.get(p).copied()? << 30) / piv;
+            for j in p + 1..4 {
+                let upd = mul_shr30(f, m.get(p)?.get(j).copied()?)?;
+                let cell = m.get_mut(i)?.get_mut(j)?;
+                *cell = cell.checked_sub(upd)?;
+            }
+            let upd = mul_shr30(f, bn.get(p).copied()?)?;
+            let cell = bn.get_mut(i)?;
+            *cell = cell.checked_sub(upd)?;
         }
     }
-    out
-}
-
-/// σ of the centre in px (Q16): `s · sqrt(vref · [M⁻¹]μμ) / A`.
-#[inline(never)]
-fn center_sigma(m: &Mat, p: &Params, vref: i64) -> Option<i64> {
-    let inv_q32 = Scaled::new(m)?.inv_mu_q32()?;
-    // vref is Q8, so sqrt(vref · inv) is Q20 in frame units.
-    let sv_q20 = isqrt_u128((vref as u128).checked_mul(u128::try_from(inv_q32).ok()?)?) as i128;
-    let a = i128::from(p.a_q8.max(1));
-    let sig = (i128::from(p.s_q16) * sv_q20).checked_div(a << 12)?;
-    Some(sig.clamp(1, i128::from(i64::MAX)) as i64)
-}
-
-/// A fitted line's height at pixel `i` (frame units); 0 beyond 6 σ.
-fn profile(f: &Fit, i: usize) -> i64 {
-    let dx = ((i as i64) << 16) - f.center_q16;
-    let s = f.sigma_q16.max(1);
-    if dx.abs() > 6 * s {
-        return 0;
+    // Back substitution, y in Q20.
+    let mut y = [0i64; 4];
+    for i in (0..4).rev() {
+        let mut acc = bn.get(i)?.checked_mul(1 << 20)?;
+        for j in i + 1..4 {
+            acc = acc.checked_sub(m.get(i)?.get(j)?.checked_mul(*y.get(j)?)?)?;
+        }
+        *y.get_mut(i)? = acc / m.get(i)?.get(i).copied()?;
     }
-    let u = (dx << 16).checked_div(s).unwrap_or(0);
-    let g30 = exp_neg_q16((u * u) >> 17);
-    ((i128::from(f.height_q8) * i128::from(g30)) >> 38) as i64
+    // x_real = y · 2^(d + bs − 20); the step relative to A in Q16: × 2^16 / A.
+    let mut x = [0i64; 4];
+    for (i, &yi) in y.iter().enumerate() {
+        let sh = d.get(i).copied()? as i32 + bs - 4;
+        let v = i128::from(yi);
+        let v = if sh >= 0 { v << sh.min(60) } else { v >> (-sh).min(127) };
+        let q = v / i128::from(a_red.max(1));
+        *x.get_mut(ORDER.get(i).copied()?)? = q.clamp(-(1 << 40), 1 << 40) as i64;
+    }
+    Some(Solved {
+        x,
+        mu_pivot: m.get(3)?.get(3).copied()?,
+        mu_shift: d.get(3).copied()?,
+    })
+}
+
+/// σ of the centre in px (Q16): `s · σ_ε · sqrt([N⁻¹]μμ) / A` with `σ_ε = sqrt(var_ref) · τ_ref` the
+/// whitened noise, `[N⁻¹]μμ = 2^(2d) / pivot`; everything in frame units (reduced units cancel).
+#[inline(never)]
+fn center_sigma(sol: &Solved, wt: &Weights, p: &Params) -> Option<i64> {
+    if sol.mu_pivot <= 0 {
+        return None;
+    }
+    // sqrt(var_q8 · 2^(2d) / pivot) · 2^16 = σ (frame units, ×16) · 2^d / sqrt(pivot) · 2^16.
+    let num = u128::try_from(wt.var_ref_q8.max(1)).ok()? << (2 * sol.mu_shift + 32);
+    let root = crate::fixed::isqrt_u128(num / u128::try_from(sol.mu_pivot).ok()?);
+    // σ_μ = s · root · τ_ref / (16 · 2^16) / A, with A = a_q8 / 256: s · root · τ_ref / (2^12 · a_q8).
+    let v = u128::try_from(p.s_q16.max(1)).ok()? * root * u128::try_from(wt.tau_ref.max(0)).ok()?;
+    let sig = v / (u128::try_from(p.a_q8.max(1)).ok()? << 12);
+    Some(i64::try_from(sig).unwrap_or(i64::MAX).max(1))
 }
 
 /// Height (Q8) × σ (Q16) × sqrt(2π) → area in frame units × px.
@@ -607,13 +635,35 @@ pub fn area(fit: &Fit) -> i64 {
     (v >> 40).clamp(i128::from(i64::MIN), i128::from(i64::MAX)) as i64
 }
 
-#[allow(dead_code)]
-const _: () = assert!(ONE_Q30 == 1 << 30);
-
 #[cfg(test)]
 mod tests {
+    use super::super::math::{exp_neg_q16, isqrt_u128};
     use super::super::testkit::{pixel_gauss, Rng};
     use super::*;
+
+    #[test]
+    fn exp_table_is_close_to_the_exact_exponential() {
+        for x in (0..(1 << 17)).step_by(7) {
+            // exp_neg_q16 is accurate to a few Q30 steps.
+            let exact = exp_neg_q16(i64::from(x) << 4) >> 16;
+            let got = i64::from(exp_neg_q14(x));
+            assert!((got - exact).abs() <= 2 + exact / 5_000, "x {x}: {got} vs {exact}");
+        }
+        assert_eq!(exp_neg_q14(0), 1 << 14);
+        assert_eq!(exp_neg_q14(-5), 1 << 14);
+    }
+
+    #[test]
+    fn rsqrt_parts_are_within_half_a_percent() {
+        for v in [1u64, 2, 3, 63, 64, 65, 1000, 65_535, 1 << 20, 123_456_789, u64::MAX / 3] {
+            let (m, h) = rsqrt_parts(v);
+            // 1/sqrt(v) = m · 2^h / 2^46.
+            let lhs = (m as u128).pow(2) << (2 * h); // m² · 2^2h = 2^92 / v ideally
+            let want = (1u128 << 92) / v as u128;
+            let err = lhs.abs_diff(want) * 1000 / want;
+            assert!(err <= 8, "v {v}: {lhs} vs {want}");
+        }
+    }
 
     fn noise(sd: i64, k_q16: u32) -> NoiseModel {
         NoiseModel {
@@ -636,64 +686,6 @@ mod tests {
             neighbours: [None, None],
         };
         fit_line(&d, peak, sigma0, 1 << 15, 8 << 16, ITERATIONS)
-    }
-
-    #[test]
-    #[allow(clippy::needless_range_loop)] // index arithmetic is the point of the test
-    fn cofactors_equal_the_expansion() {
-        let mut x = 0x7777_1234u64;
-        for _ in 0..200 {
-            let mut m: Mat = [[0; 4]; 4];
-            for i in 0..4 {
-                for k in i..4 {
-                    x ^= x << 13;
-                    x ^= x >> 7;
-                    x ^= x << 17;
-                    let v = (x % (1 << 27)) as i128 - (1 << 26);
-                    m[i][k] = v;
-                    m[k][i] = v;
-                }
-            }
-            let got = cofactors(&m);
-            for i in 0..4 {
-                for k in 0..4 {
-                    let d = det3(minor(&m, i, k));
-                    let want = if (i + k) % 2 == 0 { d } else { -d };
-                    assert_eq!(got[i][k], want);
-                }
-            }
-        }
-    }
-
-    #[test]
-    fn weights_keep_their_digits_at_every_ratio() {
-        for var in [
-            1i64,
-            2,
-            3,
-            255,
-            256,
-            65_535,
-            65_536,
-            1 << 20,
-            (1 << 28) + 12_345,
-            u32::MAX as i64,
-        ] {
-            for vref in [1i64, 7, var / 10_000 + 1, var / 3 + 1, var] {
-                let vref = vref.min(var);
-                let exact = ((vref as i128) << 30) / var as i128;
-                let got = weight_q30(vref, var) as i128;
-                // 2^-15 relative, plus one step for the truncations.
-                assert!(
-                    (got - exact).abs() <= exact / 32_768 + 1,
-                    "{vref}/{var}: {got} vs {exact}"
-                );
-            }
-        }
-        assert_eq!(
-            weight_q30(5, 1 << 40),
-            ((5i128 << 30) / (1i128 << 40)) as i64
-        );
     }
 
     #[test]
