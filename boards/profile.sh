@@ -1,6 +1,6 @@
 #!/usr/bin/env bash
 # Hot spots of the whole pipeline on the Cortex-M0 code: the `profile` build of boards/pipeline samples
-# the interrupted PC every 40 000 instructions (SysTick every 1000 ticks under QEMU -icount shift=0) with
+# the interrupted PC every 4 000 instructions (SysTick every 100 ticks under QEMU -icount shift=0) with
 # the stage it was in, and this script names the innermost lib source line of each sample
 # (llvm-addr2line -i, inlined frames included) and prints the top lines per stage.
 # Usage: bash boards/profile.sh [top-n] [stage-filter]   (e.g. 8 random-walk)        Needs llvm-addr2line (Debian: llvm).
@@ -60,7 +60,7 @@ for st in sorted(by):
     if st not in stages or only not in stages[st]:
         continue
     total = sum(by[st].values())
-    print(f"== {stages[st]}: {total} samples = ~{total * 40_000 / 1e6:.0f} M instructions")
+    print(f"== {stages[st]}: {total} samples = ~{total * 4_000 / 1e6:.2f} M instructions")
     for k, c in by[st].most_common(top):
         print(f"  {100 * c / total:5.1f} %  {k}")
 PY

@@ -130,7 +130,7 @@ fn dump_samples(out: &mut hio::HostStream) {
 fn start_clock(mut syst: SYST) {
     syst.set_clock_source(SystClkSource::Core);
     syst.set_reload(if cfg!(feature = "profile") {
-        999
+        99
     } else {
         0x00ff_ffff
     });

@@ -14,7 +14,7 @@
 //! units*, the frame units shifted right until the window's largest residual is below 2^16 (a shift
 //! of 0 for all but the strongest lines of ADC frames; the noise there is far above the step).
 
-use super::math::mul_i32_wide;
+use super::math::{mul_i32_wide, Recip};
 use super::noise::NoiseModel;
 use crate::condition::flags;
 
@@ -308,6 +308,44 @@ pub fn fit_line(
         s_q16: s0,
         c_q8: 0,
     };
+    run(d, &win, start, s_min_q16, s_max_q16, max_steps)
+}
+
+/// Fits a line again from an earlier fit `first` over the same window, e.g. once its neighbours'
+/// profiles are known (`d.neighbours`): the start is already close, so it settles in a step or two.
+///
+/// Loop bounds: as [`fit_line`].
+pub fn refit_line(
+    d: &FitData<'_>,
+    first: &Fit,
+    s_min_q16: i64,
+    s_max_q16: i64,
+    max_steps: usize,
+) -> Fit {
+    let s_max_q16 = s_max_q16.max(s_min_q16);
+    let win = Window::new(d, usize::from(first.lo), usize::from(first.hi));
+    let start = Params {
+        a_q8: first.height_q8.max(256),
+        mu_q16: first.center_q16,
+        s_q16: first.sigma_q16.max(s_min_q16).min(s_max_q16).max(1 << 14),
+        c_q8: 0,
+    };
+    run(d, &win, start, s_min_q16, s_max_q16, max_steps)
+}
+
+/// The Gauss–Newton steps over a gathered window. Loop bound: ≤ min(`max_steps`, [`ITERATIONS`])
+/// steps, each one pass over the window (the first [`WEIGHT_STEPS`] with a weight pass) and a 4 × 4
+/// elimination.
+fn run(
+    d: &FitData<'_>,
+    win: &Window,
+    start: Params,
+    s_min_q16: i64,
+    s_max_q16: i64,
+    max_steps: usize,
+) -> Fit {
+    let (lo, hi) = (win.lo, win.lo + win.len.saturating_sub(1));
+    let r0 = start.a_q8 >> 8;
     // Reduced units: the largest residual (or the start height) below 2^16.
     let big = (0..win.len)
         .filter_map(|k| win.resid_at(k))
@@ -320,17 +358,23 @@ pub fn fit_line(
     let mut converged = false;
     let mut steps = 0u8;
     let mut weights: Option<Weights> = None;
+    // Noise σ at the best pixel (frame units × 16), for the settling test; set with the first weights.
+    let mut sd_q4 = 0i64;
     // The last step's centre pivot (and its scale) and the weights it used: the centre's σ.
     let mut last: Option<(Solved, i64)> = None;
     for _ in 0..max_steps.min(ITERATIONS) {
         steps += 1;
         if steps <= WEIGHT_STEPS || weights.is_none() {
-            weights = Some(weigh(&win, d.noise, &p, reduce));
+            let w = weigh(win, d.noise, &p, reduce);
+            if steps == 1 {
+                sd_q4 = super::math::isqrt_i64(w.var_ref_q8);
+            }
+            weights = Some(w);
         }
         let Some(wt) = weights.as_ref() else {
             break;
         };
-        let nm = normal(&win, wt, &p, reduce);
+        let nm = normal(win, wt, &p, reduce);
         if nm.used < MIN_PIXELS {
             break;
         }
@@ -357,12 +401,16 @@ pub fn fit_line(
             last = None;
             break;
         }
-        // Settled: centre moved ≤ 2^-12 px, height and σ by ≤ 2^-10 relative — the band the 32-bit
-        // model's own rounding leaves a noiseless fit bouncing in (≤ 1/4 of the Cramér–Rao σ of a
-        // 1000-σ line).
-        let settled = (p.mu_q16 - before.mu_q16).abs() <= SETTLED_Q16
-            && ((p.a_q8 - before.a_q8).abs() << 10) <= before.a_q8
-            && ((p.s_q16 - before.s_q16).abs() << 10) <= before.s_q16;
+        // Settled: each parameter moved by less than about 1/8 of its noise scatter (σ/A of a
+        // relative parameter: the centre by s·σ/(8A), the height by σ/8), and at least by the band
+        // the 32-bit model's own rounding leaves a noiseless fit bouncing in (2^-12 px, 2^-10
+        // relative).
+        let tol_mu = (p.s_q16 * sd_q4 * 2) / p.a_q8.max(1);
+        let tol_a = (sd_q4 << 1).max(before.a_q8 >> 10);
+        let tol_s = (tol_mu.max(0)).max(before.s_q16 >> 10);
+        let settled = (p.mu_q16 - before.mu_q16).abs() <= tol_mu.max(SETTLED_Q16)
+            && (p.a_q8 - before.a_q8).abs() <= tol_a
+            && (p.s_q16 - before.s_q16).abs() <= tol_s;
         if settled {
             converged = true;
             break;
@@ -532,7 +580,8 @@ fn mul_shr30(a: i64, b: i64) -> Option<i64> {
 /// in [2^27, 2^30), so no row loses its digits) with `b` normalised to [2^30, 2^31); `None` when `N`
 /// is not positive definite to the arithmetic's precision.
 ///
-/// Loop bound: a fixed 4 × 4 elimination (6 divisions forward, 4 back, 4 by A).
+/// Loop bound: a fixed 4 × 4 elimination; five library divisions (a reciprocal per pivot and one for
+/// A), everything else 32 × 32-bit products.
 fn solve(nm: &Normal, a_red: i32) -> Option<Solved> {
     let at = |r: usize, c: usize| {
         i64::from(
@@ -557,25 +606,29 @@ fn solve(nm: &Normal, a_red: i32) -> Option<Solved> {
             *cell = at(pi, pj) << (d.get(i)? + d.get(j)?);
         }
     }
-    // b scaled by S, then by a common power of two into [2^30, 2^31).
-    let mut b = [0i128; 4];
-    for (i, bv) in b.iter_mut().enumerate() {
-        *bv = i128::from(nm.b.get(ORDER.get(i).copied()?).copied()?) << d.get(i)?;
-    }
-    let top = b.iter().map(|v| 128 - v.unsigned_abs().leading_zeros()).max()?;
-    let bs = top as i32 - 31;
+    // b scaled by S (|b| < 2^47 from the bounds in `normal`, d ≤ 14: < 2^61), then by a common power
+    // of two into [2^30, 2^31).
     let mut bn = [0i64; 4];
-    for (o, &v) in bn.iter_mut().zip(b.iter()) {
-        let v = if bs >= 0 { v >> bs } else { v << -bs };
-        *o = i64::try_from(v).ok()?;
+    for (i, bv) in bn.iter_mut().enumerate() {
+        let v = nm.b.get(ORDER.get(i).copied()?).copied()?;
+        *bv = v.checked_mul(1 << d.get(i)?)?;
     }
+    let top = bn.iter().map(|v| bit_len(v.unsigned_abs())).max()?;
+    let bs = top as i32 - 31;
+    for v in bn.iter_mut() {
+        *v = if bs >= 0 { *v >> bs } else { *v << -bs };
+    }
+    let mut recips = [Recip::ONE; 4];
     for p in 0..4 {
         let piv = m.get(p)?.get(p).copied()?;
         if piv < 1 << 8 {
             return None;
         }
+        let rp = Recip::new(piv)?;
+        *recips.get_mut(p)? = rp;
         for i in p + 1..4 {
-            let f = (m.get(i)?.get(p).copied()? << 30) / piv;
+            // f = M_ip / piv in Q30.
+            let f = rp.scale(m.get(i)?.get(p).copied()?, 30)?;
             for j in p + 1..4 {
                 let upd = mul_shr30(f, m.get(p)?.get(j).copied()?)?;
                 let cell = m.get_mut(i)?.get_mut(j)?;
@@ -593,16 +646,15 @@ fn solve(nm: &Normal, a_red: i32) -> Option<Solved> {
         for j in i + 1..4 {
             acc = acc.checked_sub(m.get(i)?.get(j)?.checked_mul(*y.get(j)?)?)?;
         }
-        *y.get_mut(i)? = acc / m.get(i)?.get(i).copied()?;
+        *y.get_mut(i)? = recips.get(i)?.scale(acc, 0)?;
     }
     // x_real = y · 2^(d + bs − 20); the step relative to A in Q16: × 2^16 / A.
+    let ra = Recip::new(i64::from(a_red.max(1)))?;
     let mut x = [0i64; 4];
     for (i, &yi) in y.iter().enumerate() {
         let sh = d.get(i).copied()? as i32 + bs - 4;
-        let v = i128::from(yi);
-        let v = if sh >= 0 { v << sh.min(60) } else { v >> (-sh).min(127) };
-        let q = v / i128::from(a_red.max(1));
-        *x.get_mut(ORDER.get(i).copied()?)? = q.clamp(-(1 << 40), 1 << 40) as i64;
+        let q = ra.scale(yi, sh).unwrap_or(if yi < 0 { -(1 << 40) } else { 1 << 40 });
+        *x.get_mut(ORDER.get(i).copied()?)? = q.clamp(-(1 << 40), 1 << 40);
     }
     Some(Solved {
         x,

@@ -197,9 +197,95 @@ pub fn clamp_i32(v: i64) -> i32 {
     v.clamp(i64::from(i32::MIN), i64::from(i32::MAX)) as i32
 }
 
+/// A reciprocal for repeated division by one positive `d < 2^30`: `d = n · 2^-t` with `n` in
+/// [2^29, 2^30) and `r ≈ 2^60 / n` in (2^30, 2^31], so `v / d ≈ v · r · 2^t / 2^60` (relative error
+/// < 2^-29) from 32 × 32-bit products. `r` comes from one 32-bit division and a Newton step, not a
+/// 64-bit library division (~1000 instructions on the Cortex-M0).
+#[derive(Clone, Copy)]
+pub struct Recip {
+    r: i64,
+    t: u32,
+}
+
+impl Recip {
+    /// Division by 1.
+    pub const ONE: Self = Self { r: 1 << 31, t: 29 };
+
+    /// `None` unless 0 < `d` < 2^30.
+    pub fn new(d: i64) -> Option<Self> {
+        if d <= 0 || d >= 1 << 30 {
+            return None;
+        }
+        let t = (d.leading_zeros() - 34).min(29);
+        let n = d << t;
+        // x0 = 2^46 / (n >> 14) · 2^14 ≈ 2^60 / n to 2^-15; one Newton step x += x·(2^60 − n·x) / 2^60
+        // squares the error (n·x0 < 2^61; the correction's factors stay below 2^32 and 2^17).
+        let n16 = u32::try_from(n >> 14).ok()?.max(1);
+        let x0 = i64::from(u32::MAX / n16) << 14;
+        let e = (1i64 << 60) - n * x0;
+        let r = x0 + ((x0 * (e >> 29)) >> 31);
+        Some(Self { r, t })
+    }
+
+    /// `v · 2^k / d`, rounded toward zero (within one step), for |v| < 2^62; `None` beyond `i64`.
+    pub fn scale(&self, v: i64, k: i32) -> Option<i64> {
+        let m = v.unsigned_abs();
+        let r = self.r.unsigned_abs();
+        // v · r / 2^s; m · r is split at 2^31 so each partial product fits 64 bits.
+        let s = 60 - self.t as i32 - k;
+        let (hi, lo) = (m >> 31, m & ((1 << 31) - 1));
+        let q = if hi == 0 {
+            let p = lo * r;
+            if s >= 0 {
+                p.checked_shr(s as u32).unwrap_or(0)
+            } else {
+                let up = (-s) as u32;
+                (p.leading_zeros() > up).then(|| p << up)?
+            }
+        } else if s >= 31 {
+            let s = s as u32;
+            ((hi * r) >> (s - 31)) + (lo * r).checked_shr(s).unwrap_or(0)
+        } else {
+            let p = (u128::from(hi * r) << 31) + u128::from(lo * r);
+            let q = if s >= 0 {
+                p >> s
+            } else {
+                p.checked_shl((-s) as u32)?
+            };
+            u64::try_from(q).ok()?
+        };
+        let q = i64::try_from(q).ok()?;
+        Some(if v < 0 { -q } else { q })
+    }
+}
+
+
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn reciprocal_scaling_matches_division() {
+        for d in [1i64, 2, 3, 255, 1000, 65_537, (1 << 29) - 1, 1 << 29, (1 << 30) - 1] {
+            let r = Recip::new(d).unwrap();
+            for v in [0i64, 1, -1, 7, -12_345, 1 << 40, -(1 << 52) + 3, (1 << 61) + 99] {
+                for k in [-20i32, 0, 16, 30] {
+                    let exact = (i128::from(v) << 60 >> (60 - k)) / i128::from(d);
+                    if exact.unsigned_abs() >= 1 << 62 {
+                        continue;
+                    }
+                    let got = i128::from(r.scale(v, k).unwrap());
+                    // Relative 2^-29 plus one step.
+                    assert!(
+                        (got - exact).abs() <= exact.abs() / (1 << 28) + 1,
+                        "{v} · 2^{k} / {d}: {got} vs {exact}"
+                    );
+                }
+            }
+        }
+        assert!(Recip::new(0).is_none() && Recip::new(1 << 30).is_none());
+    }
+
 
     #[test]
     fn exp_matches_reference_values() {

@@ -131,8 +131,8 @@ pub fn find_peaks(
     let s_min = ((i64::from(cfg.fwhm_min_px_q8) << 24) / FWHM_PER_SIGMA_Q16) >> 1;
     let s_max = (i64::from(cfg.fwhm_max_px_q8) << 24) / FWHM_PER_SIGMA_Q16;
     let shot = cfg.shot_var_per_unit_q16;
-    let mut nm =
-        noise::estimate(frame, flag, &LineMask::new(), shot).unwrap_or(noise::fallback(shot));
+    let mut blocks = noise::NoiseBlocks::measure(frame, flag, &LineMask::new());
+    let mut nm = blocks.model(shot).unwrap_or(noise::fallback(shot));
     let mut cands: Vec<Candidate, MAX_CANDIDATES> = Vec::new();
     let mut truncated = false;
     // Two looks: the first finds the lines, the second re-estimates the noise away from them (dense
@@ -160,7 +160,9 @@ pub fn find_peaks(
             let half = usize::try_from((3 * s0) >> 16).unwrap_or(0) + 2;
             mask.mark(c.pos, half.min(3 * fwhm_max_px));
         }
-        match noise::estimate(frame, flag, &mask, shot) {
+        // Only the blocks the lines touch change.
+        blocks.remeasure_masked(frame, flag, &mask);
+        match blocks.model(shot) {
             Some(better) => nm = better,
             None => break,
         }
@@ -188,6 +190,8 @@ pub fn find_peaks(
             .max(s_min)
             .min(s_max);
         let f = fit::fit_line(&data, c.pos, s0, s_min, s_max, budget.max(MIN_STEPS));
+        #[cfg(test)]
+        std::eprintln!("first pos {} steps {} conv {} lo {} hi {}", c.pos, f.steps, f.converged, f.lo, f.hi);
         budget = budget.saturating_sub(usize::from(f.steps));
         // Capacity: at most MAX_PEAKS candidates remain.
         let _ = fits.push((f, u16::try_from(c.pos).unwrap_or(u16::MAX)));
@@ -197,10 +201,9 @@ pub fn find_peaks(
     // the next line's is still in `fits`, the previous line's is kept aside before it is replaced.
     let mut prev_first: Option<fit::Fit> = None;
     for k in 0..fits.len() {
-        let Some(&(f, pos)) = fits.get(k) else {
+        let Some(&(f, _)) = fits.get(k) else {
             break;
         };
-        let pos = usize::from(pos);
         let next = fits.get(k + 1).map(|(n, _)| *n);
         let touches = |n: &fit::Fit| {
             let reach = (i64::from(f.hi) - i64::from(f.lo)) << 15;
@@ -211,11 +214,10 @@ pub fn find_peaks(
         prev_first = Some(f);
         if budget > 0 && (prev.is_some() || next.is_some()) {
             data.neighbours = [prev, next];
-            // The same start width as the first fit (it reads frame and baseline only).
-            let s0 = half_width_sigma(&data, pos, fwhm_max_px)
-                .max(s_min)
-                .min(s_max);
-            let refit = fit::fit_line(&data, pos, s0, s_min, s_max, budget.max(MIN_STEPS));
+            // From the first fit, over its window: only the neighbours' share of the data changed.
+            let refit = fit::refit_line(&data, &f, s_min, s_max, budget.max(MIN_STEPS));
+            #[cfg(test)]
+            std::eprintln!("refit steps {} conv {}", refit.steps, refit.converged);
             budget = budget.saturating_sub(usize::from(refit.steps));
             if let Some(slot) = fits.get_mut(k) {
                 slot.0 = refit;
@@ -483,6 +485,15 @@ mod tests {
         );
         // Bias well inside the scatter.
         assert!(st.bias_q16.abs() * 3 <= st.crlb_q16, "biased");
+    }
+
+    #[test]
+    fn dbg_htube() {
+        let raw = std::fs::read("/work/main/boards/pipeline-report/traces/h-tube.bin").unwrap();
+        let frame: std::vec::Vec<i32> = raw.chunks(2).map(|c| (u16::from_le_bytes([c[0], c[1]]) as i32) << 4).collect();
+        let cfg = FindConfig::for_line_fwhm(3 << 8);
+        let (out, rep) = run(&cfg, &frame);
+        std::eprintln!("peaks {} cands {}", out.len(), rep.candidates);
     }
 
     #[test]

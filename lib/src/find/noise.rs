@@ -11,7 +11,7 @@
 //! thresholds and a reported centre σ for almost 2× their true noise σ.
 
 use super::mask::LineMask;
-use super::math::{checked_mul_i128, div_round_i128, isqrt_i64, mul_i128};
+use super::math::{checked_mul_i128, div_round_i128, isqrt_i64, mul_i128, Recip};
 use crate::condition::{flags, MAX_PIXELS};
 
 /// Pixels per noise block.
@@ -90,23 +90,71 @@ pub fn estimate(
     mask: &LineMask,
     known_shot_q16: Option<u32>,
 ) -> Option<NoiseModel> {
-    let mut blocks = [Block::default(); MAX_BLOCKS];
-    let n = frame.len().min(MAX_PIXELS);
-    let mut nb = 0usize;
-    for (bi, blk) in blocks.iter_mut().enumerate() {
-        let start = bi * BLOCK_PX;
-        if start >= n {
-            break;
+    NoiseBlocks::measure(frame, flag, mask).model(known_shot_q16)
+}
+
+/// The per-block statistics of one frame, kept so a second look with a line mask re-measures only
+/// the blocks the mask touches. 24 bytes a block, ≤ 64 blocks.
+pub struct NoiseBlocks {
+    blocks: [Block; MAX_BLOCKS],
+    n: usize,
+}
+
+impl NoiseBlocks {
+    /// Measures every block of `frame` from trusted pixels outside `mask`.
+    ///
+    /// Loop bound: one pass over N = min(`frame.len()`, [`MAX_PIXELS`]) pixels (plus one range check).
+    pub fn measure(frame: &[i32], flag: &[u8], mask: &LineMask) -> Self {
+        let mut me = Self {
+            blocks: [Block::default(); MAX_BLOCKS],
+            n: frame.len().min(MAX_PIXELS).div_ceil(BLOCK_PX),
+        };
+        me.refresh(frame, flag, mask, false);
+        me
+    }
+
+    /// Re-measures the blocks whose pixels (or the pixel on either side) `mask` touches.
+    ///
+    /// Loop bound: ≤ one pass over the frame.
+    pub fn remeasure_masked(&mut self, frame: &[i32], flag: &[u8], mask: &LineMask) {
+        self.refresh(frame, flag, mask, true);
+    }
+
+    fn refresh(&mut self, frame: &[i32], flag: &[u8], mask: &LineMask, only_masked: bool) {
+        let n = frame.len().min(MAX_PIXELS);
+        // ADC frames: sums of 64 values and their second differences stay inside 32 bits.
+        let narrow = frame.iter().all(|&v| (-NARROW..=NARROW).contains(&v));
+        for (bi, blk) in self.blocks.iter_mut().enumerate().take(self.n) {
+            let start = bi * BLOCK_PX;
+            let end = (start + BLOCK_PX).min(n);
+            if only_masked {
+                let here = mask.word(bi) != 0;
+                let left = bi.checked_sub(1).is_some_and(|b| mask.word(b) >> 63 != 0);
+                let right = mask.word(bi + 1) & 1 != 0;
+                if !(here || left || right) {
+                    continue;
+                }
+            }
+            *blk = if narrow {
+                block_stats_narrow(frame, flag, mask, start, end)
+            } else {
+                block_stats(frame, flag, mask, start, end)
+            };
         }
-        let end = (start + BLOCK_PX).min(n);
-        *blk = block_stats(frame, flag, mask, start, end);
-        nb = bi + 1;
     }
-    let blocks = blocks.get_mut(..nb).unwrap_or(&mut []);
-    if !blocks.iter().any(|b| b.used) {
-        return None;
+
+    /// The noise model fitted to the blocks; `None` when no block is usable. `known_shot_q16` fixes κ.
+    ///
+    /// Loop bound: [`FIT_ROUNDS`] × 2 passes over the ≤ 64 blocks and ≤ 2 + [`FIT_ROUNDS`] selection
+    /// medians of ≤ 64 block variances.
+    pub fn model(&self, known_shot_q16: Option<u32>) -> Option<NoiseModel> {
+        let mut blocks = self.blocks;
+        let blocks = blocks.get_mut(..self.n).unwrap_or(&mut []);
+        if !blocks.iter().any(|b| b.used) {
+            return None;
+        }
+        Some(fit(blocks, known_shot_q16))
     }
-    Some(fit(blocks, known_shot_q16))
 }
 
 /// Model for frames with no usable block (all saturated or too short): the smallest floor.
@@ -171,14 +219,79 @@ fn block_stats(frame: &[i32], flag: &[u8], mask: &LineMask, start: usize, end: u
     if (nd as usize) < MIN_BLOCK_SAMPLES || cnt == 0 {
         return Block::default();
     }
-    let level = sum.div_euclid(i64::from(cnt));
-    // var_q8 = (π/12)·(sad/nd)²·256 = sad²·PI_OVER_12_Q16 / (256·nd²).
-    let num = u128::from(sad) * u128::from(sad) * PI_OVER_12_Q16;
-    let den = 256 * u128::from(nd) * u128::from(nd);
-    let var_q8 = (num + den / 2) / den;
+    variance_block(sum, cnt, sad, nd)
+}
+
+/// Largest |value| for [`block_stats_narrow`]: 64 values sum below 2^30, 64 |second differences|
+/// below 2^32.
+const NARROW: i32 = 1 << 23;
+
+/// [`block_stats`] for frames within ±[`NARROW`] (the same result): `i32` values and sums, the mask
+/// read a word at a time.
+#[inline(never)]
+fn block_stats_narrow(frame: &[i32], flag: &[u8], mask: &LineMask, start: usize, end: usize) -> Block {
+    let word = mask.word(start / BLOCK_PX);
+    let trusted =
+        |i: usize| !mask.is_set(i) && flag.get(i).is_some_and(|&f| !flags::is_untrusted(f));
+    let (mut sum, mut cnt) = (0i32, 0u32);
+    let (mut sad, mut nd) = (0u32, 0u32);
+    // Values and trust of the two pixels before `i`.
+    let before = start.checked_sub(1);
+    let mut p1 = before.and_then(|j| frame.get(j)).copied().unwrap_or(0);
+    let mut ok1 = before.is_some_and(trusted);
+    let (mut p2, mut ok2) = (0i32, false);
+    let vals = frame.get(start..end).unwrap_or(&[]);
+    let fl = flag.get(start..end).unwrap_or(&[]);
+    // The block's mask bits, 32 at a time, consumed one per pixel.
+    let mut bits = word as u32;
+    for (k, (&y, &f)) in vals.iter().zip(fl).enumerate() {
+        if k == 32 {
+            bits = (word >> 32) as u32;
+        }
+        let oki = bits & 1 == 0 && !flags::is_untrusted(f);
+        bits >>= 1;
+        if oki {
+            sum += y;
+            cnt += 1;
+            // The difference centred on the previous pixel (in the block once k ≥ 1).
+            if ok1 && ok2 && k > 0 {
+                sad += (p2 - 2 * p1 + y).unsigned_abs();
+                nd += 1;
+            }
+        }
+        (p2, ok2, p1, ok1) = (p1, ok1, y, oki);
+    }
+    // The last pixel's difference needs the pixel after the block.
+    if let (Some(&y), true, true, true) = (frame.get(end), end > start, ok1, ok2) {
+        if trusted(end) {
+            sad += (p2 - 2 * p1 + y).unsigned_abs();
+            nd += 1;
+        }
+    }
+    if (nd as usize) < MIN_BLOCK_SAMPLES || cnt == 0 {
+        return Block::default();
+    }
+    variance_block(i64::from(sum), cnt, u64::from(sad), nd)
+}
+
+/// A block from its sums: level = floor mean, var_q8 = (π/12)·(sad/nd)²·256.
+fn variance_block(sum: i64, cnt: u32, sad: u64, nd: u32) -> Block {
+    let level = sum.div_euclid(i64::from(cnt.max(1)));
+    // mean |d2| in Q4 through a reciprocal (no 64-bit division), then var_q8 = m_q4² · π/12:
+    // m_q4 < 2^40 for any frame; the narrow blocks' < 2^30 keep both products inside 64 bits.
+    let m_q4 = Recip::new(i64::from(nd.max(1)))
+        .and_then(|r| r.scale(i64::try_from(sad).ok()?, 4))
+        .unwrap_or(i64::MAX)
+        .max(0);
+    let var_q8 = if m_q4 < 1 << 30 {
+        (m_q4 * ((m_q4 * PI_OVER_12_Q16 as i64) >> 16)).min(1 << 50)
+    } else {
+        let v = u128::try_from(m_q4).unwrap_or(0);
+        (v * v * PI_OVER_12_Q16 >> 16).min(1 << 50) as i64
+    };
     Block {
         // Capped at 2^50 (σ ≈ 2^21 frame units) so the regression sums stay inside i128.
-        var_q8: var_q8.min(1 << 50) as i64,
+        var_q8,
         level,
         used: true,
     }
@@ -321,6 +434,28 @@ fn floor_given_shot(blocks: &[Block], k_q16: u32, zero: i64) -> i64 {
 mod tests {
     use super::super::testkit::Rng;
     use super::*;
+
+    /// The 32-bit blocks are the general ones.
+    #[test]
+    fn narrow_blocks_equal_the_wide_ones() {
+        let mut rng = Rng::new(5);
+        let n = 300;
+        let frame: Vec<i32> = (0..n as i64)
+            .map(|i| (4000 + 3 * i + rng.gauss(50 << 16)) as i32)
+            .collect();
+        let mut fl = vec![0u8; n];
+        fl[70] = flags::SATURATED;
+        fl[191] = flags::REPAIRED;
+        let mut mask = LineMask::new();
+        mask.mark(130, 4);
+        mask.mark(255, 2);
+        for start in (0..n).step_by(BLOCK_PX) {
+            let end = (start + BLOCK_PX).min(n);
+            let a = block_stats(&frame, &fl, &mask, start, end);
+            let b = block_stats_narrow(&frame, &fl, &mask, start, end);
+            assert_eq!((a.var_q8, a.level, a.used), (b.var_q8, b.level, b.used), "block {start}");
+        }
+    }
 
     #[test]
     fn recovers_white_noise_sigma() {
