@@ -108,6 +108,7 @@ for t in $targets; do
         FILENAME == ARGV[1] { if ($1 == "marker") count[$2] = $3; else if ($1 == "total") { plugin = 1; hits_seen = $3 } next }
         /^ticks / { tk = $0 } /^stack_bytes / { st = $0 } /^hits / { hl = $0 }
         /^typical / { ref_t[$3] = kv($0, "ticks"); ref_a[$3] = kv($0, "hits"); ref_b[$3] = kv2($0, "hits") }
+        /^part / { np++; pn[np] = $2; pa[np] = kv($0, "hits"); pb[np] = kv2($0, "hits"); pt[np] = kv($0, "ticks") }
         /^adversary / { na++; an[na] = $2; am[na] = $3; ap[na] = kv($0, "pixels"); at[na] = kv($0, "ticks"); aa[na] = kv($0, "hits"); ab[na] = kv2($0, "hits"); ar[na] = kv($0, "result") }
         END {
             per = int(kv(tk, "loop_instructions") / kv(tk, "calibration") + 0.5)
@@ -141,6 +142,10 @@ for t in $targets; do
             else printf "\"systick_max_disagreement_instructions\": null, \"mark_overhead_instructions\": null, \"stamp_overhead_instructions\": null, \"calibration_loop_instructions\": null, "
             printf "\"instructions_per_pixel\": %.1f, \"float_baseline_instructions\": %d, \"float_baseline_ratio\": %.3f, ", (c + f) / 2048, fb, fb / (c + f)
             printf "\"flash_bytes\": %d, \"static_ram_bytes\": %d, \"stack_bytes\": %d, ", flash - frames, ram, stack
+            # The pieces of find_peaks, each timed alone (see find_parts in boards/pipeline/src/measure.rs).
+            printf "\"find_parts\": {"
+            for (i = 1; i <= np; i++) printf "%s\"%s\": %d", (i > 1 ? ", " : ""), pn[i], (plugin ? count[pb[i]] - count[pa[i]] - empty_stamp : pt[i] * per)
+            printf "}, "
             printf "\"predict_once_instructions\": %d, \"instructions_per_tick\": %d, \"embedded_frame_bytes\": %d, ", pr, per, frames
             # Adversarial frames: work of Checker::check relative to the typical frame in the same mode,
             # the bound scaled by pixels / 2048 for longer frames (never below 1).

@@ -330,6 +330,7 @@ pub fn run(buffers: &mut Buffers<PIXELS>, report: &mut Report, syst: SYST) -> de
     if found.is_err() {
         return debug::EXIT_FAILURE;
     }
+    let parts = find_parts(&fcfg, w.frame, w.flags, w.scratch, &peaks);
     let (checked, stack_calibrate) = stack_of(|| {
         mark(6);
         let c = check(&calibrate, &case, buffers.workspace(PIXELS), report);
@@ -398,6 +399,11 @@ pub fn run(buffers: &mut Buffers<PIXELS>, report: &mut Report, syst: SYST) -> de
     let adv_out = &mut adv_out;
     if adversaries(adv_out, report).is_err() {
         return debug::EXIT_FAILURE;
+    }
+    for (name, t) in parts.iter() {
+        if writeln!(adv_out, "part {name} {}", t.with(report)).is_err() {
+            return debug::EXIT_FAILURE;
+        }
     }
     // The profile build writes the samples to stdout and this text to stderr.
     #[cfg(feature = "profile")]
@@ -553,6 +559,90 @@ struct Timed {
     ticks: u64,
     hits: (u32, u32),
     ok: bool,
+}
+
+/// The pieces of `find_peaks` on the same conditioned frame, each timed alone with the look-1 noise
+/// model: the noise blocks and their fit, one baseline, one detection (smoothing + candidates), the
+/// first fits of the found peaks, and the fit of the strongest one alone.
+fn find_parts(
+    cfg: &glowcheck::find::FindConfig,
+    frame: &[i32],
+    flags: &[u8],
+    scratch: &mut [i32],
+    peaks: &PeakList,
+) -> [(&'static str, Timed); 7] {
+    use glowcheck::find::{baseline, detect, fit, mask::LineMask, noise};
+    let shot = cfg.shot_var_per_unit_q16;
+    let mut nm = noise::fallback(shot);
+    let t_noise = timed(|| {
+        nm = noise::NoiseBlocks::measure(frame, flags, &LineMask::new())
+            .model(shot)
+            .ok_or(())?;
+        Ok::<(), ()>(())
+    });
+    let (base, rest) = scratch.split_at_mut(frame.len());
+    let tmp = rest.get_mut(..frame.len()).unwrap_or(&mut []);
+    let half = 2 * usize::from(cfg.fwhm_max_px_q8.div_ceil(256));
+    let t_base = timed(|| {
+        baseline::estimate_baseline(frame, flags, &nm, half, base, tmp);
+        Ok::<(), ()>(())
+    });
+    let mut cands = heapless::Vec::new();
+    let t_detect = timed(|| {
+        detect::smooth_residual(frame, base, tmp);
+        detect::find_candidates(tmp, base, &nm, cfg, 2 * half, &mut cands);
+        Ok::<(), ()>(())
+    });
+    let data = fit::FitData {
+        frame,
+        base,
+        flag: flags,
+        noise: &nm,
+        neighbours: [None, None],
+    };
+    let s_min = 1 << 15;
+    let s_max = 8 << 16;
+    let start = |p: &glowcheck::find::Peak| {
+        let pos = (p.center_px_q16.max(0) as usize + (1 << 15)) >> 16;
+        (pos, (i64::from(p.fwhm_px_q16) << 16) / 154_325)
+    };
+    let t_fits = timed(|| {
+        for p in peaks.iter() {
+            let (pos, s0) = start(p);
+            core::hint::black_box(fit::fit_line(&data, pos, s0, s_min, s_max, fit::ITERATIONS));
+        }
+        Ok::<(), ()>(())
+    });
+    let strongest = peaks.iter().max_by_key(|p| p.height).copied();
+    let t_one = timed(|| {
+        let p = strongest.ok_or(())?;
+        let (pos, s0) = start(&p);
+        core::hint::black_box(fit::fit_line(&data, pos, s0, s_min, s_max, fit::ITERATIONS));
+        Ok::<(), ()>(())
+    });
+    let mut acc = 0u64;
+    let t_div32 = timed(|| {
+        for k in 1..=100u32 {
+            acc = acc.wrapping_add(u64::from(core::hint::black_box(0x9e37_79b9u32.wrapping_mul(k)) / core::hint::black_box(k * 40_503 + 7)));
+        }
+        Ok::<(), ()>(())
+    });
+    let t_div64 = timed(|| {
+        for k in 1..=100u64 {
+            acc = acc.wrapping_add(core::hint::black_box(0x9e37_79b9_7f4a_7c15u64.wrapping_mul(k) >> 4) / core::hint::black_box(k * 40_503_117 + 7));
+        }
+        Ok::<(), ()>(())
+    });
+    core::hint::black_box(acc);
+    [
+        ("noise", t_noise),
+        ("baseline", t_base),
+        ("detect", t_detect),
+        ("fits", t_fits),
+        ("fit_strongest", t_one),
+        ("div32_x100", t_div32),
+        ("div64_x100", t_div64),
+    ]
 }
 
 /// Runs `check` between two stamps.

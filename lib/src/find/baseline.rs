@@ -142,50 +142,56 @@ fn interpolate(coarse: &[i32], base: &mut [i32]) {
         let lo = k * COARSE_PX;
         lo + (n.min(lo + COARSE_PX) - lo) / 2
     };
-    // Before the first centre and after the last the end segments run on (a sloping continuum stays
-    // followed up to the edge pixel); a single block is flat.
-    let line = |k: usize, i: usize| -> i32 {
-        let (a, b) = (centre(k), centre(k + 1));
-        let (ya, yb) = (
-            i64::from(coarse.get(k).copied().unwrap_or(0)),
-            i64::from(coarse.get(k + 1).copied().unwrap_or(0)),
-        );
-        let span = b.saturating_sub(a).max(1) as i64;
-        let t = i as i64 - a as i64;
-        (ya + ((yb - ya) * t).div_euclid(span)).clamp(i64::from(i32::MIN), i64::from(i32::MAX))
-            as i32
-    };
-    let c0 = centre(0).min(n);
-    let cl = centre(nb.saturating_sub(1)).min(n);
     if nb < 2 {
         base.fill(coarse.first().copied().unwrap_or(0));
         return;
     }
-    for (i, v) in base.iter_mut().enumerate().take(c0) {
-        *v = line(0, i);
-    }
-    for (i, v) in base.iter_mut().enumerate().skip(cl) {
-        *v = line(nb - 2, i);
-    }
-    for k in 0..nb.saturating_sub(1) {
-        let (a, b) = (centre(k), centre(k + 1));
+    // Segment k runs from centre k to centre k + 1; the first also covers the pixels before centre 0
+    // and the last those after the last centre.
+    for k in 0..nb - 1 {
         let (Some(&ya), Some(&yb)) = (coarse.get(k), coarse.get(k + 1)) else {
             break;
         };
+        let (a, b) = (centre(k), centre(k + 1));
+        let from = if k == 0 { 0 } else { a };
+        let to = if k + 2 == nb { n } else { b };
+        let seg = base.get_mut(from..to).unwrap_or(&mut []);
         let span = b.saturating_sub(a).max(1);
         let d = i64::from(yb) - i64::from(ya);
-        let seg = base.get_mut(a..b).unwrap_or(&mut []);
-        if span == COARSE_PX && d.unsigned_abs() < 1 << 26 {
-            // |d·t| < 2^30: 32-bit products, a shift for the division.
+        if span == COARSE_PX && d.unsigned_abs() < 1 << 26 && from == a {
+            // |d·t| < 2^30 for t < 16: 32-bit products, a shift for the division.
             let d32 = d as i32;
             for (t, v) in seg.iter_mut().enumerate() {
                 *v = ya.wrapping_add((d32 * t as i32) >> COARSE_SHIFT);
             }
         } else {
-            for (t, v) in seg.iter_mut().enumerate() {
-                let step = (d * t as i64).div_euclid(span as i64);
-                *v = (i64::from(ya) + step).clamp(i64::from(i32::MIN), i64::from(i32::MAX)) as i32;
-            }
+            ramp(seg, ya, d, span as i64, from as i64 - a as i64);
+        }
+    }
+}
+
+/// `out[j] = a + ⌊d · (t0 + j) / span⌋` (span > 0), stepped by one quotient and remainder: one
+/// division for the whole run. Loop bound: `out.len()`.
+fn ramp(out: &mut [i32], a: i32, d: i64, span: i64, t0: i64) {
+    if out.is_empty() || span <= 0 {
+        return;
+    }
+    // Quotient and remainder in 32 bits where they fit (a library division each either way).
+    let divmod = |x: i64| match (i32::try_from(x), i32::try_from(span)) {
+        (Ok(x), Ok(s)) => (i64::from(x.div_euclid(s)), i64::from(x.rem_euclid(s))),
+        _ => (x.div_euclid(span), x.rem_euclid(span)),
+    };
+    let (q, r) = divmod(d);
+    // The value and remainder at t0: a + ⌊d·t0/span⌋, (d·t0) mod span.
+    let (pq, pr) = if t0 == 1 { (q, r) } else { divmod(d.saturating_mul(t0)) };
+    let (mut v, mut acc) = (i64::from(a) + pq, pr);
+    for slot in out.iter_mut() {
+        *slot = v.clamp(i64::from(i32::MIN), i64::from(i32::MAX)) as i32;
+        v += q;
+        acc += r;
+        if acc >= span {
+            acc -= span;
+            v += 1;
         }
     }
 }
@@ -241,10 +247,7 @@ fn rounds(
 /// Loop bound: `gap.len()`.
 fn bridge(gap: &mut [i32], a: i32, b: i32) {
     let span = gap.len() as i64 + 1;
-    let d = i64::from(b) - i64::from(a);
-    for (t, v) in gap.iter_mut().enumerate() {
-        *v = (i64::from(a) + (d * (t as i64 + 1)).div_euclid(span)) as i32;
-    }
+    ramp(gap, a, i64::from(b) - i64::from(a), span, 1);
 }
 
 /// Whether a residual `r` stands more than [`CLIP_SIGMA`] σ above the baseline (σ² = `var_q8` / 256):

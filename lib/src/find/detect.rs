@@ -34,7 +34,15 @@ pub const NARROW: i32 = 1 << 25;
 pub fn smooth_residual(frame: &[i32], base: &[i32], out: &mut [i32]) {
     let n = out.len().min(frame.len()).min(base.len());
     let narrow = |v: &[i32]| v.iter().all(|&x| (-NARROW..=NARROW).contains(&x));
-    if n >= 5 && narrow(frame.get(..n).unwrap_or(&[])) && narrow(base.get(..n).unwrap_or(&[])) {
+    let both = narrow(frame.get(..n).unwrap_or(&[])) && narrow(base.get(..n).unwrap_or(&[]));
+    smooth_residual_known(frame, base, out, both);
+}
+
+/// [`smooth_residual`] when the caller already knows whether frame and baseline are within
+/// ±[`NARROW`] (`narrow`; a wrong `true` gives wrapped sums, never a panic).
+pub(crate) fn smooth_residual_known(frame: &[i32], base: &[i32], out: &mut [i32], narrow: bool) {
+    let n = out.len().min(frame.len()).min(base.len());
+    if n >= 5 && narrow {
         smooth_narrow(
             frame.get(..n).unwrap_or(&[]),
             base.get(..n).unwrap_or(&[]),
@@ -57,12 +65,23 @@ pub fn smooth_residual(frame: &[i32], base: &[i32], out: &mut [i32]) {
 /// [`smooth_residual`] in 32 bits for `n ≥ 5` values within ±[`NARROW`] (the same integers): the
 /// five residuals in reach ride along in registers.
 fn smooth_narrow(frame: &[i32], base: &[i32], out: &mut [i32]) {
-    let r = |j: usize| frame.get(j).copied().unwrap_or(0) - base.get(j).copied().unwrap_or(0);
+    let r = |j: usize| {
+        frame
+            .get(j)
+            .copied()
+            .unwrap_or(0)
+            .wrapping_sub(base.get(j).copied().unwrap_or(0))
+    };
     let n = frame.len();
     // Window r[i−2 … i+2] for i = 0, edges replicated.
     let (mut a, mut b, mut c, mut d, mut e) = (r(0), r(0), r(0), r(1), r(2));
     for (i, o) in out.iter_mut().enumerate().take(n) {
-        *o = a + 2 * b + 3 * c + 2 * d + e;
+        // Wrapping: exact within ±NARROW, and no overflow check left behind otherwise.
+        *o = a
+            .wrapping_add(b.wrapping_mul(2))
+            .wrapping_add(c.wrapping_mul(3))
+            .wrapping_add(d.wrapping_mul(2))
+            .wrapping_add(e);
         let next = r((i + 3).min(n - 1));
         (a, b, c, d, e) = (b, c, d, e, next);
     }

@@ -141,8 +141,7 @@ fn rsqrt_parts(v: u64) -> (i32, u32) {
 struct Shape {
     mu_q16: i64,
     s_q16: i64,
-    /// 1/s in Q14 (s ≥ 2^12, so < 2^18).
-    inv_s_q14: i32,
+    inv_s: InvSigma,
     height_q8: i64,
 }
 
@@ -152,7 +151,7 @@ impl Shape {
         Self {
             mu_q16: f.center_q16,
             s_q16: s,
-            inv_s_q14: i32::try_from((1i64 << 30) / s).unwrap_or(i32::MAX),
+            inv_s: InvSigma::new(s),
             height_q8: f.height_q8,
         }
     }
@@ -163,7 +162,7 @@ impl Shape {
         if dx.abs() > 8 * self.s_q16 {
             return 0;
         }
-        let g = exp_neg_q14(half_square_q12(u_q14(dx, self.inv_s_q14)));
+        let g = exp_neg_q14(half_square_q12(u_q14(dx, &self.inv_s)));
         // |height| < 2^47 for any frame of i32 values; g ≤ 2^14.
         (self.height_q8.clamp(-(1 << 47), 1 << 47) * i64::from(g)) >> 22
     }
@@ -174,12 +173,38 @@ impl Shape {
 /// The centre keeps its full Q16 resolution: `dx` is split into 256ths so each 32-bit product stays
 /// below 2^26 (|dx| ≤ 8 s gives |dx / 2^8 · 1/s| ≤ 2^25).
 #[inline]
-fn u_q14(dx_q16: i64, inv_s_q14: i32) -> i32 {
+fn u_q14(dx_q16: i64, inv: &InvSigma) -> i32 {
+    const LIMIT: i32 = (1 << 17) - 1;
     let dx = dx_q16.clamp(-(1 << 30), 1 << 30) as i32;
     let (dh, dl) = (dx >> 8, dx & 255);
-    let hi = i64::from(dh) * i64::from(inv_s_q14);
-    let lo = (dl * inv_s_q14) >> 8;
-    ((hi + i64::from(lo)) >> 8).clamp(-(1 << 17) + 1, (1 << 17) - 1) as i32
+    // |dh| < 2^13 (32 px, wider than any window) and 1/s < 2^18 keep dh · 1/s below 2^31; beyond
+    // 2^26 (u ≥ 2^18 in Q14) the clamp is reached anyway.
+    if dh.unsigned_abs() >= 1 << 13 {
+        return if dx < 0 { -LIMIT } else { LIMIT };
+    }
+    let hi = dh * inv.q14;
+    if hi.unsigned_abs() >= 1 << 26 {
+        return if dx < 0 { -LIMIT } else { LIMIT };
+    }
+    let lo = (dl * inv.q14) >> 8;
+    ((hi + lo) >> 8).clamp(-LIMIT, LIMIT)
+}
+
+/// 1/s in Q14 (s ≥ 2^12 Q16 px, so ≤ 2^18), taken once per fit step.
+#[derive(Clone, Copy)]
+struct InvSigma {
+    q14: i32,
+}
+
+impl InvSigma {
+    fn new(s_q16: i64) -> Self {
+        let q = Recip::new(s_q16.clamp(1 << 12, 1 << 40))
+            .and_then(|r| r.scale(1, 30))
+            .unwrap_or(1);
+        Self {
+            q14: i32::try_from(q).unwrap_or(1 << 18).clamp(1, 1 << 18),
+        }
+    }
 }
 
 /// u²/2 in Q12 for u in Q14 (|u| < 2^17): (|u|/2)² < 2^32 fits `u32`.
@@ -358,23 +383,30 @@ fn run(
     let mut converged = false;
     let mut steps = 0u8;
     let mut weights: Option<Weights> = None;
-    // Noise σ at the best pixel (frame units × 16), for the settling test; set with the first weights.
-    let mut sd_q4 = 0i64;
+    // Settling tolerances for the centre (Q16 px) and the height (Q8), set with the first weights.
+    let (mut tol_mu, mut tol_a) = (SETTLED_Q16, 0i64);
     // The last step's centre pivot (and its scale) and the weights it used: the centre's σ.
     let mut last: Option<(Solved, i64)> = None;
     for _ in 0..max_steps.min(ITERATIONS) {
         steps += 1;
+        let model = Model::new(&p, reduce);
         if steps <= WEIGHT_STEPS || weights.is_none() {
-            let w = weigh(win, d.noise, &p, reduce);
+            let w = weigh(win, d.noise, &p, &model, reduce);
             if steps == 1 {
-                sd_q4 = super::math::isqrt_i64(w.var_ref_q8);
+                // Settling tolerances (see below) from the start: they only need the noise scale.
+                let sd_q4 = super::math::isqrt_i64(w.var_ref_q8);
+                tol_mu = Recip::new(start.a_q8.max(1))
+                    .and_then(|r| r.scale(start.s_q16 * sd_q4, 1))
+                    .unwrap_or(0)
+                    .max(SETTLED_Q16);
+                tol_a = sd_q4 << 1;
             }
             weights = Some(w);
         }
         let Some(wt) = weights.as_ref() else {
             break;
         };
-        let nm = normal(win, wt, &p, reduce);
+        let nm = normal(win, wt, &p, &model, reduce);
         if nm.used < MIN_PIXELS {
             break;
         }
@@ -402,15 +434,12 @@ fn run(
             break;
         }
         // Settled: each parameter moved by less than about 1/8 of its noise scatter (σ/A of a
-        // relative parameter: the centre by s·σ/(8A), the height by σ/8), and at least by the band
-        // the 32-bit model's own rounding leaves a noiseless fit bouncing in (2^-12 px, 2^-10
-        // relative).
-        let tol_mu = (p.s_q16 * sd_q4 * 2) / p.a_q8.max(1);
-        let tol_a = (sd_q4 << 1).max(before.a_q8 >> 10);
-        let tol_s = (tol_mu.max(0)).max(before.s_q16 >> 10);
-        let settled = (p.mu_q16 - before.mu_q16).abs() <= tol_mu.max(SETTLED_Q16)
-            && (p.a_q8 - before.a_q8).abs() <= tol_a
-            && (p.s_q16 - before.s_q16).abs() <= tol_s;
+        // relative parameter: the centre and the width by s·σ/(8A), the height by σ/8, taken at the
+        // start), and at least by the band the 32-bit model's own rounding leaves a noiseless fit
+        // bouncing in (2^-12 px, 2^-10 relative).
+        let settled = (p.mu_q16 - before.mu_q16).abs() <= tol_mu
+            && (p.a_q8 - before.a_q8).abs() <= tol_a.max(before.a_q8 >> 10)
+            && (p.s_q16 - before.s_q16).abs() <= tol_mu.max(before.s_q16 >> 10);
         if settled {
             converged = true;
             break;
@@ -439,7 +468,7 @@ fn reduced(v_q8: i64, reduce: u32) -> i32 {
 
 /// The line (without offset) in reduced units at the window's pixels, with its Jacobian, for `p`.
 struct Model {
-    inv_s_q14: i32,
+    inv_s: InvSigma,
     a_red: i32,
     c_red: i32,
 }
@@ -447,7 +476,7 @@ struct Model {
 impl Model {
     fn new(p: &Params, reduce: u32) -> Self {
         Self {
-            inv_s_q14: i32::try_from((1i64 << 30) / p.s_q16.max(1 << 12)).unwrap_or(i32::MAX),
+            inv_s: InvSigma::new(p.s_q16),
             a_red: reduced(p.a_q8, reduce).max(1),
             c_red: reduced(p.c_q8, reduce),
         }
@@ -457,7 +486,7 @@ impl Model {
     #[inline]
     fn shape(&self, p: &Params, i: usize) -> (i32, i32, i32) {
         let dx = ((i as i64) << 16) - p.mu_q16;
-        let u = u_q14(dx, self.inv_s_q14);
+        let u = u_q14(dx, &self.inv_s);
         let g = exp_neg_q14(half_square_q12(u));
         // |g·u| ≤ 2^14 · (2^17 − 1) < 2^31; |g·u| peaks at 0.61 (Q14 < 10^4), so |gu·u| < 2^31 too.
         let gu = (g * u) >> 14;
@@ -469,8 +498,7 @@ impl Model {
 /// Whitening factors from the noise model at baseline + current line: τ ∝ 1/σ, the largest 4096-ish.
 ///
 /// Loop bound: 2 passes over the window.
-fn weigh(win: &Window, noise: &NoiseModel, p: &Params, reduce: u32) -> Weights {
-    let model = Model::new(p, reduce);
+fn weigh(win: &Window, noise: &NoiseModel, p: &Params, model: &Model, reduce: u32) -> Weights {
     let mut parts = [(0i32, 0u32); W];
     let mut vars = [0i64; W];
     let mut top = 0u32;
@@ -514,13 +542,19 @@ fn weigh(win: &Window, noise: &NoiseModel, p: &Params, reduce: u32) -> Weights {
 /// each product < 2^24 (sums over ≤ 33 px < 2^30); |ε| = |e·τ| < 2^17 · 2^12.
 ///
 /// Loop bound: one pass over the window.
-fn normal(win: &Window, wt: &Weights, p: &Params, reduce: u32) -> Normal {
-    let model = Model::new(p, reduce);
+fn normal(win: &Window, wt: &Weights, p: &Params, model: &Model, reduce: u32) -> Normal {
     let mut nm = Normal {
         n: [[0; 4]; 4],
         b: [0; 4],
         used: 0,
     };
+    // The ten upper-triangle sums and the gradient, written out so they stay in registers and
+    // 32-bit adds. ε = ε_h · 2^13 + ε_l splits each gradient product into two 32-bit ones: the
+    // high sums (< 2^28 per pixel) add into i64, the low ones (< 2^25) into i32.
+    let (mut n00, mut n01, mut n02, mut n03, mut n11) = (0i32, 0i32, 0i32, 0i32, 0i32);
+    let (mut n12, mut n13, mut n22, mut n23, mut n33) = (0i32, 0i32, 0i32, 0i32, 0i32);
+    let mut bh = [0i64; 4];
+    let mut bl = [0i32; 4];
     for (k, (&r, &tau)) in win.resid.iter().zip(wt.tau.iter()).enumerate().take(win.len) {
         if r == UNUSABLE || tau == 0 {
             continue;
@@ -530,24 +564,35 @@ fn normal(win: &Window, wt: &Weights, p: &Params, reduce: u32) -> Normal {
         let m = ((model.a_red * g) >> 14) + model.c_red;
         let e = (r_red - m).clamp(-(1 << 17), 1 << 17);
         let eps = e * tau;
-        let j = [g, gu, guu, 1 << 14].map(|v| (v * tau) >> 14);
-        for (r_idx, (row, &jr)) in nm.n.iter_mut().zip(&j).enumerate() {
-            for (cell, &jc) in row.iter_mut().zip(&j).skip(r_idx) {
-                *cell += jr * jc;
-            }
-        }
-        for (bv, &jr) in nm.b.iter_mut().zip(&j) {
-            *bv += mul_i32_wide(jr, eps);
+        let (eh, el) = (eps >> 13, eps & 0x1fff);
+        let j0 = (g * tau) >> 14;
+        let j1 = (gu * tau) >> 14;
+        let j2 = (guu * tau) >> 14;
+        let j3 = tau;
+        n00 += j0 * j0;
+        n01 += j0 * j1;
+        n02 += j0 * j2;
+        n03 += j0 * j3;
+        n11 += j1 * j1;
+        n12 += j1 * j2;
+        n13 += j1 * j3;
+        n22 += j2 * j2;
+        n23 += j2 * j3;
+        n33 += j3 * j3;
+        for ((h, l), j) in bh.iter_mut().zip(bl.iter_mut()).zip([j0, j1, j2, j3]) {
+            *h += i64::from(j * eh);
+            *l += j * el;
         }
         nm.used += 1;
     }
-    for r in 1..4 {
-        for c in 0..r {
-            let upper = nm.n.get(c).and_then(|row| row.get(r)).copied().unwrap_or(0);
-            if let Some(cell) = nm.n.get_mut(r).and_then(|row| row.get_mut(c)) {
-                *cell = upper;
-            }
-        }
+    nm.n = [
+        [n00, n01, n02, n03],
+        [n01, n11, n12, n13],
+        [n02, n12, n22, n23],
+        [n03, n13, n23, n33],
+    ];
+    for ((b, &h), &l) in nm.b.iter_mut().zip(bh.iter()).zip(bl.iter()) {
+        *b = (h << 13) + i64::from(l);
     }
     nm
 }
@@ -564,59 +609,44 @@ struct Solved {
     mu_shift: u32,
 }
 
-fn bit_len(v: u64) -> u32 {
-    64 - v.leading_zeros()
-}
-
-/// `a · b / 2^30`, `None` beyond `i64`.
-fn mul_shr30(a: i64, b: i64) -> Option<i64> {
-    if a.unsigned_abs() < 1 << 32 && b.unsigned_abs() < 1 << 31 {
-        return Some((a * b) >> 30);
-    }
-    i64::try_from((i128::from(a) * i128::from(b)) >> 30).ok()
-}
-
-/// Solves the step `N x = b / A` by Gaussian elimination on `S N S` (S = diag 2^d puts every diagonal
-/// in [2^27, 2^30), so no row loses its digits) with `b` normalised to [2^30, 2^31); `None` when `N`
-/// is not positive definite to the arithmetic's precision.
+/// Solves the step `N x = b / A` by symmetric Gaussian elimination on `S N S` (S = diag 2^d puts
+/// every diagonal in [2^27, 2^30), so no row loses its digits; the entries of a positive-definite
+/// matrix and of its Schur complements then stay below 2^30, in `i32`) with `b` normalised into
+/// [2^30, 2^31); `None` when `N` is not positive definite to the arithmetic's precision or a value
+/// leaves its range (an ill-conditioned step, which ends the fit).
 ///
-/// Loop bound: a fixed 4 × 4 elimination; five library divisions (a reciprocal per pivot and one for
-/// A), everything else 32 × 32-bit products.
+/// Loop bound: a fixed 4 × 4 elimination — five reciprocals (one 32-bit division each), 16 updates
+/// and 6 back-substitution products, all 32 × 32 → 64-bit.
 fn solve(nm: &Normal, a_red: i32) -> Option<Solved> {
-    let at = |r: usize, c: usize| {
-        i64::from(
-            nm.n.get(r)
-                .and_then(|row| row.get(c))
-                .copied()
-                .unwrap_or(0),
-        )
-    };
+    let at = |r: usize, c: usize| nm.n.get(r).and_then(|row| row.get(c)).copied().unwrap_or(0);
     let mut d = [0u32; 4];
     for (dk, &p) in d.iter_mut().zip(ORDER.iter()) {
         let diag = at(p, p);
         if diag <= 0 {
             return None;
         }
-        *dk = 29u32.saturating_sub(bit_len(diag.unsigned_abs())) / 2;
+        *dk = 29u32.saturating_sub(32 - diag.leading_zeros()) / 2;
     }
-    let mut m = [[0i64; 4]; 4];
+    // Upper triangle of S N S (|entries| < 2^30: |N_ij| ≤ sqrt(N_ii N_jj)).
+    let mut m = [[0i32; 4]; 4];
     for (i, row) in m.iter_mut().enumerate() {
-        for (j, cell) in row.iter_mut().enumerate() {
+        for (j, cell) in row.iter_mut().enumerate().skip(i) {
             let (pi, pj) = (ORDER.get(i).copied()?, ORDER.get(j).copied()?);
-            *cell = at(pi, pj) << (d.get(i)? + d.get(j)?);
+            *cell = at(pi, pj).checked_shl(d.get(i)? + d.get(j)?)?;
         }
     }
     // b scaled by S (|b| < 2^47 from the bounds in `normal`, d ≤ 14: < 2^61), then by a common power
     // of two into [2^30, 2^31).
-    let mut bn = [0i64; 4];
-    for (i, bv) in bn.iter_mut().enumerate() {
+    let mut wide = [0i64; 4];
+    for (i, bv) in wide.iter_mut().enumerate() {
         let v = nm.b.get(ORDER.get(i).copied()?).copied()?;
         *bv = v.checked_mul(1 << d.get(i)?)?;
     }
-    let top = bn.iter().map(|v| bit_len(v.unsigned_abs())).max()?;
+    let top = wide.iter().map(|v| 64 - v.unsigned_abs().leading_zeros()).max()?;
     let bs = top as i32 - 31;
-    for v in bn.iter_mut() {
-        *v = if bs >= 0 { *v >> bs } else { *v << -bs };
+    let mut bn = [0i64; 4];
+    for (o, &v) in bn.iter_mut().zip(wide.iter()) {
+        *o = if bs >= 0 { v >> bs } else { v << -bs };
     }
     let mut recips = [Recip::ONE; 4];
     for p in 0..4 {
@@ -624,41 +654,59 @@ fn solve(nm: &Normal, a_red: i32) -> Option<Solved> {
         if piv < 1 << 8 {
             return None;
         }
-        let rp = Recip::new(piv)?;
+        let rp = Recip::new(i64::from(piv))?;
         *recips.get_mut(p)? = rp;
+        let bp = bn.get(p).copied()?;
         for i in p + 1..4 {
-            // f = M_ip / piv in Q30.
-            let f = rp.scale(m.get(i)?.get(p).copied()?, 30)?;
-            for j in p + 1..4 {
-                let upd = mul_shr30(f, m.get(p)?.get(j).copied()?)?;
+            let mpi = m.get(p)?.get(i).copied()?;
+            // M_ij −= M_pi · M_pj / piv over the upper triangle (M_ip = M_pi).
+            for j in i..4 {
+                let mpj = m.get(p)?.get(j).copied()?;
+                let upd = rp.scale(mul_i32_wide(mpi, mpj), 0)?;
                 let cell = m.get_mut(i)?.get_mut(j)?;
-                *cell = cell.checked_sub(upd)?;
+                *cell = i32::try_from(i64::from(*cell) - upd).ok()?;
             }
-            let upd = mul_shr30(f, bn.get(p).copied()?)?;
+            // b grows past 32 bits as it is eliminated: the product is taken in two 32-bit parts.
+            let upd = match i32::try_from(bp) {
+                Ok(b32) => rp.scale(mul_i32_wide(mpi, b32), 0)?,
+                Err(_) => {
+                    let (hi, lo) = (bp >> 31, (bp & ((1 << 31) - 1)) as i32);
+                    let hi = i32::try_from(hi).ok()?;
+                    rp.scale(mul_i32_wide(mpi, hi), 31)?
+                        .checked_add(rp.scale(mul_i32_wide(mpi, lo), 0)?)?
+                }
+            };
             let cell = bn.get_mut(i)?;
             *cell = cell.checked_sub(upd)?;
         }
     }
-    // Back substitution, y in Q20.
-    let mut y = [0i64; 4];
+    // Back substitution, y in Q20 (|y| < 2^31 or the step is refused).
+    let mut y = [0i32; 4];
     for i in (0..4).rev() {
-        let mut acc = bn.get(i)?.checked_mul(1 << 20)?;
-        for j in i + 1..4 {
-            acc = acc.checked_sub(m.get(i)?.get(j)?.checked_mul(*y.get(j)?)?)?;
+        let b = bn.get(i).copied()?;
+        if b.unsigned_abs() >= 1 << 40 {
+            return None;
         }
-        *y.get_mut(i)? = recips.get(i)?.scale(acc, 0)?;
+        let mut acc = b << 20;
+        for j in i + 1..4 {
+            let (mij, yj) = (m.get(i)?.get(j).copied()?, y.get(j).copied()?);
+            acc = acc.checked_sub(mul_i32_wide(mij, yj))?;
+        }
+        *y.get_mut(i)? = i32::try_from(recips.get(i)?.scale(acc, 0)?).ok()?;
     }
     // x_real = y · 2^(d + bs − 20); the step relative to A in Q16: × 2^16 / A.
     let ra = Recip::new(i64::from(a_red.max(1)))?;
     let mut x = [0i64; 4];
     for (i, &yi) in y.iter().enumerate() {
         let sh = d.get(i).copied()? as i32 + bs - 4;
-        let q = ra.scale(yi, sh).unwrap_or(if yi < 0 { -(1 << 40) } else { 1 << 40 });
+        let q = ra
+            .scale(i64::from(yi), sh)
+            .unwrap_or(if yi < 0 { -(1 << 40) } else { 1 << 40 });
         *x.get_mut(ORDER.get(i).copied()?)? = q.clamp(-(1 << 40), 1 << 40);
     }
     Some(Solved {
         x,
-        mu_pivot: m.get(3)?.get(3).copied()?,
+        mu_pivot: i64::from(m.get(3)?.get(3).copied()?),
         mu_shift: d.get(3).copied()?,
     })
 }
@@ -667,16 +715,19 @@ fn solve(nm: &Normal, a_red: i32) -> Option<Solved> {
 /// whitened noise, `[N⁻¹]μμ = 2^(2d) / pivot`; everything in frame units (reduced units cancel).
 #[inline(never)]
 fn center_sigma(sol: &Solved, wt: &Weights, p: &Params) -> Option<i64> {
-    if sol.mu_pivot <= 0 {
+    if sol.mu_pivot <= 0 || sol.mu_pivot >= 1 << 30 {
         return None;
     }
-    // sqrt(var_q8 · 2^(2d) / pivot) · 2^16 = σ (frame units, ×16) · 2^d / sqrt(pivot) · 2^16.
-    let num = u128::try_from(wt.var_ref_q8.max(1)).ok()? << (2 * sol.mu_shift + 32);
-    let root = crate::fixed::isqrt_u128(num / u128::try_from(sol.mu_pivot).ok()?);
-    // σ_μ = s · root · τ_ref / (16 · 2^16) / A, with A = a_q8 / 256: s · root · τ_ref / (2^12 · a_q8).
-    let v = u128::try_from(p.s_q16.max(1)).ok()? * root * u128::try_from(wt.tau_ref.max(0)).ok()?;
-    let sig = v / (u128::try_from(p.a_q8.max(1)).ok()? << 12);
-    Some(i64::try_from(sig).unwrap_or(i64::MAX).max(1))
+    // sqrt(var_q8) = σ × 16 (frame units, < 2^26) and sqrt(pivot · 2^32) = sqrt(pivot) · 2^16 as
+    // 64-bit roots; in Q16, σ_μ = s_q16 · sqrt(var_q8) · τ_ref · 2^(d + 20) / (sqrt(pivot · 2^32) · a_q8).
+    let sv = crate::fixed::isqrt_u128(u128::try_from(wt.var_ref_q8.max(1)).ok()?) as i64;
+    let sp = crate::fixed::isqrt_u128(u128::try_from(sol.mu_pivot).ok()? << 32) as i64;
+    // s < 2^21 and τ ≤ 2^12: s·τ < 2^33; × sv (< 2^26) < 2^59.
+    let num = (p.s_q16.clamp(1, 1 << 21) * i64::from(wt.tau_ref.clamp(0, 1 << 12)))
+        .checked_mul(sv.min(1 << 26))?;
+    let q = Recip::new(sp.max(1))?.scale(num, 10)?;
+    let sig = Recip::new(p.a_q8.max(1))?.scale(q, sol.mu_shift as i32 + 10)?;
+    Some(sig.max(1))
 }
 
 /// Height (Q8) × σ (Q16) × sqrt(2π) → area in frame units × px.

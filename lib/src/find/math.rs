@@ -197,33 +197,36 @@ pub fn clamp_i32(v: i64) -> i32 {
     v.clamp(i64::from(i32::MIN), i64::from(i32::MAX)) as i32
 }
 
-/// A reciprocal for repeated division by one positive `d < 2^30`: `d = n · 2^-t` with `n` in
-/// [2^29, 2^30) and `r ≈ 2^60 / n` in (2^30, 2^31], so `v / d ≈ v · r · 2^t / 2^60` (relative error
-/// < 2^-29) from 32 × 32-bit products. `r` comes from one 32-bit division and a Newton step, not a
-/// 64-bit library division (~1000 instructions on the Cortex-M0).
+/// A reciprocal for repeated division by one positive `d < 2^62`: `d ≈ n · 2^-t` with `n` in
+/// [2^29, 2^30) (`t` < 0 drops the low bits of a wider `d`) and `r ≈ 2^60 / n` in (2^30, 2^31], so
+/// `v / d ≈ v · r · 2^t / 2^60` (relative error < 2^-28) from 32 × 32-bit products. `r` comes from
+/// one 32-bit division (~170 instructions on the Cortex-M0) and a Newton step, not a 64-bit library
+/// division (~730).
 #[derive(Clone, Copy)]
 pub struct Recip {
     r: i64,
-    t: u32,
+    t: i32,
 }
 
 impl Recip {
     /// Division by 1.
     pub const ONE: Self = Self { r: 1 << 31, t: 29 };
 
-    /// `None` unless 0 < `d` < 2^30.
+    /// `None` unless 0 < `d` < 2^62.
     pub fn new(d: i64) -> Option<Self> {
-        if d <= 0 || d >= 1 << 30 {
+        if d <= 0 || d >= 1 << 62 {
             return None;
         }
-        let t = (d.leading_zeros() - 34).min(29);
-        let n = d << t;
+        let t = d.leading_zeros() as i32 - 34;
+        let n = if t >= 0 { d << t } else { d >> -t };
         // x0 = 2^46 / (n >> 14) · 2^14 ≈ 2^60 / n to 2^-15; one Newton step x += x·(2^60 − n·x) / 2^60
         // squares the error (n·x0 < 2^61; the correction's factors stay below 2^32 and 2^17).
         let n16 = u32::try_from(n >> 14).ok()?.max(1);
-        let x0 = i64::from(u32::MAX / n16) << 14;
-        let e = (1i64 << 60) - n * x0;
-        let r = x0 + ((x0 * (e >> 29)) >> 31);
+        let x0 = u64::from(u32::MAX / n16) << 14; // < 2^32
+        let e = (1i64 << 60) - mul_u32_wide(n as u32, x0 as u32) as i64;
+        let c = e >> 29; // |c| < 2^17
+        let corr = mul_u32_wide(x0 as u32, c.unsigned_abs() as u32) as i64 >> 31;
+        let r = x0 as i64 + if c < 0 { -corr } else { corr };
         Some(Self { r, t })
     }
 
@@ -232,10 +235,12 @@ impl Recip {
         let m = v.unsigned_abs();
         let r = self.r.unsigned_abs();
         // v · r / 2^s; m · r is split at 2^31 so each partial product fits 64 bits.
-        let s = 60 - self.t as i32 - k;
+        let s = 60 - self.t - k;
         let (hi, lo) = (m >> 31, m & ((1 << 31) - 1));
+        // Both factors of each partial product are below 2^32 (r ≤ 2^31, hi < 2^31).
+        let wide = |a: u64| mul_u32_wide(a as u32, r as u32);
         let q = if hi == 0 {
-            let p = lo * r;
+            let p = wide(lo);
             if s >= 0 {
                 p.checked_shr(s as u32).unwrap_or(0)
             } else {
@@ -244,9 +249,9 @@ impl Recip {
             }
         } else if s >= 31 {
             let s = s as u32;
-            ((hi * r) >> (s - 31)) + (lo * r).checked_shr(s).unwrap_or(0)
+            (wide(hi) >> (s - 31)) + wide(lo).checked_shr(s).unwrap_or(0)
         } else {
-            let p = (u128::from(hi * r) << 31) + u128::from(lo * r);
+            let p = (u128::from(wide(hi)) << 31) + u128::from(wide(lo));
             let q = if s >= 0 {
                 p >> s
             } else {
@@ -283,7 +288,15 @@ mod tests {
                 }
             }
         }
-        assert!(Recip::new(0).is_none() && Recip::new(1 << 30).is_none());
+        assert!(Recip::new(0).is_none() && Recip::new(1 << 62).is_none());
+        // Wide divisors keep the relative precision.
+        for d in [1i64 << 30, (1 << 40) + 12_345, (1 << 61) - 1] {
+            let r = Recip::new(d).unwrap();
+            let v = (1i64 << 61) - 17;
+            let exact = (i128::from(v) << 20) / i128::from(d);
+            let got = i128::from(r.scale(v, 20).unwrap());
+            assert!((got - exact).abs() <= exact.abs() / (1 << 27) + 1, "{d}: {got} vs {exact}");
+        }
     }
 
 

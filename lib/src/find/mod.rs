@@ -136,10 +136,17 @@ pub fn find_peaks(
     let mut cands: Vec<Candidate, MAX_CANDIDATES> = Vec::new();
     let mut truncated = false;
     // Two looks: the first finds the lines, the second re-estimates the noise away from them (dense
-    // strong lines inflate every block's second differences) and detects again with the better model.
+    // strong lines inflate every block's second differences) and, when that moved the model by more
+    // than 1/8, detects again with the better thresholds.
+    let narrow = frame
+        .iter()
+        .all(|&v| (-detect::NARROW..=detect::NARROW).contains(&v));
+    // The baseline and the smoothed residual are taken once: the noise model only sets the
+    // baseline's clip level, which the lines clear by far, while detection thresholds follow it.
+    baseline::estimate_baseline(frame, flag, &nm, 2 * fwhm_max_px, base, tmp);
+    // The baseline is made of means of frame values: within the frame's range.
+    detect::smooth_residual_known(frame, base, tmp, narrow);
     for look in 0..2 {
-        baseline::estimate_baseline(frame, flag, &nm, 2 * fwhm_max_px, base, tmp);
-        detect::smooth_residual(frame, base, tmp);
         cands.clear();
         truncated = detect::find_candidates(tmp, base, &nm, cfg, 4 * fwhm_max_px, &mut cands);
         if look == 1 || cands.is_empty() {
@@ -163,7 +170,14 @@ pub fn find_peaks(
         // Only the blocks the lines touch change.
         blocks.remeasure_masked(frame, flag, &mask);
         match blocks.model(shot) {
-            Some(better) => nm = better,
+            Some(better) => {
+                // A model within 1/8 of the first would move thresholds too little to look again.
+                let close = noise::within_eighth(&nm, &better);
+                nm = better;
+                if close {
+                    break;
+                }
+            }
             None => break,
         }
     }
@@ -190,8 +204,6 @@ pub fn find_peaks(
             .max(s_min)
             .min(s_max);
         let f = fit::fit_line(&data, c.pos, s0, s_min, s_max, budget.max(MIN_STEPS));
-        #[cfg(test)]
-        std::eprintln!("first pos {} steps {} conv {} lo {} hi {}", c.pos, f.steps, f.converged, f.lo, f.hi);
         budget = budget.saturating_sub(usize::from(f.steps));
         // Capacity: at most MAX_PEAKS candidates remain.
         let _ = fits.push((f, u16::try_from(c.pos).unwrap_or(u16::MAX)));
@@ -216,8 +228,6 @@ pub fn find_peaks(
             data.neighbours = [prev, next];
             // From the first fit, over its window: only the neighbours' share of the data changed.
             let refit = fit::refit_line(&data, &f, s_min, s_max, budget.max(MIN_STEPS));
-            #[cfg(test)]
-            std::eprintln!("refit steps {} conv {}", refit.steps, refit.converged);
             budget = budget.saturating_sub(usize::from(refit.steps));
             if let Some(slot) = fits.get_mut(k) {
                 slot.0 = refit;
@@ -485,15 +495,6 @@ mod tests {
         );
         // Bias well inside the scatter.
         assert!(st.bias_q16.abs() * 3 <= st.crlb_q16, "biased");
-    }
-
-    #[test]
-    fn dbg_htube() {
-        let raw = std::fs::read("/work/main/boards/pipeline-report/traces/h-tube.bin").unwrap();
-        let frame: std::vec::Vec<i32> = raw.chunks(2).map(|c| (u16::from_le_bytes([c[0], c[1]]) as i32) << 4).collect();
-        let cfg = FindConfig::for_line_fwhm(3 << 8);
-        let (out, rep) = run(&cfg, &frame);
-        std::eprintln!("peaks {} cands {}", out.len(), rep.candidates);
     }
 
     #[test]

@@ -157,6 +157,18 @@ impl NoiseBlocks {
     }
 }
 
+/// Whether two models have the same no-light level and floors and shot slopes within 1/8 of each
+/// other.
+pub fn within_eighth(a: &NoiseModel, b: &NoiseModel) -> bool {
+    let near = |x: i64, y: i64| x.abs_diff(y).saturating_mul(8) <= x.unsigned_abs().max(y.unsigned_abs());
+    a.zero_light_level == b.zero_light_level
+        && near(a.floor_var_q8, b.floor_var_q8)
+        && near(
+            i64::from(a.shot_var_per_unit_q16),
+            i64::from(b.shot_var_per_unit_q16),
+        )
+}
+
 /// Model for frames with no usable block (all saturated or too short): the smallest floor.
 pub fn fallback(known_shot_q16: Option<u32>) -> NoiseModel {
     NoiseModel {
@@ -326,9 +338,12 @@ fn fit(blocks: &mut [Block], known: Option<u32>) -> NoiseModel {
     for _ in 0..FIT_ROUNDS {
         // Reject blocks that lines inflate, judged against the current model.
         for b in blocks.iter_mut().filter(|b| b.used) {
-            let pred = i128::from(model.var_q8(b.level));
-            if mul_i128(i128::from(b.var_q8), 256) > mul_i128(pred, REJECT_ABOVE_Q8) {
-                b.used = false;
+            // var ≤ 2^50 keeps the left side in i64; a prediction too large to scale rejects nothing.
+            let pred = model.var_q8(b.level);
+            if let Some(limit) = pred.checked_mul(REJECT_ABOVE_Q8 as i64) {
+                if b.var_q8 * 256 > limit {
+                    b.used = false;
+                }
             }
         }
         if known.is_some() {
@@ -422,8 +437,13 @@ fn floor_given_shot(blocks: &[Block], k_q16: u32, zero: i64) -> i64 {
     for b in blocks.iter().filter(|b| b.used) {
         if let Some(s) = v.get_mut(n) {
             let light = b.level.saturating_sub(zero).max(0);
-            let shot = (i128::from(light) * i128::from(k_q16)) >> 8;
-            *s = (i128::from(b.var_q8) - shot).clamp(0, i128::from(i64::MAX)) as i64;
+            // One 32 × 32-bit product for the levels of ADC frames; i128 beyond.
+            let shot = match u32::try_from(light) {
+                Ok(l) => (super::math::mul_u32_wide(l, k_q16) >> 8) as i64,
+                Err(_) => ((i128::from(light) * i128::from(k_q16)) >> 8).min(i128::from(i64::MAX))
+                    as i64,
+            };
+            *s = b.var_q8.saturating_sub(shot).max(0);
             n += 1;
         }
     }
