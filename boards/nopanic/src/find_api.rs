@@ -69,6 +69,13 @@ fn building_blocks(c: &Conditioned, k: &Knobs) {
 
     let nm = noise::estimate(&c.values, &c.flags, &mask, c.shot_var_per_unit_q16)
         .unwrap_or(noise::fallback(c.shot_var_per_unit_q16));
+    let mut blocks = noise::NoiseBlocks::measure(&c.values, &c.flags, &LineMask::new());
+    blocks.remeasure_masked(&c.values, &c.flags, &mask);
+    let again = blocks
+        .model(c.shot_var_per_unit_q16)
+        .unwrap_or(noise::fallback(None));
+    keep_b(noise::within_eighth(&nm, &again));
+    keep(mask.word(k.mark.0 / 64));
     keep(nm.var_q8(i64::from(k.config.fwhm_max_px_q8)) as u64);
     keep(nm.sigma(i64::from(k.config.fwhm_min_px_q8)) as u64);
     keep(nm.floor_var_q8 as u64 ^ u64::from(nm.shot_var_per_unit_q16));
@@ -76,8 +83,8 @@ fn building_blocks(c: &Conditioned, k: &Knobs) {
 
     let mut base = [0i32; PIXELS];
     let mut tmp = [0i32; PIXELS];
-    let warm = k.reach > k.half;
-    baseline::estimate_baseline(&c.values, &c.flags, &nm, k.half, warm, &mut base, &mut tmp);
+    baseline::estimate_baseline(&c.values, &c.flags, &nm, k.half, &mut base, &mut tmp);
+    keep(baseline::coarse_cells(k.half) as u64);
     detect::smooth_residual(&c.values, &base, &mut tmp);
 
     let mut cands: Vec<detect::Candidate, { detect::MAX_CANDIDATES }> = Vec::new();
@@ -106,6 +113,9 @@ fn building_blocks(c: &Conditioned, k: &Knobs) {
         keep_b(f.converged);
         keep(u64::from(f.steps));
         keep(fit::area(&f) as u64);
+        let again = fit::refit_line(&data, &f, s_min, s_max, k.reach);
+        keep(again.center_q16 as u64 ^ again.center_sigma_q16 as u64);
+        keep(fit::exp_neg_q14(k.mark.1 as i32) as u64);
     }
 
     keep(math::exp_neg_q16(s0) as u64);
@@ -118,4 +128,6 @@ fn building_blocks(c: &Conditioned, k: &Knobs) {
     keep(math::div_round_i64(s0, k.den as i64) as u64);
     keep(math::clamp_i64(k.wide) as u64);
     keep(math::clamp_i32(s_max) as u64);
+    let r = math::Recip::new(k.den as i64).unwrap_or(math::Recip::ONE);
+    keep(r.scale(s0, (s_min & 63) as i32 - 32).unwrap_or(0) as u64);
 }

@@ -176,10 +176,17 @@ fn ramp(out: &mut [i32], a: i32, d: i64, span: i64, t0: i64) {
     if out.is_empty() || span <= 0 {
         return;
     }
-    // Quotient and remainder in 32 bits where they fit (a library division each either way).
+    // Quotient and remainder in 32 bits where they fit (a library division each either way); the
+    // checked forms keep the impossible cases (span ≤ 0, MIN / −1) from leaving a panic path.
     let divmod = |x: i64| match (i32::try_from(x), i32::try_from(span)) {
-        (Ok(x), Ok(s)) => (i64::from(x.div_euclid(s)), i64::from(x.rem_euclid(s))),
-        _ => (x.div_euclid(span), x.rem_euclid(span)),
+        (Ok(x), Ok(s)) => (
+            i64::from(x.checked_div_euclid(s).unwrap_or(0)),
+            i64::from(x.checked_rem_euclid(s).unwrap_or(0)),
+        ),
+        _ => (
+            x.checked_div_euclid(span).unwrap_or(0),
+            x.checked_rem_euclid(span).unwrap_or(0),
+        ),
     };
     let (q, r) = divmod(d);
     // The value and remainder at t0: a + ⌊d·t0/span⌋, (d·t0) mod span.

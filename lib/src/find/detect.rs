@@ -63,8 +63,13 @@ pub(crate) fn smooth_residual_known(frame: &[i32], base: &[i32], out: &mut [i32]
 }
 
 /// [`smooth_residual`] in 32 bits for `n ≥ 5` values within ±[`NARROW`] (the same integers): the
-/// five residuals in reach ride along in registers.
+/// five residuals in reach ride along in registers, the interior read through zipped slices (no
+/// bounds checks), the last two pixels replicating the edge.
 fn smooth_narrow(frame: &[i32], base: &[i32], out: &mut [i32]) {
+    let n = frame.len().min(base.len()).min(out.len());
+    if n < 5 {
+        return;
+    }
     let r = |j: usize| {
         frame
             .get(j)
@@ -72,18 +77,25 @@ fn smooth_narrow(frame: &[i32], base: &[i32], out: &mut [i32]) {
             .unwrap_or(0)
             .wrapping_sub(base.get(j).copied().unwrap_or(0))
     };
-    let n = frame.len();
-    // Window r[i−2 … i+2] for i = 0, edges replicated.
-    let (mut a, mut b, mut c, mut d, mut e) = (r(0), r(0), r(0), r(1), r(2));
-    for (i, o) in out.iter_mut().enumerate().take(n) {
+    let tap = |a: i32, b: i32, c: i32, d: i32, e: i32| {
         // Wrapping: exact within ±NARROW, and no overflow check left behind otherwise.
-        *o = a
-            .wrapping_add(b.wrapping_mul(2))
+        a.wrapping_add(b.wrapping_mul(2))
             .wrapping_add(c.wrapping_mul(3))
             .wrapping_add(d.wrapping_mul(2))
-            .wrapping_add(e);
-        let next = r((i + 3).min(n - 1));
-        (a, b, c, d, e) = (b, c, d, e, next);
+            .wrapping_add(e)
+    };
+    // Window r[i−2 … i+2] for i = 0, edges replicated.
+    let (mut a, mut b, mut c, mut d, mut e) = (r(0), r(0), r(0), r(1), r(2));
+    let ahead = frame.get(3..n).unwrap_or(&[]).iter().zip(base.get(3..n).unwrap_or(&[]));
+    let (body, tail) = out.split_at_mut(n - 3);
+    for (o, (&y, &bb)) in body.iter_mut().zip(ahead) {
+        *o = tap(a, b, c, d, e);
+        (a, b, c, d, e) = (b, c, d, e, y.wrapping_sub(bb));
+    }
+    let last = r(n - 1);
+    for o in tail.iter_mut().take(3) {
+        *o = tap(a, b, c, d, e);
+        (a, b, c, d, e) = (b, c, d, e, last);
     }
 }
 

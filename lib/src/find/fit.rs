@@ -28,9 +28,10 @@ const MIN_PIXELS: usize = 6;
 const SETTLED_Q16: i64 = 16;
 /// Window cells.
 const W: usize = 2 * MAX_HALF + 1;
-/// Steps that refresh the weights from the current model (later steps move the model by less than
-/// the weights' own 0.4 % table precision).
-const WEIGHT_STEPS: u8 = 2;
+/// Steps that take the weights from the current model: the first, from the start (three-pixel
+/// parabola and half-width), which is within a few per cent of the final line; weights that are off
+/// by that cost a fraction of a per cent of efficiency and no bias.
+const WEIGHT_STEPS: u8 = 1;
 
 /// Result of one fit.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -130,8 +131,19 @@ const fn rsqrt_table() -> [u16; 192] {
 #[inline]
 fn rsqrt_parts(v: u64) -> (i32, u32) {
     let v = v.max(1);
-    let lz = v.leading_zeros() & !1;
-    let top = ((v << lz) >> 56) as usize; // in [64, 256)
+    // The variances of ADC frames fit 32 bits: 32-bit count and shift (a 64-bit shift is a library
+    // call on the M0); the same (m, h) as the general path.
+    let (lz, top) = match u32::try_from(v) {
+        Ok(v32) => {
+            let lz = (v32.leading_zeros() & !1) + 32;
+            (lz, ((v32 << (lz - 32)) >> 24) as usize)
+        }
+        Err(_) => {
+            let lz = v.leading_zeros() & !1;
+            (lz, ((v << lz) >> 56) as usize)
+        }
+    };
+    // top in [64, 256)
     let m = i32::from(RSQRT_Q15.get(top.saturating_sub(64)).copied().unwrap_or(1 << 14));
     (m, lz / 2)
 }
@@ -482,6 +494,13 @@ impl Model {
         }
     }
 
+    /// `g` in Q14 at pixel `i` (the profile alone, for the weights).
+    #[inline]
+    fn height(&self, p: &Params, i: usize) -> i32 {
+        let dx = ((i as i64) << 16) - p.mu_q16;
+        exp_neg_q14(half_square_q12(u_q14(dx, &self.inv_s)))
+    }
+
     /// `(g, g·u, g·u²)` in Q14 at pixel `i`.
     #[inline]
     fn shape(&self, p: &Params, i: usize) -> (i32, i32, i32) {
@@ -512,9 +531,15 @@ fn weigh(win: &Window, noise: &NoiseModel, p: &Params, model: &Model, reduce: u3
         if win.resid_at(k).is_none() {
             continue;
         }
-        let (g, _, _) = model.shape(p, win.lo + k);
-        // The line in frame units: reduced units × 2^reduce (reduce ≤ 16, so < 2^46).
-        let line = (i64::from(model.a_red * g) << reduce.min(16)) >> 14;
+        let g = model.height(p, win.lo + k);
+        // The line in frame units: reduced units × 2^reduce (reduce ≤ 16, so < 2^46); a 32-bit
+        // shift where the product leaves room.
+        let ag = model.a_red * g;
+        let line = if reduce == 0 {
+            i64::from(ag >> 14)
+        } else {
+            (i64::from(ag) << reduce.min(16)) >> 14
+        };
         *var = noise.var_q8(i64::from(base).saturating_add(line.max(0)));
         *part = rsqrt_parts(var.unsigned_abs());
         top = top.max(part.1);
@@ -602,112 +627,111 @@ fn normal(win: &Window, wt: &Weights, p: &Params, model: &Model, reduce: u32) ->
 const ORDER: [usize; 4] = [0, 2, 3, 1];
 
 /// A solved step: `x` = relative parameter changes (Q16, order A, μ, s, c), and the centre's final
-/// pivot `mu_pivot` of the matrix scaled by 2^`mu_shift` on the centre's row and column.
+/// pivot: `[N⁻¹]μμ = 2^(2·mu_shift) / mu_pivot`.
 struct Solved {
     x: [i64; 4],
     mu_pivot: i64,
-    mu_shift: u32,
+    mu_shift: i32,
 }
 
-/// Solves the step `N x = b / A` by symmetric Gaussian elimination on `S N S` (S = diag 2^d puts
-/// every diagonal in [2^27, 2^30), so no row loses its digits; the entries of a positive-definite
-/// matrix and of its Schur complements then stay below 2^30, in `i32`) with `b` normalised into
-/// [2^30, 2^31); `None` when `N` is not positive definite to the arithmetic's precision or a value
-/// leaves its range (an ill-conditioned step, which ends the fit).
+/// `v · 2^-k` for a signed shift (`k` < 0 shifts left), in `i64`.
+fn shift_i64(v: i64, k: i32) -> i64 {
+    if k >= 0 {
+        v >> k.min(63)
+    } else {
+        v << (-k).min(62)
+    }
+}
+
+/// Solves the step `N x = b / A` by symmetric Gaussian elimination on `S N S`, S = diag 2^-e putting
+/// every diagonal in [2^13, 2^15): a positive-definite matrix's entries and Schur complements then
+/// stay below 2^15, so every update is one 32-bit multiply, and each pivot's reciprocal (Q30) is one
+/// 32-bit division. 15 significant bits are ample for a Gauss–Newton step (the fixed point is set by
+/// the gradient, which is exact), and for the centre's σ: the centre is eliminated last, and its pivot
+/// differs from its own diagonal only by its small coupling to the even parameters. `None` when `N`
+/// is not positive definite to that precision or a value leaves its range (the fit then ends).
 ///
-/// Loop bound: a fixed 4 × 4 elimination — five reciprocals (one 32-bit division each), 16 updates
-/// and 6 back-substitution products, all 32 × 32 → 64-bit.
+/// Loop bound: a fixed 4 × 4 elimination — four 32-bit divisions, one reciprocal of A, ~20 wide
+/// products.
 fn solve(nm: &Normal, a_red: i32) -> Option<Solved> {
     let at = |r: usize, c: usize| nm.n.get(r).and_then(|row| row.get(c)).copied().unwrap_or(0);
-    let mut d = [0u32; 4];
-    for (dk, &p) in d.iter_mut().zip(ORDER.iter()) {
+    let mut e = [0i32; 4];
+    for (ek, &p) in e.iter_mut().zip(ORDER.iter()) {
         let diag = at(p, p);
         if diag <= 0 {
             return None;
         }
-        *dk = 29u32.saturating_sub(32 - diag.leading_zeros()) / 2;
+        *ek = (32 - diag.leading_zeros() as i32 - 14) >> 1;
     }
-    // Upper triangle of S N S (|entries| < 2^30: |N_ij| ≤ sqrt(N_ii N_jj)).
     let mut m = [[0i32; 4]; 4];
     for (i, row) in m.iter_mut().enumerate() {
         for (j, cell) in row.iter_mut().enumerate().skip(i) {
             let (pi, pj) = (ORDER.get(i).copied()?, ORDER.get(j).copied()?);
-            *cell = at(pi, pj).checked_shl(d.get(i)? + d.get(j)?)?;
+            let k = e.get(i)? + e.get(j)?;
+            *cell = shift_i64(i64::from(at(pi, pj)), k) as i32;
         }
     }
-    // b scaled by S (|b| < 2^47 from the bounds in `normal`, d ≤ 14: < 2^61), then by a common power
-    // of two into [2^30, 2^31).
-    let mut wide = [0i64; 4];
-    for (i, bv) in wide.iter_mut().enumerate() {
-        let v = nm.b.get(ORDER.get(i).copied()?).copied()?;
-        *bv = v.checked_mul(1 << d.get(i)?)?;
+    // b scaled by S, then by a common power of two below 2^15.
+    let mut b = [0i64; 4];
+    for (i, bv) in b.iter_mut().enumerate() {
+        *bv = shift_i64(nm.b.get(ORDER.get(i).copied()?).copied()?, *e.get(i)?);
     }
-    let top = wide.iter().map(|v| 64 - v.unsigned_abs().leading_zeros()).max()?;
-    let bs = top as i32 - 31;
-    let mut bn = [0i64; 4];
-    for (o, &v) in bn.iter_mut().zip(wide.iter()) {
-        *o = if bs >= 0 { v >> bs } else { v << -bs };
+    let top = b.iter().map(|v| 64 - v.unsigned_abs().leading_zeros()).max()? as i32;
+    let bs = top - 15;
+    for v in b.iter_mut() {
+        *v = shift_i64(*v, bs);
     }
-    let mut recips = [Recip::ONE; 4];
+    // Forward elimination; f[i][p] = M_pi / M_pp in Q15 is kept for the back substitution.
+    let mut f = [[0i32; 4]; 4];
+    let mut inv = [0i32; 4];
     for p in 0..4 {
         let piv = m.get(p)?.get(p).copied()?;
-        if piv < 1 << 8 {
+        if piv < 1 << 5 {
             return None;
         }
-        let rp = Recip::new(i64::from(piv))?;
-        *recips.get_mut(p)? = rp;
-        let bp = bn.get(p).copied()?;
+        // 2^30 / piv in (2^15, 2^25].
+        let ip = i32::try_from((1u32 << 30) / piv.unsigned_abs()).ok()?;
+        *inv.get_mut(p)? = ip;
+        let bp = i32::try_from(b.get(p).copied()?).ok()?;
         for i in p + 1..4 {
-            let mpi = m.get(p)?.get(i).copied()?;
-            // M_ij −= M_pi · M_pj / piv over the upper triangle (M_ip = M_pi).
-            for j in i..4 {
-                let mpj = m.get(p)?.get(j).copied()?;
-                let upd = rp.scale(mul_i32_wide(mpi, mpj), 0)?;
-                let cell = m.get_mut(i)?.get_mut(j)?;
-                *cell = i32::try_from(i64::from(*cell) - upd).ok()?;
+            let fi = mul_i32_wide(m.get(p)?.get(i).copied()?, ip) >> 15;
+            if fi.unsigned_abs() >= 1 << 16 {
+                return None;
             }
-            // b grows past 32 bits as it is eliminated: the product is taken in two 32-bit parts.
-            let upd = match i32::try_from(bp) {
-                Ok(b32) => rp.scale(mul_i32_wide(mpi, b32), 0)?,
-                Err(_) => {
-                    let (hi, lo) = (bp >> 31, (bp & ((1 << 31) - 1)) as i32);
-                    let hi = i32::try_from(hi).ok()?;
-                    rp.scale(mul_i32_wide(mpi, hi), 31)?
-                        .checked_add(rp.scale(mul_i32_wide(mpi, lo), 0)?)?
-                }
-            };
-            let cell = bn.get_mut(i)?;
-            *cell = cell.checked_sub(upd)?;
+            let fi = fi as i32;
+            *f.get_mut(i)?.get_mut(p)? = fi;
+            for j in i..4 {
+                let upd = (fi * m.get(p)?.get(j).copied()?) >> 15;
+                let cell = m.get_mut(i)?.get_mut(j)?;
+                *cell -= upd;
+            }
+            *b.get_mut(i)? -= mul_i32_wide(fi, bp) >> 15;
         }
     }
-    // Back substitution, y in Q20 (|y| < 2^31 or the step is refused).
+    // Back substitution: y_i = b_i / M_ii − Σ_j f[j][i] · y_j, in Q15 (|y| < 2^31 or refused).
     let mut y = [0i32; 4];
     for i in (0..4).rev() {
-        let b = bn.get(i).copied()?;
-        if b.unsigned_abs() >= 1 << 40 {
-            return None;
-        }
-        let mut acc = b << 20;
+        let bi = i32::try_from(b.get(i).copied()?).ok()?;
+        let mut acc = mul_i32_wide(bi, inv.get(i).copied()?) >> 15;
         for j in i + 1..4 {
-            let (mij, yj) = (m.get(i)?.get(j).copied()?, y.get(j).copied()?);
-            acc = acc.checked_sub(mul_i32_wide(mij, yj))?;
+            acc -= mul_i32_wide(f.get(j)?.get(i).copied()?, y.get(j).copied()?) >> 15;
         }
-        *y.get_mut(i)? = i32::try_from(recips.get(i)?.scale(acc, 0)?).ok()?;
+        *y.get_mut(i)? = i32::try_from(acc).ok()?;
     }
-    // x_real = y · 2^(d + bs − 20); the step relative to A in Q16: × 2^16 / A.
+    // x_real = y · 2^(bs − e − 15); the step relative to A in Q16: × 2^16 / A.
     let ra = Recip::new(i64::from(a_red.max(1)))?;
     let mut x = [0i64; 4];
     for (i, &yi) in y.iter().enumerate() {
-        let sh = d.get(i).copied()? as i32 + bs - 4;
+        let k = bs - e.get(i)? + 1;
         let q = ra
-            .scale(i64::from(yi), sh)
+            .scale(i64::from(yi), k)
             .unwrap_or(if yi < 0 { -(1 << 40) } else { 1 << 40 });
         *x.get_mut(ORDER.get(i).copied()?)? = q.clamp(-(1 << 40), 1 << 40);
     }
     Some(Solved {
         x,
         mu_pivot: i64::from(m.get(3)?.get(3).copied()?),
-        mu_shift: d.get(3).copied()?,
+        mu_shift: -e.get(3).copied()?,
     })
 }
 
@@ -715,7 +739,7 @@ fn solve(nm: &Normal, a_red: i32) -> Option<Solved> {
 /// whitened noise, `[N⁻¹]μμ = 2^(2d) / pivot`; everything in frame units (reduced units cancel).
 #[inline(never)]
 fn center_sigma(sol: &Solved, wt: &Weights, p: &Params) -> Option<i64> {
-    if sol.mu_pivot <= 0 || sol.mu_pivot >= 1 << 30 {
+    if sol.mu_pivot <= 0 || sol.mu_pivot >= 1 << 30 || !(-20..=40).contains(&sol.mu_shift) {
         return None;
     }
     // sqrt(var_q8) = σ × 16 (frame units, < 2^26) and sqrt(pivot · 2^32) = sqrt(pivot) · 2^16 as
@@ -726,7 +750,7 @@ fn center_sigma(sol: &Solved, wt: &Weights, p: &Params) -> Option<i64> {
     let num = (p.s_q16.clamp(1, 1 << 21) * i64::from(wt.tau_ref.clamp(0, 1 << 12)))
         .checked_mul(sv.min(1 << 26))?;
     let q = Recip::new(sp.max(1))?.scale(num, 10)?;
-    let sig = Recip::new(p.a_q8.max(1))?.scale(q, sol.mu_shift as i32 + 10)?;
+    let sig = Recip::new(p.a_q8.max(1))?.scale(q, sol.mu_shift + 10)?;
     Some(sig.max(1))
 }
 

@@ -251,7 +251,10 @@ pub fn find_peaks(
             fwhm_px_q16,
             height: math::clamp_i32(f.height_q8 >> 8),
             area: fit::area(f),
-            snr_q8: u32::try_from((f.height_q8 * 16) / sd_q4).unwrap_or(u32::MAX),
+            snr_q8: math::Recip::new(sd_q4)
+                .and_then(|r| r.scale(f.height_q8, 4))
+                .and_then(|v| u32::try_from(v).ok())
+                .unwrap_or(u32::MAX),
             saturated,
             blended: false,
         };
@@ -319,7 +322,10 @@ fn half_width_sigma(d: &fit::FitData<'_>, pos: usize, max_px: usize) -> i64 {
             let v = r(j);
             if v <= half {
                 let drop = (prev - v).max(1);
-                let frac = ((prev - half) << 16) / drop;
+                // The crossing's fraction of the last step; a reciprocal, not a 64-bit division.
+                let frac = math::Recip::new(drop)
+                    .and_then(|r| r.scale(prev - half, 16))
+                    .unwrap_or(0);
                 return ((step as i64 - 1) << 16) + frac.clamp(0, 1 << 16);
             }
             prev = v;
@@ -327,8 +333,13 @@ fn half_width_sigma(d: &fit::FitData<'_>, pos: usize, max_px: usize) -> i64 {
         (max_px as i64) << 15
     };
     let fwhm_q16 = side(false) + side(true);
-    (fwhm_q16 << 16) / FWHM_PER_SIGMA_Q16
+    // σ = FWHM / 2.3548 as a multiply: 2^32 / FWHM_PER_SIGMA_Q16 = 27 830.6 (relative error < 2·10⁻⁵).
+    (fwhm_q16.clamp(0, 1 << 30) * SIGMA_PER_FWHM_Q16) >> 16
 }
+
+/// 2^32 / [`FWHM_PER_SIGMA_Q16`], rounded: σ per FWHM in Q16.
+const SIGMA_PER_FWHM_Q16: i64 = 27_831;
+const _: () = assert!((1i64 << 32) / FWHM_PER_SIGMA_Q16 == SIGMA_PER_FWHM_Q16 - 1);
 
 /// Marks both members of every neighbouring pair closer than `blend_q8` × the wider FWHM.
 ///

@@ -98,6 +98,8 @@ pub fn estimate(
 pub struct NoiseBlocks {
     blocks: [Block; MAX_BLOCKS],
     n: usize,
+    /// Whether the frame is within ±[`NARROW`] (checked once, by [`NoiseBlocks::measure`]).
+    narrow: bool,
 }
 
 impl NoiseBlocks {
@@ -108,12 +110,15 @@ impl NoiseBlocks {
         let mut me = Self {
             blocks: [Block::default(); MAX_BLOCKS],
             n: frame.len().min(MAX_PIXELS).div_ceil(BLOCK_PX),
+            // ADC frames: sums of 64 values and their second differences stay inside 32 bits.
+            narrow: frame.iter().all(|&v| (-NARROW..=NARROW).contains(&v)),
         };
         me.refresh(frame, flag, mask, false);
         me
     }
 
-    /// Re-measures the blocks whose pixels (or the pixel on either side) `mask` touches.
+    /// Re-measures the blocks whose pixels (or the pixel on either side) `mask` touches; `frame` must
+    /// be the frame [`NoiseBlocks::measure`] saw.
     ///
     /// Loop bound: ≤ one pass over the frame.
     pub fn remeasure_masked(&mut self, frame: &[i32], flag: &[u8], mask: &LineMask) {
@@ -122,8 +127,7 @@ impl NoiseBlocks {
 
     fn refresh(&mut self, frame: &[i32], flag: &[u8], mask: &LineMask, only_masked: bool) {
         let n = frame.len().min(MAX_PIXELS);
-        // ADC frames: sums of 64 values and their second differences stay inside 32 bits.
-        let narrow = frame.iter().all(|&v| (-NARROW..=NARROW).contains(&v));
+        let narrow = self.narrow;
         for (bi, blk) in self.blocks.iter_mut().enumerate().take(self.n) {
             let start = bi * BLOCK_PX;
             let end = (start + BLOCK_PX).min(n);
@@ -337,16 +341,22 @@ fn fit(blocks: &mut [Block], known: Option<u32>) -> NoiseModel {
     }
     for _ in 0..FIT_ROUNDS {
         // Reject blocks that lines inflate, judged against the current model.
+        let mut rejected = false;
         for b in blocks.iter_mut().filter(|b| b.used) {
             // var ≤ 2^50 keeps the left side in i64; a prediction too large to scale rejects nothing.
             let pred = model.var_q8(b.level);
             if let Some(limit) = pred.checked_mul(REJECT_ABOVE_Q8 as i64) {
                 if b.var_q8 * 256 > limit {
                     b.used = false;
+                    rejected = true;
                 }
             }
         }
         if known.is_some() {
+            // With κ fixed the floor is a median of the blocks kept: no block rejected, no change.
+            if !rejected {
+                break;
+            }
             model.floor_var_q8 = floor_given_shot(blocks, model.shot_var_per_unit_q16, zero);
             continue;
         }
