@@ -96,11 +96,21 @@ fn block_means(frame: &[i32], flag: &[u8], means: &mut [i32], cflag: &mut [u8]) 
         let hi = (lo + COARSE_PX).min(frame.len());
         let vals = frame.get(lo..hi).unwrap_or(&[]);
         let fl = flag.get(lo..hi).unwrap_or(&[]);
-        let (mut sum, mut cnt) = (0i64, 0u32);
+        // Plain sums first; only a block holding an untrusted pixel is summed again pixel by pixel.
+        let mut bad = 0u8;
+        let mut sum = 0i64;
         for (&v, &f) in vals.iter().zip(fl) {
-            if !flags::is_untrusted(f) {
-                sum += i64::from(v);
-                cnt += 1;
+            bad |= f;
+            sum += i64::from(v);
+        }
+        let mut cnt = vals.len().min(fl.len()) as u32;
+        if flags::is_untrusted(bad) {
+            (sum, cnt) = (0, 0);
+            for (&v, &f) in vals.iter().zip(fl) {
+                if !flags::is_untrusted(f) {
+                    sum += i64::from(v);
+                    cnt += 1;
+                }
             }
         }
         *cf = if cnt < MIN_TRUSTED {

@@ -139,7 +139,19 @@ impl NoiseBlocks {
                     continue;
                 }
             }
-            *blk = if narrow {
+            // Unmasked blocks (and their two outside neighbours) take the plain sums when no
+            // pixel there is untrusted; otherwise (or when wide) the careful pass.
+            let clear = mask.word(bi) == 0
+                && bi.checked_sub(1).is_none_or(|b| mask.word(b) >> 63 == 0)
+                && mask.word(bi + 1) & 1 == 0;
+            let fast = if narrow && clear {
+                block_stats_clear(frame, flag, start, end)
+            } else {
+                None
+            };
+            *blk = if let Some(b) = fast {
+                b
+            } else if narrow {
                 block_stats_narrow(frame, flag, mask, start, end)
             } else {
                 block_stats(frame, flag, mask, start, end)
@@ -288,6 +300,46 @@ fn block_stats_narrow(frame: &[i32], flag: &[u8], mask: &LineMask, start: usize,
         return Block::default();
     }
     variance_block(i64::from(sum), cnt, u64::from(sad), nd)
+}
+
+/// [`block_stats_narrow`] for a block that no mask touches: `None` when a pixel of
+/// `start − 1 ..= end` is untrusted (then the careful pass decides), else the same block from plain
+/// sums — one pass of loads, adds and one absolute value per pixel.
+fn block_stats_clear(frame: &[i32], flag: &[u8], start: usize, end: usize) -> Option<Block> {
+    let lo = start.saturating_sub(1);
+    let hi = (end + 1).min(frame.len());
+    let vals = frame.get(lo..hi)?;
+    let fl = flag.get(lo..hi)?;
+    let mut bad = 0u8;
+    for &f in fl {
+        bad |= f;
+    }
+    if flags::is_untrusted(bad) {
+        return None;
+    }
+    let (&first, &last) = (vals.first()?, vals.last()?);
+    let (mut sum, mut sad) = (0i32, 0u32);
+    let (mut p2, mut p1) = (0i32, 0i32);
+    for (j, &y) in vals.iter().enumerate() {
+        sum += y;
+        if j >= 2 {
+            sad += (p2 - 2 * p1 + y).unsigned_abs();
+        }
+        (p2, p1) = (p1, y);
+    }
+    // The outside pixels took part in the differences only.
+    if lo < start {
+        sum -= first;
+    }
+    if hi > end {
+        sum -= last;
+    }
+    let cnt = u32::try_from(end - start).ok()?;
+    let nd = u32::try_from(vals.len().saturating_sub(2)).ok()?;
+    if (nd as usize) < MIN_BLOCK_SAMPLES || cnt == 0 {
+        return Some(Block::default());
+    }
+    Some(variance_block(i64::from(sum), cnt, u64::from(sad), nd))
 }
 
 /// A block from its sums: level = floor mean, var_q8 = (π/12)·(sad/nd)²·256.
@@ -464,6 +516,28 @@ fn floor_given_shot(blocks: &[Block], k_q16: u32, zero: i64) -> i64 {
 mod tests {
     use super::super::testkit::Rng;
     use super::*;
+
+    /// The plain sums of clear blocks are the careful pass's.
+    #[test]
+    fn clear_blocks_equal_the_careful_ones() {
+        let mut rng = Rng::new(6);
+        for n in [16usize, 64, 65, 130, 300] {
+            let frame: Vec<i32> = (0..n as i64)
+                .map(|i| (900 + 5 * i + rng.gauss(30 << 16)) as i32)
+                .collect();
+            let fl = vec![0u8; n];
+            for start in (0..n).step_by(BLOCK_PX) {
+                let end = (start + BLOCK_PX).min(n);
+                let a = block_stats_narrow(&frame, &fl, &LineMask::new(), start, end);
+                let b = block_stats_clear(&frame, &fl, start, end).unwrap();
+                assert_eq!((a.var_q8, a.level, a.used), (b.var_q8, b.level, b.used), "n {n} {start}");
+            }
+            let mut bad = fl.clone();
+            bad[n / 2] = flags::SATURATED;
+            let start = (n / 2) / BLOCK_PX * BLOCK_PX;
+            assert!(block_stats_clear(&frame, &bad, start, (start + BLOCK_PX).min(n)).is_none());
+        }
+    }
 
     /// The 32-bit blocks are the general ones.
     #[test]
