@@ -2,10 +2,16 @@
 //!
 //! Turns a conditioned frame into a list of lines with centres good to a small fraction of a pixel:
 //! 1. [`noise`]: a noise model `floor + κ·level` estimated from the frame's second differences.
-//! 2. [`baseline`]: continuum and stray light removed by iterated clipped smoothing, O(N).
+//! 2. [`baseline`]: continuum and stray light removed by iterated clipped smoothing of 16-px block
+//!    means, interpolated back to the pixels, O(N).
 //! 3. [`detect`]: local maxima of the smoothed residual above a σ-scaled threshold, with prominence and
 //!    minimum separation.
-//! 4. [`fit`]: a noise-weighted Gaussian fit per line, giving centre, its Fisher σ, FWHM, height, area.
+//! 4. [`fit`]: a noise-weighted (whitened) Gaussian fit per line in 32-bit fixed point, giving centre,
+//!    its Fisher σ, FWHM, height, area.
+//!
+//! Every per-pixel pass is a handful of 32-bit operations on ADC frames (values within ±2^23): the
+//! M0 build spends ~850 instructions per pixel on a 2048-px frame of a dozen lines, about two thirds
+//! of them in the per-line fits (`bash boards/measure.sh` prints the pieces as `find_parts`).
 //!
 //! # Scales
 //! Centres and widths are px in Q16 (pixel 0 = first value, pixel i spans i − 0.5 … i + 0.5); heights and
@@ -91,17 +97,19 @@ pub const SPIKE_FWHM_Q8: u32 = 160;
 /// On return (also `Ok` with no peaks) the first `frame.len()` cells of `scratch` hold the baseline the
 /// peaks stand on (frame units), for callers that need the continuum; the rest is work space.
 ///
-/// Loop bounds, with N = `frame.len()` ≤ [`MAX_PIXELS`] and W = FWHMmax ≤ 16 px: two noise estimates
-/// O(N) (see [`noise::estimate`]); baselines of 8 rounds (first look) and 4 rounds (second look),
-/// each a clip pass and 2 box passes of O(N), plus 2 box passes once; two detections of O(N) plus
-/// ≤ 2 × 4W px of prominence search per local maximum above threshold and ≤ 128 steps per candidate
-/// arriving at a full list; masking ≤ 128 candidates × (≤ 2W + 6W + 1 px); thinning ≤ 128²
-/// comparisons; ≤ 2 × 64 fits over ≤ 33 px, each ≤ 6 Gauss–Newton steps plus a weight and a
-/// covariance pass, ≤ [`STEP_BUDGET`] + 2 × 64 × [`MIN_STEPS`] steps in all (the first fits after a
-/// ≤ 2W px width search, the second only for lines with a neighbour in reach, taking ≤ 2 neighbour
-/// profiles out); ≤ 64 × 33 px saturation checks; blend marking ≤ 64 comparisons; one O(N) count of
-/// untrusted pixels; insertion sorts of ≤ 64 fits and ≤ 64 peaks and a selection median of ≤ 256
-/// baseline samples (≤ 256² steps, ~800 typical), all without panic paths.
+/// Loop bounds, with N = `frame.len()` ≤ [`MAX_PIXELS`] and W = FWHMmax ≤ 16 px: one range check
+/// O(N); one noise measurement O(N) and a second over the blocks the line mask touches (≤ O(N)),
+/// each followed by a block fit (see [`noise::NoiseBlocks`]); one baseline (one O(N) block pass,
+/// ≤ [`baseline::ROUNDS`] + 1 rounds over ⌈N/16⌉ block means, one O(N) interpolation); one O(N)
+/// smoothing and ≤ 2 detections of O(N) plus ≤ 2 × 4W px of prominence search per local maximum
+/// above threshold and ≤ 128 steps per candidate arriving at a full list; masking ≤ 128 candidates
+/// × (≤ 2W + 6W + 1 px); thinning ≤ 128² comparisons; ≤ 2 × 64 fits over ≤ 33 px, each ≤ 6
+/// Gauss–Newton steps (one pass and a fixed 4 × 4 elimination each, the first with a weight pass),
+/// ≤ [`STEP_BUDGET`] + 2 × 64 × [`MIN_STEPS`] steps in all (the first fits after a ≤ 2W px width
+/// search, the refits only for lines with a neighbour in reach, taking ≤ 2 neighbour profiles out);
+/// ≤ 64 × 33 px saturation checks; blend marking ≤ 64 comparisons; one O(N) count of untrusted
+/// pixels; insertion sorts of ≤ 64 fits and ≤ 64 peaks and a selection median of ≤ 256 baseline
+/// samples (≤ 256² steps, ~800 typical), all without panic paths.
 pub fn find_peaks(
     cfg: &FindConfig,
     frame: &[i32],

@@ -75,7 +75,10 @@ fn wide_shot(light: i64, shot_q16: u32) -> i64 {
 struct Block {
     var_q8: i64,
     level: i64,
+    /// Measured with enough samples.
     used: bool,
+    /// Still in the fit (blocks that lines inflate are rejected here).
+    kept: bool,
 }
 
 /// Estimates the noise model of `frame` from trusted pixels (see [`flags`]) outside `mask`.
@@ -90,7 +93,8 @@ pub fn estimate(
     mask: &LineMask,
     known_shot_q16: Option<u32>,
 ) -> Option<NoiseModel> {
-    NoiseBlocks::measure(frame, flag, mask).model(known_shot_q16)
+    let mut blocks = NoiseBlocks::measure(frame, flag, mask);
+    blocks.model(known_shot_q16)
 }
 
 /// The per-block statistics of one frame, kept so a second look with a line mask re-measures only
@@ -163,9 +167,13 @@ impl NoiseBlocks {
     ///
     /// Loop bound: [`FIT_ROUNDS`] × 2 passes over the ≤ 64 blocks and ≤ 2 + [`FIT_ROUNDS`] selection
     /// medians of ≤ 64 block variances.
-    pub fn model(&self, known_shot_q16: Option<u32>) -> Option<NoiseModel> {
-        let mut blocks = self.blocks;
-        let blocks = blocks.get_mut(..self.n).unwrap_or(&mut []);
+    pub fn model(&mut self, known_shot_q16: Option<u32>) -> Option<NoiseModel> {
+        // The fit rejects blocks in `kept`, leaving the measurements as they are (no copy of them
+        // on the stack).
+        let blocks = self.blocks.get_mut(..self.n).unwrap_or(&mut []);
+        for b in blocks.iter_mut() {
+            b.kept = b.used;
+        }
         if !blocks.iter().any(|b| b.used) {
             return None;
         }
@@ -362,6 +370,7 @@ fn variance_block(sum: i64, cnt: u32, sad: u64, nd: u32) -> Block {
         var_q8,
         level,
         used: true,
+        kept: true,
     }
 }
 
@@ -377,7 +386,7 @@ fn fit(blocks: &mut [Block], known: Option<u32>) -> NoiseModel {
     // products below stay inside i128).
     let zero = blocks
         .iter()
-        .filter(|b| b.used)
+        .filter(|b| b.kept)
         .map(|b| b.level)
         .min()
         .unwrap_or(0)
@@ -394,12 +403,12 @@ fn fit(blocks: &mut [Block], known: Option<u32>) -> NoiseModel {
     for _ in 0..FIT_ROUNDS {
         // Reject blocks that lines inflate, judged against the current model.
         let mut rejected = false;
-        for b in blocks.iter_mut().filter(|b| b.used) {
+        for b in blocks.iter_mut().filter(|b| b.kept) {
             // var ≤ 2^50 keeps the left side in i64; a prediction too large to scale rejects nothing.
             let pred = model.var_q8(b.level);
             if let Some(limit) = pred.checked_mul(REJECT_ABOVE_Q8 as i64) {
                 if b.var_q8 * 256 > limit {
-                    b.used = false;
+                    b.kept = false;
                     rejected = true;
                 }
             }
@@ -417,7 +426,7 @@ fn fit(blocks: &mut [Block], known: Option<u32>) -> NoiseModel {
         let vref = i128::from(model.floor_var_q8.max(1));
         let (mut sw, mut sx, mut sy, mut sxx, mut sxy) = (0i128, 0i128, 0i128, 0i128, 0i128);
         let (mut lmin, mut lmax) = (i64::MAX, i64::MIN);
-        for b in blocks.iter().filter(|b| b.used) {
+        for b in blocks.iter().filter(|b| b.kept) {
             let pred = i128::from(model.var_q8(b.level)).max(1);
             // w in Q16, ≤ 2^16 · (vref/pred)², capped.
             let w = checked_mul_i128((vref << 16) / pred, vref)
@@ -483,7 +492,7 @@ fn fit(blocks: &mut [Block], known: Option<u32>) -> NoiseModel {
 fn median_var(blocks: &[Block]) -> i64 {
     let mut v = [0i64; MAX_BLOCKS];
     let mut n = 0usize;
-    for b in blocks.iter().filter(|b| b.used) {
+    for b in blocks.iter().filter(|b| b.kept) {
         if let Some(s) = v.get_mut(n) {
             *s = b.var_q8;
             n += 1;
@@ -496,7 +505,7 @@ fn median_var(blocks: &[Block]) -> i64 {
 fn floor_given_shot(blocks: &[Block], k_q16: u32, zero: i64) -> i64 {
     let mut v = [0i64; MAX_BLOCKS];
     let mut n = 0usize;
-    for b in blocks.iter().filter(|b| b.used) {
+    for b in blocks.iter().filter(|b| b.kept) {
         if let Some(s) = v.get_mut(n) {
             let light = b.level.saturating_sub(zero).max(0);
             // One 32 × 32-bit product for the levels of ADC frames; i128 beyond.
