@@ -10,6 +10,13 @@ use super::config::FindConfig;
 use super::noise::NoiseModel;
 use heapless::Vec;
 
+/// Prominence searches at full reach per frame, in units of `2 × reach` steps: a frame of 64 lines
+/// searches each at full reach; beyond that (a comb of noise or spikes with a maximum every other
+/// pixel) the walks shrink to [`SHORT_REACH`], which kept such a frame's detection from costing ~100
+/// steps per pixel.
+pub const VALLEY_BUDGET_PER_REACH: usize = 128;
+/// Prominence search reach (px each way) once the budget is spent: a line's wings at the widest FWHM.
+pub const SHORT_REACH: usize = 8;
 /// Candidates kept before thinning and fitting.
 pub const MAX_CANDIDATES: usize = 2 * super::MAX_PEAKS;
 /// Σ k² of the smoothing kernel: its noise variance factor before the ×9 scale.
@@ -123,9 +130,10 @@ fn least_above(k_q8: u16, noise: &NoiseModel) -> i64 {
 ///
 /// Prominence is the height above the higher of the two lowest points reached on each side before the
 /// smoothed residual rises above the candidate (searched up to `reach` px).
-/// Loop bounds: one pass over the N = `smooth.len()` pixels (plateau scans included), ≤ 2 × min(`reach`, N)
-/// steps per local maximum above threshold, and ≤ [`MAX_CANDIDATES`] steps for each candidate that
-/// arrives when `out` is full.
+/// Loop bounds: one pass over the N = `smooth.len()` pixels (plateau scans included); prominence
+/// walks of ≤ 2 × `reach` steps per local maximum above threshold until [`VALLEY_BUDGET_PER_REACH`] ×
+/// `reach` steps are spent, ≤ 2 × [`SHORT_REACH`] after; ≤ [`MAX_CANDIDATES`] steps for each candidate
+/// that arrives when `out` is full.
 pub fn find_candidates(
     smooth: &[i32],
     base: &[i32],
@@ -140,6 +148,7 @@ pub fn find_candidates(
     // and most maxima of a noise stretch are turned away here without a variance.
     let v_min = least_above(cfg.threshold_sigma_q8, noise);
     let mut dropped = false;
+    let mut valley_steps = 0usize;
     let mut i = 0usize;
     while i < n {
         // Most of a frame is below every threshold: one compare per pixel there. (A plateau at or
@@ -159,8 +168,15 @@ pub fn find_candidates(
         let pos = i + (end - i) / 2;
         let level = i64::from(base.get(pos).copied().unwrap_or(0));
         if v > left && v > right && above(v, cfg.threshold_sigma_q8, noise, level) {
-            let floor_l = valley(smooth, i, v, reach, false);
-            let floor_r = valley(smooth, end, v, reach, true);
+            // Past the frame's valley budget the search looks only as far as a line's own wings.
+            let r = if valley_steps < VALLEY_BUDGET_PER_REACH * reach {
+                reach
+            } else {
+                reach.min(SHORT_REACH)
+            };
+            valley_steps += 2 * r;
+            let floor_l = valley(smooth, i, v, r, false);
+            let floor_r = valley(smooth, end, v, r, true);
             let prominence = v - floor_l.max(floor_r);
             if above(prominence, cfg.prominence_sigma_q8, noise, level) {
                 dropped |= push_strongest(
