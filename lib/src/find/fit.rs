@@ -495,30 +495,40 @@ impl Model {
         }
     }
 
-    /// `g` in Q14 at pixel `i` (the profile alone, for the weights).
-    #[inline]
-    fn height(&self, p: &Params, i: usize) -> i32 {
-        let dx = ((i as i64) << 16) - p.mu_q16;
-        exp_neg_q14(half_square_q12(u_q14(dx, &self.inv_s)))
+    /// u = (x − μ)/s in Q14 along the window: the first pixel's (one 64-bit product per pass) and
+    /// the step per pixel (1/s in Q14, exactly: x moves by whole pixels). |u| stays below 2^23 over a
+    /// window of ≤ 33 px.
+    fn u_along(&self, p: &Params, lo: usize) -> (i32, i32) {
+        let dx0 = ((lo as i64) << 16) - p.mu_q16;
+        let u0 = (dx0.clamp(-(1 << 30), 1 << 30) * i64::from(self.inv_s.q14)) >> 16;
+        (u0.clamp(-(1 << 24), 1 << 24) as i32, self.inv_s.q14)
     }
+}
 
-    /// `(g, g·u, g·u²)` in Q14 at pixel `i`.
-    #[inline]
-    fn shape(&self, p: &Params, i: usize) -> (i32, i32, i32) {
-        let dx = ((i as i64) << 16) - p.mu_q16;
-        let u = u_q14(dx, &self.inv_s);
-        let g = exp_neg_q14(half_square_q12(u));
-        // |g·u| ≤ 2^14 · (2^17 − 1) < 2^31; |g·u| peaks at 0.61 (Q14 < 10^4), so |gu·u| < 2^31 too.
-        let gu = (g * u) >> 14;
-        let guu = (gu * u) >> 14;
-        (g, gu, guu)
-    }
+/// `(g, g·u, g·u²)` in Q14 for u in Q14 (clamped to ±8, where g is 0 anyway).
+#[inline]
+fn shape_at(u: i32) -> (i32, i32, i32) {
+    const LIMIT: i32 = (1 << 17) - 1;
+    let u = u.clamp(-LIMIT, LIMIT);
+    let g = exp_neg_q14(half_square_q12(u));
+    // |g·u| ≤ 2^14 · (2^17 − 1) < 2^31; |g·u| peaks at 0.61 (Q14 < 10^4), so |gu·u| < 2^31 too.
+    let gu = (g * u) >> 14;
+    let guu = (gu * u) >> 14;
+    (g, gu, guu)
+}
+
+/// g alone in Q14 for u in Q14.
+#[inline]
+fn height_at(u: i32) -> i32 {
+    const LIMIT: i32 = (1 << 17) - 1;
+    exp_neg_q14(half_square_q12(u.clamp(-LIMIT, LIMIT)))
 }
 
 /// Whitening factors from the noise model at baseline + current line: τ ∝ 1/σ, the largest 4096-ish.
 ///
 /// Loop bound: 2 passes over the window.
 fn weigh(win: &Window, noise: &NoiseModel, p: &Params, model: &Model, reduce: u32) -> Weights {
+    let (u0, du) = model.u_along(p, win.lo);
     let mut parts = [(0i32, 0u32); W];
     let mut vars = [0i64; W];
     let mut top = 0u32;
@@ -532,7 +542,7 @@ fn weigh(win: &Window, noise: &NoiseModel, p: &Params, model: &Model, reduce: u3
         if win.resid_at(k).is_none() {
             continue;
         }
-        let g = model.height(p, win.lo + k);
+        let g = height_at(u0.wrapping_add((k as i32).wrapping_mul(du)));
         // The line in frame units: reduced units × 2^reduce (reduce ≤ 16, so < 2^46); a 32-bit
         // shift where the product leaves room.
         let ag = model.a_red * g;
@@ -569,6 +579,7 @@ fn weigh(win: &Window, noise: &NoiseModel, p: &Params, model: &Model, reduce: u3
 ///
 /// Loop bound: one pass over the window.
 fn normal(win: &Window, wt: &Weights, p: &Params, model: &Model, reduce: u32) -> Normal {
+    let (u0, du) = model.u_along(p, win.lo);
     let mut nm = Normal {
         n: [[0; 4]; 4],
         b: [0; 4],
@@ -585,7 +596,7 @@ fn normal(win: &Window, wt: &Weights, p: &Params, model: &Model, reduce: u32) ->
         if r == UNUSABLE || tau == 0 {
             continue;
         }
-        let (g, gu, guu) = model.shape(p, win.lo + k);
+        let (g, gu, guu) = shape_at(u0.wrapping_add((k as i32).wrapping_mul(du)));
         let r_red = (r >> reduce.min(31)).clamp(-(1 << 17), 1 << 17);
         let m = ((model.a_red * g) >> 14) + model.c_red;
         let e = (r_red - m).clamp(-(1 << 17), 1 << 17);
