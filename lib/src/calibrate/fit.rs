@@ -48,9 +48,22 @@ pub struct MapFit {
 impl MapFit {
     /// 1-σ uncertainty of the map's wavelength at pixel p (px, Q16), femtometres.
     ///
-    /// Work: fixed, ≤ 4 × 4 terms of two [`mul_div_i128`] each and one square root (≤ 64 steps).
+    /// Work: fixed, ≤ 4 × 4 terms of two rounded products each (64-bit on the sensor, else
+    /// [`mul_div_i128`]) and one square root (≤ 64 steps).
     pub fn sigma_fm_at(&self, p_px_q16: i32) -> u64 {
-        let x = self.map.x_q30(p_px_q16) as i128;
+        let x = self.map.x_q30(p_px_q16);
+        let q = self
+            .quadratic_form_narrow(x)
+            .unwrap_or_else(|| self.quadratic_form(x));
+        let var =
+            mul_div_i128(q.max(0), self.variance_scale_fm2 as i128, 1 << 40).unwrap_or(i128::MAX);
+        isqrt_u128(var.max(0) as u128) as u64
+    }
+
+    /// q = vᵀ M⁻¹ v (Q40) with v = (1, x, x², x³) in Q30, each term rounded twice as
+    /// [`mul_div_i128`] rounds a division by 2^30 (half away from zero).
+    fn quadratic_form(&self, x: i64) -> i128 {
+        let x = x as i128;
         let d = self.map.degree as usize;
         let mut v = [0i128; 4];
         let mut xk: i128 = X_ONE_Q30 as i128;
@@ -73,9 +86,53 @@ impl MapFit {
                 q = q.saturating_add(t);
             }
         }
-        let var =
-            mul_div_i128(q.max(0), self.variance_scale_fm2 as i128, 1 << 40).unwrap_or(i128::MAX);
-        isqrt_u128(var.max(0) as u128) as u64
+        q
+    }
+
+    /// [`quadratic_form`](Self::quadratic_form) in 64-bit pieces, for the usual case of a pixel on
+    /// the sensor (|x| ≤ 1, so |v_k| ≤ 2^30) and every |M⁻¹| entry below 2^62: each product then
+    /// splits into two 32 × 32-bit ones and every rounded term fits `i64`, the same integers
+    /// without 128-bit products (16 terms per call, about 40 calls per frame). `None` outside
+    /// that range.
+    fn quadratic_form_narrow(&self, x: i64) -> Option<i128> {
+        if x.unsigned_abs() > 1 << 30 {
+            return None;
+        }
+        let d = (self.map.degree as usize).min(3) + 1;
+        let mut v = [0i64; 4];
+        let mut xk: i64 = X_ONE_Q30;
+        for slot in v.iter_mut().take(d) {
+            *slot = xk;
+            // |xk|, |x| ≤ 2^30: the product fits, and `>>` floors as the 128-bit shift does.
+            xk = (xk * x) >> 30;
+        }
+        let mut q: i128 = 0;
+        for (row, &vr) in self.inverse_q40.iter().zip(v.iter()).take(d) {
+            for (&m, &vc) in row.iter().zip(v.iter()).take(d) {
+                if m.unsigned_abs() >= 1 << 62 {
+                    return None;
+                }
+                let t1 = mul_q30_round(m as i64, vr);
+                q += mul_q30_round(t1, vc) as i128;
+            }
+        }
+        Some(q)
+    }
+}
+
+/// a · v / 2^30 rounded half away from zero (as [`mul_div_i128`] with c = 2^30), for |a| < 2^63 and
+/// |v| ≤ 2^30: |a| = h · 2^32 + l, so |a| · |v| = 4 · (h|v|) · 2^30 + l|v|, both products 64-bit.
+/// The result's magnitude is at most |a| + 1, so it fits `i64` (|a| < 2^62 keeps it below 2^62 + 1).
+fn mul_q30_round(a: i64, v: i64) -> i64 {
+    let (ua, uv) = (a.unsigned_abs(), v.unsigned_abs().min(1 << 30));
+    let hi = (ua >> 32) * uv;
+    let lo = (ua & 0xffff_ffff) * uv;
+    let mag = (hi << 2) + ((lo + (1 << 29)) >> 30);
+    let m = mag.min(i64::MAX as u64) as i64;
+    if (a < 0) != (v < 0) {
+        -m
+    } else {
+        m
     }
 }
 
@@ -305,5 +362,50 @@ mod tests {
             "{}",
             fit.chi2_per_dof_q8
         );
+    }
+
+    #[test]
+    fn narrow_quadratic_form_gives_the_wide_integers() {
+        let mut seed = 0x9e37_79b9_7f4a_7c15u64;
+        let mut next = move || {
+            seed ^= seed << 13;
+            seed ^= seed >> 7;
+            seed ^= seed << 17;
+            seed
+        };
+        let base = fit_map(
+            &[100i64, 400, 800, 1200, 1600, 1900].map(|p| FitPoint {
+                center_px_q16: (p << 16) as i32,
+                sigma_px_q16: 1 << 12,
+                wavelength_fm: truth(p),
+            }),
+            3,
+            2048,
+        )
+        .unwrap();
+        let mut narrow = 0;
+        for case in 0..300 {
+            let mut f = base;
+            f.map.degree = 1 + (case % 3) as u8;
+            if case > 0 {
+                // Entries of every size up to 2^62 and past it, either sign.
+                for cell in f.inverse_q40.iter_mut().flatten() {
+                    let bits = next() % 64;
+                    let mag = (next() >> (64 - bits.max(1))) as i128;
+                    *cell = if next() & 1 == 1 { -mag } else { mag };
+                }
+            }
+            for _ in 0..20 {
+                let x = (next() % (1 << 31)) as i64 - (1 << 30) + (next() % 3) as i64 - 1;
+                if let Some(q) = f.quadratic_form_narrow(x) {
+                    assert_eq!(q, f.quadratic_form(x), "{f:?} x={x}");
+                    narrow += 1;
+                }
+            }
+        }
+        assert!(narrow > 3_000, "{narrow}");
+        for x in [-(1i64 << 30), 1 << 30, 0, 1, -1] {
+            assert_eq!(base.quadratic_form_narrow(x), Some(base.quadratic_form(x)));
+        }
     }
 }
