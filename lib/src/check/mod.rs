@@ -9,6 +9,7 @@
 //! ```
 mod config;
 mod error;
+mod line_pixels;
 mod pipeline;
 mod stage;
 mod workspace;

@@ -1,6 +1,7 @@
 //! The whole job for one frame: condition → find → calibrate → match → judge, into one [`Report`].
 use super::config::Config;
 use super::error::CheckError;
+use super::line_pixels::LinePixels;
 use super::stage::Stage;
 use super::workspace::Workspace;
 use crate::bounded::collect_bounded;
@@ -12,7 +13,7 @@ use crate::find::{find_peaks, Peak, PeakList};
 use crate::judge::{MatchedLine, Mode, Reason, Report, SpeciesShare, UnexplainedPeak};
 use crate::matching::assign::{assign, Pair};
 use crate::matching::catalogue::{build, CatalogueLine, MAX_NUCLEI};
-use crate::matching::feature::{group, prior_share, settle, Feature, MAX_FEATURES};
+use crate::matching::feature::{group_placing, prior_share, settle_placed, Feature, MAX_FEATURES};
 use crate::matching::isotope::{
     share_by_position, share_by_profile, BlendReading, PairWindow, ShareEstimate,
 };
@@ -37,6 +38,8 @@ struct MapInUse {
     map: WavelengthMap,
     fit: Option<crate::calibrate::MapFit>,
     stored_sigma_fm: u32,
+    /// The catalogue lines' pixels on `map`, recorded by grouping.
+    lines: LinePixels,
 }
 
 impl MapInUse {
@@ -185,7 +188,7 @@ impl Checker {
             report.decide();
             return Ok(());
         }
-        let in_use = match self.map_for(peaks, report) {
+        let mut in_use = match self.map_for(peaks, report) {
             Some(m) => m,
             None => {
                 // Calibration failed: list every peak on the stored map so the user sees what was there.
@@ -193,6 +196,7 @@ impl Checker {
                     map: cfg.stored.map,
                     fit: None,
                     stored_sigma_fm: cfg.stored.sigma_fm,
+                    lines: LinePixels::new(),
                 };
                 self.unexplained(peaks, &[], &m, report);
                 report.decide();
@@ -204,13 +208,22 @@ impl Checker {
         // Closer than 1.5 line widths, two lines may show as one peak (peak finding's own blend limit);
         // a pair that does show as two is split again after matching.
         let merge_q16 = ((cfg.line_fwhm_px_q8 as i32) << 8) * 3 / 2;
-        let mut features = group(&self.catalogue, &in_use.map, &self.priors, merge_q16)?;
+        // Every line's pixel is found once, while grouping, for all the steps below.
+        let lines = &mut in_use.lines;
+        let mut features = group_placing(
+            &self.catalogue,
+            &in_use.map,
+            &self.priors,
+            merge_q16,
+            |i, p| lines.put(i, p),
+        )?;
+        let in_use = in_use;
         let pairs = assign(&features, peaks, |f| self.window_px_q16(f, &in_use));
         let pairs = self.split_resolved(&features, pairs, peaks, &in_use);
         let estimate = self.isotope(&features, &pairs, peaks, &in_use, frame, base);
         let shares = self.shares(estimate);
         for f in features.iter_mut() {
-            settle(f, &self.catalogue, &in_use.map, &shares)?;
+            settle_placed(f, &self.catalogue, &in_use.map, &shares)?;
         }
         self.fill_lines(
             &features,
@@ -241,6 +254,7 @@ impl Checker {
                 map: cfg.stored.map,
                 fit: None,
                 stored_sigma_fm,
+                lines: LinePixels::new(),
             });
         }
         let refs = self.reference_lines();
@@ -258,6 +272,7 @@ impl Checker {
                     map: id.fit.map,
                     fit: Some(id.fit),
                     stored_sigma_fm,
+                    lines: LinePixels::new(),
                 })
             }
             Err(e) => {
@@ -372,13 +387,20 @@ impl Checker {
         let _ = self.line_sigma_q16(features, pairs, peaks);
         let fwhm_q16 = (sigma as i64 * FWHM_PER_SIGMA_Q16) >> 16;
         // The strongest transition with both isotopes predicted and some peak matched to either.
-        let mut best: Option<(u64, &CatalogueLine, &CatalogueLine)> = None;
+        // (strength, line a, line b, their catalogue indices)
+        let mut best: Option<(u64, &CatalogueLine, &CatalogueLine, u8, u8)> = None;
         let mut readings: Vec<BlendReading, 24> = Vec::new();
-        for la in self.catalogue.iter().filter(|l| l.nucleus == a) {
-            let Some(lb) = self
+        for (ia, la) in self
+            .catalogue
+            .iter()
+            .enumerate()
+            .filter(|(_, l)| l.nucleus == a)
+        {
+            let Some((ib, lb)) = self
                 .catalogue
                 .iter()
-                .find(|l| l.nucleus == b && l.lower == la.lower && l.upper == la.upper)
+                .enumerate()
+                .find(|(_, l)| l.nucleus == b && l.lower == la.lower && l.upper == la.upper)
             else {
                 continue;
             };
@@ -393,8 +415,8 @@ impl Checker {
             });
             let Some(pair) = matched else { continue };
             let strength = la.strength as u64;
-            if best.is_none_or(|(s, _, _)| strength > s) {
-                best = Some((strength, la, lb));
+            if best.is_none_or(|(s, ..)| strength > s) {
+                best = Some((strength, la, lb, ia as u8, ib as u8));
             }
             // Unresolved blends carry the share in their position (verify mode only).
             let feature = features.get(pair.feature as usize)?;
@@ -425,9 +447,9 @@ impl Checker {
                 }
             }
         }
-        let (_, la, lb) = best?;
-        let pa = m.map.pixel_q16(la.wavelength_fm).ok()?;
-        let pb = m.map.pixel_q16(lb.wavelength_fm).ok()?;
+        let (_, la, lb, ia, ib) = best?;
+        let pa = m.lines.get(ia, la, &m.map)?;
+        let pb = m.lines.get(ib, lb, &m.map)?;
         let sep = (pb as i64 - pa as i64).abs();
         // On a map fitted to the tube itself only a pair that peak finding sees as two lines can tell
         // a mix: one peak there is one line of either isotope.
@@ -489,18 +511,17 @@ impl Checker {
         m: &MapInUse,
     ) -> Vec<Pair, 40> {
         let matched: Vec<Pair, 40> = pairs.clone();
-        // Member pixels and windows are the same for every leftover peak: inverted once each.
-        let mut px = LinePixels::new();
         for (k, pk) in peaks.iter().enumerate() {
             if matched.iter().any(|p| p.peak as usize == k) {
                 continue;
             }
             let hit = matched.iter().find(|p| {
                 features.get(p.feature as usize).is_some_and(|f| {
+                    // The window is at most 64 px: beyond that it need not be worked out.
                     f.members.len() > 1
-                        && self
-                            .nearest_member_in(f, pk, m, &mut px)
-                            .is_some_and(|(_, d)| d <= self.base_window_px_q16(f, m))
+                        && self.nearest_member(f, pk, m).is_some_and(|(_, d)| {
+                            d <= 64 << 16 && d <= self.base_window_px_q16(f, m)
+                        })
                 })
             });
             if let Some(p) = hit {
@@ -521,23 +542,12 @@ impl Checker {
         pk: &Peak,
         m: &MapInUse,
     ) -> Option<(&'c CatalogueLine, i32)> {
-        self.nearest_member_in(f, pk, m, &mut LinePixels::new())
-    }
-
-    /// [`nearest_member`](Self::nearest_member) with the member pixels kept in `px`.
-    fn nearest_member_in<'c>(
-        &'c self,
-        f: &Feature,
-        pk: &Peak,
-        m: &MapInUse,
-        px: &mut LinePixels,
-    ) -> Option<(&'c CatalogueLine, i32)> {
         let mut best: Option<(&CatalogueLine, i32)> = None;
         for &i in f.members.iter() {
             let Some(c) = self.catalogue.get(i as usize) else {
                 continue;
             };
-            let Some(px) = px.get(i, c, &m.map) else {
+            let Some(px) = m.lines.get(i, c, &m.map) else {
                 continue;
             };
             let d = px.saturating_sub(pk.center_px_q16).saturating_abs();
@@ -708,14 +718,18 @@ impl Checker {
         if matched >= peaks.len() || peaks.len() < 3 {
             return false;
         }
+        // Identification pairs each peak at most once, so it cannot return more pairs than there are
+        // peaks: when even that many could not pass the test below, the search is skipped (exact).
+        let rescue = matched < cfg.profile.min_lines as usize;
+        if peaks.len() < matched + 2 && !rescue {
+            return false;
+        }
         let refs = self.reference_lines();
         let icfg = IdentifyConfig::new(cfg.pixels, cfg.degree, Some(cfg.stored.map));
         let Ok(id) = identify(peaks, &refs, &icfg) else {
             return false;
         };
-        if id.pairs.len() < matched + 2
-            && !(matched < cfg.profile.min_lines as usize && id.pairs.len() >= 3)
-        {
+        if id.pairs.len() < matched + 2 && !(rescue && id.pairs.len() >= 3) {
             return false;
         }
         let Some(drift) = drift_fm(&id.fit.map, &cfg.stored.map, cfg.pixels) else {
@@ -890,40 +904,6 @@ impl Checker {
         let (x, y) = (at(range.0), at(range.1));
         let (lo, hi) = (x.min(y), x.max(y));
         measured - measured.clamp(lo, hi)
-    }
-}
-
-/// Pixels of catalogue lines on the map in use, each inverted (a Newton iteration) on first use.
-struct LinePixels {
-    px: [i32; MAX_CATALOGUE],
-    /// Bit i: line i looked up; `placed` bit i: it has a pixel.
-    known: u64,
-    placed: u64,
-}
-
-impl LinePixels {
-    fn new() -> LinePixels {
-        LinePixels {
-            px: [0; MAX_CATALOGUE],
-            known: 0,
-            placed: 0,
-        }
-    }
-
-    /// Pixel of catalogue line `i` (= `line`), `None` where the map cannot place it.
-    fn get(&mut self, i: u8, line: &CatalogueLine, map: &WavelengthMap) -> Option<i32> {
-        let (Some(slot), true) = (self.px.get_mut(i as usize), i < 64) else {
-            return map.pixel_q16(line.wavelength_fm).ok();
-        };
-        let bit = 1u64 << i;
-        if self.known & bit == 0 {
-            self.known |= bit;
-            if let Ok(p) = map.pixel_q16(line.wavelength_fm) {
-                *slot = p;
-                self.placed |= bit;
-            }
-        }
-        (self.placed & bit != 0).then_some(*slot)
     }
 }
 

@@ -52,11 +52,28 @@ pub fn group(
     priors: &[(Nucleus, u16)],
     merge_px_q16: i32,
 ) -> Result<Vec<Feature, MAX_FEATURES>, MatchError> {
+    group_placing(catalogue, map, priors, merge_px_q16, |_, _| {})
+}
+
+/// [`group`], handing each line's pixel on `map` (`None` where the map cannot place it) to
+/// `placed` as it is found, so a caller that needs the lines' pixels later does not invert the
+/// map for them again.
+///
+/// Work: as [`group`].
+pub(crate) fn group_placing(
+    catalogue: &[CatalogueLine],
+    map: &WavelengthMap,
+    priors: &[(Nucleus, u16)],
+    merge_px_q16: i32,
+    mut placed: impl FnMut(u8, Option<i32>),
+) -> Result<Vec<Feature, MAX_FEATURES>, MatchError> {
     let mut out: Vec<Feature, MAX_FEATURES> = Vec::new();
     let mut last_px: Option<i32> = None;
     for (i, line) in catalogue.iter().enumerate().take(MAX_CATALOGUE) {
+        let at = map.pixel_q16(line.wavelength_fm).ok();
+        placed(i as u8, at);
         // A line the map cannot place (a fitted map extrapolated far off the sensor) is not on it.
-        let Ok(px) = map.pixel_q16(line.wavelength_fm) else {
+        let Some(px) = at else {
             continue;
         };
         let join = last_px.is_some_and(|l| (px as i64 - l as i64).abs() < merge_px_q16 as i64);
@@ -83,7 +100,7 @@ pub fn group(
         }
     }
     for f in out.iter_mut() {
-        settle(f, catalogue, map, priors)?;
+        settle_placed(f, catalogue, map, priors)?;
     }
     Ok(out)
 }
@@ -98,10 +115,38 @@ pub fn settle(
     map: &WavelengthMap,
     shares: &[(Nucleus, u16)],
 ) -> Result<(), MatchError> {
+    settle_with(f, catalogue, shares);
+    f.predicted_px_q16 = map.pixel_q16(f.predicted_fm).unwrap_or(f.predicted_px_q16);
+    Ok(())
+}
+
+/// [`settle`] for a feature already placed on `map` (by [`group`] or an earlier settle on it): the
+/// pixel follows the expected position, so when that did not move (every single-line feature, and
+/// a blend whose shares did not change) the map inversion is skipped; the result is the same.
+///
+/// Work: as [`settle`], the inversion only when the position moved.
+pub(crate) fn settle_placed(
+    f: &mut Feature,
+    catalogue: &[CatalogueLine],
+    map: &WavelengthMap,
+    shares: &[(Nucleus, u16)],
+) -> Result<(), MatchError> {
+    let before = f.predicted_fm;
+    settle_with(f, catalogue, shares);
+    if f.predicted_fm != before {
+        f.predicted_px_q16 = map.pixel_q16(f.predicted_fm).unwrap_or(f.predicted_px_q16);
+    }
+    Ok(())
+}
+
+/// The map-free part of [`settle`]: expected position, primary and rate.
+fn settle_with(f: &mut Feature, catalogue: &[CatalogueLine], shares: &[(Nucleus, u16)]) {
     let mut total: u128 = 0;
     let mut sum: i128 = 0;
     let mut best = (0u64, f.primary);
     let mut plain: i128 = 0;
+    // Members with a non-zero weight, and the wavelength of the last one.
+    let mut weighted = (0u8, 0i64);
     for &m in f.members.iter() {
         let Some(line) = catalogue.get(m as usize) else {
             continue;
@@ -110,19 +155,28 @@ pub fn settle(
         total += w as u128;
         sum += w as i128 * line.wavelength_fm as i128;
         plain += line.wavelength_fm as i128;
+        if w > 0 {
+            weighted = (weighted.0 + 1, line.wavelength_fm);
+        }
         if w > best.0 || best.0 == 0 && m == f.primary {
             best = (w, m);
         }
     }
-    f.predicted_fm = if total > 0 {
-        sum.checked_div(total as i128).unwrap_or(0) as i64
+    f.predicted_fm = if weighted.0 == 1 {
+        // One weighted member (a single line, or a blend whose partner has no share): the mean
+        // w·λ / w is λ exactly, no 128-bit division needed.
+        weighted.1
+    } else if total > 0 {
+        match (i64::try_from(sum), i64::try_from(total)) {
+            // The same truncating quotient in 64 bits when both fit.
+            (Ok(s), Ok(t)) => s.checked_div(t).unwrap_or(0),
+            _ => sum.checked_div(total as i128).unwrap_or(0) as i64,
+        }
     } else {
         plain.checked_div(f.members.len() as i128).unwrap_or(0) as i64
     };
     f.primary = best.1;
     f.expected = total as u64;
-    f.predicted_px_q16 = map.pixel_q16(f.predicted_fm).unwrap_or(f.predicted_px_q16);
-    Ok(())
 }
 
 #[cfg(test)]
