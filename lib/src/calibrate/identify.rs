@@ -159,6 +159,17 @@ pub fn identify(
         cfg,
         ends,
     };
+    // Wavelengths of the strong lines by position, and whether every strong line and peak lies
+    // within ±2^60 (nothing an instrument produces): then the gap test below is exact in `i64`.
+    let mut strong_fm = [0i64; HYP_LINES];
+    for (slot, &l) in strong_fm.iter_mut().zip(strong_lines.iter()) {
+        *slot = lines.get(l as usize).map_or(0, |r| r.wavelength_fm);
+    }
+    const NARROW: u64 = 1 << 60;
+    let narrow_gaps = strong_fm.iter().all(|w| w.unsigned_abs() <= NARROW)
+        && strong_peaks
+            .iter()
+            .all(|&i| axis.u.get(i as usize).is_none_or(|u| u.unsigned_abs() <= NARROW));
     let mut best: Option<Hypothesis> = None;
     // Hypotheses in a fixed order (peak pair, line pair, orientation): ties keep the first one found.
     // The masks skip only pairs `hypothesis` would refuse, so the order of the rest is unchanged.
@@ -179,6 +190,9 @@ pub fn identify(
             // With a nominal map, |b − 1| < (max_scale_error + 2) ppm (see `line_masks`), so
             // |(λ_b − λ_a) − du| = |b − 1| · |du| ≤ `slack`: pairs beyond it cannot pass `hypothesis`.
             let slack = scale_slack(du, cfg);
+            // The same test through u64 (a gap below 2^63 passes a slack past u64 exactly when it
+            // passes u64::MAX).
+            let slack64 = slack.map(|s| u64::try_from(s).unwrap_or(u64::MAX));
             for (aa, &a) in strong_lines.iter().enumerate() {
                 // (a, b): a with peak i, b with peak j; (b, a) the other way round.
                 let fwd = if (first >> aa) & 1 == 1 { second } else { 0 };
@@ -190,14 +204,21 @@ pub fn identify(
                     let Some(&b) = strong_lines.get(bb) else {
                         continue;
                     };
-                    let gap = |x: u8, y: u8| {
-                        let w = |l: u8| lines.get(l as usize).map_or(0, |r| r.wavelength_fm);
-                        (w(y) as i128 - w(x) as i128 - du as i128).unsigned_abs()
+                    // |(λ_y − λ_x) − du| within the slack, by position in `strong_fm`.
+                    let fits = |x: usize, y: usize| {
+                        let w = |k: usize| strong_fm.get(k).copied().unwrap_or(0);
+                        if narrow_gaps {
+                            slack64.is_none_or(|s| (w(y) - w(x) - du).unsigned_abs() <= s)
+                        } else {
+                            slack.is_none_or(|s| {
+                                (w(y) as i128 - w(x) as i128 - du as i128).unsigned_abs() <= s
+                            })
+                        }
                     };
-                    if (fwd >> bb) & 1 == 1 && slack.is_none_or(|s| gap(a, b) <= s) {
+                    if (fwd >> bb) & 1 == 1 && fits(aa, bb) {
                         search.consider(ui, du, a, b, &mut best);
                     }
-                    if (rev >> bb) & 1 == 1 && slack.is_none_or(|s| gap(b, a) <= s) {
+                    if (rev >> bb) & 1 == 1 && fits(bb, aa) {
                         search.consider(ui, du, b, a, &mut best);
                     }
                 }
@@ -231,7 +252,14 @@ impl Search<'_> {
         let (Some(ra), Some(rb)) = (lines.get(la as usize), lines.get(lb as usize)) else {
             return;
         };
-        let Some(h) = hypothesis(ui, du, ra.wavelength_fm, rb.wavelength_fm, self.cfg) else {
+        let Some(h) = hypothesis(
+            ui,
+            du,
+            ra.wavelength_fm,
+            rb.wavelength_fm,
+            self.cfg,
+            self.axis.b_max_u,
+        ) else {
             return;
         };
         let floor = best.map_or(1, |b| b.net);
@@ -243,6 +271,7 @@ impl Search<'_> {
         }
     }
 }
+
 
 /// What every hypothesis reuses about the peaks.
 struct Axis {
@@ -421,14 +450,36 @@ fn strongest<const N: usize>(values: impl Iterator<Item = u32>, k: usize) -> Vec
 }
 
 /// The hypothesis through (u_i, wa) and (u_i + du, wb), if it is within the search range.
-fn hypothesis(ui: i64, du: i64, wa: i64, wb: i64, cfg: &IdentifyConfig) -> Option<Hypothesis> {
-    let b_q30 = i64::try_from(((wb - wa) as i128) << 30)
-        .ok()?
-        .checked_div(du)?;
-    let a_fm = wa - (((b_q30 as i128) * ui as i128) >> 30) as i64;
+///
+/// `b_max_u` is [`Axis::b_max_u`] (|b| up to it keeps b · u_i in `i64`). Each step takes the 64-bit
+/// path where its operands are small enough for it to give the same integer as the 128-bit one.
+fn hypothesis(
+    ui: i64,
+    du: i64,
+    wa: i64,
+    wb: i64,
+    cfg: &IdentifyConfig,
+    b_max_u: u64,
+) -> Option<Hypothesis> {
+    let gap = wb - wa;
+    let b_q30 = if gap.unsigned_abs() < 1 << 33 {
+        (gap << 30).checked_div(du)?
+    } else {
+        i64::try_from((gap as i128) << 30).ok()?.checked_div(du)?
+    };
+    let a_fm = if b_q30.unsigned_abs() <= b_max_u {
+        wa - ((b_q30 * ui) >> 30)
+    } else {
+        wa - (((b_q30 as i128) * ui as i128) >> 30) as i64
+    };
     match &cfg.nominal {
         Some(_) => {
-            let dev = ((b_q30 - (1 << 30)).unsigned_abs() as u128 * 1_000_000) >> 30;
+            let e = (b_q30 - (1 << 30)).unsigned_abs();
+            let dev = if e < 1 << 44 {
+                ((e * 1_000_000) >> 30) as u128
+            } else {
+                (e as u128 * 1_000_000) >> 30
+            };
             if dev > cfg.max_scale_error_ppm as u128 {
                 return None;
             }
@@ -438,8 +489,8 @@ fn hypothesis(ui: i64, du: i64, wa: i64, wb: i64, cfg: &IdentifyConfig) -> Optio
             }
         }
         None => {
-            // b is fm per Q16 px: scale to fm/px.
-            let disp = (b_q30.unsigned_abs() as i128 * 65_536) >> 30;
+            // b is fm per Q16 px: scale to fm/px (· 2^16 / 2^30 of a magnitude is a shift by 14).
+            let disp = (b_q30.unsigned_abs() >> 14) as i128;
             let (lo, hi) = cfg.blind_dispersion_fm_per_px;
             if disp < lo as i128 || disp > hi as i128 {
                 return None;

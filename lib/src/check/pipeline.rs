@@ -31,6 +31,8 @@ pub struct Checker {
     priors: Vec<(Nucleus, u16), MAX_NUCLEI>,
     catalogue: Vec<CatalogueLine, MAX_CATALOGUE>,
     pair: Option<(Nucleus, Nucleus)>,
+    /// What identification matches peaks against (from the catalogue and priors, so once here).
+    refs: Vec<ReferenceLine, MAX_REFERENCE_LINES>,
 }
 
 /// The map a check measures with, and its uncertainty.
@@ -93,11 +95,13 @@ impl Checker {
         let (lo, hi) = sensor_range(&cfg)?;
         let nuclei: Vec<Nucleus, MAX_NUCLEI> = collect_bounded(priors.iter().map(|p| p.0));
         let catalogue = build(&nuclei, lo, hi, &cfg.air)?;
+        let refs = reference_lines(&catalogue, &priors);
         Ok(Checker {
             cfg,
             priors,
             catalogue,
             pair,
+            refs,
         })
     }
 
@@ -257,14 +261,14 @@ impl Checker {
                 lines: LinePixels::new(),
             });
         }
-        let refs = self.reference_lines();
+        let refs = &self.refs;
         let nominal = if cfg.mode == Mode::Calibrate {
             Some(cfg.stored.map)
         } else {
             None
         };
         let icfg = IdentifyConfig::new(cfg.pixels, cfg.degree, nominal);
-        match identify(peaks, &refs, &icfg) {
+        match identify(peaks, refs, &icfg) {
             Ok(id) => {
                 report.fit_rms_fm = Some(id.fit.rms_residual_fm);
                 report.drift_fm = drift_fm(&id.fit.map, &cfg.stored.map, cfg.pixels);
@@ -280,44 +284,6 @@ impl Checker {
                 None
             }
         }
-    }
-
-    /// Predicted lines for identification: isotopes of one transition merged at the prior shares
-    /// (a calibration cannot tell them apart anyway), species with no prior left out.
-    fn reference_lines(&self) -> Vec<ReferenceLine, MAX_REFERENCE_LINES> {
-        let mut out: Vec<(ReferenceLine, u8, u8, u8), MAX_REFERENCE_LINES> = Vec::new();
-        let mut weights: Vec<u64, MAX_REFERENCE_LINES> = Vec::new();
-        for line in self.catalogue.iter() {
-            let share = prior_share(&self.priors, line.nucleus) as u64;
-            if share == 0 {
-                continue;
-            }
-            let w = line.strength as u64 * share;
-            let key = (line.nucleus.z(), line.lower, line.upper);
-            if let Some(pos) = out.iter().position(|(_, z, m, n)| (*z, *m, *n) == key) {
-                if let (Some(e), Some(tw)) = (out.get_mut(pos), weights.get_mut(pos)) {
-                    let total = *tw + w;
-                    let mixed = (e.0.wavelength_fm as i128 * *tw as i128
-                        + line.wavelength_fm as i128 * w as i128)
-                        / total.max(1) as i128;
-                    e.0.wavelength_fm = mixed as i64;
-                    e.0.strength = e.0.strength.saturating_add((w / 1000) as u32);
-                    *tw = total;
-                }
-                continue;
-            }
-            let r = ReferenceLine {
-                wavelength_fm: line.wavelength_fm,
-                strength: (w / 1000) as u32,
-            };
-            if out.push((r, key.0, key.1, key.2)).is_ok() {
-                let _ = weights.push(w);
-            }
-        }
-        let mut refs: Vec<ReferenceLine, MAX_REFERENCE_LINES> =
-            collect_bounded(out.iter().map(|e| e.0));
-        crate::sort::sort_by_key(&mut refs, |r| r.wavelength_fm);
-        refs
     }
 
     /// Match window of one line: twice the allowed position error plus 3 σ of the map, ≥ 1 px (Q16).
@@ -724,9 +690,9 @@ impl Checker {
         if peaks.len() < matched + 2 && !rescue {
             return false;
         }
-        let refs = self.reference_lines();
+        let refs = &self.refs;
         let icfg = IdentifyConfig::new(cfg.pixels, cfg.degree, Some(cfg.stored.map));
-        let Ok(id) = identify(peaks, &refs, &icfg) else {
+        let Ok(id) = identify(peaks, refs, &icfg) else {
             return false;
         };
         if id.pairs.len() < matched + 2 && !(rescue && id.pairs.len() >= 3) {
@@ -905,6 +871,47 @@ impl Checker {
         let (lo, hi) = (x.min(y), x.max(y));
         measured - measured.clamp(lo, hi)
     }
+}
+
+/// Predicted lines for identification: isotopes of one transition merged at the prior shares
+/// (a calibration cannot tell them apart anyway), species with no prior left out.
+fn reference_lines(
+    catalogue: &[CatalogueLine],
+    priors: &[(Nucleus, u16)],
+) -> Vec<ReferenceLine, MAX_REFERENCE_LINES> {
+    let mut out: Vec<(ReferenceLine, u8, u8, u8), MAX_REFERENCE_LINES> = Vec::new();
+    let mut weights: Vec<u64, MAX_REFERENCE_LINES> = Vec::new();
+    for line in catalogue.iter() {
+        let share = prior_share(priors, line.nucleus) as u64;
+        if share == 0 {
+            continue;
+        }
+        let w = line.strength as u64 * share;
+        let key = (line.nucleus.z(), line.lower, line.upper);
+        if let Some(pos) = out.iter().position(|(_, z, m, n)| (*z, *m, *n) == key) {
+            if let (Some(e), Some(tw)) = (out.get_mut(pos), weights.get_mut(pos)) {
+                let total = *tw + w;
+                let mixed = (e.0.wavelength_fm as i128 * *tw as i128
+                    + line.wavelength_fm as i128 * w as i128)
+                    / total.max(1) as i128;
+                e.0.wavelength_fm = mixed as i64;
+                e.0.strength = e.0.strength.saturating_add((w / 1000) as u32);
+                *tw = total;
+            }
+            continue;
+        }
+        let r = ReferenceLine {
+            wavelength_fm: line.wavelength_fm,
+            strength: (w / 1000) as u32,
+        };
+        if out.push((r, key.0, key.1, key.2)).is_ok() {
+            let _ = weights.push(w);
+        }
+    }
+    let mut refs: Vec<ReferenceLine, MAX_REFERENCE_LINES> =
+        collect_bounded(out.iter().map(|e| e.0));
+    crate::sort::sort_by_key(&mut refs, |r| r.wavelength_fm);
+    refs
 }
 
 /// |dλ/dp| at a feature's predicted pixel (fm/px, Q16), at least 1 (0 when the map cannot say).
