@@ -167,9 +167,11 @@ pub fn identify(
     }
     const NARROW: u64 = 1 << 60;
     let narrow_gaps = strong_fm.iter().all(|w| w.unsigned_abs() <= NARROW)
-        && strong_peaks
-            .iter()
-            .all(|&i| axis.u.get(i as usize).is_none_or(|u| u.unsigned_abs() <= NARROW));
+        && strong_peaks.iter().all(|&i| {
+            axis.u
+                .get(i as usize)
+                .is_none_or(|u| u.unsigned_abs() <= NARROW)
+        });
     let mut best: Option<Hypothesis> = None;
     // Hypotheses in a fixed order (peak pair, line pair, orientation): ties keep the first one found.
     // The masks skip only pairs `hypothesis` would refuse, so the order of the rest is unchanged.
