@@ -7,6 +7,7 @@
 //! the centroid noise, sets the uncertainty).
 use super::error::CalibrateError;
 use super::map::{WavelengthMap, X_ONE_Q30};
+use super::muldiv::mul_div_round;
 use crate::fixed::{isqrt_u128, mul_div_i128};
 
 /// Most points one fit takes.
@@ -165,22 +166,12 @@ pub fn fit_map(points: &[FitPoint], degree: u8, pixels: u16) -> Result<MapFit, C
     for pt in points {
         let s = pt.sigma_px_q16.max(1) as i128;
         let w =
-            mul_div_i128(sigma_min * sigma_min, 1 << 30, s * s).ok_or(CalibrateError::Overflow)?;
-        let x = frame.x_q30(pt.center_px_q16) as i128;
-        let mut pw = [0i128; 7]; // x^k in Q30
-        let mut xk: i128 = 1 << 30;
-        for slot in pw.iter_mut() {
-            *slot = xk;
-            xk = (xk * x) >> 30;
-        }
-        for (r, row) in m.iter_mut().enumerate().take(d) {
-            for (c, cell) in row.iter_mut().enumerate().take(d) {
-                *cell += w * pw.get(r + c).copied().unwrap_or(0); // Q60
-            }
-            let wx = w * pw.get(r).copied().unwrap_or(0);
-            row[4] += wx
-                .checked_mul(pt.wavelength_fm as i128)
-                .ok_or(CalibrateError::Overflow)?;
+            mul_div_round(sigma_min * sigma_min, 1 << 30, s * s).ok_or(CalibrateError::Overflow)?;
+        let x = frame.x_q30(pt.center_px_q16);
+        if x.unsigned_abs() <= 1 << 30 && (0..=1 << 30).contains(&w) {
+            accumulate_narrow(&mut m, d, w as i64, x, pt.wavelength_fm);
+        } else {
+            accumulate(&mut m, d, w, x, pt.wavelength_fm)?;
         }
     }
     for (r, row) in m.iter_mut().enumerate().take(d) {
@@ -198,11 +189,11 @@ pub fn fit_map(points: &[FitPoint], degree: u8, pixels: u16) -> Result<MapFit, C
     {
         let piv = row.get(r).copied().unwrap_or(0);
         let rhs = row.get(4).copied().unwrap_or(0);
-        *c_out = i64::try_from(mul_div_i128(rhs, 1, piv).ok_or(CalibrateError::Overflow)?)
+        *c_out = i64::try_from(mul_div_round(rhs, 1, piv).ok_or(CalibrateError::Overflow)?)
             .map_err(|_| CalibrateError::Overflow)?;
         for (inv, &cell) in inv_row.iter_mut().zip(row.iter().skip(5)).take(d) {
             // (Q60 / Q60) → scale to Q40.
-            *inv = mul_div_i128(cell, 1 << 40, piv).ok_or(CalibrateError::Overflow)?;
+            *inv = mul_div_round(cell, 1 << 40, piv).ok_or(CalibrateError::Overflow)?;
         }
     }
     let map = WavelengthMap::with_frame(half, half, degree, coeff, pixels)?;
@@ -219,12 +210,18 @@ pub fn fit_map(points: &[FitPoint], degree: u8, pixels: u16) -> Result<MapFit, C
         let r = (lam - pt.wavelength_fm) as i128;
         let s = pt.sigma_px_q16.max(1) as i128;
         let w =
-            mul_div_i128(sigma_min * sigma_min, 1 << 20, s * s).ok_or(CalibrateError::Overflow)?;
-        sum_wr2 = sum_wr2.saturating_add(w.saturating_mul(r * r));
+            mul_div_round(sigma_min * sigma_min, 1 << 20, s * s).ok_or(CalibrateError::Overflow)?;
+        // w ≤ 2^20 (σ_min ≤ σ) and |r| < 2^21: w · r² < 2^62 needs neither 128 bits nor saturation.
+        let wr2 = if r.unsigned_abs() < 1 << 21 && (0..=1 << 20).contains(&w) {
+            ((w as i64) * (r as i64 * r as i64)) as i128
+        } else {
+            w.saturating_mul(r * r)
+        };
+        sum_wr2 = sum_wr2.saturating_add(wr2);
         sum_w += w;
         let slope = slope.unsigned_abs() as i128;
         let s_fm = ((pt.sigma_px_q16.max(1) as i128 * slope) >> 32).max(1);
-        chi2_q8 += mul_div_i128(r * r, 256, s_fm * s_fm).ok_or(CalibrateError::Overflow)?;
+        chi2_q8 += mul_div_round(r * r, 256, s_fm * s_fm).ok_or(CalibrateError::Overflow)?;
     }
     let n = points.len() as i128;
     let dof = n - d as i128;
@@ -249,6 +246,52 @@ pub fn fit_map(points: &[FitPoint], degree: u8, pixels: u16) -> Result<MapFit, C
         inverse_q40: inverse,
         variance_scale_fm2: u64::try_from(variance_scale).map_err(|_| CalibrateError::Overflow)?,
     })
+}
+
+/// One point's terms of the normal equations (Q60): w · x^(r+c) and w · x^r · λ, x and w in Q30.
+fn accumulate(
+    m: &mut [[i128; 9]; 4],
+    d: usize,
+    w: i128,
+    x: i64,
+    wavelength_fm: i64,
+) -> Result<(), CalibrateError> {
+    let x = x as i128;
+    let mut pw = [0i128; 7]; // x^k in Q30
+    let mut xk: i128 = 1 << 30;
+    for slot in pw.iter_mut() {
+        *slot = xk;
+        xk = (xk * x) >> 30;
+    }
+    for (r, row) in m.iter_mut().enumerate().take(d) {
+        for (c, cell) in row.iter_mut().enumerate().take(d) {
+            *cell += w * pw.get(r + c).copied().unwrap_or(0); // Q60
+        }
+        let wx = w * pw.get(r).copied().unwrap_or(0);
+        row[4] += wx
+            .checked_mul(wavelength_fm as i128)
+            .ok_or(CalibrateError::Overflow)?;
+    }
+    Ok(())
+}
+
+/// [`accumulate`] for |x| ≤ 1 (Q30) and a weight 0 ≤ w ≤ 1 (Q30), the same integers: every
+/// product but the last fits `i64` there (each is at most 2^60), and that one is a single widening
+/// product of at most 2^123, so the checked product of the general path cannot fail.
+fn accumulate_narrow(m: &mut [[i128; 9]; 4], d: usize, w: i64, x: i64, wavelength_fm: i64) {
+    let mut pw = [0i64; 7];
+    let mut xk: i64 = 1 << 30;
+    for slot in pw.iter_mut() {
+        *slot = xk;
+        xk = (xk * x) >> 30;
+    }
+    for (r, row) in m.iter_mut().enumerate().take(d) {
+        for (c, cell) in row.iter_mut().enumerate().take(d) {
+            *cell += (w * pw.get(r + c).copied().unwrap_or(0)) as i128;
+        }
+        let wx = w * pw.get(r).copied().unwrap_or(0);
+        row[4] += wx as i128 * wavelength_fm as i128;
+    }
 }
 
 /// In-place Gauss–Jordan with partial pivoting on the first `d` (≤ 4) columns of a 4 × 9 system.
@@ -279,7 +322,12 @@ fn gauss_jordan(m: &mut [[i128; 9]; 4], d: usize) -> Result<(), CalibrateError> 
                 continue;
             }
             for (cell, &p) in row.iter_mut().zip(pivot_row.iter()).skip(col) {
-                let delta = mul_div_i128(p, f, piv).ok_or(CalibrateError::Overflow)?;
+                // A zero in the pivot row (unused columns, the identity block early on) changes
+                // nothing: 0 · f / piv is 0 exactly, without the 128-bit long division.
+                if p == 0 {
+                    continue;
+                }
+                let delta = mul_div_round(p, f, piv).ok_or(CalibrateError::Overflow)?;
                 *cell = cell.checked_sub(delta).ok_or(CalibrateError::Overflow)?;
             }
         }
@@ -406,6 +454,30 @@ mod tests {
         assert!(narrow > 3_000, "{narrow}");
         for x in [-(1i64 << 30), 1 << 30, 0, 1, -1] {
             assert_eq!(base.quadratic_form_narrow(x), Some(base.quadratic_form(x)));
+        }
+    }
+
+    #[test]
+    fn narrow_accumulation_gives_the_wide_sums() {
+        let mut seed = 0x51_7cc1_b727_220au64;
+        let mut next = move || {
+            seed ^= seed << 13;
+            seed ^= seed >> 7;
+            seed ^= seed << 17;
+            seed
+        };
+        for case in 0..2_000 {
+            let d = 2 + case % 3;
+            let (mut a, mut b) = ([[0i128; 9]; 4], [[0i128; 9]; 4]);
+            for _ in 0..8 {
+                let x = (next() % (1 << 31)) as i64 - (1 << 30) + (next() % 3) as i64 - 1;
+                let x = x.clamp(-(1 << 30), 1 << 30);
+                let w = (next() % ((1 << 30) + 1)) as i64;
+                let lam = (next() >> 1) as i64 * if next() & 1 == 1 { -1 } else { 1 };
+                accumulate_narrow(&mut a, d, w, x, lam);
+                accumulate(&mut b, d, w as i128, x, lam).unwrap();
+            }
+            assert_eq!(a, b);
         }
     }
 }

@@ -7,6 +7,7 @@ mod error;
 mod fit;
 pub mod identify;
 mod map;
+mod muldiv;
 
 pub use error::CalibrateError;
 pub use fit::{fit_map, FitPoint, MapFit, MAX_FIT_POINTS};
