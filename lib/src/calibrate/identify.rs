@@ -117,6 +117,9 @@ struct Hypothesis {
     /// Kendall-style agreement between peak brightness and expected line strength over matched pairs.
     concord: i32,
     cost: i64,
+    /// The line each scored peak matched, by position in the scored list (`u8::MAX`: none). Equal
+    /// lists mean equal matched pairs, so equal `concord`.
+    lines_of: [u8; SCORE_PEAKS],
 }
 
 /// Identifies peaks against `lines` (sorted by wavelength) and fits the map.
@@ -158,6 +161,7 @@ pub fn identify(
         lines,
         cfg,
         ends,
+        b_max_ends: i64::MAX as u64 / ends.0.unsigned_abs().max(ends.1.unsigned_abs()).max(1),
     };
     // Wavelengths of the strong lines by position, and whether every strong line and peak lies
     // within ±2^60 (nothing an instrument produces): then the gap test below is exact in `i64`.
@@ -243,6 +247,8 @@ struct Search<'a> {
     cfg: &'a IdentifyConfig,
     /// u at the sensor's ends.
     ends: (i64, i64),
+    /// Largest |b| (Q30) for which b · u stays within `i64` at both ends.
+    b_max_ends: u64,
 }
 
 impl Search<'_> {
@@ -264,8 +270,7 @@ impl Search<'_> {
         ) else {
             return;
         };
-        let floor = best.map_or(1, |b| b.net);
-        let Some(h) = score(h, self, floor) else {
+        let Some(h) = score(h, self, best.as_ref()) else {
             return;
         };
         if better(&h, best) {
@@ -505,16 +510,19 @@ fn hypothesis(
         net: 0,
         concord: 0,
         cost: 0,
+        lines_of: [u8::MAX; SCORE_PEAKS],
     })
 }
 
-/// Scores a hypothesis; `None` when it cannot reach `floor` (the best net score so far: a
-/// hypothesis below it can never be taken, so its scoring stops as soon as that is certain).
+/// Scores a hypothesis; `None` when it cannot reach the floor (the best net score so far, 1 before
+/// any: a hypothesis below it can never be taken, so its scoring stops as soon as that is certain).
+/// When it matched the same lines to the same peaks as `best`, it has the same strength agreement,
+/// which is then copied rather than counted again.
 ///
 /// Net score = peaks landing on a line − lines at least as strong as the weakest matched one that fall
 /// on the sensor with no peak there: a wrong scale that matches three faint lines by chance must
 /// explain why the strong ones are missing.
-fn score(mut h: Hypothesis, search: &Search<'_>, floor: i32) -> Option<Hypothesis> {
+fn score(mut h: Hypothesis, search: &Search<'_>, best: Option<&Hypothesis>) -> Option<Hypothesis> {
     let Search {
         peaks,
         scored,
@@ -522,7 +530,9 @@ fn score(mut h: Hypothesis, search: &Search<'_>, floor: i32) -> Option<Hypothesi
         lines,
         cfg,
         ends: ends_u,
+        b_max_ends,
     } = *search;
+    let floor = best.map_or(1, |b| b.net);
     let mut votes = 0i32;
     let mut cost = 0i64;
     let mut weakest = u32::MAX;
@@ -564,13 +574,12 @@ fn score(mut h: Hypothesis, search: &Search<'_>, floor: i32) -> Option<Hypothesi
             if let Some(seen) = seen_lines.get_mut(idx) {
                 *seen = true;
             }
-            // 0 ≤ d ≤ tol: below 2^23 the quotient is the same in u32.
+            if let Some(slot) = h.lines_of.get_mut(m) {
+                *slot = idx as u8;
+            }
+            // 0 ≤ d ≤ tol: below 2^23 the quotient is the same in u32, at most 256.
             cost += if tol < 1 << 23 {
-                i64::from(
-                    ((d as u32) << 8)
-                        .checked_div(tol.max(1) as u32)
-                        .unwrap_or(0),
-                )
+                i64::from(ratio_q8(d as u32, tol.max(1) as u32))
             } else {
                 d * 256 / tol.max(1)
             };
@@ -582,7 +591,13 @@ fn score(mut h: Hypothesis, search: &Search<'_>, floor: i32) -> Option<Hypothesi
     if votes < floor {
         return None;
     }
-    let lam_end = |uv: i64| h.a_fm + (((h.b_q30 as i128) * uv as i128) >> 30) as i64;
+    let lam_end = |uv: i64| {
+        if h.b_q30.unsigned_abs() <= b_max_ends {
+            h.a_fm + ((h.b_q30 * uv) >> 30)
+        } else {
+            h.a_fm + (((h.b_q30 as i128) * uv as i128) >> 30) as i64
+        }
+    };
     let (e0, e1) = (lam_end(ends_u.0), lam_end(ends_u.1));
     let (lo, hi) = (e0.min(e1), e0.max(e1));
     let mut misses = 0i32;
@@ -606,16 +621,36 @@ fn score(mut h: Hypothesis, search: &Search<'_>, floor: i32) -> Option<Hypothesi
     h.cost = cost;
     // Brighter peaks should sit on lines expected to be stronger (a tie-breaker: detector response
     // and self-absorption bend this, but rarely reverse a whole series).
-    let mut concord = 0i32;
-    // sign(x − y) of two u32 as −1, 0, 1 (the same as through i64).
-    let sign = |x: u32, y: u32| i32::from(x > y) - i32::from(x < y);
-    for (i, a) in matched.iter().enumerate() {
-        for b in matched.iter().skip(i + 1) {
-            concord += sign(a.0, b.0) * sign(a.1, b.1);
+    h.concord = match best {
+        Some(b) if b.lines_of == h.lines_of => b.concord,
+        _ => {
+            let mut concord = 0i32;
+            // sign(x − y) of two u32 as −1, 0, 1 (the same as through i64).
+            let sign = |x: u32, y: u32| i32::from(x > y) - i32::from(x < y);
+            for (i, a) in matched.iter().enumerate() {
+                for b in matched.iter().skip(i + 1) {
+                    concord += sign(a.0, b.0) * sign(a.1, b.1);
+                }
+            }
+            concord
+        }
+    };
+    Some(h)
+}
+
+/// ⌊256 · d / t⌋ for 0 ≤ d ≤ t and 1 ≤ t < 2^23 (so the quotient is at most 256 and t · 2^8 fits):
+/// nine steps of restoring division, the same quotient as the library's general one.
+fn ratio_q8(d: u32, t: u32) -> u32 {
+    let mut rem = d << 8;
+    let mut q = 0;
+    for bit in (0..=8u32).rev() {
+        let s = t << bit;
+        if rem >= s {
+            rem -= s;
+            q |= 1 << bit;
         }
     }
-    h.concord = concord;
-    Some(h)
+    q
 }
 
 /// Where the nearest-line search starts for the next peak.
@@ -869,5 +904,23 @@ mod tests {
             .collect();
         let cfg = IdentifyConfig::new(2048, 2, None);
         assert!(identify(&peaks, &lines, &cfg).is_err());
+    }
+
+    #[test]
+    fn ratio_q8_is_the_plain_quotient() {
+        let mut seed = 0x0bad_5eed_1234_5678u64;
+        for _ in 0..100_000 {
+            seed ^= seed << 13;
+            seed ^= seed >> 7;
+            seed ^= seed << 17;
+            let t = ((1 + (seed % ((1 << 23) - 1)) as u32) >> (seed >> 59)).max(1);
+            let d = ((seed >> 24) % (t as u64 + 1)) as u32;
+            assert_eq!(ratio_q8(d, t), (d << 8) / t, "{d} {t}");
+        }
+        assert_eq!(ratio_q8(0, 1), 0);
+        assert_eq!(ratio_q8(1, 1), 256);
+        let top = (1 << 23) - 1;
+        assert_eq!(ratio_q8(top, top), 256);
+        assert_eq!(ratio_q8(top - 1, top), ((top - 1) << 8) / top);
     }
 }
