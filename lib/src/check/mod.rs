@@ -9,7 +9,6 @@
 //! ```
 mod config;
 mod error;
-mod line_pixels;
 mod pipeline;
 mod stage;
 mod workspace;

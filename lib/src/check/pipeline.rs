@@ -1,7 +1,6 @@
 //! The whole job for one frame: condition → find → calibrate → match → judge, into one [`Report`].
 use super::config::Config;
 use super::error::CheckError;
-use super::line_pixels::LinePixels;
 use super::stage::Stage;
 use super::workspace::Workspace;
 use crate::bounded::collect_bounded;
@@ -17,6 +16,7 @@ use crate::matching::feature::{group_placing, prior_share, settle_placed, Featur
 use crate::matching::isotope::{
     share_by_position, share_by_profile, BlendReading, PairWindow, ShareEstimate,
 };
+use crate::matching::line_pixels::LinePixels;
 use crate::matching::markers::nearest_marker;
 use crate::matching::{MAX_CATALOGUE, MAX_SHARE_SIGMA_PPM};
 use crate::predict::Nucleus;
@@ -213,13 +213,12 @@ impl Checker {
         // a pair that does show as two is split again after matching.
         let merge_q16 = ((cfg.line_fwhm_px_q8 as i32) << 8) * 3 / 2;
         // Every line's pixel is found once, while grouping, for all the steps below.
-        let lines = &mut in_use.lines;
         let mut features = group_placing(
             &self.catalogue,
             &in_use.map,
             &self.priors,
             merge_q16,
-            |i, p| lines.put(i, p),
+            &mut in_use.lines,
         )?;
         let in_use = in_use;
         let pairs = assign(&features, peaks, |f| self.window_px_q16(f, &in_use));
@@ -227,7 +226,7 @@ impl Checker {
         let estimate = self.isotope(&features, &pairs, peaks, &in_use, frame, base);
         let shares = self.shares(estimate);
         for f in features.iter_mut() {
-            settle_placed(f, &self.catalogue, &in_use.map, &shares)?;
+            settle_placed(f, &self.catalogue, &in_use.map, &shares, &in_use.lines)?;
         }
         self.fill_lines(
             &features,

@@ -5,6 +5,7 @@
 //! isotope analysis read the mix off the blend.
 use super::catalogue::{CatalogueLine, MAX_CATALOGUE};
 use super::error::MatchError;
+use super::line_pixels::LinePixels;
 use crate::calibrate::WavelengthMap;
 use crate::predict::Nucleus;
 use heapless::Vec;
@@ -52,12 +53,12 @@ pub fn group(
     priors: &[(Nucleus, u16)],
     merge_px_q16: i32,
 ) -> Result<Vec<Feature, MAX_FEATURES>, MatchError> {
-    group_placing(catalogue, map, priors, merge_px_q16, |_, _| {})
+    group_placing(catalogue, map, priors, merge_px_q16, &mut LinePixels::new())
 }
 
-/// [`group`], handing each line's pixel on `map` (`None` where the map cannot place it) to
-/// `placed` as it is found, so a caller that needs the lines' pixels later does not invert the
-/// map for them again.
+/// [`group`], recording each line's pixel on `map` in `lines` as it is found (where the map cannot
+/// place it, that too), so neither settling nor a caller that needs the lines' pixels later inverts
+/// the map for them again.
 ///
 /// Work: as [`group`].
 pub(crate) fn group_placing(
@@ -65,13 +66,13 @@ pub(crate) fn group_placing(
     map: &WavelengthMap,
     priors: &[(Nucleus, u16)],
     merge_px_q16: i32,
-    mut placed: impl FnMut(u8, Option<i32>),
+    lines: &mut LinePixels,
 ) -> Result<Vec<Feature, MAX_FEATURES>, MatchError> {
     let mut out: Vec<Feature, MAX_FEATURES> = Vec::new();
     let mut last_px: Option<i32> = None;
     for (i, line) in catalogue.iter().enumerate().take(MAX_CATALOGUE) {
         let at = map.pixel_q16(line.wavelength_fm).ok();
-        placed(i as u8, at);
+        lines.put(i as u8, at);
         // A line the map cannot place (a fitted map extrapolated far off the sensor) is not on it.
         let Some(px) = at else {
             continue;
@@ -100,7 +101,7 @@ pub(crate) fn group_placing(
         }
     }
     for f in out.iter_mut() {
-        settle_placed(f, catalogue, map, priors)?;
+        settle_placed(f, catalogue, map, priors, lines)?;
     }
     Ok(out)
 }
@@ -120,33 +121,48 @@ pub fn settle(
     Ok(())
 }
 
-/// [`settle`] for a feature already placed on `map` (by [`group`] or an earlier settle on it): the
-/// pixel follows the expected position, so when that did not move (every single-line feature, and
-/// a blend whose shares did not change) the map inversion is skipped; the result is the same.
+/// [`settle`] for a feature already placed on `map` (by [`group`] or an earlier settle on it), with
+/// the lines' pixels on `map` recorded in `lines`: the pixel follows the expected position, so when
+/// that did not move (every single-line feature, and a blend whose shares did not change) the map
+/// inversion is skipped, and when it moved onto one member's wavelength (the only member with a
+/// share) that member's recorded pixel is taken. The result is the same either way.
 ///
-/// Work: as [`settle`], the inversion only when the position moved.
+/// Work: as [`settle`], the inversion only when the position moved to a new wavelength.
 pub(crate) fn settle_placed(
     f: &mut Feature,
     catalogue: &[CatalogueLine],
     map: &WavelengthMap,
     shares: &[(Nucleus, u16)],
+    lines: &LinePixels,
 ) -> Result<(), MatchError> {
     let before = f.predicted_fm;
-    settle_with(f, catalogue, shares);
+    let sole = settle_with(f, catalogue, shares);
     if f.predicted_fm != before {
-        f.predicted_px_q16 = map.pixel_q16(f.predicted_fm).unwrap_or(f.predicted_px_q16);
+        // pixel_q16 is a function of the wavelength: the member's own pixel is the same integer.
+        f.predicted_px_q16 = match sole.and_then(|m| lines.recorded(m)) {
+            Some(px) => px,
+            None => {
+                map.pixel_q16(f.predicted_fm).ok()
+            }
+        }
+        .unwrap_or(f.predicted_px_q16);
     }
     Ok(())
 }
 
-/// The map-free part of [`settle`]: expected position, primary and rate.
-fn settle_with(f: &mut Feature, catalogue: &[CatalogueLine], shares: &[(Nucleus, u16)]) {
+/// The map-free part of [`settle`]: expected position, primary and rate. Returns the member whose
+/// wavelength the position is when it is the only one with a non-zero weight.
+fn settle_with(
+    f: &mut Feature,
+    catalogue: &[CatalogueLine],
+    shares: &[(Nucleus, u16)],
+) -> Option<u8> {
     let mut total: u128 = 0;
     let mut sum: i128 = 0;
     let mut best = (0u64, f.primary);
     let mut plain: i128 = 0;
-    // Members with a non-zero weight, and the wavelength of the last one.
-    let mut weighted = (0u8, 0i64);
+    // Members with a non-zero weight, and the wavelength and index of the last one.
+    let mut weighted = (0u8, 0i64, 0u8);
     for &m in f.members.iter() {
         let Some(line) = catalogue.get(m as usize) else {
             continue;
@@ -156,7 +172,7 @@ fn settle_with(f: &mut Feature, catalogue: &[CatalogueLine], shares: &[(Nucleus,
         sum += w as i128 * line.wavelength_fm as i128;
         plain += line.wavelength_fm as i128;
         if w > 0 {
-            weighted = (weighted.0 + 1, line.wavelength_fm);
+            weighted = (weighted.0 + 1, line.wavelength_fm, m);
         }
         if w > best.0 || best.0 == 0 && m == f.primary {
             best = (w, m);
@@ -177,6 +193,7 @@ fn settle_with(f: &mut Feature, catalogue: &[CatalogueLine], shares: &[(Nucleus,
     };
     f.primary = best.1;
     f.expected = total as u64;
+    (weighted.0 == 1).then_some(weighted.2)
 }
 
 #[cfg(test)]
