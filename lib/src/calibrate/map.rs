@@ -165,14 +165,16 @@ impl WavelengthMap {
     }
 
     /// Degree ≤ 3 and |k · c_k| < 2^31 for k ≥ 1 (every real sensor: c_1 is half the span in fm).
+    ///
+    /// k · |c_k| < 2^31 is |c_k| ≤ ⌊(2^31 − 1) / k⌋: compared against those constants, as a product
+    /// that could overflow would need a 64 × 64-bit multiply on a 32-bit core at every slope.
     fn narrow_slope(&self) -> bool {
+        const LIMIT: [u64; 4] = [0, (1 << 31) - 1, ((1 << 31) - 1) / 2, ((1 << 31) - 1) / 3];
+        let [_, c1, c2, c3] = self.coeff_fm;
         self.degree <= 3
-            && self
-                .coeff_fm
-                .iter()
-                .enumerate()
-                .skip(1)
-                .all(|(k, c)| c.unsigned_abs().saturating_mul(k as u64) < 1 << 31)
+            && c1.unsigned_abs() <= LIMIT[1]
+            && c2.unsigned_abs() <= LIMIT[2]
+            && c3.unsigned_abs() <= LIMIT[3]
     }
 
     /// Pixel (px, Q16) where the map gives `wavelength_fm`: Newton steps from the linear guess, at most
@@ -436,5 +438,43 @@ mod tests {
         }
         // Both answers are exercised.
         assert!((100..700).contains(&refused), "{refused}");
+    }
+
+    #[test]
+    fn narrow_slope_limits_are_the_product_test() {
+        let product = |m: &WavelengthMap| {
+            m.degree <= 3
+                && m.coeff_fm
+                    .iter()
+                    .enumerate()
+                    .skip(1)
+                    .all(|(k, c)| c.unsigned_abs().saturating_mul(k as u64) < 1 << 31)
+        };
+        let edges = [
+            0i64,
+            1,
+            (1 << 31) - 1,
+            1 << 31,
+            ((1 << 31) - 1) / 2,
+            (1 << 30),
+            ((1 << 31) - 1) / 3,
+            ((1 << 31) - 1) / 3 + 1,
+            i64::MAX,
+            i64::MIN,
+            -(1 << 31),
+            -((1 << 31) - 1),
+        ];
+        let mut m = demo_map();
+        for &a in &edges {
+            for &b in &edges {
+                for &c in &edges {
+                    for degree in 1..=3 {
+                        m.degree = degree;
+                        m.coeff_fm = [0, a, b, c];
+                        assert_eq!(m.narrow_slope(), product(&m), "{m:?}");
+                    }
+                }
+            }
+        }
     }
 }

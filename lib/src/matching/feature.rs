@@ -169,7 +169,12 @@ fn settle_with(
         };
         let w = line.strength as u64 * prior_share(shares, line.nucleus) as u64;
         total += w as u128;
-        sum += w as i128 * line.wavelength_fm as i128;
+        // Below 2^32 · 2^31 the product is the same in i64 (no 128-bit multiply).
+        sum += if w < 1 << 32 && line.wavelength_fm.unsigned_abs() < 1 << 31 {
+            (w as i64 * line.wavelength_fm) as i128
+        } else {
+            w as i128 * line.wavelength_fm as i128
+        };
         plain += line.wavelength_fm as i128;
         if w > 0 {
             weighted = (weighted.0 + 1, line.wavelength_fm, m);
