@@ -7,7 +7,7 @@
 //! the centroid noise, sets the uncertainty).
 use super::error::CalibrateError;
 use super::map::{WavelengthMap, X_ONE_Q30};
-use super::muldiv::mul_div_round;
+use super::muldiv::{mul_div_round, Divisor};
 use crate::fixed::{isqrt_u128, mul_div_i128};
 
 /// Most points one fit takes.
@@ -213,11 +213,17 @@ pub fn fit_map(points: &[FitPoint], degree: u8, pixels: u16) -> Result<MapFit, C
     {
         let piv = row.get(r).copied().unwrap_or(0);
         let rhs = row.get(4).copied().unwrap_or(0);
-        *c_out = i64::try_from(mul_div_round(rhs, 1, piv).ok_or(CalibrateError::Overflow)?)
+        // One reciprocal for the row's four quotients (the same integers as dividing each).
+        let by_piv = Divisor::new(piv);
+        let div = |a: i128, b: i128| match &by_piv {
+            Some(dv) => dv.mul_div_round(a, b),
+            None => mul_div_round(a, b, piv),
+        };
+        *c_out = i64::try_from(div(rhs, 1).ok_or(CalibrateError::Overflow)?)
             .map_err(|_| CalibrateError::Overflow)?;
         for (inv, &cell) in inv_row.iter_mut().zip(row.iter().skip(5)).take(d) {
             // (Q60 / Q60) → scale to Q40.
-            *inv = mul_div_round(cell, 1 << 40, piv).ok_or(CalibrateError::Overflow)?;
+            *inv = div(cell, 1 << 40).ok_or(CalibrateError::Overflow)?;
         }
     }
     let map = WavelengthMap::with_frame(half, half, degree, coeff, pixels)?;
@@ -340,6 +346,8 @@ fn gauss_jordan(m: &mut [[i128; 9]; 4], d: usize) -> Result<(), CalibrateError> 
         if piv.unsigned_abs() < (1u128 << 20) {
             return Err(CalibrateError::Degenerate);
         }
+        // Every elimination of this column divides by the same pivot: its reciprocal once.
+        let by_piv = Divisor::new(piv);
         for (r, row) in m.iter_mut().enumerate().take(d) {
             let f = row.get(col).copied().unwrap_or(0);
             if r == col || f == 0 {
@@ -351,7 +359,11 @@ fn gauss_jordan(m: &mut [[i128; 9]; 4], d: usize) -> Result<(), CalibrateError> 
                 if p == 0 {
                     continue;
                 }
-                let delta = mul_div_round(p, f, piv).ok_or(CalibrateError::Overflow)?;
+                let delta = match &by_piv {
+                    Some(dv) => dv.mul_div_round(p, f),
+                    None => mul_div_round(p, f, piv),
+                }
+                .ok_or(CalibrateError::Overflow)?;
                 *cell = cell.checked_sub(delta).ok_or(CalibrateError::Overflow)?;
             }
         }

@@ -2,6 +2,8 @@
 //!
 //! The fit's weights and χ² terms are small products divided by small numbers: on a core without a
 //! divide instruction the 256-bit route of [`mul_div_i128`] costs several times a 64-bit division.
+//! Its elimination divides many 128-bit products by one pivot: [`Divisor`] takes that pivot's
+//! reciprocal once, then each quotient costs two 64 × 64-bit products instead of a 60-step loop.
 use crate::fixed::mul_div_i128;
 
 /// [`mul_div_i128`] (a · b / c rounded half away from zero; `None` for c = 0 or a quotient past
@@ -21,6 +23,112 @@ pub(crate) fn mul_div_round(a: i128, b: i128, c: i128) -> Option<i128> {
         return Some(if negative { -q } else { q });
     }
     mul_div_i128(a, b, c)
+}
+
+/// A divisor |c| in 1 … 2^64 − 1 with its reciprocal, for exact 128-by-64-bit quotients by
+/// multiplication: the "2-by-1" division of Möller and Granlund, "Improved division by invariant
+/// integers", IEEE Trans. Computers 60 (2011), Algorithm 4, with v = ⌊(2^128 − 1) / d⌋ − 2^64 for
+/// the divisor shifted to d with its top bit set.
+#[derive(Clone, Copy)]
+pub(crate) struct Divisor {
+    /// The signed divisor as given.
+    c: i128,
+    /// |c|.
+    abs: u64,
+    /// |c| shifted left until its top bit is set.
+    d: u64,
+    /// That shift.
+    shift: u32,
+    /// ⌊(2^128 − 1) / d⌋ − 2^64.
+    v: u64,
+}
+
+impl Divisor {
+    /// `None` for 0 or |c| ≥ 2^64. Work: one 64-step long division for the reciprocal.
+    pub(crate) fn new(c: i128) -> Option<Divisor> {
+        let abs = u64::try_from(c.unsigned_abs()).ok().filter(|&a| a != 0)?;
+        let shift = abs.leading_zeros();
+        let d = abs << shift;
+        // (2^128 − 1) − 2^64 · d = (!d) · 2^64 + (2^64 − 1), and !d < d for d ≥ 2^63.
+        let v = div_2by1_slow(!d, u64::MAX, d);
+        Some(Divisor {
+            c,
+            abs,
+            d,
+            shift,
+            v,
+        })
+    }
+
+    /// [`mul_div_i128`]`(a, b, c)` for this divisor c: the same rounded quotient (half away from
+    /// zero) and `None`s. Work: when |a|, |b| < 2^64 and the quotient is below 2^64, four 32 × 32-bit
+    /// products and two more; else that of [`mul_div_i128`].
+    pub(crate) fn mul_div_round(&self, a: i128, b: i128) -> Option<i128> {
+        let (ua, ub) = (a.unsigned_abs(), b.unsigned_abs());
+        if ua >> 64 != 0 || ub >> 64 != 0 {
+            return mul_div_i128(a, b, self.c);
+        }
+        let n = mul_64x64(ua as u64, ub as u64);
+        if (n >> 64) as u64 >= self.abs {
+            // Quotient of 2^64 or more: the general route.
+            return mul_div_i128(a, b, self.c);
+        }
+        // n < |c| · 2^64, so n · 2^shift < d · 2^64 < 2^128 and its high word is below d.
+        let m = n << self.shift;
+        let (q, r) = div_2by1(self.d, self.v, (m >> 64) as u64, m as u64);
+        let r = r >> self.shift;
+        // Half up, as the wide routine: 2r ≥ |c|.
+        let q = q as u128 + u128::from(r >= self.abs - r);
+        let q = q as i128;
+        let negative = (a < 0) ^ (b < 0) ^ (self.c < 0);
+        Some(if negative { -q } else { q })
+    }
+}
+
+/// The full product of two u64 from four 32 × 32-bit ones.
+fn mul_64x64(a: u64, b: u64) -> u128 {
+    const M: u64 = 0xffff_ffff;
+    let (a1, a0) = (a >> 32, a & M);
+    let (b1, b0) = (b >> 32, b & M);
+    let (p00, p01, p10, p11) = (a0 * b0, a0 * b1, a1 * b0, a1 * b1);
+    let mid = (p00 >> 32) + (p01 & M) + (p10 & M);
+    let lo = (p00 & M) | (mid << 32);
+    let hi = p11 + (p01 >> 32) + (p10 >> 32) + (mid >> 32);
+    ((hi as u128) << 64) | lo as u128
+}
+
+/// ⌊(u1 · 2^64 + u0) / d⌋ and the remainder, for d with its top bit set, u1 < d and the reciprocal
+/// v of [`Divisor`]: Möller and Granlund's Algorithm 4 (one candidate quotient from v · u1, at most
+/// two corrections).
+fn div_2by1(d: u64, v: u64, u1: u64, u0: u64) -> (u64, u64) {
+    let q = mul_64x64(v, u1).wrapping_add(((u1 as u128) << 64) | u0 as u128);
+    let (mut q1, q0) = (((q >> 64) as u64).wrapping_add(1), q as u64);
+    let mut r = u0.wrapping_sub(q1.wrapping_mul(d));
+    if r > q0 {
+        q1 = q1.wrapping_sub(1);
+        r = r.wrapping_add(d);
+    }
+    if r >= d {
+        q1 = q1.wrapping_add(1);
+        r -= d;
+    }
+    (q1, r)
+}
+
+/// ⌊(u1 · 2^64 + u0) / d⌋ for u1 < d by 64 steps of restoring division (for the reciprocal only).
+fn div_2by1_slow(u1: u64, u0: u64, d: u64) -> u64 {
+    let mut r = u1;
+    let mut q = 0u64;
+    for i in (0..64).rev() {
+        let carry = r >> 63;
+        r = (r << 1) | ((u0 >> i) & 1);
+        q <<= 1;
+        if carry == 1 || r >= d {
+            r = r.wrapping_sub(d);
+            q |= 1;
+        }
+    }
+    q
 }
 
 #[cfg(test)]
@@ -66,5 +174,60 @@ mod tests {
             mul_div_round(u64::MAX as i128, 1, 1),
             Some(u64::MAX as i128)
         );
+    }
+
+    #[test]
+    fn reciprocal_division_gives_the_wide_quotients() {
+        let mut seed = 0x6a09_e667_f3bc_c908u64;
+        let mut next = move || {
+            seed ^= seed << 13;
+            seed ^= seed >> 7;
+            seed ^= seed << 17;
+            seed
+        };
+        let pick = |v: u64, bits: u64, neg: bool| -> i128 {
+            let m = (v >> (64 - bits.clamp(1, 64))) as i128;
+            if neg {
+                -m
+            } else {
+                m
+            }
+        };
+        let mut fast = 0;
+        for _ in 0..3_000 {
+            let c = pick(next(), next() % 65, next() & 1 == 1);
+            let Some(dv) = Divisor::new(c) else {
+                assert!(c == 0 || c.unsigned_abs() >> 64 != 0);
+                continue;
+            };
+            for _ in 0..40 {
+                let (a, b) = (
+                    pick(next(), next() % 67, next() & 1 == 1),
+                    pick(next(), next() % 67, next() & 1 == 1),
+                );
+                // Exact halves too: a · b an odd multiple of c / 2.
+                let (a, b) = if next() % 8 == 0 && c % 2 == 0 {
+                    (c / 2, 2 * (next() % 1_000_000) as i128 + 1)
+                } else {
+                    (a, b)
+                };
+                let n = a.unsigned_abs().checked_mul(b.unsigned_abs());
+                fast += usize::from(n.is_some_and(|n| n >> 64 < c.unsigned_abs()));
+                assert_eq!(dv.mul_div_round(a, b), mul_div_i128(a, b, c), "{a} {b} {c}");
+            }
+        }
+        assert!(fast > 20_000, "{fast}");
+        // The quotient's edges: just below 2^64, and a divisor of 1 and of 2^64 − 1.
+        for c in [1i128, 2, 3, (1 << 63) - 1, 1 << 63, (1 << 64) - 1, -7] {
+            let dv = Divisor::new(c).unwrap();
+            for (a, b) in [
+                (c.abs() - 1, (1 << 64) - 1),
+                ((1 << 64) - 1, (1 << 64) - 1),
+                (0, 5),
+            ] {
+                assert_eq!(dv.mul_div_round(a, b), mul_div_i128(a, b, c), "{a} {b} {c}");
+            }
+        }
+        assert!(Divisor::new(0).is_none() && Divisor::new(1 << 64).is_none());
     }
 }
