@@ -61,27 +61,62 @@ impl Divisor {
     }
 
     /// [`mul_div_i128`]`(a, b, c)` for this divisor c: the same rounded quotient (half away from
-    /// zero) and `None`s. Work: when |a|, |b| < 2^64 and the quotient is below 2^64, four 32 × 32-bit
-    /// products and two more; else that of [`mul_div_i128`].
+    /// zero) and `None`s. Work: when one of |a|, |b| is below 2^64, two 64 × 64-bit products and ≤ 4
+    /// reciprocal steps (each two more); else that of [`mul_div_i128`].
     pub(crate) fn mul_div_round(&self, a: i128, b: i128) -> Option<i128> {
         let (ua, ub) = (a.unsigned_abs(), b.unsigned_abs());
-        if ua >> 64 != 0 || ub >> 64 != 0 {
+        // The wide factor first; the other must fit 64 bits.
+        let (wide, narrow) = if ua >> 64 == 0 { (ub, ua) } else { (ua, ub) };
+        if narrow >> 64 != 0 {
             return mul_div_i128(a, b, self.c);
         }
-        let n = mul_64x64(ua as u64, ub as u64);
-        if (n >> 64) as u64 >= self.abs {
-            // Quotient of 2^64 or more: the general route.
+        // n = wide · narrow < 2^192 in three words, low first.
+        let lo = mul_64x64(wide as u64, narrow as u64);
+        let hi = mul_64x64((wide >> 64) as u64, narrow as u64);
+        let mid = (lo >> 64) + (hi & u64::MAX as u128);
+        let n = [lo as u64, mid as u64, ((hi >> 64) + (mid >> 64)) as u64];
+        // Shifted so that d is the divisor: four words (the top one takes the bits shifted out).
+        let s = self.shift;
+        let word = |k: usize| -> u64 {
+            let cur = n.get(k).copied().unwrap_or(0);
+            let below = k
+                .checked_sub(1)
+                .and_then(|j| n.get(j))
+                .copied()
+                .unwrap_or(0);
+            if s == 0 {
+                cur
+            } else {
+                (cur << s) | (below >> (64 - s))
+            }
+        };
+        let mut rem = 0u64;
+        let mut q = [0u64; 4];
+        for k in (0..4).rev() {
+            let w = word(k);
+            // Leading words below d: a zero quotient digit and the word as remainder, no product.
+            let (qk, r) = if rem == 0 && w < self.d {
+                (0, w)
+            } else {
+                div_2by1(self.d, self.v, rem, w)
+            };
+            if let Some(slot) = q.get_mut(k) {
+                *slot = qk;
+            }
+            rem = r;
+        }
+        let [q0, q1, q2, q3] = q;
+        if q3 != 0 || q2 != 0 {
+            // 2^128 or more: past what the wide routine returns (`None`), asked of it all the same.
             return mul_div_i128(a, b, self.c);
         }
-        // n < |c| · 2^64, so n · 2^shift < d · 2^64 < 2^128 and its high word is below d.
-        let m = n << self.shift;
-        let (q, r) = div_2by1(self.d, self.v, (m >> 64) as u64, m as u64);
-        let r = r >> self.shift;
-        // Half up, as the wide routine: 2r ≥ |c|.
-        let q = q as u128 + u128::from(r >= self.abs - r);
-        let q = q as i128;
+        let r = rem >> s;
+        // Half up, as the wide routine: 2r ≥ |c|; then it must fit i128.
+        let quotient =
+            (((q1 as u128) << 64) | q0 as u128).checked_add(u128::from(r >= self.abs - r))?;
+        let quotient = i128::try_from(quotient).ok()?;
         let negative = (a < 0) ^ (b < 0) ^ (self.c < 0);
-        Some(if negative { -q } else { q })
+        Some(if negative { -quotient } else { quotient })
     }
 }
 
@@ -193,6 +228,14 @@ mod tests {
                 m
             }
         };
+        let wide = |v: u64, w: u64, bits: u64, neg: bool| -> i128 {
+            let m = (((v as u128) << 64 | w as u128) >> (128 - bits.clamp(1, 127))) as i128;
+            if neg {
+                -m
+            } else {
+                m
+            }
+        };
         let mut fast = 0;
         for _ in 0..3_000 {
             let c = pick(next(), next() % 65, next() & 1 == 1);
@@ -201,18 +244,28 @@ mod tests {
                 continue;
             };
             for _ in 0..40 {
-                let (a, b) = (
-                    pick(next(), next() % 67, next() & 1 == 1),
-                    pick(next(), next() % 67, next() & 1 == 1),
-                );
+                let (a, b) = match next() % 3 {
+                    0 => (
+                        pick(next(), next() % 67, next() & 1 == 1),
+                        pick(next(), next() % 67, next() & 1 == 1),
+                    ),
+                    1 => (
+                        wide(next(), next(), next() % 128, next() & 1 == 1),
+                        pick(next(), next() % 65, next() & 1 == 1),
+                    ),
+                    _ => (
+                        pick(next(), next() % 65, next() & 1 == 1),
+                        wide(next(), next(), next() % 128, next() & 1 == 1),
+                    ),
+                };
                 // Exact halves too: a · b an odd multiple of c / 2.
                 let (a, b) = if next() % 8 == 0 && c % 2 == 0 {
                     (c / 2, 2 * (next() % 1_000_000) as i128 + 1)
                 } else {
                     (a, b)
                 };
-                let n = a.unsigned_abs().checked_mul(b.unsigned_abs());
-                fast += usize::from(n.is_some_and(|n| n >> 64 < c.unsigned_abs()));
+                let narrow = a.unsigned_abs().min(b.unsigned_abs()) >> 64 == 0;
+                fast += usize::from(narrow);
                 assert_eq!(dv.mul_div_round(a, b), mul_div_i128(a, b, c), "{a} {b} {c}");
             }
         }
@@ -224,6 +277,10 @@ mod tests {
                 (c.abs() - 1, (1 << 64) - 1),
                 ((1 << 64) - 1, (1 << 64) - 1),
                 (0, 5),
+                (i128::MAX, 1),
+                (i128::MAX, (1 << 64) - 1),
+                (i128::MIN + 1, 3),
+                ((1 << 126) + 12_345, 2),
             ] {
                 assert_eq!(dv.mul_div_round(a, b), mul_div_i128(a, b, c), "{a} {b} {c}");
             }
