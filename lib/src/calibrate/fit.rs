@@ -52,7 +52,12 @@ impl MapFit {
     /// Work: fixed, ≤ 4 × 4 terms of two rounded products each (64-bit on the sensor, else
     /// [`mul_div_i128`]) and one square root (≤ 64 steps).
     pub fn sigma_fm_at(&self, p_px_q16: i32) -> u64 {
-        let x = self.map.x_q30(p_px_q16);
+        self.sigma_fm_at_x(self.map.x_q30(p_px_q16))
+    }
+
+    /// [`sigma_fm_at`](Self::sigma_fm_at) at the map's normalised x (Q30) of the pixel, for a caller
+    /// that has it already (one 64-bit division less).
+    pub(crate) fn sigma_fm_at_x(&self, x: i64) -> u64 {
         let q = self
             .quadratic_form_narrow(x)
             .unwrap_or_else(|| self.quadratic_form(x));

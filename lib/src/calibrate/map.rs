@@ -4,6 +4,7 @@
 //! [−1, 1] across the sensor: the coefficients are then all of comparable size (fm) and the fit is
 //! well conditioned in fixed point. Reports convert to the plain λ(p) = c0 + c1 p + c2 p² + c3 p³.
 use super::error::CalibrateError;
+use super::muldiv::mul_64x64;
 
 /// Q30 scale of the normalised pixel coordinate x.
 pub const X_ONE_Q30: i64 = 1 << 30;
@@ -101,18 +102,28 @@ impl WavelengthMap {
 
     /// x of pixel p (px, Q16) in Q30.
     pub fn x_q30(&self, p_px_q16: i32) -> i64 {
+        self.x_q30_by(p_px_q16, &HalfWidth::plain(self))
+    }
+
+    /// [`x_q30`](Self::x_q30) dividing through `hw` (this map's half-width).
+    fn x_q30_by(&self, p_px_q16: i32, hw: &HalfWidth) -> i64 {
         // A map built by `new` has half-width > 0; a hand-made zero gives x = 0 rather than a fault.
-        (((p_px_q16 as i64 - self.center_px_q16 as i64) << 30)
-            .checked_div(self.half_width_px_q16 as i64)
-            .unwrap_or(0))
-        .clamp(-(8 << 30), 8 << 30)
+        // |p − centre| < 2^32, so the shifted value is below 2^62.
+        hw.div((p_px_q16 as i64 - self.center_px_q16 as i64) << 30)
+            .unwrap_or(0)
+            .clamp(-(8 << 30), 8 << 30)
     }
 
     /// Wavelength at pixel p (px, Q16), femtometres.
     ///
     /// Loop bound: `degree` + 1 ≤ 4 Horner steps (a hand-made degree above 3 fails on the first).
     pub fn wavelength_fm(&self, p_px_q16: i32) -> Result<i64, CalibrateError> {
-        eval_q30(&self.coeff_fm, self.degree, self.x_q30(p_px_q16))
+        self.wavelength_at_x(self.x_q30(p_px_q16))
+    }
+
+    /// Wavelength at normalised pixel x (Q30), femtometres.
+    pub(crate) fn wavelength_at_x(&self, x_q30: i64) -> Result<i64, CalibrateError> {
+        eval_q30(&self.coeff_fm, self.degree, x_q30)
     }
 
     /// dλ/dp at pixel p: femtometres per pixel, Q16.
@@ -131,7 +142,12 @@ impl WavelengthMap {
     }
 
     /// dλ/dp at normalised pixel x (Q30): femtometres per pixel, Q16.
-    fn slope_at_x(&self, x: i64) -> Result<i64, CalibrateError> {
+    pub(crate) fn slope_at_x(&self, x: i64) -> Result<i64, CalibrateError> {
+        self.slope_at_x_by(x, &HalfWidth::plain(self))
+    }
+
+    /// [`slope_at_x`](Self::slope_at_x) dividing through `hw` (this map's half-width).
+    fn slope_at_x_by(&self, x: i64, hw: &HalfWidth) -> Result<i64, CalibrateError> {
         // dλ/dx = c1 + 2 c2 x + 3 c3 x².
         let d: i128 = if x.unsigned_abs() <= 1 << 30 && self.narrow_slope() {
             // On the sensor (|x| ≤ 1) with every k·c_k below 2^31, |d| stays below 3 · 2^31 and
@@ -153,9 +169,7 @@ impl WavelengthMap {
         };
         let v = if d.unsigned_abs() < 1 << 31 {
             // d · 2^32 fits i64: the same truncating division, without the 128-bit routine.
-            ((d as i64) << 32)
-                .checked_div(self.half_width_px_q16 as i64)
-                .ok_or(CalibrateError::Degenerate)? as i128
+            hw.div((d as i64) << 32).ok_or(CalibrateError::Degenerate)? as i128
         } else {
             (d << 32)
                 .checked_div(self.half_width_px_q16 as i128)
@@ -196,10 +210,15 @@ impl WavelengthMap {
                 .ok_or(CalibrateError::NotMonotone)?
         };
         let mut p = self.center_px_q16 as i128 + ((x0 * self.half_width_px_q16 as i128) >> 30);
+        // Up to 24 divisions by the half-width below: its reciprocal once.
+        let hw = HalfWidth::reciprocal(self);
         for _ in 0..12 {
             let pc = i32::try_from(p.clamp(i32::MIN as i128 / 2, i32::MAX as i128 / 2))
                 .map_err(|_| CalibrateError::Overflow)?;
-            let (lam, slope) = self.wavelength_and_slope(pc)?;
+            // As `wavelength_and_slope`, through the reciprocal.
+            let x = self.x_q30_by(pc, &hw);
+            let lam = eval_q30(&self.coeff_fm, self.degree, x)?;
+            let slope = self.slope_at_x_by(x, &hw)?;
             let err = lam as i128 - wavelength_fm as i128;
             let slope = slope as i128;
             if slope == 0 {
@@ -222,6 +241,55 @@ impl WavelengthMap {
             }
         }
         i32::try_from(p).map_err(|_| CalibrateError::Overflow)
+    }
+}
+
+/// A map's half-width as a divisor. `checked_div` by it, or (for a positive one) the same
+/// truncated quotient through a multiply by m = ⌊(2^64 − 1) / d⌋: for |n| < 2^63,
+/// q' = ⌊|n| · m / 2^64⌋ satisfies |n|/d − 1 < q' ≤ |n|/d (as m · d > 2^64 − 1 − d and
+/// |n| (1 + d) / (d · 2^64) ≤ 1), so one correction step gives ⌊|n| / d⌋. That is two 64-bit
+/// products where the division costs a few hundred instructions on a core without a divider.
+struct HalfWidth {
+    hw: i64,
+    /// (d, m) for a positive half-width.
+    recip: Option<(u64, u64)>,
+}
+
+impl HalfWidth {
+    /// Plain `checked_div` (one use).
+    fn plain(map: &WavelengthMap) -> HalfWidth {
+        HalfWidth {
+            hw: map.half_width_px_q16 as i64,
+            recip: None,
+        }
+    }
+
+    /// With the reciprocal (several uses; one division to make it).
+    fn reciprocal(map: &WavelengthMap) -> HalfWidth {
+        let hw = map.half_width_px_q16 as i64;
+        HalfWidth {
+            hw,
+            recip: (hw > 0).then(|| (hw as u64, u64::MAX / hw as u64)),
+        }
+    }
+
+    /// `n.checked_div(hw)`.
+    fn div(&self, n: i64) -> Option<i64> {
+        let (Some((d, m)), false) = (self.recip, n == i64::MIN) else {
+            return n.checked_div(self.hw);
+        };
+        let u = n.unsigned_abs();
+        let mut q = (mul_64x64(u, m) >> 64) as u64;
+        let mut r = u - q * d;
+        // One step suffices (see above); a second costs nothing and bounds the loop anyway.
+        for _ in 0..2 {
+            if r >= d {
+                q += 1;
+                r -= d;
+            }
+        }
+        // q ≤ |n| < 2^63.
+        Some(if n < 0 { -(q as i64) } else { q as i64 })
     }
 }
 
@@ -475,6 +543,46 @@ mod tests {
                     }
                 }
             }
+        }
+    }
+
+    #[test]
+    fn half_width_reciprocal_gives_the_plain_quotients() {
+        let mut seed = 0xdead_beef_cafe_f00du64;
+        let mut next = move || {
+            seed ^= seed << 13;
+            seed ^= seed >> 7;
+            seed ^= seed << 17;
+            seed
+        };
+        let mut m = demo_map();
+        for _ in 0..2_000 {
+            m.half_width_px_q16 = match next() % 4 {
+                0 => (next() % 64) as i32 + 1,
+                1 => (next() >> 33) as i32,
+                _ => (next() % (1 << 28)) as i32 + 1,
+            };
+            let (plain, fast) = (HalfWidth::plain(&m), HalfWidth::reciprocal(&m));
+            for _ in 0..50 {
+                let n = (next() >> (next() % 64)) as i64 * if next() & 1 == 1 { -1 } else { 1 };
+                assert_eq!(fast.div(n), plain.div(n), "{n} / {}", m.half_width_px_q16);
+            }
+            for n in [
+                0,
+                1,
+                -1,
+                i64::MAX,
+                i64::MIN,
+                i64::MIN + 1,
+                m.half_width_px_q16 as i64,
+            ] {
+                assert_eq!(fast.div(n), plain.div(n), "{n} / {}", m.half_width_px_q16);
+            }
+        }
+        // The inverse through the reciprocal matches the 128-bit reference above.
+        let m = demo_map();
+        for w in [400_000_000i64, 455_555_555, 550_000_001, 699_999_999] {
+            assert_eq!(m.pixel_q16(w).ok(), reference_pixel(&m, w));
         }
     }
 }

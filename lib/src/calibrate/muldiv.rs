@@ -121,7 +121,7 @@ impl Divisor {
 }
 
 /// The full product of two u64 from four 32 × 32-bit ones.
-fn mul_64x64(a: u64, b: u64) -> u128 {
+pub(crate) fn mul_64x64(a: u64, b: u64) -> u128 {
     const M: u64 = 0xffff_ffff;
     let (a1, a0) = (a >> 32, a & M);
     let (b1, b0) = (b >> 32, b & M);

@@ -5,7 +5,7 @@ use super::stage::Stage;
 use super::workspace::Workspace;
 use crate::bounded::collect_bounded;
 use crate::calibrate::{
-    identify, IdentifyConfig, ReferenceLine, WavelengthMap, MAX_REFERENCE_LINES,
+    identify, CalibrateError, IdentifyConfig, ReferenceLine, WavelengthMap, MAX_REFERENCE_LINES,
 };
 use crate::condition::{condition_frame, FrameSum, GainTable};
 use crate::find::{find_peaks, Peak, PeakList};
@@ -58,6 +58,23 @@ impl MapInUse {
             Some(f) => f.sigma_fm_at(p_q16),
             None => self.stored_sigma_fm as u64,
         }
+    }
+
+    /// (λ, |dλ/dp|, map σ) at one pixel, as [`WavelengthMap::wavelength_fm`], [`slope_abs`] and
+    /// [`sigma_fm`] give them, from one normalised x (one division instead of three).
+    ///
+    /// [`slope_abs`]: Self::slope_abs
+    /// [`sigma_fm`]: Self::sigma_fm
+    fn at(&self, p_q16: i32) -> (Result<i64, CalibrateError>, u64, u64) {
+        let x = self.map.x_q30(p_q16);
+        let slope = self.map.slope_at_x(x).unwrap_or(0).unsigned_abs();
+        let sigma = match &self.fit {
+            // The fit's own map (always, as built here): its x is this one.
+            Some(f) if f.map == self.map => f.sigma_fm_at_x(x),
+            Some(f) => f.sigma_fm_at(p_q16),
+            None => self.stored_sigma_fm as u64,
+        };
+        (self.map.wavelength_at_x(x), slope, sigma)
     }
 }
 
@@ -287,28 +304,34 @@ impl Checker {
 
     /// Match window of one line: twice the allowed position error plus 3 σ of the map, ≥ 1 px (Q16).
     fn base_window_px_q16(&self, f: &Feature, m: &MapInUse) -> i32 {
-        self.base_window_with_slope(f, m, feature_slope(f, m))
+        self.base_window_with_slope(f, m).0
     }
 
-    /// [`base_window_px_q16`](Self::base_window_px_q16) with the feature's |slope| (≥ 1) known.
-    fn base_window_with_slope(&self, f: &Feature, m: &MapInUse, slope: i64) -> i32 {
-        let p = f.predicted_px_q16;
-        let tol_fm = 2 * self.cfg.profile.max_line_error_fm as i64 + 3 * m.sigma_fm(p) as i64;
-        (shl32_div(tol_fm, slope)).clamp(1 << 16, 64 << 16) as i32
+    /// [`base_window_px_q16`](Self::base_window_px_q16) and |dλ/dp| at the feature's predicted pixel
+    /// (fm/px Q16, at least 1; 1 when the map cannot say), from one evaluation of the map there.
+    fn base_window_with_slope(&self, f: &Feature, m: &MapInUse) -> (i32, i64) {
+        let (_, slope, sigma) = m.at(f.predicted_px_q16);
+        let slope = slope.max(1) as i64;
+        let tol_fm = 2 * self.cfg.profile.max_line_error_fm as i64 + 3 * sigma as i64;
+        (
+            (shl32_div(tol_fm, slope)).clamp(1 << 16, 64 << 16) as i32,
+            slope,
+        )
     }
 
     /// Match window of a feature: the line window plus the reach of a blend's members (its centre
     /// moves with the unknown mix).
     fn window_px_q16(&self, f: &Feature, m: &MapInUse) -> i32 {
-        let slope = feature_slope(f, m);
-        let reach = f
+        let (base, slope) = self.base_window_with_slope(f, m);
+        // The quotient grows with the distance: the farthest member's is the largest.
+        let far = f
             .members
             .iter()
             .filter_map(|&i| self.catalogue.get(i as usize))
-            .map(|c| shl32_div((c.wavelength_fm - f.predicted_fm).abs(), slope))
-            .max()
-            .unwrap_or(0);
-        (self.base_window_with_slope(f, m, slope) as i128 + reach).clamp(1 << 16, 64 << 16) as i32
+            .map(|c| (c.wavelength_fm - f.predicted_fm).abs())
+            .max();
+        let reach = far.map_or(0, |v| shl32_div(v, slope));
+        (base as i128 + reach).clamp(1 << 16, 64 << 16) as i32
     }
 
     /// Instrument line σ (px, Q16): median FWHM of matched, unsaturated, unblended peaks, else the
@@ -550,12 +573,13 @@ impl Checker {
                     None => continue,
                 }
             };
-            let Ok(measured) = m.map.wavelength_fm(pk.center_px_q16) else {
+            let (measured, slope, s) = m.at(pk.center_px_q16);
+            let Ok(measured) = measured else {
                 continue;
             };
-            let slope = m.slope_abs(pk.center_px_q16) as u128;
+            let slope = slope as u128;
             let c = (pk.center_sigma_px_q16 as u128 * slope) >> 32;
-            let s = m.sigma_fm(pk.center_px_q16) as u128;
+            let s = s as u128;
             // A line within 2.5 line widths of another feature (series-limit crowding) or sharing its
             // peak with another transition is identified, but its centre is pulled by the neighbour:
             // its position is not judged.
@@ -911,11 +935,6 @@ fn reference_lines(
         collect_bounded(out.iter().map(|e| e.0));
     crate::sort::sort_by_key(&mut refs, |r| r.wavelength_fm);
     refs
-}
-
-/// |dλ/dp| at a feature's predicted pixel (fm/px, Q16), at least 1 (0 when the map cannot say).
-fn feature_slope(f: &Feature, m: &MapInUse) -> i64 {
-    m.slope_abs(f.predicted_px_q16).max(1) as i64
 }
 
 /// (v · 2^32) / d truncated, for d ≥ 1: in `i64` when |v| < 2^31 (the same quotient), else 128-bit.
