@@ -194,6 +194,16 @@ impl WavelengthMap {
     /// Pixel (px, Q16) where the map gives `wavelength_fm`: Newton steps from the linear guess, at most
     /// 12, stopping below 1/65536 px. May lie outside the sensor.
     pub fn pixel_q16(&self, wavelength_fm: i64) -> Result<i32, CalibrateError> {
+        self.pixel_q16_by(wavelength_fm, &HalfWidth::reciprocal(self))
+    }
+
+    /// [`pixel_q16`](Self::pixel_q16) with this map's half-width reciprocal made already (for many
+    /// inversions on one map: one division for all of them).
+    pub(crate) fn pixel_q16_by(
+        &self,
+        wavelength_fm: i64,
+        hw: &HalfWidth,
+    ) -> Result<i32, CalibrateError> {
         let [c0, c1, _, _] = self.coeff_fm.map(|c| c as i128);
         if c1 == 0 {
             return Err(CalibrateError::NotMonotone);
@@ -210,15 +220,13 @@ impl WavelengthMap {
                 .ok_or(CalibrateError::NotMonotone)?
         };
         let mut p = self.center_px_q16 as i128 + ((x0 * self.half_width_px_q16 as i128) >> 30);
-        // Up to 24 divisions by the half-width below: its reciprocal once.
-        let hw = HalfWidth::reciprocal(self);
         for _ in 0..12 {
             let pc = i32::try_from(p.clamp(i32::MIN as i128 / 2, i32::MAX as i128 / 2))
                 .map_err(|_| CalibrateError::Overflow)?;
             // As `wavelength_and_slope`, through the reciprocal.
-            let x = self.x_q30_by(pc, &hw);
+            let x = self.x_q30_by(pc, hw);
             let lam = eval_q30(&self.coeff_fm, self.degree, x)?;
-            let slope = self.slope_at_x_by(x, &hw)?;
+            let slope = self.slope_at_x_by(x, hw)?;
             let err = lam as i128 - wavelength_fm as i128;
             let slope = slope as i128;
             if slope == 0 {
@@ -249,7 +257,7 @@ impl WavelengthMap {
 /// q' = ⌊|n| · m / 2^64⌋ satisfies |n|/d − 1 < q' ≤ |n|/d (as m · d > 2^64 − 1 − d and
 /// |n| (1 + d) / (d · 2^64) ≤ 1), so one correction step gives ⌊|n| / d⌋. That is two 64-bit
 /// products where the division costs a few hundred instructions on a core without a divider.
-struct HalfWidth {
+pub(crate) struct HalfWidth {
     hw: i64,
     /// (d, m) for a positive half-width.
     recip: Option<(u64, u64)>,
@@ -264,8 +272,9 @@ impl HalfWidth {
         }
     }
 
-    /// With the reciprocal (several uses; one division to make it).
-    fn reciprocal(map: &WavelengthMap) -> HalfWidth {
+    /// With the reciprocal (several uses; one division to make it). Only for `map` (or a map with
+    /// the same half-width).
+    pub(crate) fn reciprocal(map: &WavelengthMap) -> HalfWidth {
         let hw = map.half_width_px_q16 as i64;
         HalfWidth {
             hw,

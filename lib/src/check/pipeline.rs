@@ -5,7 +5,8 @@ use super::stage::Stage;
 use super::workspace::Workspace;
 use crate::bounded::collect_bounded;
 use crate::calibrate::{
-    identify, CalibrateError, IdentifyConfig, ReferenceLine, WavelengthMap, MAX_REFERENCE_LINES,
+    identify, CalibrateError, HalfWidth, IdentifyConfig, ReferenceLine, WavelengthMap,
+    MAX_REFERENCE_LINES,
 };
 use crate::condition::{condition_frame, FrameSum, GainTable};
 use crate::find::{find_peaks, Peak, PeakList};
@@ -242,8 +243,9 @@ impl Checker {
         let pairs = self.split_resolved(&features, pairs, peaks, &in_use);
         let estimate = self.isotope(&features, &pairs, peaks, &in_use, frame, base);
         let shares = self.shares(estimate);
+        let hw = HalfWidth::reciprocal(&in_use.map);
         for f in features.iter_mut() {
-            settle_placed(f, &self.catalogue, &in_use.map, &shares, &in_use.lines)?;
+            settle_placed(f, &self.catalogue, &in_use.map, &hw, &shares, &in_use.lines)?;
         }
         self.fill_lines(
             &features,

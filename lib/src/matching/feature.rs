@@ -6,7 +6,7 @@
 use super::catalogue::{CatalogueLine, MAX_CATALOGUE};
 use super::error::MatchError;
 use super::line_pixels::LinePixels;
-use crate::calibrate::WavelengthMap;
+use crate::calibrate::{HalfWidth, WavelengthMap};
 use crate::predict::Nucleus;
 use heapless::Vec;
 
@@ -70,8 +70,10 @@ pub(crate) fn group_placing(
 ) -> Result<Vec<Feature, MAX_FEATURES>, MatchError> {
     let mut out: Vec<Feature, MAX_FEATURES> = Vec::new();
     let mut last_px: Option<i32> = None;
+    // One reciprocal of the map's half-width for all the inversions below.
+    let hw = HalfWidth::reciprocal(map);
     for (i, line) in catalogue.iter().enumerate().take(MAX_CATALOGUE) {
-        let at = map.pixel_q16(line.wavelength_fm).ok();
+        let at = map.pixel_q16_by(line.wavelength_fm, &hw).ok();
         lines.put(i as u8, at);
         // A line the map cannot place (a fitted map extrapolated far off the sensor) is not on it.
         let Some(px) = at else {
@@ -101,7 +103,7 @@ pub(crate) fn group_placing(
         }
     }
     for f in out.iter_mut() {
-        settle_placed(f, catalogue, map, priors, lines)?;
+        settle_placed(f, catalogue, map, &hw, priors, lines)?;
     }
     Ok(out)
 }
@@ -122,7 +124,7 @@ pub fn settle(
 }
 
 /// [`settle`] for a feature already placed on `map` (by [`group`] or an earlier settle on it), with
-/// the lines' pixels on `map` recorded in `lines`: the pixel follows the expected position, so when
+/// `hw` the map's half-width reciprocal and the lines' pixels on `map` recorded in `lines`: the pixel follows the expected position, so when
 /// that did not move (every single-line feature, and a blend whose shares did not change) the map
 /// inversion is skipped, and when it moved onto one member's wavelength (the only member with a
 /// share) that member's recorded pixel is taken. The result is the same either way.
@@ -132,6 +134,7 @@ pub(crate) fn settle_placed(
     f: &mut Feature,
     catalogue: &[CatalogueLine],
     map: &WavelengthMap,
+    hw: &HalfWidth,
     shares: &[(Nucleus, u16)],
     lines: &LinePixels,
 ) -> Result<(), MatchError> {
@@ -142,7 +145,7 @@ pub(crate) fn settle_placed(
         f.predicted_px_q16 = match sole.and_then(|m| lines.recorded(m)) {
             Some(px) => px,
             None => {
-                map.pixel_q16(f.predicted_fm).ok()
+                map.pixel_q16_by(f.predicted_fm, hw).ok()
             }
         }
         .unwrap_or(f.predicted_px_q16);
