@@ -6,7 +6,7 @@
 //! is scaled by the Birge ratio χ²/dof when that exceeds 1 (common practice: the scatter, not only
 //! the centroid noise, sets the uncertainty).
 use super::error::CalibrateError;
-use super::map::{WavelengthMap, X_ONE_Q30};
+use super::map::{HalfWidth, WavelengthMap, X_ONE_Q30};
 use super::muldiv::{mul_div_round, Divisor};
 use crate::fixed::{isqrt_u128, mul_div_i128};
 
@@ -154,6 +154,10 @@ fn isqrt_u32(x: u32) -> u32 {
 /// |v| ≤ 2^30: |a| = h · 2^32 + l, so |a| · |v| = 4 · (h|v|) · 2^30 + l|v|, both products 64-bit.
 /// The result's magnitude is at most |a| + 1, so it fits `i64` (|a| < 2^62 keeps it below 2^62 + 1).
 fn mul_q30_round(a: i64, v: i64) -> i64 {
+    // v = 1 (x⁰): a · 2^30 / 2^30 is a, exactly.
+    if v == X_ONE_Q30 {
+        return a;
+    }
     let (ua, uv) = (a.unsigned_abs(), v.unsigned_abs().min(1 << 30));
     let hi = (ua >> 32) * uv;
     let lo = (ua & 0xffff_ffff) * uv;
@@ -192,11 +196,13 @@ pub fn fit_map(points: &[FitPoint], degree: u8, pixels: u16) -> Result<MapFit, C
         .min()
         .unwrap_or(1) as i128;
     let mut m = [[0i128; 9]; 4];
+    // The frame's (and the fitted map's) half-width divides every point's x: its reciprocal once.
+    let hw = HalfWidth::forward(&frame);
     for pt in points {
         let s = pt.sigma_px_q16.max(1) as i128;
         let w =
             mul_div_round(sigma_min * sigma_min, 1 << 30, s * s).ok_or(CalibrateError::Overflow)?;
-        let x = frame.x_q30(pt.center_px_q16);
+        let x = frame.x_q30_by(pt.center_px_q16, &hw);
         if x.unsigned_abs() <= 1 << 30 && (0..=1 << 30).contains(&w) {
             accumulate_narrow(&mut m, d, w as i64, x, pt.wavelength_fm);
         } else {
@@ -241,7 +247,7 @@ pub fn fit_map(points: &[FitPoint], degree: u8, pixels: u16) -> Result<MapFit, C
     for pt in points {
         // λ and slope share the pixel's x. (The weight below cannot fail: σ_min ≤ σ, so the first
         // error is the map's either way.)
-        let (lam, slope) = map.wavelength_and_slope(pt.center_px_q16)?;
+        let (lam, slope) = map.wavelength_and_slope_by(pt.center_px_q16, &hw)?;
         let r = (lam - pt.wavelength_fm) as i128;
         let s = pt.sigma_px_q16.max(1) as i128;
         let w =

@@ -15,7 +15,7 @@
 //! ≤ 64 peaks (≤ 5 map fits).
 use super::error::CalibrateError;
 use super::fit::{fit_map, FitPoint, MapFit};
-use super::map::WavelengthMap;
+use super::map::{HalfWidth, WavelengthMap};
 use crate::find::Peak;
 use heapless::Vec;
 
@@ -310,13 +310,18 @@ impl Axis {
     ) -> Result<Axis, CalibrateError> {
         let mut u: Vec<i64, 64> = Vec::new();
         let mut du_dp: Vec<i64, 64> = Vec::new();
+        let hw = cfg.nominal.as_ref().map(HalfWidth::forward);
         for p in peaks {
-            let (v, d) = match &cfg.nominal {
-                Some(m) => (
-                    m.wavelength_fm(p.center_px_q16)?,
-                    m.slope_fm_per_px_q16(p.center_px_q16).unwrap_or(0) >> 16,
-                ),
-                None => (p.center_px_q16 as i64, 65_536),
+            let (v, d) = match (&cfg.nominal, &hw) {
+                (Some(m), Some(hw)) => {
+                    // wavelength_fm and slope_fm_per_px_q16 of the same pixel, sharing its x.
+                    let x = m.x_q30_by(p.center_px_q16, hw);
+                    (
+                        m.wavelength_at_x(x)?,
+                        m.slope_at_x_by(x, hw).unwrap_or(0) >> 16,
+                    )
+                }
+                _ => (p.center_px_q16 as i64, 65_536),
             };
             u.push(v).map_err(|_| CalibrateError::TooManyPoints)?;
             du_dp.push(d).map_err(|_| CalibrateError::TooManyPoints)?;
@@ -730,8 +735,9 @@ fn refine(
     let mut fit = fit_pairs(&pairs, peaks, lines, cfg)?;
     for round in 0..4 {
         let mut next: Vec<(u8, u8), 48> = Vec::new();
+        let hw = HalfWidth::forward(&fit.map);
         for (k, p) in peaks.iter().enumerate() {
-            let (lam, slope) = fit.map.wavelength_and_slope(p.center_px_q16)?;
+            let (lam, slope) = fit.map.wavelength_and_slope_by(p.center_px_q16, &hw)?;
             let disp = slope.abs() >> 16;
             let sigma_win = (p.center_sigma_px_q16 as i64 * cfg.final_window_sigma_q8 as i64) >> 16;
             // Windows shrink from the search width towards the final one over the rounds.

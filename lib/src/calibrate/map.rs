@@ -106,7 +106,7 @@ impl WavelengthMap {
     }
 
     /// [`x_q30`](Self::x_q30) dividing through `hw` (this map's half-width).
-    fn x_q30_by(&self, p_px_q16: i32, hw: &HalfWidth) -> i64 {
+    pub(crate) fn x_q30_by(&self, p_px_q16: i32, hw: &HalfWidth) -> i64 {
         // A map built by `new` has half-width > 0; a hand-made zero gives x = 0 rather than a fault.
         // |p − centre| < 2^32, so the shifted value is below 2^62.
         hw.div((p_px_q16 as i64 - self.center_px_q16 as i64) << 30)
@@ -134,11 +134,16 @@ impl WavelengthMap {
     }
 
     /// [`wavelength_fm`](Self::wavelength_fm) and [`slope_fm_per_px_q16`](Self::slope_fm_per_px_q16)
-    /// at one pixel, sharing the pixel's x (one division less); the first error of the two.
-    pub(crate) fn wavelength_and_slope(&self, p_px_q16: i32) -> Result<(i64, i64), CalibrateError> {
-        let x = self.x_q30(p_px_q16);
+    /// at one pixel, sharing the pixel's x and dividing through `hw` (made for this map); the first
+    /// error of the two.
+    pub(crate) fn wavelength_and_slope_by(
+        &self,
+        p_px_q16: i32,
+        hw: &HalfWidth,
+    ) -> Result<(i64, i64), CalibrateError> {
+        let x = self.x_q30_by(p_px_q16, hw);
         let lam = eval_q30(&self.coeff_fm, self.degree, x)?;
-        Ok((lam, self.slope_at_x(x)?))
+        Ok((lam, self.slope_at_x_by(x, hw)?))
     }
 
     /// dλ/dp at normalised pixel x (Q30): femtometres per pixel, Q16.
@@ -147,7 +152,7 @@ impl WavelengthMap {
     }
 
     /// [`slope_at_x`](Self::slope_at_x) dividing through `hw` (this map's half-width).
-    fn slope_at_x_by(&self, x: i64, hw: &HalfWidth) -> Result<i64, CalibrateError> {
+    pub(crate) fn slope_at_x_by(&self, x: i64, hw: &HalfWidth) -> Result<i64, CalibrateError> {
         // dλ/dx = c1 + 2 c2 x + 3 c3 x².
         let d: i128 = if x.unsigned_abs() <= 1 << 30 && self.narrow_slope() {
             // On the sensor (|x| ≤ 1) with every k·c_k below 2^31, |d| stays below 3 · 2^31 and
@@ -211,8 +216,7 @@ impl WavelengthMap {
         let off = wavelength_fm as i128 - c0;
         let x0 = if off.unsigned_abs() < 1 << 32 && c1.unsigned_abs() < 1 << 63 {
             // off · 2^30 fits i64: the same truncating division.
-            ((off as i64) << 30)
-                .checked_div(c1 as i64)
+            hw.div_c1((off as i64) << 30)
                 .ok_or(CalibrateError::NotMonotone)? as i128
         } else {
             (off << 30)
@@ -223,10 +227,7 @@ impl WavelengthMap {
         for _ in 0..12 {
             let pc = i32::try_from(p.clamp(i32::MIN as i128 / 2, i32::MAX as i128 / 2))
                 .map_err(|_| CalibrateError::Overflow)?;
-            // As `wavelength_and_slope`, through the reciprocal.
-            let x = self.x_q30_by(pc, hw);
-            let lam = eval_q30(&self.coeff_fm, self.degree, x)?;
-            let slope = self.slope_at_x_by(x, hw)?;
+            let (lam, slope) = self.wavelength_and_slope_by(pc, hw)?;
             let err = lam as i128 - wavelength_fm as i128;
             let slope = slope as i128;
             if slope == 0 {
@@ -252,15 +253,20 @@ impl WavelengthMap {
     }
 }
 
-/// A map's half-width as a divisor. `checked_div` by it, or (for a positive one) the same
-/// truncated quotient through a multiply by m = ⌊(2^64 − 1) / d⌋: for |n| < 2^63,
-/// q' = ⌊|n| · m / 2^64⌋ satisfies |n|/d − 1 < q' ≤ |n|/d (as m · d > 2^64 − 1 − d and
-/// |n| (1 + d) / (d · 2^64) ≤ 1), so one correction step gives ⌊|n| / d⌋. That is two 64-bit
-/// products where the division costs a few hundred instructions on a core without a divider.
+/// A map's divisors (its half-width, and c1 for the inverse's first guess). Each divides as
+/// `checked_div` does, or (when made with reciprocals) gives the same truncated quotient through a
+/// multiply by m = ⌊(2^64 − 1) / |d|⌋: for |n| < 2^63, q' = ⌊|n| · m / 2^64⌋ satisfies
+/// |n|/|d| − 1 < q' ≤ |n|/|d| (as m · |d| > 2^64 − 1 − |d| and |n| (1 + |d|) / (|d| · 2^64) ≤ 1),
+/// so one correction step gives ⌊|n| / |d|⌋, and the signs give the truncated quotient. That is
+/// two 64-bit products where the division costs a few hundred instructions on a core without a
+/// divider.
 pub(crate) struct HalfWidth {
     hw: i64,
-    /// (d, m) for a positive half-width.
+    /// (|hw|, m) when made with reciprocals and hw ≠ 0.
     recip: Option<(u64, u64)>,
+    c1: i64,
+    /// (|c1|, m) when made for inversion and 0 < |c1| < 2^63.
+    recip_c1: Option<(u64, u64)>,
 }
 
 impl HalfWidth {
@@ -269,37 +275,67 @@ impl HalfWidth {
         HalfWidth {
             hw: map.half_width_px_q16 as i64,
             recip: None,
+            c1: map.coeff_fm[1],
+            recip_c1: None,
         }
     }
 
-    /// With the reciprocal (several uses; one division to make it). Only for `map` (or a map with
-    /// the same half-width).
-    pub(crate) fn reciprocal(map: &WavelengthMap) -> HalfWidth {
-        let hw = map.half_width_px_q16 as i64;
+    /// With the half-width's reciprocal, for evaluating `map` (or a map with the same half-width) at
+    /// several pixels: one division to make it.
+    pub(crate) fn forward(map: &WavelengthMap) -> HalfWidth {
         HalfWidth {
-            hw,
-            recip: (hw > 0).then(|| (hw as u64, u64::MAX / hw as u64)),
+            recip: reciprocal(map.half_width_px_q16 as i64),
+            ..HalfWidth::plain(map)
+        }
+    }
+
+    /// With the reciprocals of the half-width and of c1, for inverting `map` several times: two
+    /// divisions to make them. Only for `map` (or one with the same half-width and c1).
+    pub(crate) fn reciprocal(map: &WavelengthMap) -> HalfWidth {
+        HalfWidth {
+            recip_c1: reciprocal(map.coeff_fm[1]),
+            ..HalfWidth::forward(map)
         }
     }
 
     /// `n.checked_div(hw)`.
     fn div(&self, n: i64) -> Option<i64> {
-        let (Some((d, m)), false) = (self.recip, n == i64::MIN) else {
-            return n.checked_div(self.hw);
-        };
-        let u = n.unsigned_abs();
-        let mut q = (mul_64x64(u, m) >> 64) as u64;
-        let mut r = u - q * d;
-        // One step suffices (see above); a second costs nothing and bounds the loop anyway.
-        for _ in 0..2 {
-            if r >= d {
-                q += 1;
-                r -= d;
-            }
-        }
-        // q ≤ |n| < 2^63.
-        Some(if n < 0 { -(q as i64) } else { q as i64 })
+        divide(n, self.hw, self.recip)
     }
+
+    /// `n.checked_div(c1)`.
+    fn div_c1(&self, n: i64) -> Option<i64> {
+        divide(n, self.c1, self.recip_c1)
+    }
+}
+
+/// (|d|, ⌊(2^64 − 1) / |d|⌋) for 0 < |d| < 2^63.
+fn reciprocal(d: i64) -> Option<(u64, u64)> {
+    (d != 0 && d != i64::MIN).then(|| (d.unsigned_abs(), u64::MAX / d.unsigned_abs()))
+}
+
+/// `n.checked_div(d)`, through `recip` (= [`reciprocal`]`(d)`) when there is one (see
+/// [`HalfWidth`]).
+fn divide(n: i64, d: i64, recip: Option<(u64, u64)>) -> Option<i64> {
+    let (Some((ud, m)), false) = (recip, n == i64::MIN) else {
+        return n.checked_div(d);
+    };
+    let u = n.unsigned_abs();
+    let mut q = (mul_64x64(u, m) >> 64) as u64;
+    let mut r = u - q * ud;
+    // One step suffices (see `HalfWidth`); a second costs nothing and bounds the loop anyway.
+    for _ in 0..2 {
+        if r >= ud {
+            q += 1;
+            r -= ud;
+        }
+    }
+    // q ≤ |n| < 2^63.
+    Some(if (n < 0) != (d < 0) {
+        -(q as i64)
+    } else {
+        q as i64
+    })
 }
 
 /// Σ c_k x^k by Horner, x in Q30, result in the coefficients' unit.
@@ -571,21 +607,32 @@ mod tests {
                 1 => (next() >> 33) as i32,
                 _ => (next() % (1 << 28)) as i32 + 1,
             };
+            m.coeff_fm[1] = match next() % 4 {
+                0 => (next() % 64) as i64 - 32,
+                1 => (next() >> 1) as i64 * if next() & 1 == 1 { -1 } else { 1 },
+                2 => i64::MIN,
+                _ => (next() % (1 << 30)) as i64 - (1 << 29),
+            };
             let (plain, fast) = (HalfWidth::plain(&m), HalfWidth::reciprocal(&m));
+            let c1 = m.coeff_fm[1];
             for _ in 0..50 {
                 let n = (next() >> (next() % 64)) as i64 * if next() & 1 == 1 { -1 } else { 1 };
                 assert_eq!(fast.div(n), plain.div(n), "{n} / {}", m.half_width_px_q16);
+                assert_eq!(fast.div_c1(n), plain.div_c1(n), "{n} / {c1}");
             }
-            for n in [
+            let edges = [
                 0,
                 1,
                 -1,
                 i64::MAX,
                 i64::MIN,
                 i64::MIN + 1,
-                m.half_width_px_q16 as i64,
-            ] {
+                c1,
+                -c1.max(-i64::MAX),
+            ];
+            for n in edges.into_iter().chain([m.half_width_px_q16 as i64]) {
                 assert_eq!(fast.div(n), plain.div(n), "{n} / {}", m.half_width_px_q16);
+                assert_eq!(fast.div_c1(n), plain.div_c1(n), "{n} / {c1}");
             }
         }
         // The inverse through the reciprocal matches the 128-bit reference above.
