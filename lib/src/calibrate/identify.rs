@@ -283,7 +283,6 @@ impl Search<'_> {
     }
 }
 
-
 /// What every hypothesis reuses about the peaks.
 struct Axis {
     /// u(p) per peak: nominal wavelength (fm) or the pixel (Q16 → fm-like integer).

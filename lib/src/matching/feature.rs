@@ -144,9 +144,7 @@ pub(crate) fn settle_placed(
         // pixel_q16 is a function of the wavelength: the member's own pixel is the same integer.
         f.predicted_px_q16 = match sole.and_then(|m| lines.recorded(m)) {
             Some(px) => px,
-            None => {
-                map.pixel_q16_by(f.predicted_fm, hw).ok()
-            }
+            None => map.pixel_q16_by(f.predicted_fm, hw).ok(),
         }
         .unwrap_or(f.predicted_px_q16);
     }
