@@ -4,7 +4,6 @@
 //! [−1, 1] across the sensor: the coefficients are then all of comparable size (fm) and the fit is
 //! well conditioned in fixed point. Reports convert to the plain λ(p) = c0 + c1 p + c2 p² + c3 p³.
 use super::error::CalibrateError;
-use super::muldiv::mul_64x64;
 
 /// Q30 scale of the normalised pixel coordinate x.
 pub const X_ONE_Q30: i64 = 1 << 30;
@@ -109,7 +108,7 @@ impl WavelengthMap {
     pub(crate) fn x_q30_by(&self, p_px_q16: i32, hw: &HalfWidth) -> i64 {
         // A map built by `new` has half-width > 0; a hand-made zero gives x = 0 rather than a fault.
         // |p − centre| < 2^32, so the shifted value is below 2^62.
-        hw.div((p_px_q16 as i64 - self.center_px_q16 as i64) << 30)
+        hw.div_shl(p_px_q16 as i64 - self.center_px_q16 as i64, 30)
             .unwrap_or(0)
             .clamp(-(8 << 30), 8 << 30)
     }
@@ -174,7 +173,7 @@ impl WavelengthMap {
         };
         let v = if d.unsigned_abs() < 1 << 31 {
             // d · 2^32 fits i64: the same truncating division, without the 128-bit routine.
-            hw.div((d as i64) << 32).ok_or(CalibrateError::Degenerate)? as i128
+            hw.div_shl(d as i64, 32).ok_or(CalibrateError::Degenerate)? as i128
         } else {
             (d << 32)
                 .checked_div(self.half_width_px_q16 as i128)
@@ -216,7 +215,7 @@ impl WavelengthMap {
         let off = wavelength_fm as i128 - c0;
         let x0 = if off.unsigned_abs() < 1 << 32 && c1.unsigned_abs() < 1 << 63 {
             // off · 2^30 fits i64: the same truncating division.
-            hw.div_c1((off as i64) << 30)
+            hw.div_c1_shl(off as i64, 30)
                 .ok_or(CalibrateError::NotMonotone)? as i128
         } else {
             (off << 30)
@@ -298,14 +297,14 @@ impl HalfWidth {
         }
     }
 
-    /// `n.checked_div(hw)`.
-    fn div(&self, n: i64) -> Option<i64> {
-        divide(n, self.hw, self.recip)
+    /// `(a << k).checked_div(hw)` for |a| < 2^32 and k ≤ 32 with |a| · 2^k < 2^63.
+    fn div_shl(&self, a: i64, k: u32) -> Option<i64> {
+        divide_shl(a, k, self.hw, self.recip)
     }
 
-    /// `n.checked_div(c1)`.
-    fn div_c1(&self, n: i64) -> Option<i64> {
-        divide(n, self.c1, self.recip_c1)
+    /// `(a << k).checked_div(c1)`, as [`div_shl`](Self::div_shl).
+    fn div_c1_shl(&self, a: i64, k: u32) -> Option<i64> {
+        divide_shl(a, k, self.c1, self.recip_c1)
     }
 }
 
@@ -314,14 +313,21 @@ fn reciprocal(d: i64) -> Option<(u64, u64)> {
     (d != 0 && d != i64::MIN).then(|| (d.unsigned_abs(), u64::MAX / d.unsigned_abs()))
 }
 
-/// `n.checked_div(d)`, through `recip` (= [`reciprocal`]`(d)`) when there is one (see
-/// [`HalfWidth`]).
-fn divide(n: i64, d: i64, recip: Option<(u64, u64)>) -> Option<i64> {
-    let (Some((ud, m)), false) = (recip, n == i64::MIN) else {
+/// `(a << k).checked_div(d)` for |a| < 2^32, k ≤ 32 and |a| · 2^k < 2^63, through `recip`
+/// (= [`reciprocal`]`(d)`) when there is one (see [`HalfWidth`]). With n = |a| · 2^k the estimate
+/// ⌊n · m / 2^64⌋ is ⌊|a| · m / 2^(64 − k)⌋, and with m = m_hi · 2^32 + m_lo that is
+/// ⌊(|a| · m_hi + ⌊|a| · m_lo / 2^32⌋) / 2^(32 − k)⌋: two 32 × 32-bit products, no 128-bit one.
+fn divide_shl(a: i64, k: u32, d: i64, recip: Option<(u64, u64)>) -> Option<i64> {
+    let n = a << k;
+    let fits = k <= 32 && a.unsigned_abs() < 1 << 32 && a.unsigned_abs() < 1 << (63 - k);
+    let (Some((ud, m)), true) = (recip, fits) else {
         return n.checked_div(d);
     };
+    let ua = a.unsigned_abs();
     let u = n.unsigned_abs();
-    let mut q = (mul_64x64(u, m) >> 64) as u64;
+    // |a| < 2^32 and m_hi < 2^32: |a| · m_hi + 2^32 stays below 2^64.
+    let hi = ua * (m >> 32) + ((ua * (m & 0xffff_ffff)) >> 32);
+    let mut q = hi >> (32 - k);
     let mut r = u - q * ud;
     // One step suffices (see `HalfWidth`); a second costs nothing and bounds the loop anyway.
     for _ in 0..2 {
@@ -617,8 +623,19 @@ mod tests {
             let c1 = m.coeff_fm[1];
             for _ in 0..50 {
                 let n = (next() >> (next() % 64)) as i64 * if next() & 1 == 1 { -1 } else { 1 };
-                assert_eq!(fast.div(n), plain.div(n), "{n} / {}", m.half_width_px_q16);
-                assert_eq!(fast.div_c1(n), plain.div_c1(n), "{n} / {c1}");
+                let (a, k) = (n >> 32, (n as u64 % 33) as u32);
+                assert_eq!(
+                    fast.div_shl(a, k),
+                    (a << k).checked_div(m.half_width_px_q16 as i64),
+                    "{a} << {k} / {}",
+                    m.half_width_px_q16
+                );
+                assert_eq!(
+                    fast.div_c1_shl(a, k),
+                    (a << k).checked_div(c1),
+                    "{a} << {k} / {c1}"
+                );
+                assert_eq!(fast.div_shl(a, k), plain.div_shl(a, k));
             }
             let edges = [
                 0,
@@ -631,8 +648,19 @@ mod tests {
                 -c1.max(-i64::MAX),
             ];
             for n in edges.into_iter().chain([m.half_width_px_q16 as i64]) {
-                assert_eq!(fast.div(n), plain.div(n), "{n} / {}", m.half_width_px_q16);
-                assert_eq!(fast.div_c1(n), plain.div_c1(n), "{n} / {c1}");
+                let (a, k) = (n >> 32, (n as u64 % 33) as u32);
+                assert_eq!(
+                    fast.div_shl(a, k),
+                    (a << k).checked_div(m.half_width_px_q16 as i64),
+                    "{a} << {k} / {}",
+                    m.half_width_px_q16
+                );
+                assert_eq!(
+                    fast.div_c1_shl(a, k),
+                    (a << k).checked_div(c1),
+                    "{a} << {k} / {c1}"
+                );
+                assert_eq!(fast.div_shl(a, k), plain.div_shl(a, k));
             }
         }
         // The inverse through the reciprocal matches the 128-bit reference above.

@@ -70,8 +70,14 @@ impl MapInUse {
         let x = self.map.x_q30(p_q16);
         let slope = self.map.slope_at_x(x).unwrap_or(0).unsigned_abs();
         let sigma = match &self.fit {
-            // The fit's own map (always, as built here): its x is this one.
-            Some(f) if f.map == self.map => f.sigma_fm_at_x(x),
+            // The fit's own map (as `map_for` builds it), so its x is this one: the same pixel and
+            // frame (centre, half-width) give the same x.
+            Some(f)
+                if f.map.center_px_q16 == self.map.center_px_q16
+                    && f.map.half_width_px_q16 == self.map.half_width_px_q16 =>
+            {
+                f.sigma_fm_at_x(x)
+            }
             Some(f) => f.sigma_fm_at(p_q16),
             None => self.stored_sigma_fm as u64,
         };
