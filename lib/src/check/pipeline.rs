@@ -43,9 +43,25 @@ struct MapInUse {
     stored_sigma_fm: u32,
     /// The catalogue lines' pixels on `map`, recorded by grouping.
     lines: LinePixels,
+    /// `map`'s half-width reciprocal, for the many evaluations of one check.
+    div: HalfWidth,
 }
 
 impl MapInUse {
+    fn new(
+        map: WavelengthMap,
+        fit: Option<crate::calibrate::MapFit>,
+        stored_sigma_fm: u32,
+    ) -> MapInUse {
+        MapInUse {
+            div: HalfWidth::forward(&map),
+            map,
+            fit,
+            stored_sigma_fm,
+            lines: LinePixels::new(),
+        }
+    }
+
     /// |dλ/dp| at a pixel (fm/px, Q16); 0 where the map cannot say.
     fn slope_abs(&self, p_q16: i32) -> u64 {
         self.map
@@ -67,8 +83,12 @@ impl MapInUse {
     /// [`slope_abs`]: Self::slope_abs
     /// [`sigma_fm`]: Self::sigma_fm
     fn at(&self, p_q16: i32) -> (Result<i64, CalibrateError>, u64, u64) {
-        let x = self.map.x_q30(p_q16);
-        let slope = self.map.slope_at_x(x).unwrap_or(0).unsigned_abs();
+        let x = self.map.x_q30_by(p_q16, &self.div);
+        let slope = self
+            .map
+            .slope_at_x_by(x, &self.div)
+            .unwrap_or(0)
+            .unsigned_abs();
         let sigma = match &self.fit {
             // The fit's own map (as `map_for` builds it), so its x is this one: the same pixel and
             // frame (centre, half-width) give the same x.
@@ -220,12 +240,7 @@ impl Checker {
             Some(m) => m,
             None => {
                 // Calibration failed: list every peak on the stored map so the user sees what was there.
-                let m = MapInUse {
-                    map: cfg.stored.map,
-                    fit: None,
-                    stored_sigma_fm: cfg.stored.sigma_fm,
-                    lines: LinePixels::new(),
-                };
+                let m = MapInUse::new(cfg.stored.map, None, cfg.stored.sigma_fm);
                 self.unexplained(peaks, &[], &m, report);
                 report.decide();
                 return Ok(());
@@ -278,12 +293,7 @@ impl Checker {
         let cfg = &self.cfg;
         let stored_sigma_fm = cfg.stored.sigma_fm;
         if cfg.mode == Mode::Verify {
-            return Some(MapInUse {
-                map: cfg.stored.map,
-                fit: None,
-                stored_sigma_fm,
-                lines: LinePixels::new(),
-            });
+            return Some(MapInUse::new(cfg.stored.map, None, stored_sigma_fm));
         }
         let refs = &self.refs;
         let nominal = if cfg.mode == Mode::Calibrate {
@@ -296,12 +306,7 @@ impl Checker {
             Ok(id) => {
                 report.fit_rms_fm = Some(id.fit.rms_residual_fm);
                 report.drift_fm = drift_fm(&id.fit.map, &cfg.stored.map, cfg.pixels);
-                Some(MapInUse {
-                    map: id.fit.map,
-                    fit: Some(id.fit),
-                    stored_sigma_fm,
-                    lines: LinePixels::new(),
-                })
+                Some(MapInUse::new(id.fit.map, Some(id.fit), stored_sigma_fm))
             }
             Err(e) => {
                 report.note(Reason::Calibration(e));
