@@ -6,7 +6,8 @@
 //! is scaled by the Birge ratio χ²/dof when that exceeds 1 (common practice: the scatter, not only
 //! the centroid noise, sets the uncertainty).
 use super::error::CalibrateError;
-use super::map::{WavelengthMap, X_ONE_Q30};
+use super::map::{HalfWidth, WavelengthMap, X_ONE_Q30};
+use super::muldiv::{mul_32x32, mul_div_round, Divisor};
 use crate::fixed::{isqrt_u128, mul_div_i128};
 
 /// Most points one fit takes.
@@ -48,9 +49,31 @@ pub struct MapFit {
 impl MapFit {
     /// 1-σ uncertainty of the map's wavelength at pixel p (px, Q16), femtometres.
     ///
-    /// Work: fixed, ≤ 4 × 4 terms of two [`mul_div_i128`] each and one square root (≤ 64 steps).
+    /// Work: fixed, ≤ 4 × 4 terms of two rounded products each (64-bit on the sensor, else
+    /// [`mul_div_i128`]) and one square root (≤ 64 steps).
     pub fn sigma_fm_at(&self, p_px_q16: i32) -> u64 {
-        let x = self.map.x_q30(p_px_q16) as i128;
+        self.sigma_fm_at_x(self.map.x_q30(p_px_q16))
+    }
+
+    /// [`sigma_fm_at`](Self::sigma_fm_at) at the map's normalised x (Q30) of the pixel, for a caller
+    /// that has it already (one 64-bit division less).
+    pub(crate) fn sigma_fm_at_x(&self, x: i64) -> u64 {
+        let q = self
+            .quadratic_form_narrow(x)
+            .unwrap_or_else(|| self.quadratic_form(x));
+        let var =
+            mul_div_i128(q.max(0), self.variance_scale_fm2 as i128, 1 << 40).unwrap_or(i128::MAX);
+        match u32::try_from(var) {
+            // A map σ below 65 pm: the root in 32-bit steps (the floor root is the same integer).
+            Ok(v) => u64::from(isqrt_u32(v)),
+            Err(_) => isqrt_u128(var.max(0) as u128) as u64,
+        }
+    }
+
+    /// q = vᵀ M⁻¹ v (Q40) with v = (1, x, x², x³) in Q30, each term rounded twice as
+    /// [`mul_div_i128`] rounds a division by 2^30 (half away from zero).
+    fn quadratic_form(&self, x: i64) -> i128 {
+        let x = x as i128;
         let d = self.map.degree as usize;
         let mut v = [0i128; 4];
         let mut xk: i128 = X_ONE_Q30 as i128;
@@ -73,9 +96,77 @@ impl MapFit {
                 q = q.saturating_add(t);
             }
         }
-        let var =
-            mul_div_i128(q.max(0), self.variance_scale_fm2 as i128, 1 << 40).unwrap_or(i128::MAX);
-        isqrt_u128(var.max(0) as u128) as u64
+        q
+    }
+
+    /// [`quadratic_form`](Self::quadratic_form) in 64-bit pieces, for the usual case of a pixel on
+    /// the sensor (|x| ≤ 1, so |v_k| ≤ 2^30) and every |M⁻¹| entry below 2^62: each product then
+    /// splits into two 32 × 32-bit ones and every rounded term fits `i64`, the same integers
+    /// without 128-bit products (16 terms per call, about 40 calls per frame). `None` outside
+    /// that range.
+    fn quadratic_form_narrow(&self, x: i64) -> Option<i128> {
+        if x.unsigned_abs() > 1 << 30 {
+            return None;
+        }
+        let d = (self.map.degree as usize).min(3) + 1;
+        let mut v = [0i64; 4];
+        let mut xk: i64 = X_ONE_Q30;
+        for slot in v.iter_mut().take(d) {
+            *slot = xk;
+            // |xk|, |x| ≤ 2^30: the product fits, and `>>` floors as the 128-bit shift does.
+            xk = (xk * x) >> 30;
+        }
+        let mut q: i128 = 0;
+        for (row, &vr) in self.inverse_q40.iter().zip(v.iter()).take(d) {
+            for (&m, &vc) in row.iter().zip(v.iter()).take(d) {
+                if m.unsigned_abs() >= 1 << 62 {
+                    return None;
+                }
+                let t1 = mul_q30_round(m as i64, vr);
+                q += mul_q30_round(t1, vc) as i128;
+            }
+        }
+        Some(q)
+    }
+}
+
+/// Floor square root of a u32, bit by bit (16 steps).
+fn isqrt_u32(x: u32) -> u32 {
+    let mut rem = x;
+    let mut root: u32 = 0;
+    let mut bit: u32 = 1 << 30;
+    while bit > rem {
+        bit >>= 2;
+    }
+    while bit > 0 {
+        if rem >= root + bit {
+            rem -= root + bit;
+            root = (root >> 1) + bit;
+        } else {
+            root >>= 1;
+        }
+        bit >>= 2;
+    }
+    root
+}
+
+/// a · v / 2^30 rounded half away from zero (as [`mul_div_i128`] with c = 2^30), for |a| < 2^63 and
+/// |v| ≤ 2^30: |a| = h · 2^32 + l, so |a| · |v| = 4 · (h|v|) · 2^30 + l|v|, both products 64-bit.
+/// The result's magnitude is at most |a| + 1, so it fits `i64` (|a| < 2^62 keeps it below 2^62 + 1).
+fn mul_q30_round(a: i64, v: i64) -> i64 {
+    // v = 1 (x⁰): a · 2^30 / 2^30 is a, exactly.
+    if v == X_ONE_Q30 {
+        return a;
+    }
+    let (ua, uv) = (a.unsigned_abs(), v.unsigned_abs().min(1 << 30));
+    let hi = mul_32x32((ua >> 32) as u32, uv as u32);
+    let lo = mul_32x32(ua as u32, uv as u32);
+    let mag = (hi << 2) + ((lo + (1 << 29)) >> 30);
+    let m = mag.min(i64::MAX as u64) as i64;
+    if (a < 0) != (v < 0) {
+        -m
+    } else {
+        m
     }
 }
 
@@ -105,25 +196,17 @@ pub fn fit_map(points: &[FitPoint], degree: u8, pixels: u16) -> Result<MapFit, C
         .min()
         .unwrap_or(1) as i128;
     let mut m = [[0i128; 9]; 4];
+    // The frame's (and the fitted map's) half-width divides every point's x: its reciprocal once.
+    let hw = HalfWidth::forward(&frame);
     for pt in points {
         let s = pt.sigma_px_q16.max(1) as i128;
         let w =
-            mul_div_i128(sigma_min * sigma_min, 1 << 30, s * s).ok_or(CalibrateError::Overflow)?;
-        let x = frame.x_q30(pt.center_px_q16) as i128;
-        let mut pw = [0i128; 7]; // x^k in Q30
-        let mut xk: i128 = 1 << 30;
-        for slot in pw.iter_mut() {
-            *slot = xk;
-            xk = (xk * x) >> 30;
-        }
-        for (r, row) in m.iter_mut().enumerate().take(d) {
-            for (c, cell) in row.iter_mut().enumerate().take(d) {
-                *cell += w * pw.get(r + c).copied().unwrap_or(0); // Q60
-            }
-            let wx = w * pw.get(r).copied().unwrap_or(0);
-            row[4] += wx
-                .checked_mul(pt.wavelength_fm as i128)
-                .ok_or(CalibrateError::Overflow)?;
+            mul_div_round(sigma_min * sigma_min, 1 << 30, s * s).ok_or(CalibrateError::Overflow)?;
+        let x = frame.x_q30_by(pt.center_px_q16, &hw);
+        if x.unsigned_abs() <= 1 << 30 && (0..=1 << 30).contains(&w) {
+            accumulate_narrow(&mut m, d, w as i64, x, pt.wavelength_fm);
+        } else {
+            accumulate(&mut m, d, w, x, pt.wavelength_fm)?;
         }
     }
     for (r, row) in m.iter_mut().enumerate().take(d) {
@@ -141,11 +224,17 @@ pub fn fit_map(points: &[FitPoint], degree: u8, pixels: u16) -> Result<MapFit, C
     {
         let piv = row.get(r).copied().unwrap_or(0);
         let rhs = row.get(4).copied().unwrap_or(0);
-        *c_out = i64::try_from(mul_div_i128(rhs, 1, piv).ok_or(CalibrateError::Overflow)?)
+        // One reciprocal for the row's four quotients (the same integers as dividing each).
+        let by_piv = Divisor::new(piv);
+        let div = |a: i128, b: i128| match &by_piv {
+            Some(dv) => dv.mul_div_round(a, b),
+            None => mul_div_round(a, b, piv),
+        };
+        *c_out = i64::try_from(div(rhs, 1).ok_or(CalibrateError::Overflow)?)
             .map_err(|_| CalibrateError::Overflow)?;
         for (inv, &cell) in inv_row.iter_mut().zip(row.iter().skip(5)).take(d) {
             // (Q60 / Q60) → scale to Q40.
-            *inv = mul_div_i128(cell, 1 << 40, piv).ok_or(CalibrateError::Overflow)?;
+            *inv = div(cell, 1 << 40).ok_or(CalibrateError::Overflow)?;
         }
     }
     let map = WavelengthMap::with_frame(half, half, degree, coeff, pixels)?;
@@ -158,16 +247,22 @@ pub fn fit_map(points: &[FitPoint], degree: u8, pixels: u16) -> Result<MapFit, C
     for pt in points {
         // λ and slope share the pixel's x. (The weight below cannot fail: σ_min ≤ σ, so the first
         // error is the map's either way.)
-        let (lam, slope) = map.wavelength_and_slope(pt.center_px_q16)?;
+        let (lam, slope) = map.wavelength_and_slope_by(pt.center_px_q16, &hw)?;
         let r = (lam - pt.wavelength_fm) as i128;
         let s = pt.sigma_px_q16.max(1) as i128;
         let w =
-            mul_div_i128(sigma_min * sigma_min, 1 << 20, s * s).ok_or(CalibrateError::Overflow)?;
-        sum_wr2 = sum_wr2.saturating_add(w.saturating_mul(r * r));
+            mul_div_round(sigma_min * sigma_min, 1 << 20, s * s).ok_or(CalibrateError::Overflow)?;
+        // w ≤ 2^20 (σ_min ≤ σ) and |r| < 2^21: w · r² < 2^62 needs neither 128 bits nor saturation.
+        let wr2 = if r.unsigned_abs() < 1 << 21 && (0..=1 << 20).contains(&w) {
+            ((w as i64) * (r as i64 * r as i64)) as i128
+        } else {
+            w.saturating_mul(r * r)
+        };
+        sum_wr2 = sum_wr2.saturating_add(wr2);
         sum_w += w;
         let slope = slope.unsigned_abs() as i128;
         let s_fm = ((pt.sigma_px_q16.max(1) as i128 * slope) >> 32).max(1);
-        chi2_q8 += mul_div_i128(r * r, 256, s_fm * s_fm).ok_or(CalibrateError::Overflow)?;
+        chi2_q8 += mul_div_round(r * r, 256, s_fm * s_fm).ok_or(CalibrateError::Overflow)?;
     }
     let n = points.len() as i128;
     let dof = n - d as i128;
@@ -194,6 +289,52 @@ pub fn fit_map(points: &[FitPoint], degree: u8, pixels: u16) -> Result<MapFit, C
     })
 }
 
+/// One point's terms of the normal equations (Q60): w · x^(r+c) and w · x^r · λ, x and w in Q30.
+fn accumulate(
+    m: &mut [[i128; 9]; 4],
+    d: usize,
+    w: i128,
+    x: i64,
+    wavelength_fm: i64,
+) -> Result<(), CalibrateError> {
+    let x = x as i128;
+    let mut pw = [0i128; 7]; // x^k in Q30
+    let mut xk: i128 = 1 << 30;
+    for slot in pw.iter_mut() {
+        *slot = xk;
+        xk = (xk * x) >> 30;
+    }
+    for (r, row) in m.iter_mut().enumerate().take(d) {
+        for (c, cell) in row.iter_mut().enumerate().take(d) {
+            *cell += w * pw.get(r + c).copied().unwrap_or(0); // Q60
+        }
+        let wx = w * pw.get(r).copied().unwrap_or(0);
+        row[4] += wx
+            .checked_mul(wavelength_fm as i128)
+            .ok_or(CalibrateError::Overflow)?;
+    }
+    Ok(())
+}
+
+/// [`accumulate`] for |x| ≤ 1 (Q30) and a weight 0 ≤ w ≤ 1 (Q30), the same integers: every
+/// product but the last fits `i64` there (each is at most 2^60), and that one is a single widening
+/// product of at most 2^123, so the checked product of the general path cannot fail.
+fn accumulate_narrow(m: &mut [[i128; 9]; 4], d: usize, w: i64, x: i64, wavelength_fm: i64) {
+    let mut pw = [0i64; 7];
+    let mut xk: i64 = 1 << 30;
+    for slot in pw.iter_mut() {
+        *slot = xk;
+        xk = (xk * x) >> 30;
+    }
+    for (r, row) in m.iter_mut().enumerate().take(d) {
+        for (c, cell) in row.iter_mut().enumerate().take(d) {
+            *cell += (w * pw.get(r + c).copied().unwrap_or(0)) as i128;
+        }
+        let wx = w * pw.get(r).copied().unwrap_or(0);
+        row[4] += wx as i128 * wavelength_fm as i128;
+    }
+}
+
 /// In-place Gauss–Jordan with partial pivoting on the first `d` (≤ 4) columns of a 4 × 9 system.
 fn gauss_jordan(m: &mut [[i128; 9]; 4], d: usize) -> Result<(), CalibrateError> {
     let d = d.min(4);
@@ -216,13 +357,24 @@ fn gauss_jordan(m: &mut [[i128; 9]; 4], d: usize) -> Result<(), CalibrateError> 
         if piv.unsigned_abs() < (1u128 << 20) {
             return Err(CalibrateError::Degenerate);
         }
+        // Every elimination of this column divides by the same pivot: its reciprocal once.
+        let by_piv = Divisor::new(piv);
         for (r, row) in m.iter_mut().enumerate().take(d) {
             let f = row.get(col).copied().unwrap_or(0);
             if r == col || f == 0 {
                 continue;
             }
             for (cell, &p) in row.iter_mut().zip(pivot_row.iter()).skip(col) {
-                let delta = mul_div_i128(p, f, piv).ok_or(CalibrateError::Overflow)?;
+                // A zero in the pivot row (unused columns, the identity block early on) changes
+                // nothing: 0 · f / piv is 0 exactly, without the 128-bit long division.
+                if p == 0 {
+                    continue;
+                }
+                let delta = match &by_piv {
+                    Some(dv) => dv.mul_div_round(p, f),
+                    None => mul_div_round(p, f, piv),
+                }
+                .ok_or(CalibrateError::Overflow)?;
                 *cell = cell.checked_sub(delta).ok_or(CalibrateError::Overflow)?;
             }
         }
@@ -305,5 +457,101 @@ mod tests {
             "{}",
             fit.chi2_per_dof_q8
         );
+    }
+
+    #[test]
+    fn narrow_quadratic_form_gives_the_wide_integers() {
+        let mut seed = 0x9e37_79b9_7f4a_7c15u64;
+        let mut next = move || {
+            seed ^= seed << 13;
+            seed ^= seed >> 7;
+            seed ^= seed << 17;
+            seed
+        };
+        let base = fit_map(
+            &[100i64, 400, 800, 1200, 1600, 1900].map(|p| FitPoint {
+                center_px_q16: (p << 16) as i32,
+                sigma_px_q16: 1 << 12,
+                wavelength_fm: truth(p),
+            }),
+            3,
+            2048,
+        )
+        .unwrap();
+        let mut narrow = 0;
+        for case in 0..300 {
+            let mut f = base;
+            f.map.degree = 1 + (case % 3) as u8;
+            if case > 0 {
+                // Entries of every size up to 2^62 and past it, either sign.
+                for cell in f.inverse_q40.iter_mut().flatten() {
+                    let bits = next() % 64;
+                    let mag = (next() >> (64 - bits.max(1))) as i128;
+                    *cell = if next() & 1 == 1 { -mag } else { mag };
+                }
+            }
+            for _ in 0..20 {
+                let x = (next() % (1 << 31)) as i64 - (1 << 30) + (next() % 3) as i64 - 1;
+                if let Some(q) = f.quadratic_form_narrow(x) {
+                    assert_eq!(q, f.quadratic_form(x), "{f:?} x={x}");
+                    narrow += 1;
+                }
+            }
+        }
+        assert!(narrow > 3_000, "{narrow}");
+        for x in [-(1i64 << 30), 1 << 30, 0, 1, -1] {
+            assert_eq!(base.quadratic_form_narrow(x), Some(base.quadratic_form(x)));
+        }
+    }
+
+    #[test]
+    fn narrow_accumulation_gives_the_wide_sums() {
+        let mut seed = 0x51_7cc1_b727_220au64;
+        let mut next = move || {
+            seed ^= seed << 13;
+            seed ^= seed >> 7;
+            seed ^= seed << 17;
+            seed
+        };
+        for case in 0..2_000 {
+            let d = 2 + case % 3;
+            let (mut a, mut b) = ([[0i128; 9]; 4], [[0i128; 9]; 4]);
+            for _ in 0..8 {
+                let x = (next() % (1 << 31)) as i64 - (1 << 30) + (next() % 3) as i64 - 1;
+                let x = x.clamp(-(1 << 30), 1 << 30);
+                let w = (next() % ((1 << 30) + 1)) as i64;
+                let lam = (next() >> 1) as i64 * if next() & 1 == 1 { -1 } else { 1 };
+                accumulate_narrow(&mut a, d, w, x, lam);
+                accumulate(&mut b, d, w as i128, x, lam).unwrap();
+            }
+            assert_eq!(a, b);
+        }
+    }
+
+    #[test]
+    fn root_of_a_u32_is_the_wide_root() {
+        let mut seed = 0x2718_2818_2845_9045u64;
+        for _ in 0..100_000 {
+            seed ^= seed << 13;
+            seed ^= seed >> 7;
+            seed ^= seed << 17;
+            let v = (seed >> (32 + seed % 32)) as u32;
+            assert_eq!(u128::from(isqrt_u32(v)), isqrt_u128(u128::from(v)), "{v}");
+        }
+        for v in [
+            0u32,
+            1,
+            2,
+            3,
+            4,
+            15,
+            16,
+            17,
+            u32::MAX,
+            u32::MAX - 1,
+            65_535 * 65_535,
+        ] {
+            assert_eq!(u128::from(isqrt_u32(v)), isqrt_u128(u128::from(v)), "{v}");
+        }
     }
 }

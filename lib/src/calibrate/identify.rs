@@ -6,7 +6,7 @@
 //! the hypothesis scores by how many other peaks then land on a predicted line (consensus). The
 //! best one seeds a least-squares fit, which is refined by re-matching with tighter windows.
 //!
-//! Work bound: at most C(12,2) peak pairs × C(20,2) line pairs × 2 orientations = 25 080 hypotheses
+//! Work bound: at most C(6,2) peak pairs × C(20,2) line pairs × 2 orientations = 5 700 hypotheses
 //! (with a nominal map only the line pairs within its offset and scale tolerance are tried), each
 //! scoring the ≤ 16 strongest peaks against ≤ 48 lines (one walk along the sorted
 //! lines, or a binary search each), stopping as soon as it cannot beat the best so far, and for those
@@ -15,14 +15,18 @@
 //! ≤ 64 peaks (≤ 5 map fits).
 use super::error::CalibrateError;
 use super::fit::{fit_map, FitPoint, MapFit};
-use super::map::WavelengthMap;
+use super::map::{HalfWidth, WavelengthMap};
 use crate::find::Peak;
 use heapless::Vec;
 
 /// Most predicted lines identification considers.
 pub const MAX_REFERENCE_LINES: usize = 48;
-/// Strongest peaks used to form hypotheses.
-const HYP_PEAKS: usize = 12;
+/// Strongest peaks used to form hypotheses: one pair of real lines among them fixes offset and
+/// scale, and a lamp's brightest few peaks are its own lines (foreign or noise peaks among them
+/// only add hypotheses that lose). Six give 15 pairs where twelve gave 66: the same results on the
+/// embedded frames and every `check_bar_` sweep of host-sim, and on the Cortex-M0 the calibrate-mode
+/// search of the hydrogen tube fell from about 0.9 M to 0.1 M instructions, the blind one 2.4 ×.
+const HYP_PEAKS: usize = 6;
 /// Strongest predicted lines used to form hypotheses.
 const HYP_LINES: usize = 20;
 /// Strongest peaks a hypothesis is scored on (refinement then matches every peak): all of a lamp's
@@ -117,15 +121,18 @@ struct Hypothesis {
     /// Kendall-style agreement between peak brightness and expected line strength over matched pairs.
     concord: i32,
     cost: i64,
+    /// The line each scored peak matched, by position in the scored list (`u8::MAX`: none). Equal
+    /// lists mean equal matched pairs, so equal `concord`.
+    lines_of: [u8; SCORE_PEAKS],
 }
 
 /// Identifies peaks against `lines` (sorted by wavelength) and fits the map.
 ///
 /// Peaks must be sorted by centre (as [`find_peaks`](crate::find::find_peaks) returns them).
-/// Work bound: ≤ 25 080 hypotheses (C(12,2) peak pairs × C(20,2) line pairs × 2), each scoring the
+/// Work bound: ≤ 5 700 hypotheses (C(6,2) peak pairs × C(20,2) line pairs × 2), each scoring the
 /// ≤ 16 strongest peaks against ≤ 48 lines and, while it can still win, ≤ 48 × 16 miss checks and
 /// ≤ 120 peak pairs for strength order; then ≤ 5 matching passes over ≤ 64 peaks and ≤ 5 map fits.
-/// Worst case about 2.5 × 10⁷ inner steps (see the module docs).
+/// Worst case about 5 × 10⁶ inner steps (see the module docs).
 pub fn identify(
     peaks: &[Peak],
     lines: &[ReferenceLine],
@@ -158,7 +165,21 @@ pub fn identify(
         lines,
         cfg,
         ends,
+        b_max_ends: i64::MAX as u64 / ends.0.unsigned_abs().max(ends.1.unsigned_abs()).max(1),
     };
+    // Wavelengths of the strong lines by position, and whether every strong line and peak lies
+    // within ±2^60 (nothing an instrument produces): then the gap test below is exact in `i64`.
+    let mut strong_fm = [0i64; HYP_LINES];
+    for (slot, &l) in strong_fm.iter_mut().zip(strong_lines.iter()) {
+        *slot = lines.get(l as usize).map_or(0, |r| r.wavelength_fm);
+    }
+    const NARROW: u64 = 1 << 60;
+    let narrow_gaps = strong_fm.iter().all(|w| w.unsigned_abs() <= NARROW)
+        && strong_peaks.iter().all(|&i| {
+            axis.u
+                .get(i as usize)
+                .is_none_or(|u| u.unsigned_abs() <= NARROW)
+        });
     let mut best: Option<Hypothesis> = None;
     // Hypotheses in a fixed order (peak pair, line pair, orientation): ties keep the first one found.
     // The masks skip only pairs `hypothesis` would refuse, so the order of the rest is unchanged.
@@ -179,6 +200,9 @@ pub fn identify(
             // With a nominal map, |b − 1| < (max_scale_error + 2) ppm (see `line_masks`), so
             // |(λ_b − λ_a) − du| = |b − 1| · |du| ≤ `slack`: pairs beyond it cannot pass `hypothesis`.
             let slack = scale_slack(du, cfg);
+            // The same test through u64 (a gap below 2^63 passes a slack past u64 exactly when it
+            // passes u64::MAX).
+            let slack64 = slack.map(|s| u64::try_from(s).unwrap_or(u64::MAX));
             for (aa, &a) in strong_lines.iter().enumerate() {
                 // (a, b): a with peak i, b with peak j; (b, a) the other way round.
                 let fwd = if (first >> aa) & 1 == 1 { second } else { 0 };
@@ -190,14 +214,21 @@ pub fn identify(
                     let Some(&b) = strong_lines.get(bb) else {
                         continue;
                     };
-                    let gap = |x: u8, y: u8| {
-                        let w = |l: u8| lines.get(l as usize).map_or(0, |r| r.wavelength_fm);
-                        (w(y) as i128 - w(x) as i128 - du as i128).unsigned_abs()
+                    // |(λ_y − λ_x) − du| within the slack, by position in `strong_fm`.
+                    let fits = |x: usize, y: usize| {
+                        let w = |k: usize| strong_fm.get(k).copied().unwrap_or(0);
+                        if narrow_gaps {
+                            slack64.is_none_or(|s| (w(y) - w(x) - du).unsigned_abs() <= s)
+                        } else {
+                            slack.is_none_or(|s| {
+                                (w(y) as i128 - w(x) as i128 - du as i128).unsigned_abs() <= s
+                            })
+                        }
                     };
-                    if (fwd >> bb) & 1 == 1 && slack.is_none_or(|s| gap(a, b) <= s) {
+                    if (fwd >> bb) & 1 == 1 && fits(aa, bb) {
                         search.consider(ui, du, a, b, &mut best);
                     }
-                    if (rev >> bb) & 1 == 1 && slack.is_none_or(|s| gap(b, a) <= s) {
+                    if (rev >> bb) & 1 == 1 && fits(bb, aa) {
                         search.consider(ui, du, b, a, &mut best);
                     }
                 }
@@ -220,6 +251,8 @@ struct Search<'a> {
     cfg: &'a IdentifyConfig,
     /// u at the sensor's ends.
     ends: (i64, i64),
+    /// Largest |b| (Q30) for which b · u stays within `i64` at both ends.
+    b_max_ends: u64,
 }
 
 impl Search<'_> {
@@ -231,11 +264,17 @@ impl Search<'_> {
         let (Some(ra), Some(rb)) = (lines.get(la as usize), lines.get(lb as usize)) else {
             return;
         };
-        let Some(h) = hypothesis(ui, du, ra.wavelength_fm, rb.wavelength_fm, self.cfg) else {
+        let Some(h) = hypothesis(
+            ui,
+            du,
+            ra.wavelength_fm,
+            rb.wavelength_fm,
+            self.cfg,
+            self.axis.b_max_u,
+        ) else {
             return;
         };
-        let floor = best.map_or(1, |b| b.net);
-        let Some(h) = score(h, self, floor) else {
+        let Some(h) = score(h, self, best.as_ref()) else {
             return;
         };
         if better(&h, best) {
@@ -270,13 +309,18 @@ impl Axis {
     ) -> Result<Axis, CalibrateError> {
         let mut u: Vec<i64, 64> = Vec::new();
         let mut du_dp: Vec<i64, 64> = Vec::new();
+        let hw = cfg.nominal.as_ref().map(HalfWidth::forward);
         for p in peaks {
-            let (v, d) = match &cfg.nominal {
-                Some(m) => (
-                    m.wavelength_fm(p.center_px_q16)?,
-                    m.slope_fm_per_px_q16(p.center_px_q16).unwrap_or(0) >> 16,
-                ),
-                None => (p.center_px_q16 as i64, 65_536),
+            let (v, d) = match (&cfg.nominal, &hw) {
+                (Some(m), Some(hw)) => {
+                    // wavelength_fm and slope_fm_per_px_q16 of the same pixel, sharing its x.
+                    let x = m.x_q30_by(p.center_px_q16, hw);
+                    (
+                        m.wavelength_at_x(x)?,
+                        m.slope_at_x_by(x, hw).unwrap_or(0) >> 16,
+                    )
+                }
+                _ => (p.center_px_q16 as i64, 65_536),
             };
             u.push(v).map_err(|_| CalibrateError::TooManyPoints)?;
             du_dp.push(d).map_err(|_| CalibrateError::TooManyPoints)?;
@@ -421,14 +465,36 @@ fn strongest<const N: usize>(values: impl Iterator<Item = u32>, k: usize) -> Vec
 }
 
 /// The hypothesis through (u_i, wa) and (u_i + du, wb), if it is within the search range.
-fn hypothesis(ui: i64, du: i64, wa: i64, wb: i64, cfg: &IdentifyConfig) -> Option<Hypothesis> {
-    let b_q30 = i64::try_from(((wb - wa) as i128) << 30)
-        .ok()?
-        .checked_div(du)?;
-    let a_fm = wa - (((b_q30 as i128) * ui as i128) >> 30) as i64;
+///
+/// `b_max_u` is [`Axis::b_max_u`] (|b| up to it keeps b · u_i in `i64`). Each step takes the 64-bit
+/// path where its operands are small enough for it to give the same integer as the 128-bit one.
+fn hypothesis(
+    ui: i64,
+    du: i64,
+    wa: i64,
+    wb: i64,
+    cfg: &IdentifyConfig,
+    b_max_u: u64,
+) -> Option<Hypothesis> {
+    let gap = wb - wa;
+    let b_q30 = if gap.unsigned_abs() < 1 << 33 {
+        (gap << 30).checked_div(du)?
+    } else {
+        i64::try_from((gap as i128) << 30).ok()?.checked_div(du)?
+    };
+    let a_fm = if b_q30.unsigned_abs() <= b_max_u {
+        wa - ((b_q30 * ui) >> 30)
+    } else {
+        wa - (((b_q30 as i128) * ui as i128) >> 30) as i64
+    };
     match &cfg.nominal {
         Some(_) => {
-            let dev = ((b_q30 - (1 << 30)).unsigned_abs() as u128 * 1_000_000) >> 30;
+            let e = (b_q30 - (1 << 30)).unsigned_abs();
+            let dev = if e < 1 << 44 {
+                ((e * 1_000_000) >> 30) as u128
+            } else {
+                (e as u128 * 1_000_000) >> 30
+            };
             if dev > cfg.max_scale_error_ppm as u128 {
                 return None;
             }
@@ -438,8 +504,8 @@ fn hypothesis(ui: i64, du: i64, wa: i64, wb: i64, cfg: &IdentifyConfig) -> Optio
             }
         }
         None => {
-            // b is fm per Q16 px: scale to fm/px.
-            let disp = (b_q30.unsigned_abs() as i128 * 65_536) >> 30;
+            // b is fm per Q16 px: scale to fm/px (· 2^16 / 2^30 of a magnitude is a shift by 14).
+            let disp = (b_q30.unsigned_abs() >> 14) as i128;
             let (lo, hi) = cfg.blind_dispersion_fm_per_px;
             if disp < lo as i128 || disp > hi as i128 {
                 return None;
@@ -452,16 +518,19 @@ fn hypothesis(ui: i64, du: i64, wa: i64, wb: i64, cfg: &IdentifyConfig) -> Optio
         net: 0,
         concord: 0,
         cost: 0,
+        lines_of: [u8::MAX; SCORE_PEAKS],
     })
 }
 
-/// Scores a hypothesis; `None` when it cannot reach `floor` (the best net score so far: a
-/// hypothesis below it can never be taken, so its scoring stops as soon as that is certain).
+/// Scores a hypothesis; `None` when it cannot reach the floor (the best net score so far, 1 before
+/// any: a hypothesis below it can never be taken, so its scoring stops as soon as that is certain).
+/// When it matched the same lines to the same peaks as `best`, it has the same strength agreement,
+/// which is then copied rather than counted again.
 ///
 /// Net score = peaks landing on a line − lines at least as strong as the weakest matched one that fall
 /// on the sensor with no peak there: a wrong scale that matches three faint lines by chance must
 /// explain why the strong ones are missing.
-fn score(mut h: Hypothesis, search: &Search<'_>, floor: i32) -> Option<Hypothesis> {
+fn score(mut h: Hypothesis, search: &Search<'_>, best: Option<&Hypothesis>) -> Option<Hypothesis> {
     let Search {
         peaks,
         scored,
@@ -469,7 +538,9 @@ fn score(mut h: Hypothesis, search: &Search<'_>, floor: i32) -> Option<Hypothesi
         lines,
         cfg,
         ends: ends_u,
+        b_max_ends,
     } = *search;
+    let floor = best.map_or(1, |b| b.net);
     let mut votes = 0i32;
     let mut cost = 0i64;
     let mut weakest = u32::MAX;
@@ -511,13 +582,12 @@ fn score(mut h: Hypothesis, search: &Search<'_>, floor: i32) -> Option<Hypothesi
             if let Some(seen) = seen_lines.get_mut(idx) {
                 *seen = true;
             }
-            // 0 ≤ d ≤ tol: below 2^23 the quotient is the same in u32.
+            if let Some(slot) = h.lines_of.get_mut(m) {
+                *slot = idx as u8;
+            }
+            // 0 ≤ d ≤ tol: below 2^23 the quotient is the same in u32, at most 256.
             cost += if tol < 1 << 23 {
-                i64::from(
-                    ((d as u32) << 8)
-                        .checked_div(tol.max(1) as u32)
-                        .unwrap_or(0),
-                )
+                i64::from(ratio_q8(d as u32, tol.max(1) as u32))
             } else {
                 d * 256 / tol.max(1)
             };
@@ -529,7 +599,13 @@ fn score(mut h: Hypothesis, search: &Search<'_>, floor: i32) -> Option<Hypothesi
     if votes < floor {
         return None;
     }
-    let lam_end = |uv: i64| h.a_fm + (((h.b_q30 as i128) * uv as i128) >> 30) as i64;
+    let lam_end = |uv: i64| {
+        if h.b_q30.unsigned_abs() <= b_max_ends {
+            h.a_fm + ((h.b_q30 * uv) >> 30)
+        } else {
+            h.a_fm + (((h.b_q30 as i128) * uv as i128) >> 30) as i64
+        }
+    };
     let (e0, e1) = (lam_end(ends_u.0), lam_end(ends_u.1));
     let (lo, hi) = (e0.min(e1), e0.max(e1));
     let mut misses = 0i32;
@@ -553,16 +629,36 @@ fn score(mut h: Hypothesis, search: &Search<'_>, floor: i32) -> Option<Hypothesi
     h.cost = cost;
     // Brighter peaks should sit on lines expected to be stronger (a tie-breaker: detector response
     // and self-absorption bend this, but rarely reverse a whole series).
-    let mut concord = 0i32;
-    // sign(x − y) of two u32 as −1, 0, 1 (the same as through i64).
-    let sign = |x: u32, y: u32| i32::from(x > y) - i32::from(x < y);
-    for (i, a) in matched.iter().enumerate() {
-        for b in matched.iter().skip(i + 1) {
-            concord += sign(a.0, b.0) * sign(a.1, b.1);
+    h.concord = match best {
+        Some(b) if b.lines_of == h.lines_of => b.concord,
+        _ => {
+            let mut concord = 0i32;
+            // sign(x − y) of two u32 as −1, 0, 1 (the same as through i64).
+            let sign = |x: u32, y: u32| i32::from(x > y) - i32::from(x < y);
+            for (i, a) in matched.iter().enumerate() {
+                for b in matched.iter().skip(i + 1) {
+                    concord += sign(a.0, b.0) * sign(a.1, b.1);
+                }
+            }
+            concord
+        }
+    };
+    Some(h)
+}
+
+/// ⌊256 · d / t⌋ for 0 ≤ d ≤ t and 1 ≤ t < 2^23 (so the quotient is at most 256 and t · 2^8 fits):
+/// nine steps of restoring division, the same quotient as the library's general one.
+fn ratio_q8(d: u32, t: u32) -> u32 {
+    let mut rem = d << 8;
+    let mut q = 0;
+    for bit in (0..=8u32).rev() {
+        let s = t << bit;
+        if rem >= s {
+            rem -= s;
+            q |= 1 << bit;
         }
     }
-    h.concord = concord;
-    Some(h)
+    q
 }
 
 /// Where the nearest-line search starts for the next peak.
@@ -638,8 +734,9 @@ fn refine(
     let mut fit = fit_pairs(&pairs, peaks, lines, cfg)?;
     for round in 0..4 {
         let mut next: Vec<(u8, u8), 48> = Vec::new();
+        let hw = HalfWidth::forward(&fit.map);
         for (k, p) in peaks.iter().enumerate() {
-            let (lam, slope) = fit.map.wavelength_and_slope(p.center_px_q16)?;
+            let (lam, slope) = fit.map.wavelength_and_slope_by(p.center_px_q16, &hw)?;
             let disp = slope.abs() >> 16;
             let sigma_win = (p.center_sigma_px_q16 as i64 * cfg.final_window_sigma_q8 as i64) >> 16;
             // Windows shrink from the search width towards the final one over the rounds.
@@ -816,5 +913,23 @@ mod tests {
             .collect();
         let cfg = IdentifyConfig::new(2048, 2, None);
         assert!(identify(&peaks, &lines, &cfg).is_err());
+    }
+
+    #[test]
+    fn ratio_q8_is_the_plain_quotient() {
+        let mut seed = 0x0bad_5eed_1234_5678u64;
+        for _ in 0..100_000 {
+            seed ^= seed << 13;
+            seed ^= seed >> 7;
+            seed ^= seed << 17;
+            let t = ((1 + (seed % ((1 << 23) - 1)) as u32) >> (seed >> 59)).max(1);
+            let d = ((seed >> 24) % (t as u64 + 1)) as u32;
+            assert_eq!(ratio_q8(d, t), (d << 8) / t, "{d} {t}");
+        }
+        assert_eq!(ratio_q8(0, 1), 0);
+        assert_eq!(ratio_q8(1, 1), 256);
+        let top = (1 << 23) - 1;
+        assert_eq!(ratio_q8(top, top), 256);
+        assert_eq!(ratio_q8(top - 1, top), ((top - 1) << 8) / top);
     }
 }

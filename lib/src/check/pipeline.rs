@@ -5,17 +5,19 @@ use super::stage::Stage;
 use super::workspace::Workspace;
 use crate::bounded::collect_bounded;
 use crate::calibrate::{
-    identify, IdentifyConfig, ReferenceLine, WavelengthMap, MAX_REFERENCE_LINES,
+    identify, CalibrateError, HalfWidth, IdentifyConfig, ReferenceLine, WavelengthMap,
+    MAX_REFERENCE_LINES,
 };
 use crate::condition::{condition_frame, FrameSum, GainTable};
 use crate::find::{find_peaks, Peak, PeakList};
 use crate::judge::{MatchedLine, Mode, Reason, Report, SpeciesShare, UnexplainedPeak};
 use crate::matching::assign::{assign, Pair};
 use crate::matching::catalogue::{build, CatalogueLine, MAX_NUCLEI};
-use crate::matching::feature::{group, prior_share, settle, Feature, MAX_FEATURES};
+use crate::matching::feature::{group_placing, prior_share, settle_placed, Feature, MAX_FEATURES};
 use crate::matching::isotope::{
     share_by_position, share_by_profile, BlendReading, PairWindow, ShareEstimate,
 };
+use crate::matching::line_pixels::LinePixels;
 use crate::matching::markers::nearest_marker;
 use crate::matching::{MAX_CATALOGUE, MAX_SHARE_SIGMA_PPM};
 use crate::predict::Nucleus;
@@ -30,6 +32,8 @@ pub struct Checker {
     priors: Vec<(Nucleus, u16), MAX_NUCLEI>,
     catalogue: Vec<CatalogueLine, MAX_CATALOGUE>,
     pair: Option<(Nucleus, Nucleus)>,
+    /// What identification matches peaks against (from the catalogue and priors, so once here).
+    refs: Vec<ReferenceLine, MAX_REFERENCE_LINES>,
 }
 
 /// The map a check measures with, and its uncertainty.
@@ -37,9 +41,27 @@ struct MapInUse {
     map: WavelengthMap,
     fit: Option<crate::calibrate::MapFit>,
     stored_sigma_fm: u32,
+    /// The catalogue lines' pixels on `map`, recorded by grouping.
+    lines: LinePixels,
+    /// `map`'s half-width reciprocal, for the many evaluations of one check.
+    div: HalfWidth,
 }
 
 impl MapInUse {
+    fn new(
+        map: WavelengthMap,
+        fit: Option<crate::calibrate::MapFit>,
+        stored_sigma_fm: u32,
+    ) -> MapInUse {
+        MapInUse {
+            div: HalfWidth::forward(&map),
+            map,
+            fit,
+            stored_sigma_fm,
+            lines: LinePixels::new(),
+        }
+    }
+
     /// |dλ/dp| at a pixel (fm/px, Q16); 0 where the map cannot say.
     fn slope_abs(&self, p_q16: i32) -> u64 {
         self.map
@@ -53,6 +75,33 @@ impl MapInUse {
             Some(f) => f.sigma_fm_at(p_q16),
             None => self.stored_sigma_fm as u64,
         }
+    }
+
+    /// (λ, |dλ/dp|, map σ) at one pixel, as [`WavelengthMap::wavelength_fm`], [`slope_abs`] and
+    /// [`sigma_fm`] give them, from one normalised x (one division instead of three).
+    ///
+    /// [`slope_abs`]: Self::slope_abs
+    /// [`sigma_fm`]: Self::sigma_fm
+    fn at(&self, p_q16: i32) -> (Result<i64, CalibrateError>, u64, u64) {
+        let x = self.map.x_q30_by(p_q16, &self.div);
+        let slope = self
+            .map
+            .slope_at_x_by(x, &self.div)
+            .unwrap_or(0)
+            .unsigned_abs();
+        let sigma = match &self.fit {
+            // The fit's own map (as `map_for` builds it), so its x is this one: the same pixel and
+            // frame (centre, half-width) give the same x.
+            Some(f)
+                if f.map.center_px_q16 == self.map.center_px_q16
+                    && f.map.half_width_px_q16 == self.map.half_width_px_q16 =>
+            {
+                f.sigma_fm_at_x(x)
+            }
+            Some(f) => f.sigma_fm_at(p_q16),
+            None => self.stored_sigma_fm as u64,
+        };
+        (self.map.wavelength_at_x(x), slope, sigma)
     }
 }
 
@@ -90,11 +139,13 @@ impl Checker {
         let (lo, hi) = sensor_range(&cfg)?;
         let nuclei: Vec<Nucleus, MAX_NUCLEI> = collect_bounded(priors.iter().map(|p| p.0));
         let catalogue = build(&nuclei, lo, hi, &cfg.air)?;
+        let refs = reference_lines(&catalogue, &priors);
         Ok(Checker {
             cfg,
             priors,
             catalogue,
             pair,
+            refs,
         })
     }
 
@@ -114,9 +165,9 @@ impl Checker {
     /// Work, for N pixels and the fixed capacities (64 peaks, 48 predicted lines, 40 features):
     /// conditioning and peak finding O(N) (see [`condition_frame`] and [`find_peaks`], whose fits share
     /// a budget of [`STEP_BUDGET`](crate::find::STEP_BUDGET) Gauss–Newton steps); the bounded search of
-    /// [`identify()`] (≤ 25 080 hypotheses, each scored on ≤ 16 peaks) at most once: in calibrate
-    /// modes for the map, in verify mode to test for a shifted scale when fewer lines matched than
-    /// peaks were found; matching ≤ 40 features × 64 peaks and ≤ 64 × 40 × 4 member tests, with ≤ 338
+    /// [`identify()`] (≤ 5 700 hypotheses, each scored on ≤ 16 peaks) at most once: in calibrate
+    /// modes for the map, in verify mode to test for a shifted scale when at least two more peaks
+    /// were found than lines matched (or fewer lines matched than the profile needs); matching ≤ 40 features × 64 peaks and ≤ 64 × 40 × 4 member tests, with ≤ 338
     /// map inversions (≤ 12 Newton steps each); one isotope pair fit of ≤ 615 pair and ≤ 379
     /// single-line steps × ≤ 64 px ([`share_by_profile`]); leftovers ≤ 64 peaks × (40 pairs + 27
     /// markers); judging ≤ 40 lines and ≤ 3 species × 40 pairs × 4 members.
@@ -185,15 +236,11 @@ impl Checker {
             report.decide();
             return Ok(());
         }
-        let in_use = match self.map_for(peaks, report) {
+        let mut in_use = match self.map_for(peaks, report) {
             Some(m) => m,
             None => {
                 // Calibration failed: list every peak on the stored map so the user sees what was there.
-                let m = MapInUse {
-                    map: cfg.stored.map,
-                    fit: None,
-                    stored_sigma_fm: cfg.stored.sigma_fm,
-                };
+                let m = MapInUse::new(cfg.stored.map, None, cfg.stored.sigma_fm);
                 self.unexplained(peaks, &[], &m, report);
                 report.decide();
                 return Ok(());
@@ -204,13 +251,22 @@ impl Checker {
         // Closer than 1.5 line widths, two lines may show as one peak (peak finding's own blend limit);
         // a pair that does show as two is split again after matching.
         let merge_q16 = ((cfg.line_fwhm_px_q8 as i32) << 8) * 3 / 2;
-        let mut features = group(&self.catalogue, &in_use.map, &self.priors, merge_q16)?;
+        // Every line's pixel is found once, while grouping, for all the steps below.
+        let mut features = group_placing(
+            &self.catalogue,
+            &in_use.map,
+            &self.priors,
+            merge_q16,
+            &mut in_use.lines,
+        )?;
+        let in_use = in_use;
         let pairs = assign(&features, peaks, |f| self.window_px_q16(f, &in_use));
         let pairs = self.split_resolved(&features, pairs, peaks, &in_use);
         let estimate = self.isotope(&features, &pairs, peaks, &in_use, frame, base);
         let shares = self.shares(estimate);
+        let hw = HalfWidth::reciprocal(&in_use.map);
         for f in features.iter_mut() {
-            settle(f, &self.catalogue, &in_use.map, &shares)?;
+            settle_placed(f, &self.catalogue, &in_use.map, &hw, &shares, &in_use.lines)?;
         }
         self.fill_lines(
             &features,
@@ -237,28 +293,20 @@ impl Checker {
         let cfg = &self.cfg;
         let stored_sigma_fm = cfg.stored.sigma_fm;
         if cfg.mode == Mode::Verify {
-            return Some(MapInUse {
-                map: cfg.stored.map,
-                fit: None,
-                stored_sigma_fm,
-            });
+            return Some(MapInUse::new(cfg.stored.map, None, stored_sigma_fm));
         }
-        let refs = self.reference_lines();
+        let refs = &self.refs;
         let nominal = if cfg.mode == Mode::Calibrate {
             Some(cfg.stored.map)
         } else {
             None
         };
         let icfg = IdentifyConfig::new(cfg.pixels, cfg.degree, nominal);
-        match identify(peaks, &refs, &icfg) {
+        match identify(peaks, refs, &icfg) {
             Ok(id) => {
                 report.fit_rms_fm = Some(id.fit.rms_residual_fm);
                 report.drift_fm = drift_fm(&id.fit.map, &cfg.stored.map, cfg.pixels);
-                Some(MapInUse {
-                    map: id.fit.map,
-                    fit: Some(id.fit),
-                    stored_sigma_fm,
-                })
+                Some(MapInUse::new(id.fit.map, Some(id.fit), stored_sigma_fm))
             }
             Err(e) => {
                 report.note(Reason::Calibration(e));
@@ -267,68 +315,36 @@ impl Checker {
         }
     }
 
-    /// Predicted lines for identification: isotopes of one transition merged at the prior shares
-    /// (a calibration cannot tell them apart anyway), species with no prior left out.
-    fn reference_lines(&self) -> Vec<ReferenceLine, MAX_REFERENCE_LINES> {
-        let mut out: Vec<(ReferenceLine, u8, u8, u8), MAX_REFERENCE_LINES> = Vec::new();
-        let mut weights: Vec<u64, MAX_REFERENCE_LINES> = Vec::new();
-        for line in self.catalogue.iter() {
-            let share = prior_share(&self.priors, line.nucleus) as u64;
-            if share == 0 {
-                continue;
-            }
-            let w = line.strength as u64 * share;
-            let key = (line.nucleus.z(), line.lower, line.upper);
-            if let Some(pos) = out.iter().position(|(_, z, m, n)| (*z, *m, *n) == key) {
-                if let (Some(e), Some(tw)) = (out.get_mut(pos), weights.get_mut(pos)) {
-                    let total = *tw + w;
-                    let mixed = (e.0.wavelength_fm as i128 * *tw as i128
-                        + line.wavelength_fm as i128 * w as i128)
-                        / total.max(1) as i128;
-                    e.0.wavelength_fm = mixed as i64;
-                    e.0.strength = e.0.strength.saturating_add((w / 1000) as u32);
-                    *tw = total;
-                }
-                continue;
-            }
-            let r = ReferenceLine {
-                wavelength_fm: line.wavelength_fm,
-                strength: (w / 1000) as u32,
-            };
-            if out.push((r, key.0, key.1, key.2)).is_ok() {
-                let _ = weights.push(w);
-            }
-        }
-        let mut refs: Vec<ReferenceLine, MAX_REFERENCE_LINES> =
-            collect_bounded(out.iter().map(|e| e.0));
-        crate::sort::sort_by_key(&mut refs, |r| r.wavelength_fm);
-        refs
-    }
-
     /// Match window of one line: twice the allowed position error plus 3 σ of the map, ≥ 1 px (Q16).
     fn base_window_px_q16(&self, f: &Feature, m: &MapInUse) -> i32 {
-        self.base_window_with_slope(f, m, feature_slope(f, m))
+        self.base_window_with_slope(f, m).0
     }
 
-    /// [`base_window_px_q16`](Self::base_window_px_q16) with the feature's |slope| (≥ 1) known.
-    fn base_window_with_slope(&self, f: &Feature, m: &MapInUse, slope: i64) -> i32 {
-        let p = f.predicted_px_q16;
-        let tol_fm = 2 * self.cfg.profile.max_line_error_fm as i64 + 3 * m.sigma_fm(p) as i64;
-        (shl32_div(tol_fm, slope)).clamp(1 << 16, 64 << 16) as i32
+    /// [`base_window_px_q16`](Self::base_window_px_q16) and |dλ/dp| at the feature's predicted pixel
+    /// (fm/px Q16, at least 1; 1 when the map cannot say), from one evaluation of the map there.
+    fn base_window_with_slope(&self, f: &Feature, m: &MapInUse) -> (i32, i64) {
+        let (_, slope, sigma) = m.at(f.predicted_px_q16);
+        let slope = slope.max(1) as i64;
+        let tol_fm = 2 * self.cfg.profile.max_line_error_fm as i64 + 3 * sigma as i64;
+        (
+            (shl32_div(tol_fm, slope)).clamp(1 << 16, 64 << 16) as i32,
+            slope,
+        )
     }
 
     /// Match window of a feature: the line window plus the reach of a blend's members (its centre
     /// moves with the unknown mix).
     fn window_px_q16(&self, f: &Feature, m: &MapInUse) -> i32 {
-        let slope = feature_slope(f, m);
-        let reach = f
+        let (base, slope) = self.base_window_with_slope(f, m);
+        // The quotient grows with the distance: the farthest member's is the largest.
+        let far = f
             .members
             .iter()
             .filter_map(|&i| self.catalogue.get(i as usize))
-            .map(|c| shl32_div((c.wavelength_fm - f.predicted_fm).abs(), slope))
-            .max()
-            .unwrap_or(0);
-        (self.base_window_with_slope(f, m, slope) as i128 + reach).clamp(1 << 16, 64 << 16) as i32
+            .map(|c| (c.wavelength_fm - f.predicted_fm).abs())
+            .max();
+        let reach = far.map_or(0, |v| shl32_div(v, slope));
+        (base as i128 + reach).clamp(1 << 16, 64 << 16) as i32
     }
 
     /// Instrument line σ (px, Q16): median FWHM of matched, unsaturated, unblended peaks, else the
@@ -372,13 +388,20 @@ impl Checker {
         let _ = self.line_sigma_q16(features, pairs, peaks);
         let fwhm_q16 = (sigma as i64 * FWHM_PER_SIGMA_Q16) >> 16;
         // The strongest transition with both isotopes predicted and some peak matched to either.
-        let mut best: Option<(u64, &CatalogueLine, &CatalogueLine)> = None;
+        // (strength, line a, line b, their catalogue indices)
+        let mut best: Option<(u64, &CatalogueLine, &CatalogueLine, u8, u8)> = None;
         let mut readings: Vec<BlendReading, 24> = Vec::new();
-        for la in self.catalogue.iter().filter(|l| l.nucleus == a) {
-            let Some(lb) = self
+        for (ia, la) in self
+            .catalogue
+            .iter()
+            .enumerate()
+            .filter(|(_, l)| l.nucleus == a)
+        {
+            let Some((ib, lb)) = self
                 .catalogue
                 .iter()
-                .find(|l| l.nucleus == b && l.lower == la.lower && l.upper == la.upper)
+                .enumerate()
+                .find(|(_, l)| l.nucleus == b && l.lower == la.lower && l.upper == la.upper)
             else {
                 continue;
             };
@@ -393,8 +416,8 @@ impl Checker {
             });
             let Some(pair) = matched else { continue };
             let strength = la.strength as u64;
-            if best.is_none_or(|(s, _, _)| strength > s) {
-                best = Some((strength, la, lb));
+            if best.is_none_or(|(s, ..)| strength > s) {
+                best = Some((strength, la, lb, ia as u8, ib as u8));
             }
             // Unresolved blends carry the share in their position (verify mode only).
             let feature = features.get(pair.feature as usize)?;
@@ -425,9 +448,9 @@ impl Checker {
                 }
             }
         }
-        let (_, la, lb) = best?;
-        let pa = m.map.pixel_q16(la.wavelength_fm).ok()?;
-        let pb = m.map.pixel_q16(lb.wavelength_fm).ok()?;
+        let (_, la, lb, ia, ib) = best?;
+        let pa = m.lines.get(ia, la, &m.map)?;
+        let pb = m.lines.get(ib, lb, &m.map)?;
         let sep = (pb as i64 - pa as i64).abs();
         // On a map fitted to the tube itself only a pair that peak finding sees as two lines can tell
         // a mix: one peak there is one line of either isotope.
@@ -489,18 +512,17 @@ impl Checker {
         m: &MapInUse,
     ) -> Vec<Pair, 40> {
         let matched: Vec<Pair, 40> = pairs.clone();
-        // Member pixels and windows are the same for every leftover peak: inverted once each.
-        let mut px = LinePixels::new();
         for (k, pk) in peaks.iter().enumerate() {
             if matched.iter().any(|p| p.peak as usize == k) {
                 continue;
             }
             let hit = matched.iter().find(|p| {
                 features.get(p.feature as usize).is_some_and(|f| {
+                    // The window is at most 64 px: beyond that it need not be worked out.
                     f.members.len() > 1
-                        && self
-                            .nearest_member_in(f, pk, m, &mut px)
-                            .is_some_and(|(_, d)| d <= self.base_window_px_q16(f, m))
+                        && self.nearest_member(f, pk, m).is_some_and(|(_, d)| {
+                            d <= 64 << 16 && d <= self.base_window_px_q16(f, m)
+                        })
                 })
             });
             if let Some(p) = hit {
@@ -521,23 +543,12 @@ impl Checker {
         pk: &Peak,
         m: &MapInUse,
     ) -> Option<(&'c CatalogueLine, i32)> {
-        self.nearest_member_in(f, pk, m, &mut LinePixels::new())
-    }
-
-    /// [`nearest_member`](Self::nearest_member) with the member pixels kept in `px`.
-    fn nearest_member_in<'c>(
-        &'c self,
-        f: &Feature,
-        pk: &Peak,
-        m: &MapInUse,
-        px: &mut LinePixels,
-    ) -> Option<(&'c CatalogueLine, i32)> {
         let mut best: Option<(&CatalogueLine, i32)> = None;
         for &i in f.members.iter() {
             let Some(c) = self.catalogue.get(i as usize) else {
                 continue;
             };
-            let Some(px) = px.get(i, c, &m.map) else {
+            let Some(px) = m.lines.get(i, c, &m.map) else {
                 continue;
             };
             let d = px.saturating_sub(pk.center_px_q16).saturating_abs();
@@ -575,12 +586,13 @@ impl Checker {
                     None => continue,
                 }
             };
-            let Ok(measured) = m.map.wavelength_fm(pk.center_px_q16) else {
+            let (measured, slope, s) = m.at(pk.center_px_q16);
+            let Ok(measured) = measured else {
                 continue;
             };
-            let slope = m.slope_abs(pk.center_px_q16) as u128;
+            let slope = slope as u128;
             let c = (pk.center_sigma_px_q16 as u128 * slope) >> 32;
-            let s = m.sigma_fm(pk.center_px_q16) as u128;
+            let s = s as u128;
             // A line within 2.5 line widths of another feature (series-limit crowding) or sharing its
             // peak with another transition is identified, but its centre is pulled by the neighbour:
             // its position is not judged.
@@ -708,14 +720,18 @@ impl Checker {
         if matched >= peaks.len() || peaks.len() < 3 {
             return false;
         }
-        let refs = self.reference_lines();
+        // Identification pairs each peak at most once, so it cannot return more pairs than there are
+        // peaks: when even that many could not pass the test below, the search is skipped (exact).
+        let rescue = matched < cfg.profile.min_lines as usize;
+        if peaks.len() < matched + 2 && !rescue {
+            return false;
+        }
+        let refs = &self.refs;
         let icfg = IdentifyConfig::new(cfg.pixels, cfg.degree, Some(cfg.stored.map));
-        let Ok(id) = identify(peaks, &refs, &icfg) else {
+        let Ok(id) = identify(peaks, refs, &icfg) else {
             return false;
         };
-        if id.pairs.len() < matched + 2
-            && !(matched < cfg.profile.min_lines as usize && id.pairs.len() >= 3)
-        {
+        if id.pairs.len() < matched + 2 && !(rescue && id.pairs.len() >= 3) {
             return false;
         }
         let Some(drift) = drift_fm(&id.fit.map, &cfg.stored.map, cfg.pixels) else {
@@ -893,43 +909,45 @@ impl Checker {
     }
 }
 
-/// Pixels of catalogue lines on the map in use, each inverted (a Newton iteration) on first use.
-struct LinePixels {
-    px: [i32; MAX_CATALOGUE],
-    /// Bit i: line i looked up; `placed` bit i: it has a pixel.
-    known: u64,
-    placed: u64,
-}
-
-impl LinePixels {
-    fn new() -> LinePixels {
-        LinePixels {
-            px: [0; MAX_CATALOGUE],
-            known: 0,
-            placed: 0,
+/// Predicted lines for identification: isotopes of one transition merged at the prior shares
+/// (a calibration cannot tell them apart anyway), species with no prior left out.
+fn reference_lines(
+    catalogue: &[CatalogueLine],
+    priors: &[(Nucleus, u16)],
+) -> Vec<ReferenceLine, MAX_REFERENCE_LINES> {
+    let mut out: Vec<(ReferenceLine, u8, u8, u8), MAX_REFERENCE_LINES> = Vec::new();
+    let mut weights: Vec<u64, MAX_REFERENCE_LINES> = Vec::new();
+    for line in catalogue.iter() {
+        let share = prior_share(priors, line.nucleus) as u64;
+        if share == 0 {
+            continue;
         }
-    }
-
-    /// Pixel of catalogue line `i` (= `line`), `None` where the map cannot place it.
-    fn get(&mut self, i: u8, line: &CatalogueLine, map: &WavelengthMap) -> Option<i32> {
-        let (Some(slot), true) = (self.px.get_mut(i as usize), i < 64) else {
-            return map.pixel_q16(line.wavelength_fm).ok();
-        };
-        let bit = 1u64 << i;
-        if self.known & bit == 0 {
-            self.known |= bit;
-            if let Ok(p) = map.pixel_q16(line.wavelength_fm) {
-                *slot = p;
-                self.placed |= bit;
+        let w = line.strength as u64 * share;
+        let key = (line.nucleus.z(), line.lower, line.upper);
+        if let Some(pos) = out.iter().position(|(_, z, m, n)| (*z, *m, *n) == key) {
+            if let (Some(e), Some(tw)) = (out.get_mut(pos), weights.get_mut(pos)) {
+                let total = *tw + w;
+                let mixed = (e.0.wavelength_fm as i128 * *tw as i128
+                    + line.wavelength_fm as i128 * w as i128)
+                    / total.max(1) as i128;
+                e.0.wavelength_fm = mixed as i64;
+                e.0.strength = e.0.strength.saturating_add((w / 1000) as u32);
+                *tw = total;
             }
+            continue;
         }
-        (self.placed & bit != 0).then_some(*slot)
+        let r = ReferenceLine {
+            wavelength_fm: line.wavelength_fm,
+            strength: (w / 1000) as u32,
+        };
+        if out.push((r, key.0, key.1, key.2)).is_ok() {
+            let _ = weights.push(w);
+        }
     }
-}
-
-/// |dλ/dp| at a feature's predicted pixel (fm/px, Q16), at least 1 (0 when the map cannot say).
-fn feature_slope(f: &Feature, m: &MapInUse) -> i64 {
-    m.slope_abs(f.predicted_px_q16).max(1) as i64
+    let mut refs: Vec<ReferenceLine, MAX_REFERENCE_LINES> =
+        collect_bounded(out.iter().map(|e| e.0));
+    crate::sort::sort_by_key(&mut refs, |r| r.wavelength_fm);
+    refs
 }
 
 /// (v · 2^32) / d truncated, for d ≥ 1: in `i64` when |v| < 2^31 (the same quotient), else 128-bit.

@@ -5,7 +5,8 @@
 //! isotope analysis read the mix off the blend.
 use super::catalogue::{CatalogueLine, MAX_CATALOGUE};
 use super::error::MatchError;
-use crate::calibrate::WavelengthMap;
+use super::line_pixels::LinePixels;
+use crate::calibrate::{HalfWidth, WavelengthMap};
 use crate::predict::Nucleus;
 use heapless::Vec;
 
@@ -52,11 +53,30 @@ pub fn group(
     priors: &[(Nucleus, u16)],
     merge_px_q16: i32,
 ) -> Result<Vec<Feature, MAX_FEATURES>, MatchError> {
+    group_placing(catalogue, map, priors, merge_px_q16, &mut LinePixels::new())
+}
+
+/// [`group`], recording each line's pixel on `map` in `lines` as it is found (where the map cannot
+/// place it, that too), so neither settling nor a caller that needs the lines' pixels later inverts
+/// the map for them again.
+///
+/// Work: as [`group`].
+pub(crate) fn group_placing(
+    catalogue: &[CatalogueLine],
+    map: &WavelengthMap,
+    priors: &[(Nucleus, u16)],
+    merge_px_q16: i32,
+    lines: &mut LinePixels,
+) -> Result<Vec<Feature, MAX_FEATURES>, MatchError> {
     let mut out: Vec<Feature, MAX_FEATURES> = Vec::new();
     let mut last_px: Option<i32> = None;
+    // One reciprocal of the map's half-width for all the inversions below.
+    let hw = HalfWidth::reciprocal(map);
     for (i, line) in catalogue.iter().enumerate().take(MAX_CATALOGUE) {
+        let at = map.pixel_q16_by(line.wavelength_fm, &hw).ok();
+        lines.put(i as u8, at);
         // A line the map cannot place (a fitted map extrapolated far off the sensor) is not on it.
-        let Ok(px) = map.pixel_q16(line.wavelength_fm) else {
+        let Some(px) = at else {
             continue;
         };
         let join = last_px.is_some_and(|l| (px as i64 - l as i64).abs() < merge_px_q16 as i64);
@@ -83,7 +103,7 @@ pub fn group(
         }
     }
     for f in out.iter_mut() {
-        settle(f, catalogue, map, priors)?;
+        settle_placed(f, catalogue, map, &hw, priors, lines)?;
     }
     Ok(out)
 }
@@ -98,31 +118,88 @@ pub fn settle(
     map: &WavelengthMap,
     shares: &[(Nucleus, u16)],
 ) -> Result<(), MatchError> {
+    settle_with(f, catalogue, shares);
+    f.predicted_px_q16 = map.pixel_q16(f.predicted_fm).unwrap_or(f.predicted_px_q16);
+    Ok(())
+}
+
+/// [`settle`] for a feature already placed on `map` (by [`group`] or an earlier settle on it), with
+/// `hw` the map's half-width reciprocal and the lines' pixels on `map` recorded in `lines`: the pixel follows the expected position, so when
+/// that did not move (every single-line feature, and a blend whose shares did not change) the map
+/// inversion is skipped, and when it moved onto one member's wavelength (the only member with a
+/// share) that member's recorded pixel is taken. The result is the same either way.
+///
+/// Work: as [`settle`], the inversion only when the position moved to a new wavelength.
+pub(crate) fn settle_placed(
+    f: &mut Feature,
+    catalogue: &[CatalogueLine],
+    map: &WavelengthMap,
+    hw: &HalfWidth,
+    shares: &[(Nucleus, u16)],
+    lines: &LinePixels,
+) -> Result<(), MatchError> {
+    let before = f.predicted_fm;
+    let sole = settle_with(f, catalogue, shares);
+    if f.predicted_fm != before {
+        // pixel_q16 is a function of the wavelength: the member's own pixel is the same integer.
+        f.predicted_px_q16 = match sole.and_then(|m| lines.recorded(m)) {
+            Some(px) => px,
+            None => map.pixel_q16_by(f.predicted_fm, hw).ok(),
+        }
+        .unwrap_or(f.predicted_px_q16);
+    }
+    Ok(())
+}
+
+/// The map-free part of [`settle`]: expected position, primary and rate. Returns the member whose
+/// wavelength the position is when it is the only one with a non-zero weight.
+fn settle_with(
+    f: &mut Feature,
+    catalogue: &[CatalogueLine],
+    shares: &[(Nucleus, u16)],
+) -> Option<u8> {
     let mut total: u128 = 0;
     let mut sum: i128 = 0;
     let mut best = (0u64, f.primary);
     let mut plain: i128 = 0;
+    // Members with a non-zero weight, and the wavelength and index of the last one.
+    let mut weighted = (0u8, 0i64, 0u8);
     for &m in f.members.iter() {
         let Some(line) = catalogue.get(m as usize) else {
             continue;
         };
         let w = line.strength as u64 * prior_share(shares, line.nucleus) as u64;
         total += w as u128;
-        sum += w as i128 * line.wavelength_fm as i128;
+        // Below 2^32 · 2^31 the product is the same in i64 (no 128-bit multiply).
+        sum += if w < 1 << 32 && line.wavelength_fm.unsigned_abs() < 1 << 31 {
+            (w as i64 * line.wavelength_fm) as i128
+        } else {
+            w as i128 * line.wavelength_fm as i128
+        };
         plain += line.wavelength_fm as i128;
+        if w > 0 {
+            weighted = (weighted.0 + 1, line.wavelength_fm, m);
+        }
         if w > best.0 || best.0 == 0 && m == f.primary {
             best = (w, m);
         }
     }
-    f.predicted_fm = if total > 0 {
-        sum.checked_div(total as i128).unwrap_or(0) as i64
+    f.predicted_fm = if weighted.0 == 1 {
+        // One weighted member (a single line, or a blend whose partner has no share): the mean
+        // w·λ / w is λ exactly, no 128-bit division needed.
+        weighted.1
+    } else if total > 0 {
+        match (i64::try_from(sum), i64::try_from(total)) {
+            // The same truncating quotient in 64 bits when both fit.
+            (Ok(s), Ok(t)) => s.checked_div(t).unwrap_or(0),
+            _ => sum.checked_div(total as i128).unwrap_or(0) as i64,
+        }
     } else {
         plain.checked_div(f.members.len() as i128).unwrap_or(0) as i64
     };
     f.primary = best.1;
     f.expected = total as u64;
-    f.predicted_px_q16 = map.pixel_q16(f.predicted_fm).unwrap_or(f.predicted_px_q16);
-    Ok(())
+    (weighted.0 == 1).then_some(weighted.2)
 }
 
 #[cfg(test)]

@@ -10,6 +10,7 @@ pub mod catalogue;
 mod error;
 pub mod feature;
 pub mod isotope;
+pub(crate) mod line_pixels;
 pub mod markers;
 
 pub use assign::{assign, Pair};
