@@ -10,11 +10,11 @@ use super::config::FindConfig;
 use super::noise::NoiseModel;
 use heapless::Vec;
 
-/// Prominence searches at full reach per frame, in units of `2 × reach` steps: a frame of 64 lines
-/// searches each at full reach; beyond that (a comb of noise or spikes with a maximum every other
+/// Prominence searches at full reach per frame, in units of `2 × reach` steps: a frame of 32 lines
+/// above threshold searches each at full reach; beyond that (a comb of noise or spikes with a maximum every other
 /// pixel) the walks shrink to [`SHORT_REACH`], which kept such a frame's detection from costing ~100
 /// steps per pixel.
-pub const VALLEY_BUDGET_PER_REACH: usize = 128;
+pub const VALLEY_BUDGET_PER_REACH: usize = 64;
 /// Prominence search reach (px each way) once the budget is spent: a line's wings at the widest FWHM.
 pub const SHORT_REACH: usize = 8;
 /// Candidates kept before thinning and fitting.
@@ -107,12 +107,27 @@ fn smooth_narrow(frame: &[i32], base: &[i32], out: &mut [i32]) {
 }
 
 /// Whether `v` (smoothed, ×9) exceeds `k_q8` noise σ of the smoothed residual at baseline `level`.
+///
+/// `v > k·sqrt(19)·σ ⟺ v²·2^24 > k_q8²·19·var_q8 ⟺ v² > ⌊k_q8²·19·var_q8 / 2^24⌋` (the floor loses
+/// nothing: v² is an integer), so the usual case is two 32 × 32 → 64-bit products; wider values take
+/// the general 128-bit test (the same answer).
 fn above(v: i64, k_q8: u16, noise: &NoiseModel, level: i64) -> bool {
-    // v > k · sqrt(19) · σ  ⟺  v² · 2^24 > k_q8² · 19 · var_q8
-    v > 0 && {
-        let lhs = i128::from(v) * i128::from(v) * (1 << 24);
-        let k = i128::from(k_q8);
-        lhs > k * k * KERNEL_SQ_SUM * i128::from(noise.var_q8(level))
+    if v <= 0 {
+        return false;
+    }
+    let var = noise.var_q8(level);
+    let c = u32::from(k_q8) * u32::from(k_q8); // < 2^32
+    let c19 = u64::from(c) * KERNEL_SQ_SUM as u64; // < 2^37
+    match (u32::try_from(v), u32::try_from(var), u32::try_from(c19)) {
+        (Ok(v32), Ok(var32), Ok(c32)) => {
+            let rhs = super::math::mul_u32_wide(c32, var32) >> 24;
+            super::math::mul_u32_wide(v32, v32) > rhs
+        }
+        _ => {
+            let lhs = i128::from(v) * i128::from(v) * (1 << 24);
+            let k = i128::from(k_q8);
+            lhs > k * k * KERNEL_SQ_SUM * i128::from(var)
+        }
     }
 }
 
@@ -149,6 +164,9 @@ pub fn find_candidates(
     let v_min = least_above(cfg.threshold_sigma_q8, noise);
     let mut dropped = false;
     let mut valley_steps = 0usize;
+    // Strength of the weakest entry once the list is full: a candidate no stronger is dropped without
+    // scanning the list (a comb of equal maxima would scan it at every one).
+    let mut weakest: Option<i32> = None;
     let mut i = 0usize;
     while i < n {
         // Most of a frame is below every threshold: one compare per pixel there. (A plateau at or
@@ -179,13 +197,15 @@ pub fn find_candidates(
             let floor_r = valley(smooth, end, v, r, true);
             let prominence = v - floor_l.max(floor_r);
             if above(prominence, cfg.prominence_sigma_q8, noise, level) {
-                dropped |= push_strongest(
-                    out,
-                    Candidate {
-                        pos,
-                        strength: v.clamp(i64::from(i32::MIN), i64::from(i32::MAX)) as i32,
-                    },
-                );
+                let strength = v.clamp(i64::from(i32::MIN), i64::from(i32::MAX)) as i32;
+                if weakest.is_some_and(|w| strength <= w) {
+                    dropped = true;
+                } else {
+                    dropped |= push_strongest(out, Candidate { pos, strength });
+                    if out.is_full() {
+                        weakest = out.iter().map(|c| c.strength).min();
+                    }
+                }
             }
         }
         i = end + 1;
@@ -283,6 +303,26 @@ mod tests {
             zero_light_level: 0,
             shot_var_per_unit_q16: 0,
             shot_from_data: false,
+        }
+    }
+
+    /// The 64-bit threshold test answers as the 128-bit one.
+    #[test]
+    fn fast_threshold_equals_the_wide_one() {
+        for sd in [0i64, 1, 7, 100, 4000, 60_000] {
+            let nm = flat_noise(sd);
+            let var = nm.var_q8(0);
+            for k in [256u16, 5 << 8, 3 << 8, u16::MAX] {
+                let wide = |v: i64| {
+                    v > 0
+                        && i128::from(v) * i128::from(v) * (1 << 24)
+                            > i128::from(k) * i128::from(k) * KERNEL_SQ_SUM * i128::from(var)
+                };
+                let edge = least_above(k, &nm);
+                for v in [-3, 0, 1, 2, 100, edge - 1, edge, edge + 1, edge + 2, 1 << 31, 1 << 40] {
+                    assert_eq!(above(v, k, &nm, 0), wide(v), "sd {sd} k {k} v {v}");
+                }
+            }
         }
     }
 

@@ -69,11 +69,12 @@ use math::{isqrt_i64, FWHM_PER_SIGMA_Q16};
 
 /// Shortest frame peak finding accepts (pixels): the noise estimate needs a dozen second differences.
 pub const MIN_PIXELS: usize = 16;
-/// Gauss–Newton steps per frame at full allowance (16 lines × 6 steps): the strongest lines are fitted
+/// Gauss–Newton steps per frame at full allowance (16 lines × 4 steps): the strongest lines are fitted
 /// first; once the budget is spent every further first fit gets [`MIN_STEPS`] and no neighbour refit.
-/// A typical frame of a dozen lines takes 50–90 steps and never reaches it; a frame of 64 noise bumps
-/// would take ~400 (each fit runs to the step limit), which kept its work at 3 × a typical frame's.
-pub const STEP_BUDGET: usize = 96;
+/// A typical frame of a dozen lines takes ~40 steps (2–3 a line) and never reaches it; a frame of 64
+/// noise bumps would take ~300 (many fits run to the step limit), which kept its work at 3 × a
+/// typical frame's.
+pub const STEP_BUDGET: usize = 64;
 /// Gauss–Newton steps every line gets, budget or not (from the 3-pixel parabola and half-width start,
 /// one step lands within a small fraction of the noise-limited scatter).
 pub const MIN_STEPS: usize = 1;
