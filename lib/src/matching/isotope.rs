@@ -8,7 +8,7 @@
 //! - **Position**: when unresolved, the blend centre moves linearly with the share. This needs a map
 //!   that does not come from the tube itself and is precise well below the shift; its stated
 //!   uncertainty enters as a systematic term common to all lines.
-use crate::find::math::exp_neg_q16;
+use crate::find::math::Recip;
 use crate::fixed::{isqrt_u128, mul_div_i128};
 
 /// Largest share uncertainty (ppm) still reported as a determination: 15 percentage points.
@@ -250,15 +250,15 @@ fn fisher_at(
     with_shift: bool,
 ) -> Option<[[i128; 3]; 3]> {
     let mut f = [[0i128; 3]; 3];
-    let s2 = (sigma * sigma).max(1) as i128;
+    let shape = LineShape::new(sigma);
     for i in first..=last {
         let p = i << 16;
         let (ca, cb) = (w.a_px_q16 as i64 + shift, w.b_px_q16 as i64 + shift);
-        let ga = gauss_q15(p, ca, sigma) as i128;
-        let gb = gauss_q15(p, cb, sigma) as i128;
-        // ∂g/∂c = g (p − c) / σ² (per px): Q15 × Q16 / Q32 × 2^16 keeps Q15.
-        let da = (ga * (p - ca) as i128 * 65_536) / s2;
-        let db = (gb * (p - cb) as i128 * 65_536) / s2;
+        let (ga64, gb64) = (shape.g(p, ca), shape.g(p, cb));
+        let (ga, gb) = (i128::from(ga64), i128::from(gb64));
+        // ∂g/∂c = g (p − c) / σ² (per px): Q15 × Q16 / Q32 × 2^16 keeps Q15 (|g·(p − c)| < 2^38).
+        let da = i128::from(shape.per_s2(ga64 * (p - ca).clamp(-(1 << 22), 1 << 22)));
+        let db = i128::from(shape.per_s2(gb64 * (p - cb).clamp(-(1 << 22), 1 << 22)));
         let m = if with_shift { a * da + b * db } else { 0 };
         let col = [ga, gb, m];
         for (r, row) in f.iter_mut().enumerate() {
@@ -313,9 +313,10 @@ fn amplitude_covariance(f: &[[i128; 3]; 3], s2: i128) -> Option<(i128, i128, i12
 /// Residual sum of squares of the best single line of width `sigma` centred at `c_q16`.
 fn single_chi2(w: &PairWindow<'_>, first: i64, last: i64, c_q16: i64, sigma: i64) -> Option<i128> {
     let (mut sgg, mut srg, mut srr) = (0i128, 0i128, 0i128);
+    let shape = LineShape::new(sigma);
     for i in first..=last {
         let r = (*w.frame.get(i as usize)? as i128) - (*w.base.get(i as usize)? as i128);
-        let g = gauss_q15(i << 16, c_q16, sigma) as i128;
+        let g = shape.g(i << 16, c_q16) as i128;
         sgg += g * g;
         srg += r * g;
         srr += r * r;
@@ -340,16 +341,70 @@ struct Sums {
 /// A unit-height Gaussian as a pixel sees it: the mean over the pixel (Simpson's rule on its two
 /// edges and centre), Q15. Sampling the centre alone misdraws lines of 2–3 px FWHM enough for a pair
 /// fit to invent a few-per-cent companion.
+#[cfg(test)]
 fn gauss_q15(p_q16: i64, c_q16: i64, sigma_q16: i64) -> i64 {
-    let at = |q: i64| {
-        let d = (q - c_q16).clamp(-(1 << 22), 1 << 22);
-        let x = ((d * d) << 15) / (sigma_q16 * sigma_q16).max(1); // (d/σ)²/2 in Q16
-        exp_neg_q16(x) >> 15
-    };
-    (at(p_q16 - (1 << 15)) + 4 * at(p_q16) + at(p_q16 + (1 << 15))) / 6
+    LineShape::new(sigma_q16).g(p_q16, c_q16)
+}
+
+/// e^(−x) in Q15 for `x` ≥ 0 in Q16, through 2^(−y): the 65-step table of the fit's exponential
+/// ([`crate::find::fit::EXP2_Q15`]) with straight-line interpolation; within ~3·10⁻⁵ relative (the
+/// Q15 step of the result), like the exact exponential rounded to Q15 that it replaces, at a tenth of
+/// its instructions. Beyond x = 11 (e^-11 < 2^-15) it is 0.
+fn exp_neg_q16_q15(x_q16: i64) -> i64 {
+    if x_q16 >= 11 << 16 {
+        return 0;
+    }
+    let x = x_q16.max(0) as u32; // < 2^20
+    // y = x · log2(e) in Q16 (94 548 = log2(e) · 2^16): < 2^37, a 32 × 32 → 64-bit product.
+    let y = crate::find::math::mul_u32_wide(x, 94_548) >> 16;
+    let k = (y >> 16) as u32;
+    let f = (y & 0xffff) as usize;
+    let (i, rem) = (f >> 10, (f & 1023) as i64);
+    let t0 = i64::from(crate::find::fit::EXP2_Q15.get(i).copied().unwrap_or(0));
+    let t1 = i64::from(crate::find::fit::EXP2_Q15.get(i + 1).copied().unwrap_or(0));
+    let v = t0 - (((t0 - t1) * rem + 512) >> 10);
+    if k >= 16 {
+        0
+    } else {
+        (v + ((1 << k) >> 1)) >> k
+    }
+}
+
+/// The line shape of one width, with 1/σ² taken once: evaluating it costs three exponentials and
+/// three 32 × 32-bit product pairs per pixel instead of three 64-bit library divisions (~730
+/// instructions each on the Cortex-M0). The quotient is within 2^-28 of the division's.
+#[derive(Clone, Copy)]
+struct LineShape {
+    inv_s2: Recip,
+}
+
+impl LineShape {
+    fn new(sigma_q16: i64) -> Self {
+        let s2 = sigma_q16.saturating_mul(sigma_q16).clamp(1, (1 << 62) - 1);
+        Self {
+            inv_s2: Recip::new(s2).unwrap_or(Recip::ONE),
+        }
+    }
+
+    /// [`gauss_q15`]: the pixel-averaged unit Gaussian at pixel position `p_q16` for centre `c_q16`.
+    fn g(&self, p_q16: i64, c_q16: i64) -> i64 {
+        let at = |q: i64| {
+            let d = (q - c_q16).clamp(-(1 << 22), 1 << 22);
+            // (d/σ)²/2 in Q16: d² < 2^44, so d² · 2^15 < 2^62.
+            let x = self.inv_s2.scale(d * d, 15).unwrap_or(i64::MAX);
+            exp_neg_q16_q15(x)
+        };
+        (at(p_q16 - (1 << 15)) + 4 * at(p_q16) + at(p_q16 + (1 << 15))) / 6
+    }
+
+    /// `v · 2^16 / σ²` (the Gaussian's slope factor), for |v| < 2^46.
+    fn per_s2(&self, v: i64) -> i64 {
+        self.inv_s2.scale(v, 16).unwrap_or(0)
+    }
 }
 
 fn sums_at(w: &PairWindow<'_>, first: i64, last: i64, shift: i64, sigma: i64) -> Option<Sums> {
+    let shape = LineShape::new(sigma);
     let mut s = Sums {
         saa: 0,
         sab: 0,
@@ -359,16 +414,21 @@ fn sums_at(w: &PairWindow<'_>, first: i64, last: i64, shift: i64, sigma: i64) ->
         srr: 0,
     };
     for i in first..=last {
-        let r = (*w.frame.get(i as usize)? as i128) - (*w.base.get(i as usize)? as i128);
+        let r = i64::from(*w.frame.get(i as usize)?) - i64::from(*w.base.get(i as usize)?);
         let p = i << 16;
-        let ga = gauss_q15(p, w.a_px_q16 as i64 + shift, sigma) as i128;
-        let gb = gauss_q15(p, w.b_px_q16 as i64 + shift, sigma) as i128;
-        s.saa += ga * ga;
-        s.sab += ga * gb;
-        s.sbb += gb * gb;
-        s.sra += r * ga;
-        s.srb += r * gb;
-        s.srr += r * r;
+        // g ≤ 2^15 and |r| < 2^33: every product fits i64 (r² as i128 only beyond 2^31).
+        let ga = shape.g(p, w.a_px_q16 as i64 + shift);
+        let gb = shape.g(p, w.b_px_q16 as i64 + shift);
+        s.saa += i128::from(ga * ga);
+        s.sab += i128::from(ga * gb);
+        s.sbb += i128::from(gb * gb);
+        s.sra += i128::from(r * ga);
+        s.srb += i128::from(r * gb);
+        s.srr += if r.unsigned_abs() < 1 << 31 {
+            i128::from(r * r)
+        } else {
+            i128::from(r) * i128::from(r)
+        };
     }
     Some(s)
 }
@@ -409,6 +469,18 @@ impl Sums {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    /// The table exponential stays within two Q15 steps of the exact one rounded to Q15.
+    #[test]
+    fn table_exponential_matches_the_exact_one() {
+        for x in (0..(12 << 16)).step_by(997) {
+            let exact = crate::find::math::exp_neg_q16(x) >> 15;
+            let got = exp_neg_q16_q15(x);
+            assert!((got - exact).abs() <= 2, "x {x}: {got} vs {exact}");
+        }
+        assert_eq!(exp_neg_q16_q15(0), 1 << 15);
+        assert_eq!(exp_neg_q16_q15(-7), 1 << 15);
+    }
 
     /// Two Gaussians of σ = 1.2 px, 2.4 px apart, heights 3000 (a) and 1000 (b), on a flat base.
     fn frame(a_h: i64, b_h: i64, sep_q16: i64, noise: i32) -> ([i32; 80], [i32; 80]) {
