@@ -370,31 +370,41 @@ fn exp_neg_q16_q15(x_q16: i64) -> i64 {
     }
 }
 
-/// The line shape of one width, with 1/σ² taken once: evaluating it costs three exponentials and
-/// three 32 × 32-bit product pairs per pixel instead of three 64-bit library divisions (~730
-/// instructions each on the Cortex-M0). The quotient is within 2^-28 of the division's.
+/// The line shape of one width, with 1/σ taken once: a pixel costs one split 32-bit product for
+/// u = (p − c)/σ (the half-pixel Simpson points are u ∓ ½/σ), three squares and three table
+/// exponentials — no division (a 64-bit one is ~730 instructions on the Cortex-M0). 1/σ² for the
+/// slope factor is a [`Recip`] taken once as well.
 #[derive(Clone, Copy)]
 struct LineShape {
+    /// 1/σ in Q14 (σ ≥ 2^12 Q16 px, so ≤ 2^18).
+    inv_s_q14: i64,
     inv_s2: Recip,
 }
 
 impl LineShape {
     fn new(sigma_q16: i64) -> Self {
-        let s2 = sigma_q16.saturating_mul(sigma_q16).clamp(1, (1 << 62) - 1);
+        let s = sigma_q16.clamp(1 << 12, 1 << 40);
+        let inv = Recip::new(s).and_then(|r| r.scale(1, 30)).unwrap_or(1);
+        let s2 = s.saturating_mul(s).clamp(1, (1 << 62) - 1);
         Self {
+            inv_s_q14: inv.clamp(1, 1 << 18),
             inv_s2: Recip::new(s2).unwrap_or(Recip::ONE),
         }
     }
 
     /// [`gauss_q15`]: the pixel-averaged unit Gaussian at pixel position `p_q16` for centre `c_q16`.
     fn g(&self, p_q16: i64, c_q16: i64) -> i64 {
-        let at = |q: i64| {
-            let d = (q - c_q16).clamp(-(1 << 22), 1 << 22);
-            // (d/σ)²/2 in Q16: d² < 2^44, so d² · 2^15 < 2^62.
-            let x = self.inv_s2.scale(d * d, 15).unwrap_or(i64::MAX);
-            exp_neg_q16_q15(x)
+        // u = d/σ in Q14, clamped to ±16 (far beyond e^-11, where the exponential is 0).
+        const LIMIT: i64 = 16 << 14;
+        let d = (p_q16 - c_q16).clamp(-(1 << 30), 1 << 30);
+        let u = ((d * self.inv_s_q14) >> 16).clamp(-LIMIT, LIMIT);
+        let half = self.inv_s_q14 >> 1; // ½ px in u
+        let at = |u: i64| {
+            // u²/2 in Q16: (u/2)² < 2^34 as i64, then >> 11.
+            let h = u.abs() >> 1;
+            exp_neg_q16_q15((h * h) >> 11)
         };
-        (at(p_q16 - (1 << 15)) + 4 * at(p_q16) + at(p_q16 + (1 << 15))) / 6
+        (at(u - half) + 4 * at(u) + at(u + half)) / 6
     }
 
     /// `v · 2^16 / σ²` (the Gaussian's slope factor), for |v| < 2^46.
