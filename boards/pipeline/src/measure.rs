@@ -42,7 +42,7 @@ use glowcheck::judge::profile::HYDROGEN;
 use glowcheck::judge::{Mode, Report};
 use glowcheck_float_baseline::{condition_find_centroid, FloatPeak, MAX_PEAKS};
 use glowcheck_pipeline_report::adversarial::{ADVERSARIES, MAX_ADVERSARY_PIXELS};
-use glowcheck_pipeline_report::traces::{H_TUBE, PIXELS};
+use glowcheck_pipeline_report::traces::{AIR_LEAK, D_LAMP, H_TUBE, PIXELS};
 use glowcheck_pipeline_report::{check, checker, config_for, mode_name, Case, CASES};
 
 /// SysTick wraps (every 2²⁴ ticks) since [`start_clock`].
@@ -514,6 +514,20 @@ fn adversaries(out: &mut hio::HostStream, report: &mut Report) -> Result<(), ()>
             line.with(report)
         )
         .map_err(|_| ())?;
+        // The other typical frames of a hydrogen check, the embedded cases of the digest: the tube
+        // with an air leak (foreign bands to explain) and a deuterium lamp put in front of it (the
+        // wrong isotope to recognise). The bound is 2 × the costliest of the three.
+        for (name, frame) in [("air-leak", &AIR_LEAK), ("d-lamp", &D_LAMP)] {
+            let sum = FrameSum::single(frame).map_err(|_| ())?;
+            let line = timed(|| typical.check(sum, None, None, buffers.workspace(PIXELS), report));
+            writeln!(
+                out,
+                "typical {name} {} pixels {PIXELS} {}",
+                mode_name(mode),
+                line.with(report)
+            )
+            .map_err(|_| ())?;
+        }
         for (k, a) in ADVERSARIES.iter().copied().enumerate() {
             let n = a.fill(frame);
             let extras = a.extras();
@@ -623,13 +637,19 @@ fn find_parts(
     let mut acc = 0u64;
     let t_div32 = timed(|| {
         for k in 1..=100u32 {
-            acc = acc.wrapping_add(u64::from(core::hint::black_box(0x9e37_79b9u32.wrapping_mul(k)) / core::hint::black_box(k * 40_503 + 7)));
+            acc = acc.wrapping_add(u64::from(
+                core::hint::black_box(0x9e37_79b9u32.wrapping_mul(k))
+                    / core::hint::black_box(k * 40_503 + 7),
+            ));
         }
         Ok::<(), ()>(())
     });
     let t_div64 = timed(|| {
         for k in 1..=100u64 {
-            acc = acc.wrapping_add(core::hint::black_box(0x9e37_79b9_7f4a_7c15u64.wrapping_mul(k) >> 4) / core::hint::black_box(k * 40_503_117 + 7));
+            acc = acc.wrapping_add(
+                core::hint::black_box(0x9e37_79b9_7f4a_7c15u64.wrapping_mul(k) >> 4)
+                    / core::hint::black_box(k * 40_503_117 + 7),
+            );
         }
         Ok::<(), ()>(())
     });

@@ -34,6 +34,10 @@ const HYP_LINES: usize = 20;
 /// 16 real ones do (measured on the Cortex-M0: a random-walk frame's blind search is 1.9 × the
 /// hydrogen tube's, down from 6 ×).
 const SCORE_PEAKS: usize = 16;
+/// More peaks than this make a frame crowded (see [`DENSE_SCORE`]).
+const DENSE_PEAKS: usize = 32;
+/// Peaks a crowded frame's hypotheses are scored on.
+const DENSE_SCORE: usize = 10;
 
 /// A predicted line offered to identification (air or vacuum, matching the map's medium).
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
@@ -148,7 +152,15 @@ pub fn identify(
     let strong_peaks: Vec<u8, 20> = strongest(peaks.iter().map(|p| p.snr_q8), HYP_PEAKS);
     let strong_lines: Vec<u8, 20> = strongest(lines.iter().map(|l| l.strength), HYP_LINES);
     // The peaks hypotheses are scored on, in frame order.
-    let mut scored: Vec<u8, SCORE_PEAKS> = strongest(peaks.iter().map(|p| p.snr_q8), SCORE_PEAKS);
+    // A crowded frame (more than DENSE_PEAKS peaks: a comb, a random walk, a forest of foreign
+    // lines) is scored on its DENSE_SCORE strongest: there every hypothesis matches something near
+    // most peaks, so few are pruned early, and scoring on 16 cost 2.5 × a typical frame's whole check.
+    let score_peaks = if peaks.len() > DENSE_PEAKS {
+        DENSE_SCORE
+    } else {
+        SCORE_PEAKS
+    };
+    let mut scored: Vec<u8, SCORE_PEAKS> = strongest(peaks.iter().map(|p| p.snr_q8), score_peaks);
     crate::sort::sort_by_key(&mut scored, |&k| k);
     let ends = match &cfg.nominal {
         Some(m) => (

@@ -200,7 +200,11 @@ fn ramp(out: &mut [i32], a: i32, d: i64, span: i64, t0: i64) {
     };
     let (q, r) = divmod(d);
     // The value and remainder at t0: a + ⌊d·t0/span⌋, (d·t0) mod span.
-    let (pq, pr) = if t0 == 1 { (q, r) } else { divmod(d.saturating_mul(t0)) };
+    let (pq, pr) = if t0 == 1 {
+        (q, r)
+    } else {
+        divmod(d.saturating_mul(t0))
+    };
     let (mut v, mut acc) = (i64::from(a) + pq, pr);
     for slot in out.iter_mut() {
         *slot = v.clamp(i64::from(i32::MIN), i64::from(i32::MAX)) as i32;
@@ -234,7 +238,8 @@ fn rounds(
         for (i, ((&y, &b), &f)) in frame.iter().zip(base.iter()).zip(flag).enumerate() {
             let r = i64::from(y) - i64::from(b);
             // The variance only where the residual is positive (half the values of a flat stretch).
-            let high = flags::is_untrusted(f) || (r > 0 && above_clip(r, noise.var_q8(i64::from(b))));
+            let high =
+                flags::is_untrusted(f) || (r > 0 && above_clip(r, noise.var_q8(i64::from(b))));
             if high {
                 continue;
             }

@@ -93,7 +93,11 @@ fn smooth_narrow(frame: &[i32], base: &[i32], out: &mut [i32]) {
     };
     // Window r[i−2 … i+2] for i = 0, edges replicated.
     let (mut a, mut b, mut c, mut d, mut e) = (r(0), r(0), r(0), r(1), r(2));
-    let ahead = frame.get(3..n).unwrap_or(&[]).iter().zip(base.get(3..n).unwrap_or(&[]));
+    let ahead = frame
+        .get(3..n)
+        .unwrap_or(&[])
+        .iter()
+        .zip(base.get(3..n).unwrap_or(&[]));
     let (body, tail) = out.split_at_mut(n - 3);
     for (o, (&y, &bb)) in body.iter_mut().zip(ahead) {
         *o = tap(a, b, c, d, e);
@@ -289,7 +293,9 @@ mod tests {
             smooth_narrow(&frame, &base, &mut narrow);
             let r = |j: usize| i64::from(frame[j.min(n - 1)]) - i64::from(base[j.min(n - 1)]);
             for (i, &got) in narrow.iter().enumerate() {
-                let want = r(i.saturating_sub(2)) + 2 * r(i.saturating_sub(1)) + 3 * r(i)
+                let want = r(i.saturating_sub(2))
+                    + 2 * r(i.saturating_sub(1))
+                    + 3 * r(i)
                     + 2 * r(i + 1)
                     + r(i + 2);
                 assert_eq!(i64::from(got), want, "n {n} i {i}");
@@ -319,7 +325,19 @@ mod tests {
                             > i128::from(k) * i128::from(k) * KERNEL_SQ_SUM * i128::from(var)
                 };
                 let edge = least_above(k, &nm);
-                for v in [-3, 0, 1, 2, 100, edge - 1, edge, edge + 1, edge + 2, 1 << 31, 1 << 40] {
+                for v in [
+                    -3,
+                    0,
+                    1,
+                    2,
+                    100,
+                    edge - 1,
+                    edge,
+                    edge + 1,
+                    edge + 2,
+                    1 << 31,
+                    1 << 40,
+                ] {
                     assert_eq!(above(v, k, &nm, 0), wide(v), "sd {sd} k {k} v {v}");
                 }
             }

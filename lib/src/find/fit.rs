@@ -74,11 +74,11 @@ const UNUSABLE: i32 = i32::MIN;
 
 /// 2^(−i/64) in Q15 for i = 0 … 64 (Python `decimal`, 50 digits, rounded to nearest).
 pub(crate) const EXP2_Q15: [u16; 65] = [
-    32768, 32415, 32066, 31720, 31379, 31041, 30706, 30376, 30048, 29725, 29405, 29088, 28774, 28464,
-    28158, 27855, 27554, 27258, 26964, 26674, 26386, 26102, 25821, 25543, 25268, 24995, 24726, 24460,
-    24196, 23936, 23678, 23423, 23170, 22921, 22674, 22430, 22188, 21949, 21713, 21479, 21247, 21019,
-    20792, 20568, 20347, 20127, 19911, 19696, 19484, 19274, 19066, 18861, 18658, 18457, 18258, 18061,
-    17867, 17674, 17484, 17296, 17109, 16925, 16743, 16562, 16384,
+    32768, 32415, 32066, 31720, 31379, 31041, 30706, 30376, 30048, 29725, 29405, 29088, 28774,
+    28464, 28158, 27855, 27554, 27258, 26964, 26674, 26386, 26102, 25821, 25543, 25268, 24995,
+    24726, 24460, 24196, 23936, 23678, 23423, 23170, 22921, 22674, 22430, 22188, 21949, 21713,
+    21479, 21247, 21019, 20792, 20568, 20347, 20127, 19911, 19696, 19484, 19274, 19066, 18861,
+    18658, 18457, 18258, 18061, 17867, 17674, 17484, 17296, 17109, 16925, 16743, 16562, 16384,
 ];
 /// log2(e) in Q14.
 const LOG2E_Q14: i32 = 23_637;
@@ -144,7 +144,12 @@ fn rsqrt_parts(v: u64) -> (i32, u32) {
         }
     };
     // top in [64, 256)
-    let m = i32::from(RSQRT_Q15.get(top.saturating_sub(64)).copied().unwrap_or(1 << 14));
+    let m = i32::from(
+        RSQRT_Q15
+            .get(top.saturating_sub(64))
+            .copied()
+            .unwrap_or(1 << 14),
+    );
     (m, lz / 2)
 }
 
@@ -592,7 +597,13 @@ fn normal(win: &Window, wt: &Weights, p: &Params, model: &Model, reduce: u32) ->
     let (mut n12, mut n13, mut n22, mut n23, mut n33) = (0i32, 0i32, 0i32, 0i32, 0i32);
     let mut bh = [0i64; 4];
     let mut bl = [0i32; 4];
-    for (k, (&r, &tau)) in win.resid.iter().zip(wt.tau.iter()).enumerate().take(win.len) {
+    for (k, (&r, &tau)) in win
+        .resid
+        .iter()
+        .zip(wt.tau.iter())
+        .enumerate()
+        .take(win.len)
+    {
         if r == UNUSABLE || tau == 0 {
             continue;
         }
@@ -688,7 +699,10 @@ fn solve(nm: &Normal, a_red: i32) -> Option<Solved> {
     for (i, bv) in b.iter_mut().enumerate() {
         *bv = shift_i64(nm.b.get(ORDER.get(i).copied()?).copied()?, *e.get(i)?);
     }
-    let top = b.iter().map(|v| 64 - v.unsigned_abs().leading_zeros()).max()? as i32;
+    let top = b
+        .iter()
+        .map(|v| 64 - v.unsigned_abs().leading_zeros())
+        .max()? as i32;
     let bs = top - 15;
     for v in b.iter_mut() {
         *v = shift_i64(*v, bs);
@@ -786,7 +800,10 @@ mod tests {
             // exp_neg_q16 is accurate to a few Q30 steps.
             let exact = exp_neg_q16(i64::from(x) << 4) >> 16;
             let got = i64::from(exp_neg_q14(x));
-            assert!((got - exact).abs() <= 2 + exact / 5_000, "x {x}: {got} vs {exact}");
+            assert!(
+                (got - exact).abs() <= 2 + exact / 5_000,
+                "x {x}: {got} vs {exact}"
+            );
         }
         assert_eq!(exp_neg_q14(0), 1 << 14);
         assert_eq!(exp_neg_q14(-5), 1 << 14);
@@ -794,7 +811,19 @@ mod tests {
 
     #[test]
     fn rsqrt_parts_are_within_half_a_percent() {
-        for v in [1u64, 2, 3, 63, 64, 65, 1000, 65_535, 1 << 20, 123_456_789, u64::MAX / 3] {
+        for v in [
+            1u64,
+            2,
+            3,
+            63,
+            64,
+            65,
+            1000,
+            65_535,
+            1 << 20,
+            123_456_789,
+            u64::MAX / 3,
+        ] {
             let (m, h) = rsqrt_parts(v);
             // 1/sqrt(v) = m · 2^h / 2^46.
             let lhs = (m as u128).pow(2) << (2 * h); // m² · 2^2h = 2^92 / v ideally

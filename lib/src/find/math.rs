@@ -264,16 +264,34 @@ impl Recip {
     }
 }
 
-
 #[cfg(test)]
 mod tests {
     use super::*;
 
     #[test]
     fn reciprocal_scaling_matches_division() {
-        for d in [1i64, 2, 3, 255, 1000, 65_537, (1 << 29) - 1, 1 << 29, (1 << 30) - 1] {
+        for d in [
+            1i64,
+            2,
+            3,
+            255,
+            1000,
+            65_537,
+            (1 << 29) - 1,
+            1 << 29,
+            (1 << 30) - 1,
+        ] {
             let r = Recip::new(d).unwrap();
-            for v in [0i64, 1, -1, 7, -12_345, 1 << 40, -(1 << 52) + 3, (1 << 61) + 99] {
+            for v in [
+                0i64,
+                1,
+                -1,
+                7,
+                -12_345,
+                1 << 40,
+                -(1 << 52) + 3,
+                (1 << 61) + 99,
+            ] {
                 for k in [-20i32, 0, 16, 30] {
                     let exact = (i128::from(v) << 60 >> (60 - k)) / i128::from(d);
                     if exact.unsigned_abs() >= 1 << 62 {
@@ -295,10 +313,12 @@ mod tests {
             let v = (1i64 << 61) - 17;
             let exact = (i128::from(v) << 20) / i128::from(d);
             let got = i128::from(r.scale(v, 20).unwrap());
-            assert!((got - exact).abs() <= exact.abs() / (1 << 27) + 1, "{d}: {got} vs {exact}");
+            assert!(
+                (got - exact).abs() <= exact.abs() / (1 << 27) + 1,
+                "{d}: {got} vs {exact}"
+            );
         }
     }
-
 
     #[test]
     fn exp_matches_reference_values() {

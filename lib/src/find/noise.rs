@@ -184,7 +184,8 @@ impl NoiseBlocks {
 /// Whether two models have the same no-light level and floors and shot slopes within 1/8 of each
 /// other.
 pub fn within_eighth(a: &NoiseModel, b: &NoiseModel) -> bool {
-    let near = |x: i64, y: i64| x.abs_diff(y).saturating_mul(8) <= x.unsigned_abs().max(y.unsigned_abs());
+    let near =
+        |x: i64, y: i64| x.abs_diff(y).saturating_mul(8) <= x.unsigned_abs().max(y.unsigned_abs());
     a.zero_light_level == b.zero_light_level
         && near(a.floor_var_q8, b.floor_var_q8)
         && near(
@@ -265,7 +266,13 @@ const NARROW: i32 = 1 << 23;
 /// [`block_stats`] for frames within ±[`NARROW`] (the same result): `i32` values and sums, the mask
 /// read a word at a time.
 #[inline(never)]
-fn block_stats_narrow(frame: &[i32], flag: &[u8], mask: &LineMask, start: usize, end: usize) -> Block {
+fn block_stats_narrow(
+    frame: &[i32],
+    flag: &[u8],
+    mask: &LineMask,
+    start: usize,
+    end: usize,
+) -> Block {
     let word = mask.word(start / BLOCK_PX);
     let trusted =
         |i: usize| !mask.is_set(i) && flag.get(i).is_some_and(|&f| !flags::is_untrusted(f));
@@ -511,8 +518,9 @@ fn floor_given_shot(blocks: &[Block], k_q16: u32, zero: i64) -> i64 {
             // One 32 × 32-bit product for the levels of ADC frames; i128 beyond.
             let shot = match u32::try_from(light) {
                 Ok(l) => (super::math::mul_u32_wide(l, k_q16) >> 8) as i64,
-                Err(_) => ((i128::from(light) * i128::from(k_q16)) >> 8).min(i128::from(i64::MAX))
-                    as i64,
+                Err(_) => {
+                    ((i128::from(light) * i128::from(k_q16)) >> 8).min(i128::from(i64::MAX)) as i64
+                }
             };
             *s = b.var_q8.saturating_sub(shot).max(0);
             n += 1;
@@ -539,7 +547,11 @@ mod tests {
                 let end = (start + BLOCK_PX).min(n);
                 let a = block_stats_narrow(&frame, &fl, &LineMask::new(), start, end);
                 let b = block_stats_clear(&frame, &fl, start, end).unwrap();
-                assert_eq!((a.var_q8, a.level, a.used), (b.var_q8, b.level, b.used), "n {n} {start}");
+                assert_eq!(
+                    (a.var_q8, a.level, a.used),
+                    (b.var_q8, b.level, b.used),
+                    "n {n} {start}"
+                );
             }
             let mut bad = fl.clone();
             bad[n / 2] = flags::SATURATED;
@@ -566,7 +578,11 @@ mod tests {
             let end = (start + BLOCK_PX).min(n);
             let a = block_stats(&frame, &fl, &mask, start, end);
             let b = block_stats_narrow(&frame, &fl, &mask, start, end);
-            assert_eq!((a.var_q8, a.level, a.used), (b.var_q8, b.level, b.used), "block {start}");
+            assert_eq!(
+                (a.var_q8, a.level, a.used),
+                (b.var_q8, b.level, b.used),
+                "block {start}"
+            );
         }
     }
 

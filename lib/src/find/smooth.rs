@@ -317,7 +317,10 @@ mod tests {
     /// The two-digit reciprocal is the 64-bit ceiling division's.
     #[test]
     fn reciprocal_is_the_ceiling_of_two_to_the_s() {
-        for den in (2u32..=(1 << 16)).step_by(7).chain([2, 3, 255, 256, 257, 65_535, 65_536]) {
+        for den in (2u32..=(1 << 16))
+            .step_by(7)
+            .chain([2, 3, 255, 256, 257, 65_535, 65_536])
+        {
             let r = Reciprocal::new(den);
             let want = ((1u64 << r.s) + u64::from(den) - 1) / u64::from(den);
             assert_eq!(u64::from(r.m), want.min(u64::from(u32::MAX)), "den {den}");

@@ -8,7 +8,7 @@
 //! - **Position**: when unresolved, the blend centre moves linearly with the share. This needs a map
 //!   that does not come from the tube itself and is precise well below the shift; its stated
 //!   uncertainty enters as a systematic term common to all lines.
-use crate::find::math::Recip;
+use crate::find::math::{mul_i32_wide, Recip};
 use crate::fixed::{isqrt_u128, mul_div_i128};
 
 /// Largest share uncertainty (ppm) still reported as a determination: 15 percentage points.
@@ -112,10 +112,12 @@ pub fn share_by_profile(w: &PairWindow<'_>) -> Option<ShareEstimate> {
     }
     let range = (w.shift_range_px_q16 as i64).clamp(0, 4 << 16);
     let steps = (2 * range / 4096) as i32;
+    // Σ r² is the same for every shift, width and the mirrored pair (same frame and window).
+    let srr = rr_sum(w, first, last)?;
     let mut best: Option<(i128, Sums, i64)> = None;
     for s in 0..=steps {
         let shift = -range + s as i64 * 4096;
-        let sums = sums_at(w, first, last, shift, sigma)?;
+        let sums = sums_at(w, first, last, shift, sigma, srr)?;
         let chi = sums.chi2();
         if best.as_ref().is_none_or(|(c, _, _)| chi < *c) {
             best = Some((chi, sums, shift));
@@ -131,7 +133,7 @@ pub fn share_by_profile(w: &PairWindow<'_>) -> Option<ShareEstimate> {
         let fine = if range > 0 { 16i64 } else { 0 };
         for s in -fine..=fine {
             let shift = coarse + s * 256;
-            let sums = sums_at(w, first, last, shift, sg)?;
+            let sums = sums_at(w, first, last, shift, sg, srr)?;
             let chi = sums.chi2();
             if best.as_ref().is_none_or(|(c, _, _)| chi < *c) {
                 best = Some((chi, sums, shift));
@@ -207,7 +209,7 @@ pub fn share_by_profile(w: &PairWindow<'_>) -> Option<ShareEstimate> {
             if (sh + fine).abs() > range {
                 continue;
             }
-            let c = sums_at(&mirror, first, last, sh + fine, sigma)?.chi2();
+            let c = sums_at(&mirror, first, last, sh + fine, sigma, srr)?.chi2();
             best_mirror = Some(best_mirror.map_or(c, |m: i128| m.min(c)));
         }
     }
@@ -355,7 +357,7 @@ fn exp_neg_q16_q15(x_q16: i64) -> i64 {
         return 0;
     }
     let x = x_q16.max(0) as u32; // < 2^20
-    // y = x · log2(e) in Q16 (94 548 = log2(e) · 2^16): < 2^37, a 32 × 32 → 64-bit product.
+                                 // y = x · log2(e) in Q16 (94 548 = log2(e) · 2^16): < 2^37, a 32 × 32 → 64-bit product.
     let y = crate::find::math::mul_u32_wide(x, 94_548) >> 16;
     let k = (y >> 16) as u32;
     let f = (y & 0xffff) as usize;
@@ -413,7 +415,15 @@ impl LineShape {
     }
 }
 
-fn sums_at(w: &PairWindow<'_>, first: i64, last: i64, shift: i64, sigma: i64) -> Option<Sums> {
+/// The pair sums at one shift and width; `srr` = [`rr_sum`] of the same window (taken once).
+fn sums_at(
+    w: &PairWindow<'_>,
+    first: i64,
+    last: i64,
+    shift: i64,
+    sigma: i64,
+    srr: i128,
+) -> Option<Sums> {
     let shape = LineShape::new(sigma);
     let mut s = Sums {
         saa: 0,
@@ -421,26 +431,40 @@ fn sums_at(w: &PairWindow<'_>, first: i64, last: i64, shift: i64, sigma: i64) ->
         sbb: 0,
         sra: 0,
         srb: 0,
-        srr: 0,
+        srr,
     };
     for i in first..=last {
         let r = i64::from(*w.frame.get(i as usize)?) - i64::from(*w.base.get(i as usize)?);
         let p = i << 16;
-        // g ≤ 2^15 and |r| < 2^33: every product fits i64 (r² as i128 only beyond 2^31).
-        let ga = shape.g(p, w.a_px_q16 as i64 + shift);
-        let gb = shape.g(p, w.b_px_q16 as i64 + shift);
+        // g ≤ 2^15 (so g·g < 2^31) and |r| < 2^33: every product fits i64, and the residual's
+        // are 32 × 32-bit where r fits 32 bits (all ADC frames).
+        let ga = shape.g(p, w.a_px_q16 as i64 + shift) as i32;
+        let gb = shape.g(p, w.b_px_q16 as i64 + shift) as i32;
         s.saa += i128::from(ga * ga);
         s.sab += i128::from(ga * gb);
         s.sbb += i128::from(gb * gb);
-        s.sra += i128::from(r * ga);
-        s.srb += i128::from(r * gb);
-        s.srr += if r.unsigned_abs() < 1 << 31 {
+        let (ra, rb) = match i32::try_from(r) {
+            Ok(r32) => (mul_i32_wide(r32, ga), mul_i32_wide(r32, gb)),
+            Err(_) => (r * i64::from(ga), r * i64::from(gb)),
+        };
+        s.sra += i128::from(ra);
+        s.srb += i128::from(rb);
+    }
+    Some(s)
+}
+
+/// Σ r² over the window (it does not depend on the shift or width searched).
+fn rr_sum(w: &PairWindow<'_>, first: i64, last: i64) -> Option<i128> {
+    let mut srr = 0i128;
+    for i in first..=last {
+        let r = i64::from(*w.frame.get(i as usize)?) - i64::from(*w.base.get(i as usize)?);
+        srr += if r.unsigned_abs() < 1 << 31 {
             i128::from(r * r)
         } else {
             i128::from(r) * i128::from(r)
         };
     }
-    Some(s)
+    Some(srr)
 }
 
 impl Sums {
