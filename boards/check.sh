@@ -339,7 +339,8 @@ if bash "$here/measure.sh" thumbv6m-none-eabi >"$out/measure.json" 2>"$out/measu
     grep -q '"count_source": "plugin"' "$out/measure.json" \
         || echo "  note: instruction counts from SysTick (+- 40), not the counting plugin: $(head -n 1 "$out/measure.err")" >&2
     # Adversarial frames (boards/pipeline-report/src/adversarial.rs): every check's instructions within
-    # 2 x the typical frame's in the same mode (scaled by pixels / 2048 above 2048 px). Not blessable.
+    # 2 x the typical frame's in the same mode (the costliest of the embedded h-tube, air-leak and
+    # d-lamp frames; scaled by pixels / 2048 above 2048 px). Not blessable.
     if python3 - "$out/measure.json" <<'PY'
 import json, sys
 d = json.loads(open(sys.argv[1]).readline())
