@@ -179,11 +179,35 @@ pub const fn isqrt_u128(x: u128) -> u128 {
     root
 }
 
-/// Floor square root of a u64 (bit-by-bit, at most 32 steps).
+/// Floor square root of a u64 (bit-by-bit, at most 32 steps; in u32 below 2^32, the same root).
 const fn isqrt_u64(x: u64) -> u64 {
+    if x >> 32 == 0 {
+        return isqrt_u32(x as u32) as u64;
+    }
     let mut rem = x;
     let mut root: u64 = 0;
     let mut bit: u64 = 1 << 62;
+    while bit > rem {
+        bit >>= 2;
+    }
+    while bit > 0 {
+        if rem >= root + bit {
+            rem -= root + bit;
+            root = (root >> 1) + bit;
+        } else {
+            root >>= 1;
+        }
+        bit >>= 2;
+    }
+    root
+}
+
+/// Floor square root of a u32 (bit by bit, at most 16 steps: a 64-bit step is several instructions
+/// on a 32-bit core).
+const fn isqrt_u32(x: u32) -> u32 {
+    let mut rem = x;
+    let mut root: u32 = 0;
+    let mut bit: u32 = 1 << 30;
     while bit > rem {
         bit >>= 2;
     }
@@ -216,6 +240,47 @@ pub const fn div_round_u128(a: u128, b: u128) -> Option<u128> {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    /// The bit-by-bit root at full width, for checking the narrowed ones.
+    fn wide_root(x: u128) -> u128 {
+        let (mut lo, mut hi) = (0u128, 1u128 << 64);
+        while lo + 1 < hi {
+            let mid = (lo + hi) / 2;
+            if mid * mid <= x {
+                lo = mid;
+            } else {
+                hi = mid;
+            }
+        }
+        lo
+    }
+
+    #[test]
+    fn root_of_a_u32_is_the_wide_root() {
+        let mut seed = 0x2718_2818_2845_9045u64;
+        for _ in 0..100_000 {
+            seed ^= seed << 13;
+            seed ^= seed >> 7;
+            seed ^= seed << 17;
+            let v = (seed >> (32 + seed % 32)) as u32;
+            assert_eq!(u128::from(isqrt_u32(v)), wide_root(u128::from(v)), "{v}");
+        }
+        for v in [
+            0u32,
+            1,
+            2,
+            3,
+            4,
+            15,
+            16,
+            17,
+            u32::MAX,
+            u32::MAX - 1,
+            65_535 * 65_535,
+        ] {
+            assert_eq!(u128::from(isqrt_u32(v)), wide_root(u128::from(v)), "{v}");
+        }
+    }
 
     #[test]
     fn mul_div_matches_narrow_arithmetic() {

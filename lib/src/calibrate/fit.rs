@@ -63,11 +63,8 @@ impl MapFit {
             .unwrap_or_else(|| self.quadratic_form(x));
         let var =
             mul_div_i128(q.max(0), self.variance_scale_fm2 as i128, 1 << 40).unwrap_or(i128::MAX);
-        match u32::try_from(var) {
-            // A map σ below 65 pm: the root in 32-bit steps (the floor root is the same integer).
-            Ok(v) => u64::from(isqrt_u32(v)),
-            Err(_) => isqrt_u128(var.max(0) as u128) as u64,
-        }
+        // A map σ below 65 pm takes the root in 32-bit steps (`isqrt_u128` narrows by itself).
+        isqrt_u128(var.max(0) as u128) as u64
     }
 
     /// q = vᵀ M⁻¹ v (Q40) with v = (1, x, x², x³) in Q30, each term rounded twice as
@@ -128,26 +125,6 @@ impl MapFit {
         }
         Some(q)
     }
-}
-
-/// Floor square root of a u32, bit by bit (16 steps).
-fn isqrt_u32(x: u32) -> u32 {
-    let mut rem = x;
-    let mut root: u32 = 0;
-    let mut bit: u32 = 1 << 30;
-    while bit > rem {
-        bit >>= 2;
-    }
-    while bit > 0 {
-        if rem >= root + bit {
-            rem -= root + bit;
-            root = (root >> 1) + bit;
-        } else {
-            root >>= 1;
-        }
-        bit >>= 2;
-    }
-    root
 }
 
 /// a · v / 2^30 rounded half away from zero (as [`mul_div_i128`] with c = 2^30), for |a| < 2^63 and
@@ -525,33 +502,6 @@ mod tests {
                 accumulate(&mut b, d, w as i128, x, lam).unwrap();
             }
             assert_eq!(a, b);
-        }
-    }
-
-    #[test]
-    fn root_of_a_u32_is_the_wide_root() {
-        let mut seed = 0x2718_2818_2845_9045u64;
-        for _ in 0..100_000 {
-            seed ^= seed << 13;
-            seed ^= seed >> 7;
-            seed ^= seed << 17;
-            let v = (seed >> (32 + seed % 32)) as u32;
-            assert_eq!(u128::from(isqrt_u32(v)), isqrt_u128(u128::from(v)), "{v}");
-        }
-        for v in [
-            0u32,
-            1,
-            2,
-            3,
-            4,
-            15,
-            16,
-            17,
-            u32::MAX,
-            u32::MAX - 1,
-            65_535 * 65_535,
-        ] {
-            assert_eq!(u128::from(isqrt_u32(v)), isqrt_u128(u128::from(v)), "{v}");
         }
     }
 }

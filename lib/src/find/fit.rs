@@ -309,7 +309,7 @@ struct Normal {
 ///
 /// Loop bounds: one gathering pass over ≤ 2 × [`MAX_HALF`] + 1 pixels (taking ≤ 2 neighbour profiles
 /// out of each), then ≤ min(`max_steps`, [`ITERATIONS`]) Gauss–Newton steps, each one pass over the
-/// window (the first [`WEIGHT_STEPS`] with a weight pass) and a 4 × 4 elimination.
+/// window (the first with a weight pass) and a 4 × 4 elimination.
 pub fn fit_line(
     d: &FitData<'_>,
     peak: usize,

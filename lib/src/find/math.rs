@@ -198,7 +198,7 @@ pub fn clamp_i32(v: i64) -> i32 {
 }
 
 /// A reciprocal for repeated division by one positive `d < 2^62`: `d ≈ n · 2^-t` with `n` in
-/// [2^29, 2^30) (`t` < 0 drops the low bits of a wider `d`) and `r ≈ 2^60 / n` in (2^30, 2^31], so
+/// \[2^29, 2^30) (`t` < 0 drops the low bits of a wider `d`) and `r ≈ 2^60 / n` in (2^30, 2^31\], so
 /// `v / d ≈ v · r · 2^t / 2^60` (relative error < 2^-28) from 32 × 32-bit products. `r` comes from
 /// one 32-bit division (~170 instructions on the Cortex-M0) and a Newton step, not a 64-bit library
 /// division (~730).

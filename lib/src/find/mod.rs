@@ -80,6 +80,8 @@ pub const STEP_BUDGET: usize = 64;
 /// weigh it accordingly. Only crowded frames (more than ~25 lines) get there; a frame of 64 noise
 /// bumps costs ~1.7 × a typical frame this way instead of ~2.2 × with one step each.
 pub const MIN_STEPS: usize = 0;
+// `find_peaks` passes the remaining budget as each fit's allowance, which is MIN_STEPS past it.
+const _: () = assert!(MIN_STEPS == 0);
 /// `i32` scratch cells needed per frame pixel (baseline and one work row).
 pub const SCRATCH_PER_PIXEL: usize = 2;
 /// Fits narrower than this fraction of `FindConfig::fwhm_min_px_q8` (Q8: 5/8) are dropped as single-pixel
@@ -214,7 +216,8 @@ pub fn find_peaks(
         let s0 = half_width_sigma(&data, c.pos, fwhm_max_px)
             .max(s_min)
             .min(s_max);
-        let f = fit::fit_line(&data, c.pos, s0, s_min, s_max, budget.max(MIN_STEPS));
+        // Past the budget a line gets MIN_STEPS = 0 steps: the budget alone is the allowance.
+        let f = fit::fit_line(&data, c.pos, s0, s_min, s_max, budget);
         budget = budget.saturating_sub(usize::from(f.steps));
         // Capacity: at most MAX_PEAKS candidates remain.
         let _ = fits.push((f, u16::try_from(c.pos).unwrap_or(u16::MAX)));
@@ -238,7 +241,7 @@ pub fn find_peaks(
         if budget > 0 && (prev.is_some() || next.is_some()) {
             data.neighbours = [prev, next];
             // From the first fit, over its window: only the neighbours' share of the data changed.
-            let refit = fit::refit_line(&data, &f, s_min, s_max, budget.max(MIN_STEPS));
+            let refit = fit::refit_line(&data, &f, s_min, s_max, budget);
             budget = budget.saturating_sub(usize::from(refit.steps));
             if let Some(slot) = fits.get_mut(k) {
                 slot.0 = refit;

@@ -370,7 +370,7 @@ fn variance_block(sum: i64, cnt: u32, sad: u64, nd: u32) -> Block {
         (m_q4 * ((m_q4 * PI_OVER_12_Q16 as i64) >> 16)).min(1 << 50)
     } else {
         let v = u128::try_from(m_q4).unwrap_or(0);
-        (v * v * PI_OVER_12_Q16 >> 16).min(1 << 50) as i64
+        ((v * v * PI_OVER_12_Q16) >> 16).min(1 << 50) as i64
     };
     Block {
         // Capped at 2^50 (σ ≈ 2^21 frame units) so the regression sums stay inside i128.

@@ -322,7 +322,7 @@ mod tests {
             .chain([2, 3, 255, 256, 257, 65_535, 65_536])
         {
             let r = Reciprocal::new(den);
-            let want = ((1u64 << r.s) + u64::from(den) - 1) / u64::from(den);
+            let want = (1u64 << r.s).div_ceil(u64::from(den));
             assert_eq!(u64::from(r.m), want.min(u64::from(u32::MAX)), "den {den}");
         }
     }
