@@ -7,7 +7,8 @@
 //! the centroid noise, sets the uncertainty).
 use super::error::CalibrateError;
 use super::map::{HalfWidth, WavelengthMap, X_ONE_Q30};
-use super::muldiv::{mul_32x32, mul_div_round, Divisor};
+use super::muldiv::{mul_div_round, Divisor};
+use crate::find::math::mul_u32_wide;
 use crate::fixed::{isqrt_u128, mul_div_i128};
 
 /// Most points one fit takes.
@@ -136,8 +137,8 @@ fn mul_q30_round(a: i64, v: i64) -> i64 {
         return a;
     }
     let (ua, uv) = (a.unsigned_abs(), v.unsigned_abs().min(1 << 30));
-    let hi = mul_32x32((ua >> 32) as u32, uv as u32);
-    let lo = mul_32x32(ua as u32, uv as u32);
+    let hi = mul_u32_wide((ua >> 32) as u32, uv as u32);
+    let lo = mul_u32_wide(ua as u32, uv as u32);
     let mag = (hi << 2) + ((lo + (1 << 29)) >> 30);
     let m = mag.min(i64::MAX as u64) as i64;
     if (a < 0) != (v < 0) {

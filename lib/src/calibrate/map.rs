@@ -4,7 +4,7 @@
 //! [−1, 1] across the sensor: the coefficients are then all of comparable size (fm) and the fit is
 //! well conditioned in fixed point. Reports convert to the plain λ(p) = c0 + c1 p + c2 p² + c3 p³.
 use super::error::CalibrateError;
-use super::muldiv::mul_32x32;
+use crate::find::math::mul_u32_wide;
 
 /// Q30 scale of the normalised pixel coordinate x.
 pub const X_ONE_Q30: i64 = 1 << 30;
@@ -327,7 +327,7 @@ fn divide_shl(a: i64, k: u32, d: i64, recip: Option<(u64, u64)>) -> Option<i64> 
     let ua = a.unsigned_abs();
     let u = n.unsigned_abs();
     // |a| < 2^32 and m_hi < 2^32: |a| · m_hi + 2^32 stays below 2^64.
-    let hi = mul_32x32(ua as u32, (m >> 32) as u32) + (mul_32x32(ua as u32, m as u32) >> 32);
+    let hi = mul_u32_wide(ua as u32, (m >> 32) as u32) + (mul_u32_wide(ua as u32, m as u32) >> 32);
     let mut q = hi >> (32 - k);
     let mut r = u - q * ud;
     // One step suffices (see `HalfWidth`); a second costs nothing and bounds the loop anyway.

@@ -4,6 +4,7 @@
 //! divide instruction the 256-bit route of [`mul_div_i128`] costs several times a 64-bit division.
 //! Its elimination divides many 128-bit products by one pivot: [`Divisor`] takes that pivot's
 //! reciprocal once, then each quotient costs two 64 × 64-bit products instead of a 60-step loop.
+use crate::find::math::mul_u32_wide;
 use crate::fixed::mul_div_i128;
 
 /// [`mul_div_i128`] (a · b / c rounded half away from zero; `None` for c = 0 or a quotient past
@@ -120,26 +121,16 @@ impl Divisor {
     }
 }
 
-/// The full product of two u32 from four 16 × 16-bit ones: on a core without a 32 × 32 → 64-bit
-/// multiply this is a few instructions inline where a 64-bit product is a library call.
-#[inline]
-pub(crate) fn mul_32x32(a: u32, b: u32) -> u64 {
-    let (a1, a0) = (a >> 16, a & 0xffff);
-    let (b1, b0) = (b >> 16, b & 0xffff);
-    let mid = u64::from(a1 * b0) + u64::from(a0 * b1);
-    (u64::from(a1 * b1) << 32) + (mid << 16) + u64::from(a0 * b0)
-}
-
 /// The full product of two u64 from four 32 × 32-bit ones.
 pub(crate) fn mul_64x64(a: u64, b: u64) -> u128 {
     const M: u64 = 0xffff_ffff;
     let (a1, a0) = ((a >> 32) as u32, a as u32);
     let (b1, b0) = ((b >> 32) as u32, b as u32);
     let (p00, p01, p10, p11) = (
-        mul_32x32(a0, b0),
-        mul_32x32(a0, b1),
-        mul_32x32(a1, b0),
-        mul_32x32(a1, b1),
+        mul_u32_wide(a0, b0),
+        mul_u32_wide(a0, b1),
+        mul_u32_wide(a1, b0),
+        mul_u32_wide(a1, b1),
     );
     let mid = (p00 >> 32) + (p01 & M) + (p10 & M);
     let lo = (p00 & M) | (mid << 32);
@@ -313,7 +304,7 @@ mod tests {
             let (a, b) = (seed >> (seed % 64), seed.rotate_left(29));
             assert_eq!(mul_64x64(a, b), a as u128 * b as u128);
             assert_eq!(
-                mul_32x32(a as u32, b as u32),
+                mul_u32_wide(a as u32, b as u32),
                 (a as u32) as u64 * (b as u32) as u64
             );
         }
@@ -322,7 +313,7 @@ mod tests {
             u64::MAX as u128 * u64::MAX as u128
         );
         assert_eq!(
-            mul_32x32(u32::MAX, u32::MAX),
+            mul_u32_wide(u32::MAX, u32::MAX),
             u32::MAX as u64 * u32::MAX as u64
         );
     }
