@@ -230,17 +230,27 @@ fn rounds(
 ) {
     from(frame, base);
     in_place(base);
+    // The values clipped in the previous round, one bit each (up to 256 values: the coarse rows;
+    // longer rows never stop early). A round that clips exactly the same values bridges exactly the
+    // same row, so its triangle is the baseline already there: the rounds can stop (same integers).
+    let mut prev = [0u32; 8];
+    let mut known = false;
     for _ in 0..ROUNDS {
         // Values standing above the baseline (and untrusted ones) are bridged in tmp by the straight
         // line between the nearest kept values on either side, then the triangle is taken again: a
         // line leaves the baseline in one round instead of fading by a constant share per round.
         let mut last_kept: Option<(usize, i32)> = None;
+        let mut clipped = [0u32; 8];
+        let trackable = frame.len() <= 256;
         for (i, ((&y, &b), &f)) in frame.iter().zip(base.iter()).zip(flag).enumerate() {
             let r = i64::from(y) - i64::from(b);
             // The variance only where the residual is positive (half the values of a flat stretch).
             let high =
                 flags::is_untrusted(f) || (r > 0 && above_clip(r, noise.var_q8(i64::from(b))));
             if high {
+                if let Some(w) = clipped.get_mut(i / 32) {
+                    *w |= 1 << (i % 32);
+                }
                 continue;
             }
             let from_k = last_kept.map_or(0, |(k, _)| k + 1);
@@ -260,6 +270,11 @@ fn rounds(
                 }
             }
         }
+        // (With nothing kept the row is the baseline itself, which smoothing still moves.)
+        if trackable && known && last_kept.is_some() && clipped == prev {
+            break;
+        }
+        (prev, known) = (clipped, trackable && last_kept.is_some());
         from(tmp, base);
         in_place(base);
     }
