@@ -1,9 +1,10 @@
 //! Continuum and stray-light removal by iterated clipped smoothing on a coarse grid.
 //!
 //! The frame is first reduced to one level per block of [`COARSE_PX`] pixels — the mean of the middle
-//! two of its four 4-px means, so lines closer together than a block (near a series limit) do not lift
-//! every block; the mean of the trusted pixels where some are not: a continuum is smooth on that scale, and the rounds below then run on 1/16 of the points, which is what
-//! makes the baseline cost a few instructions per pixel instead of ~40 box passes over the frame.
+//! two of its four 4-px means, so lines closer together than a block (near a series limit) do not
+//! lift every block; the mean of the trusted pixels where some are not. A continuum is smooth on that
+//! scale, and the rounds below then run on 1/16 of the points, which is what makes the baseline cost
+//! a few instructions per pixel instead of ~40 box passes over the frame.
 //! On the block means, a triangular moving average (two box passes, windows shrinking symmetrically at
 //! the edges) about as wide as the old per-pixel one (≈ 2 × `half` + 1 px) follows a smooth continuum
 //! such as a deuterium lamp's, and stray light, but a line pulls it up. Each round replaces the blocks
