@@ -9,8 +9,8 @@
 //! 4. [`fit`]: a noise-weighted (whitened) Gaussian fit per line in 32-bit fixed point, giving centre,
 //!    its Fisher σ, FWHM, height, area.
 //!
-//! Every per-pixel pass is a handful of 32-bit operations on ADC frames (values within ±2^23): the
-//! M0 build spends ~850 instructions per pixel on a 2048-px frame of a dozen lines, about two thirds
+//! Every per-pixel pass runs in 32-bit arithmetic on ADC frames (values within ±2^23): the
+//! M0 build spends ~780 instructions per pixel on a 2048-px frame of a dozen lines, about a third
 //! of them in the per-line fits (`bash boards/measure.sh` prints the pieces as `find_parts`).
 //!
 //! # Scales
