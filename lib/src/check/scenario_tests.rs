@@ -284,26 +284,32 @@ fn resolved_alpha_pair_gives_the_deuterium_share() {
     }
 }
 
+/// The report of a traced check in `mode` and the stages it reported, in order.
+fn traced(mode: Mode, raw: &[u16]) -> (Report, std::vec::Vec<super::Stage>) {
+    let checker = Checker::new(config(mode, profile::HYDROGEN, truth())).unwrap();
+    let mut buf = std::boxed::Box::new(Buffers::<N>::new());
+    let mut report = Report::new();
+    let mut seen = std::vec::Vec::new();
+    checker
+        .check_traced(
+            FrameSum::single(raw).unwrap(),
+            None,
+            None,
+            buf.workspace(N),
+            &mut report,
+            |s| seen.push(s),
+        )
+        .unwrap();
+    (report, seen)
+}
+
 #[test]
 fn traced_check_reports_every_stage_in_order_and_the_same_report() {
     use super::Stage;
     let raw = frame(&[(Nucleus::H1, 1000)], &[], 3 << 8, 3000, 11);
     for mode in [Mode::Verify, Mode::Calibrate] {
         let plain = run(config(mode, profile::HYDROGEN, truth()), &raw);
-        let checker = Checker::new(config(mode, profile::HYDROGEN, truth())).unwrap();
-        let mut buf = std::boxed::Box::new(Buffers::<N>::new());
-        let mut report = Report::new();
-        let mut seen = std::vec::Vec::new();
-        checker
-            .check_traced(
-                FrameSum::single(&raw).unwrap(),
-                None,
-                None,
-                buf.workspace(N),
-                &mut report,
-                |s| seen.push(s),
-            )
-            .unwrap();
+        let (report, seen) = traced(mode, &raw);
         assert_eq!(report, plain, "{mode:?}");
         assert_eq!(
             seen,
@@ -318,20 +324,6 @@ fn traced_check_reports_every_stage_in_order_and_the_same_report() {
         );
     }
     // A dark frame: no peaks, so the stages after peak finding are not reported.
-    let checker = Checker::new(config(Mode::Verify, profile::HYDROGEN, truth())).unwrap();
-    let mut buf = std::boxed::Box::new(Buffers::<N>::new());
-    let mut report = Report::new();
-    let mut seen = std::vec::Vec::new();
-    let dark = std::vec![100u16; N];
-    checker
-        .check_traced(
-            FrameSum::single(&dark).unwrap(),
-            None,
-            None,
-            buf.workspace(N),
-            &mut report,
-            |s| seen.push(s),
-        )
-        .unwrap();
+    let (_, seen) = traced(Mode::Verify, &std::vec![100u16; N]);
     assert_eq!(seen, [Stage::Conditioned, Stage::PeaksFound]);
 }
