@@ -155,8 +155,6 @@ impl NoiseBlocks {
             };
             *blk = if let Some(b) = fast {
                 b
-            } else if narrow {
-                block_stats_narrow(frame, flag, mask, start, end)
             } else {
                 block_stats(frame, flag, mask, start, end)
             };
@@ -259,67 +257,13 @@ fn block_stats(frame: &[i32], flag: &[u8], mask: &LineMask, start: usize, end: u
     variance_block(sum, cnt, sad, nd)
 }
 
-/// Largest |value| for [`block_stats_narrow`]: 64 values sum below 2^30, 64 |second differences|
+/// Largest |value| for [`block_stats_clear`]: 64 values sum below 2^30, 64 |second differences|
 /// below 2^32.
 const NARROW: i32 = 1 << 23;
 
-/// [`block_stats`] for frames within ±[`NARROW`] (the same result): `i32` values and sums, the mask
-/// read a word at a time.
-#[inline(never)]
-fn block_stats_narrow(
-    frame: &[i32],
-    flag: &[u8],
-    mask: &LineMask,
-    start: usize,
-    end: usize,
-) -> Block {
-    let word = mask.word(start / BLOCK_PX);
-    let trusted =
-        |i: usize| !mask.is_set(i) && flag.get(i).is_some_and(|&f| !flags::is_untrusted(f));
-    let (mut sum, mut cnt) = (0i32, 0u32);
-    let (mut sad, mut nd) = (0u32, 0u32);
-    // Values and trust of the two pixels before `i`.
-    let before = start.checked_sub(1);
-    let mut p1 = before.and_then(|j| frame.get(j)).copied().unwrap_or(0);
-    let mut ok1 = before.is_some_and(trusted);
-    let (mut p2, mut ok2) = (0i32, false);
-    let vals = frame.get(start..end).unwrap_or(&[]);
-    let fl = flag.get(start..end).unwrap_or(&[]);
-    // The block's mask bits, 32 at a time, consumed one per pixel.
-    let mut bits = word as u32;
-    for (k, (&y, &f)) in vals.iter().zip(fl).enumerate() {
-        if k == 32 {
-            bits = (word >> 32) as u32;
-        }
-        let oki = bits & 1 == 0 && !flags::is_untrusted(f);
-        bits >>= 1;
-        if oki {
-            sum += y;
-            cnt += 1;
-            // The difference centred on the previous pixel (in the block once k ≥ 1).
-            if ok1 && ok2 && k > 0 {
-                sad += (p2 - 2 * p1 + y).unsigned_abs();
-                nd += 1;
-            }
-        }
-        (p2, ok2, p1, ok1) = (p1, ok1, y, oki);
-    }
-    // The last pixel's difference needs the pixel after the block.
-    if let (Some(&y), true, true, true) = (frame.get(end), end > start, ok1, ok2) {
-        if trusted(end) {
-            sad += (p2 - 2 * p1 + y).unsigned_abs();
-            nd += 1;
-        }
-    }
-    if (nd as usize) < MIN_BLOCK_SAMPLES || cnt == 0 {
-        return Block::default();
-    }
-    variance_block(i64::from(sum), cnt, u64::from(sad), nd)
-}
-
-/// [`block_stats_narrow`] for a block that no mask touches: `None` when a pixel of
-/// `start − 1 ..= end` is untrusted (then the careful pass decides), else the same block from plain
-/// sums — one pass of loads, adds and one absolute value per pixel.
+/// [`block_stats`] for a block that no mask touches, in a frame within ±[`NARROW`]: `None` when a
+/// pixel of `start − 1 ..= end` is untrusted (then the careful pass decides), else the same block
+/// from plain 32-bit sums — one pass of loads, adds and one absolute value per pixel.
 fn block_stats_clear(frame: &[i32], flag: &[u8], start: usize, end: usize) -> Option<Block> {
     let lo = start.saturating_sub(1);
     let hi = (end + 1).min(frame.len());
@@ -545,7 +489,7 @@ mod tests {
             let fl = vec![0u8; n];
             for start in (0..n).step_by(BLOCK_PX) {
                 let end = (start + BLOCK_PX).min(n);
-                let a = block_stats_narrow(&frame, &fl, &LineMask::new(), start, end);
+                let a = block_stats(&frame, &fl, &LineMask::new(), start, end);
                 let b = block_stats_clear(&frame, &fl, start, end).unwrap();
                 assert_eq!(
                     (a.var_q8, a.level, a.used),
@@ -557,32 +501,6 @@ mod tests {
             bad[n / 2] = flags::SATURATED;
             let start = (n / 2) / BLOCK_PX * BLOCK_PX;
             assert!(block_stats_clear(&frame, &bad, start, (start + BLOCK_PX).min(n)).is_none());
-        }
-    }
-
-    /// The 32-bit blocks are the general ones.
-    #[test]
-    fn narrow_blocks_equal_the_wide_ones() {
-        let mut rng = Rng::new(5);
-        let n = 300;
-        let frame: Vec<i32> = (0..n as i64)
-            .map(|i| (4000 + 3 * i + rng.gauss(50 << 16)) as i32)
-            .collect();
-        let mut fl = vec![0u8; n];
-        fl[70] = flags::SATURATED;
-        fl[191] = flags::REPAIRED;
-        let mut mask = LineMask::new();
-        mask.mark(130, 4);
-        mask.mark(255, 2);
-        for start in (0..n).step_by(BLOCK_PX) {
-            let end = (start + BLOCK_PX).min(n);
-            let a = block_stats(&frame, &fl, &mask, start, end);
-            let b = block_stats_narrow(&frame, &fl, &mask, start, end);
-            assert_eq!(
-                (a.var_q8, a.level, a.used),
-                (b.var_q8, b.level, b.used),
-                "block {start}"
-            );
         }
     }
 
