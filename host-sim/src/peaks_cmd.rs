@@ -8,7 +8,7 @@ use crate::trace::{FrameKind, Trace};
 use glowcheck::condition::{
     condition_frame, ConditionConfig, FrameSum, Stack, MAX_COADD, MAX_PIXELS, OUTPUT_FRAC_BITS,
 };
-use glowcheck::find::{find_peaks, FindConfig, FindReport, PeakList, SCRATCH_PER_PIXEL};
+use glowcheck::find::{find_peaks, FindConfig, FindReport, FindWork, PeakList, SCRATCH_PER_PIXEL};
 use serde::Serialize;
 use std::path::PathBuf;
 
@@ -241,8 +241,15 @@ pub fn analyse(trace: &Trace, dark: Option<&Trace>, args: &Args) -> Result<Outco
     }
     let mut scratch = vec![0i32; SCRATCH_PER_PIXEL * n];
     let mut peaks = PeakList::new();
-    let report: FindReport = find_peaks(&fcfg, &out, &flags, &mut scratch, &mut peaks)
-        .map_err(|e| format!("peak finding: {e}"))?;
+    let report: FindReport = find_peaks(
+        &fcfg,
+        &out,
+        &flags,
+        &mut scratch,
+        &mut FindWork::new(),
+        &mut peaks,
+    )
+    .map_err(|e| format!("peak finding: {e}"))?;
 
     let json = PeaksJson {
         pixels: n,

@@ -4,7 +4,7 @@
 use glowcheck::calibrate::WavelengthMap;
 use glowcheck::check::{Buffers, Checker, Config, StoredMap};
 use glowcheck::condition::{condition_frame, ConditionConfig, FrameSum, Stack};
-use glowcheck::find::{find_peaks, FindConfig, PeakList, SCRATCH_PER_PIXEL};
+use glowcheck::find::{find_peaks, FindConfig, FindWork, PeakList, SCRATCH_PER_PIXEL};
 use glowcheck::judge::{profile, Mode, Report};
 use glowcheck::predict::{line, Air, Nucleus};
 
@@ -82,7 +82,15 @@ fn peaks(raw: &[u16]) -> PeakList {
     .unwrap();
     let mut scratch = vec![0i32; SCRATCH_PER_PIXEL * n];
     let mut out = PeakList::new();
-    find_peaks(&FindConfig::DEFAULT, &frame, &flags, &mut scratch, &mut out).unwrap();
+    find_peaks(
+        &FindConfig::DEFAULT,
+        &frame,
+        &flags,
+        &mut scratch,
+        &mut FindWork::new(),
+        &mut out,
+    )
+    .unwrap();
     out
 }
 

@@ -1,7 +1,7 @@
 //! Every public entry point of `glowcheck::find`: the whole stage and its public building blocks.
 
 use glowcheck::find::{
-    baseline, detect, find_peaks, fit, mask::LineMask, math, noise, FindConfig, PeakList,
+    baseline, detect, find_peaks, fit, mask::LineMask, math, noise, FindConfig, FindWork, PeakList,
     SCRATCH_PER_PIXEL,
 };
 use heapless::Vec;
@@ -41,7 +41,14 @@ pub fn run(c: &Conditioned) -> PeakList {
 
     let mut scratch = [0i32; SCRATCH_PER_PIXEL * PIXELS];
     let mut peaks = PeakList::new();
-    match find_peaks(&cfg, &c.values, &c.flags, &mut scratch, &mut peaks) {
+    match find_peaks(
+        &cfg,
+        &c.values,
+        &c.flags,
+        &mut scratch,
+        &mut FindWork::new(),
+        &mut peaks,
+    ) {
         Ok(r) => {
             keep(u64::from(r.pixels) ^ u64::from(r.untrusted_pixels) ^ u64::from(r.candidates));
             keep(u64::from(r.noise_floor_q8) ^ u64::from(r.noise_typical_q8));
@@ -71,6 +78,11 @@ fn building_blocks(c: &Conditioned, k: &Knobs) {
         .unwrap_or(noise::fallback(c.shot_var_per_unit_q16));
     let mut blocks = noise::NoiseBlocks::measure(&c.values, &c.flags, &LineMask::new());
     blocks.remeasure_masked(&c.values, &c.flags, &mask);
+    let mut cleared = mask.clone();
+    cleared.clear();
+    let mut fresh = noise::NoiseBlocks::new();
+    fresh.measure_in_place(&c.values, &c.flags, &cleared);
+    keep_b(fresh.model(None).is_some());
     let again = blocks
         .model(c.shot_var_per_unit_q16)
         .unwrap_or(noise::fallback(None));

@@ -323,7 +323,7 @@ pub fn run(buffers: &mut Buffers<PIXELS>, report: &mut Report, syst: SYST) -> de
     }
     let (found, stack_find) = stack_of(|| {
         mark(4);
-        let f = find_peaks(&fcfg, w.frame, w.flags, w.scratch, &mut peaks);
+        let f = find_peaks(&fcfg, w.frame, w.flags, w.scratch, w.find, &mut peaks);
         mark(5);
         f
     });

@@ -202,6 +202,7 @@ impl Checker {
             flags,
             scratch,
             peaks,
+            find,
         } = work;
         let info = condition_frame(&cfg.condition, signal, dark, gain, frame, flags)?;
         at(Stage::Conditioned);
@@ -209,7 +210,7 @@ impl Checker {
         if fcfg.shot_var_per_unit_q16.is_none() {
             fcfg.shot_var_per_unit_q16 = info.shot_var_per_unit_q16;
         }
-        let found = find_peaks(&fcfg, frame, flags, scratch, peaks)?;
+        let found = find_peaks(&fcfg, frame, flags, scratch, find, peaks)?;
         at(Stage::PeaksFound);
         let peaks: &PeakList = peaks;
         let base = scratch.get(..frame.len()).unwrap_or(&[]);

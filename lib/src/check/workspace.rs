@@ -1,6 +1,6 @@
 //! Caller-owned memory for one check: no heap, and the caller decides where it lives.
 use crate::condition::MAX_PIXELS;
-use crate::find::{PeakList, SCRATCH_PER_PIXEL};
+use crate::find::{FindWork, PeakList, SCRATCH_PER_PIXEL};
 
 /// Borrowed buffers for a frame of N pixels: `frame` and `flags` of N, `scratch` of 2N.
 pub struct Workspace<'a> {
@@ -12,15 +12,18 @@ pub struct Workspace<'a> {
     pub scratch: &'a mut [i32],
     /// The frame's peaks (2 KiB), kept here rather than on the stack of a small core.
     pub peaks: &'a mut PeakList,
+    /// Peak finding's tables (≈ 6 KiB), for the same reason.
+    pub find: &'a mut FindWork,
 }
 
-/// Owned buffers for frames up to `N` pixels (13 N bytes + 2 KiB of peaks): put one in a `static` on a
-/// microcontroller.
+/// Owned buffers for frames up to `N` pixels (13 N bytes + 2 KiB of peaks + ≈ 6 KiB of peak-finding
+/// tables): put one in a `static` on a microcontroller.
 pub struct Buffers<const N: usize> {
     frame: [i32; N],
     flags: [u8; N],
     scratch: [[i32; SCRATCH_PER_PIXEL]; N],
     peaks: PeakList,
+    find: FindWork,
 }
 
 impl<const N: usize> Buffers<N> {
@@ -37,6 +40,7 @@ impl<const N: usize> Buffers<N> {
             flags: [0; N],
             scratch: [[0; SCRATCH_PER_PIXEL]; N],
             peaks: PeakList::new(),
+            find: FindWork::new(),
         }
     }
 
@@ -49,6 +53,7 @@ impl<const N: usize> Buffers<N> {
             flags: self.flags.get_mut(..n).unwrap_or_default(),
             scratch: scratch.get_mut(..SCRATCH_PER_PIXEL * n).unwrap_or_default(),
             peaks: &mut self.peaks,
+            find: &mut self.find,
         }
     }
 }

@@ -22,6 +22,11 @@ impl LineMask {
         Self { bits: [0; WORDS] }
     }
 
+    /// Nothing masked again.
+    pub fn clear(&mut self) {
+        self.bits = [0; WORDS];
+    }
+
     /// Masks pixels `center − half ..= center + half` (clipped to the frame size limit).
     /// Loop bound: 2 × `half` + 1.
     pub fn mark(&mut self, center: usize, half: usize) {

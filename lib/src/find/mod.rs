@@ -20,7 +20,7 @@
 //!
 //! # Usage
 //! ```
-//! use glowcheck::find::{find_peaks, FindConfig, PeakList, SCRATCH_PER_PIXEL};
+//! use glowcheck::find::{find_peaks, FindConfig, FindWork, PeakList, SCRATCH_PER_PIXEL};
 //!
 //! // A conditioned frame (frame units) with one line near pixel 40 on a sloping continuum.
 //! let mut frame = [0i32; 128];
@@ -31,8 +31,10 @@
 //! }
 //! let flags = [0u8; 128];
 //! let mut scratch = [0i32; SCRATCH_PER_PIXEL * 128];
+//! let mut work = FindWork::new(); // ≈ 6 KiB: a `static` on a microcontroller
 //! let mut peaks = PeakList::new();
-//! let report = find_peaks(&FindConfig::DEFAULT, &frame, &flags, &mut scratch, &mut peaks).unwrap();
+//! let report =
+//!     find_peaks(&FindConfig::DEFAULT, &frame, &flags, &mut scratch, &mut work, &mut peaks).unwrap();
 //! assert_eq!(peaks.len(), 1);
 //! let p = peaks[0];
 //! assert!((p.center_px_q16 - (40 << 16)).abs() < 1 << 12); // within 1/16 px
@@ -55,16 +57,15 @@ pub mod report;
 mod smooth;
 #[cfg(test)]
 mod testkit;
+pub mod work;
 
 pub use config::FindConfig;
 pub use error::FindError;
 pub use peak::{Peak, PeakList, MAX_PEAKS};
 pub use report::FindReport;
+pub use work::FindWork;
 
 use crate::condition::{flags, MAX_PIXELS};
-use detect::{Candidate, MAX_CANDIDATES};
-use heapless::Vec;
-use mask::LineMask;
 use math::{isqrt_i64, FWHM_PER_SIGMA_Q16};
 
 /// Shortest frame peak finding accepts (pixels): the noise estimate needs a dozen second differences.
@@ -95,7 +96,8 @@ pub const SPIKE_FWHM_Q8: u32 = 160;
 /// sorted by centre.
 ///
 /// `flags` are the per-pixel marks from conditioning (all 0 if none); `scratch` needs
-/// [`SCRATCH_PER_PIXEL`] × `frame.len()` cells. `out` is cleared first. When more than [`MAX_PEAKS`]
+/// [`SCRATCH_PER_PIXEL`] × `frame.len()` cells; `work` holds the fixed-size tables (nothing in it
+/// carries over between calls). `out` is cleared first. When more than [`MAX_PEAKS`]
 /// lines qualify, the strongest are kept and the report says `truncated`. Peaks narrower than
 /// [`SPIKE_FWHM_Q8`] × the configured minimum FWHM are single-pixel spikes and are left out.
 ///
@@ -120,6 +122,7 @@ pub fn find_peaks(
     frame: &[i32],
     flag: &[u8],
     scratch: &mut [i32],
+    work: &mut FindWork,
     out: &mut PeakList,
 ) -> Result<FindReport, FindError> {
     out.clear();
@@ -144,9 +147,15 @@ pub fn find_peaks(
     let s_min = ((i64::from(cfg.fwhm_min_px_q8) << 24) / FWHM_PER_SIGMA_Q16) >> 1;
     let s_max = (i64::from(cfg.fwhm_max_px_q8) << 24) / FWHM_PER_SIGMA_Q16;
     let shot = cfg.shot_var_per_unit_q16;
-    let mut blocks = noise::NoiseBlocks::measure(frame, flag, &LineMask::new());
+    let FindWork {
+        blocks,
+        cands,
+        mask,
+        fits,
+    } = work;
+    mask.clear();
+    blocks.measure_in_place(frame, flag, mask);
     let mut nm = blocks.model(shot).unwrap_or(noise::fallback(shot));
-    let mut cands: Vec<Candidate, MAX_CANDIDATES> = Vec::new();
     let mut truncated = false;
     // Two looks: the first finds the lines, the second re-estimates the noise away from them (dense
     // strong lines inflate every block's second differences) and, when that moved the model by more
@@ -161,11 +170,11 @@ pub fn find_peaks(
     detect::smooth_residual_known(frame, base, tmp, narrow);
     for look in 0..2 {
         cands.clear();
-        truncated = detect::find_candidates(tmp, base, &nm, cfg, 4 * fwhm_max_px, &mut cands);
+        truncated = detect::find_candidates(tmp, base, &nm, cfg, 4 * fwhm_max_px, cands);
         if look == 1 || cands.is_empty() {
             break;
         }
-        let mut mask = LineMask::new();
+        mask.clear();
         let data = fit::FitData {
             frame,
             base,
@@ -181,7 +190,7 @@ pub fn find_peaks(
             mask.mark(c.pos, half.min(3 * fwhm_max_px));
         }
         // Only the blocks the lines touch change.
-        blocks.remeasure_masked(frame, flag, &mask);
+        blocks.remeasure_masked(frame, flag, mask);
         match blocks.model(shot) {
             Some(better) => {
                 // A model within 1/8 of the first would move thresholds too little to look again.
@@ -195,7 +204,7 @@ pub fn find_peaks(
         }
     }
     let candidates = u16::try_from(cands.len()).unwrap_or(u16::MAX);
-    detect::thin(&mut cands, cfg.min_separation_px_q8);
+    detect::thin(cands, cfg.min_separation_px_q8);
     if cands.len() > MAX_PEAKS {
         truncated = true;
         cands.truncate(MAX_PEAKS);
@@ -209,8 +218,7 @@ pub fn find_peaks(
         neighbours: [None, None],
     };
     // First fits, each line alone, in centre order.
-    // (fit, candidate pixel); 48 B each, the largest table on find's stack.
-    let mut fits: Vec<(fit::Fit, u16), MAX_PEAKS> = Vec::new();
+    fits.clear();
     let mut budget = STEP_BUDGET;
     for c in cands.iter() {
         let s0 = half_width_sigma(&data, c.pos, fwhm_max_px)
@@ -222,7 +230,7 @@ pub fn find_peaks(
         // Capacity: at most MAX_PEAKS candidates remain.
         let _ = fits.push((f, u16::try_from(c.pos).unwrap_or(u16::MAX)));
     }
-    crate::sort::sort_by_key(&mut fits, |(f, _)| f.center_q16);
+    crate::sort::sort_by_key(fits, |(f, _)| f.center_q16);
     // Lines whose windows reach a neighbour are fitted again with the neighbours' first fits taken out:
     // the next line's is still in `fits`, the previous line's is kept aside before it is replaced.
     let mut prev_first: Option<fit::Fit> = None;
@@ -412,7 +420,15 @@ mod tests {
         let fl = std::vec![0u8; frame.len()];
         let mut scratch = std::vec![0i32; SCRATCH_PER_PIXEL * frame.len()];
         let mut out = PeakList::new();
-        let rep = find_peaks(cfg, frame, &fl, &mut scratch, &mut out).unwrap();
+        let rep = find_peaks(
+            cfg,
+            frame,
+            &fl,
+            &mut scratch,
+            &mut FindWork::new(),
+            &mut out,
+        )
+        .unwrap();
         (out, rep)
     }
 
@@ -644,7 +660,15 @@ mod tests {
             .collect();
         let mut scratch = std::vec![0i32; 512];
         let mut out = PeakList::new();
-        find_peaks(&FindConfig::DEFAULT, &frame, &fl, &mut scratch, &mut out).unwrap();
+        find_peaks(
+            &FindConfig::DEFAULT,
+            &frame,
+            &fl,
+            &mut scratch,
+            &mut FindWork::new(),
+            &mut out,
+        )
+        .unwrap();
         assert_eq!(out.len(), 1);
         assert!(out[0].saturated);
         assert!((i64::from(out[0].center_px_q16) - c).abs() < 1 << 11);
@@ -702,7 +726,15 @@ mod tests {
         let fl = std::vec![0u8; 512];
         let mut scratch = std::vec![0i32; SCRATCH_PER_PIXEL * 512];
         let mut out = PeakList::new();
-        find_peaks(&FindConfig::DEFAULT, &frame, &fl, &mut scratch, &mut out).unwrap();
+        find_peaks(
+            &FindConfig::DEFAULT,
+            &frame,
+            &fl,
+            &mut scratch,
+            &mut FindWork::new(),
+            &mut out,
+        )
+        .unwrap();
         assert_eq!(out.len(), 1);
         for i in [30usize, 200, 480] {
             let want = 1000 + 2 * i as i32;
@@ -761,34 +793,77 @@ mod tests {
         let mut scratch = std::vec![0i32; 2 * 4097];
         // 1 pixel and too short.
         assert_eq!(
-            find_peaks(&cfg, &[5], &[0], &mut scratch, &mut out),
+            find_peaks(
+                &cfg,
+                &[5],
+                &[0],
+                &mut scratch,
+                &mut FindWork::new(),
+                &mut out
+            ),
             Err(FindError::TooFewPixels)
         );
         // Too long.
         let big = std::vec![0i32; 4097];
         let big_fl = std::vec![0u8; 4097];
         assert_eq!(
-            find_peaks(&cfg, &big, &big_fl, &mut scratch, &mut out),
+            find_peaks(
+                &cfg,
+                &big,
+                &big_fl,
+                &mut scratch,
+                &mut FindWork::new(),
+                &mut out
+            ),
             Err(FindError::TooManyPixels)
         );
         // Scratch and flag sizes.
         let f = [0i32; 64];
         assert_eq!(
-            find_peaks(&cfg, &f, &[0u8; 64], &mut scratch[..127], &mut out),
+            find_peaks(
+                &cfg,
+                &f,
+                &[0u8; 64],
+                &mut scratch[..127],
+                &mut FindWork::new(),
+                &mut out
+            ),
             Err(FindError::ScratchTooSmall)
         );
         assert_eq!(
-            find_peaks(&cfg, &f, &[0u8; 63], &mut scratch, &mut out),
+            find_peaks(
+                &cfg,
+                &f,
+                &[0u8; 63],
+                &mut scratch,
+                &mut FindWork::new(),
+                &mut out
+            ),
             Err(FindError::LengthMismatch)
         );
         let mut bad = cfg;
         bad.fwhm_min_px_q8 = 0;
         assert_eq!(
-            find_peaks(&bad, &f, &[0u8; 64], &mut scratch, &mut out),
+            find_peaks(
+                &bad,
+                &f,
+                &[0u8; 64],
+                &mut scratch,
+                &mut FindWork::new(),
+                &mut out
+            ),
             Err(FindError::BadConfig)
         );
         // All zero: no peaks, zero noise.
-        let rep = find_peaks(&cfg, &f, &[0u8; 64], &mut scratch, &mut out).unwrap();
+        let rep = find_peaks(
+            &cfg,
+            &f,
+            &[0u8; 64],
+            &mut scratch,
+            &mut FindWork::new(),
+            &mut out,
+        )
+        .unwrap();
         assert!(out.is_empty());
         assert_eq!(
             rep.noise_floor_q8, 16,
@@ -796,7 +871,15 @@ mod tests {
         );
         // All saturated: no peaks, every pixel untrusted.
         let sat = [40_000i32; 64];
-        let rep = find_peaks(&cfg, &sat, &[flags::SATURATED; 64], &mut scratch, &mut out).unwrap();
+        let rep = find_peaks(
+            &cfg,
+            &sat,
+            &[flags::SATURATED; 64],
+            &mut scratch,
+            &mut FindWork::new(),
+            &mut out,
+        )
+        .unwrap();
         assert!(out.is_empty());
         assert_eq!(rep.untrusted_pixels, 64);
         // 4096 pixels with one line near the end (further in than the baseline half-width: closer lines

@@ -81,6 +81,15 @@ struct Block {
     kept: bool,
 }
 
+impl Block {
+    const EMPTY: Self = Self {
+        var_q8: 0,
+        level: 0,
+        used: false,
+        kept: false,
+    };
+}
+
 /// Estimates the noise model of `frame` from trusted pixels (see [`flags`]) outside `mask`.
 ///
 /// `known_shot_q16` fixes κ; otherwise it is fitted and kept ≥ 0. When the block levels span too little
@@ -111,14 +120,29 @@ impl NoiseBlocks {
     ///
     /// Loop bound: one pass over N = min(`frame.len()`, [`MAX_PIXELS`]) pixels (plus one range check).
     pub fn measure(frame: &[i32], flag: &[u8], mask: &LineMask) -> Self {
-        let mut me = Self {
-            blocks: [Block::default(); MAX_BLOCKS],
-            n: frame.len().min(MAX_PIXELS).div_ceil(BLOCK_PX),
-            // ADC frames: sums of 64 values and their second differences stay inside 32 bits.
-            narrow: frame.iter().all(|&v| (-NARROW..=NARROW).contains(&v)),
-        };
-        me.refresh(frame, flag, mask, false);
+        let mut me = Self::new();
+        me.measure_in_place(frame, flag, mask);
         me
+    }
+
+    /// No blocks yet (a `const`, so [`FindWork`](super::work::FindWork) can sit in a `static`).
+    pub const fn new() -> Self {
+        Self {
+            blocks: [Block::EMPTY; MAX_BLOCKS],
+            n: 0,
+            narrow: false,
+        }
+    }
+
+    /// [`measure`](Self::measure) into `self`, which may hold an earlier frame's blocks (all are
+    /// measured again): no 1.5 KiB value on the stack.
+    ///
+    /// Loop bound: as for [`measure`](Self::measure).
+    pub fn measure_in_place(&mut self, frame: &[i32], flag: &[u8], mask: &LineMask) {
+        self.n = frame.len().min(MAX_PIXELS).div_ceil(BLOCK_PX);
+        // ADC frames: sums of 64 values and their second differences stay inside 32 bits.
+        self.narrow = frame.iter().all(|&v| (-NARROW..=NARROW).contains(&v));
+        self.refresh(frame, flag, mask, false);
     }
 
     /// Re-measures the blocks whose pixels (or the pixel on either side) `mask` touches; `frame` must
