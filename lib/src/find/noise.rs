@@ -115,6 +115,12 @@ pub struct NoiseBlocks {
     narrow: bool,
 }
 
+impl Default for NoiseBlocks {
+    fn default() -> Self {
+        Self::new()
+    }
+}
+
 impl NoiseBlocks {
     /// Measures every block of `frame` from trusted pixels outside `mask`.
     ///
