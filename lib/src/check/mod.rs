@@ -17,7 +17,7 @@ pub use config::{Config, StoredMap};
 pub use error::CheckError;
 pub use pipeline::Checker;
 pub use stage::Stage;
-pub use workspace::{Buffers, Workspace};
+pub use workspace::{Buffers, MatchWork, Workspace};
 
 #[cfg(test)]
 mod scenario_tests;

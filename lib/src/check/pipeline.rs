@@ -2,7 +2,7 @@
 use super::config::Config;
 use super::error::CheckError;
 use super::stage::Stage;
-use super::workspace::Workspace;
+use super::workspace::{MatchWork, Workspace};
 use crate::bounded::collect_bounded;
 use crate::calibrate::{
     identify, CalibrateError, HalfWidth, IdentifyConfig, ReferenceLine, WavelengthMap,
@@ -37,7 +37,7 @@ pub struct Checker {
 }
 
 /// The map a check measures with, and its uncertainty.
-struct MapInUse {
+pub(super) struct MapInUse {
     map: WavelengthMap,
     fit: Option<crate::calibrate::MapFit>,
     stored_sigma_fm: u32,
@@ -203,7 +203,12 @@ impl Checker {
             scratch,
             peaks,
             find,
+            matching,
         } = work;
+        let MatchWork {
+            features,
+            map: slot,
+        } = matching;
         let info = condition_frame(&cfg.condition, signal, dark, gain, frame, flags)?;
         at(Stage::Conditioned);
         let mut fcfg = cfg.find;
@@ -237,15 +242,16 @@ impl Checker {
             report.decide();
             return Ok(());
         }
-        let mut in_use = match self.map_for(peaks, report) {
-            Some(m) => m,
-            None => {
-                // Calibration failed: list every peak on the stored map so the user sees what was there.
-                let m = MapInUse::new(cfg.stored.map, None, cfg.stored.sigma_fm);
-                self.unexplained(peaks, &[], &m, report);
-                report.decide();
-                return Ok(());
-            }
+        // The map in use lives in the caller's workspace (≈ 700 B), written in place.
+        if !self.map_for(peaks, report, slot) {
+            // Calibration failed: list every peak on the stored map so the user sees what was there.
+            let m = slot.insert(MapInUse::new(cfg.stored.map, None, cfg.stored.sigma_fm));
+            self.unexplained(peaks, &[], m, report);
+            report.decide();
+            return Ok(());
+        }
+        let Some(in_use) = slot.as_mut() else {
+            return Ok(());
         };
         report.map = Some(in_use.map);
         at(Stage::Calibrated);
@@ -253,17 +259,18 @@ impl Checker {
         // a pair that does show as two is split again after matching.
         let merge_q16 = ((cfg.line_fwhm_px_q8 as i32) << 8) * 3 / 2;
         // Every line's pixel is found once, while grouping, for all the steps below.
-        let mut features = group_placing(
+        group_placing(
             &self.catalogue,
             &in_use.map,
             &self.priors,
             merge_q16,
             &mut in_use.lines,
+            features,
         )?;
-        let in_use = in_use;
-        let pairs = assign(&features, peaks, |f| self.window_px_q16(f, &in_use));
-        let pairs = self.split_resolved(&features, pairs, peaks, &in_use);
-        let estimate = self.isotope(&features, &pairs, peaks, &in_use, frame, base);
+        let in_use: &MapInUse = in_use;
+        let pairs = assign(features, peaks, |f| self.window_px_q16(f, in_use));
+        let pairs = self.split_resolved(features, pairs, peaks, in_use);
+        let estimate = self.isotope(features, &pairs, peaks, in_use, frame, base);
         let shares = self.shares(estimate);
         let hw = HalfWidth::reciprocal(&in_use.map);
         for f in features.iter_mut() {
@@ -289,12 +296,14 @@ impl Checker {
         Ok(())
     }
 
-    /// The map for this frame: the stored one (verify) or one fitted to the peaks (calibrate modes).
-    fn map_for(&self, peaks: &PeakList, report: &mut Report) -> Option<MapInUse> {
+    /// The map for this frame into `slot`: the stored one (verify) or one fitted to the peaks
+    /// (calibrate modes); `false` (and `slot` left as it was) when calibration failed.
+    fn map_for(&self, peaks: &PeakList, report: &mut Report, slot: &mut Option<MapInUse>) -> bool {
         let cfg = &self.cfg;
         let stored_sigma_fm = cfg.stored.sigma_fm;
         if cfg.mode == Mode::Verify {
-            return Some(MapInUse::new(cfg.stored.map, None, stored_sigma_fm));
+            *slot = Some(MapInUse::new(cfg.stored.map, None, stored_sigma_fm));
+            return true;
         }
         let refs = &self.refs;
         let nominal = if cfg.mode == Mode::Calibrate {
@@ -307,11 +316,12 @@ impl Checker {
             Ok(id) => {
                 report.fit_rms_fm = Some(id.fit.rms_residual_fm);
                 report.drift_fm = drift_fm(&id.fit.map, &cfg.stored.map, cfg.pixels);
-                Some(MapInUse::new(id.fit.map, Some(id.fit), stored_sigma_fm))
+                *slot = Some(MapInUse::new(id.fit.map, Some(id.fit), stored_sigma_fm));
+                true
             }
             Err(e) => {
                 report.note(Reason::Calibration(e));
-                None
+                false
             }
         }
     }

@@ -1,6 +1,9 @@
 //! Caller-owned memory for one check: no heap, and the caller decides where it lives.
+use super::pipeline::MapInUse;
 use crate::condition::MAX_PIXELS;
 use crate::find::{FindWork, PeakList, SCRATCH_PER_PIXEL};
+use crate::matching::feature::{Feature, MAX_FEATURES};
+use heapless::Vec;
 
 /// Borrowed buffers for a frame of N pixels: `frame` and `flags` of N, `scratch` of 2N.
 pub struct Workspace<'a> {
@@ -14,16 +17,42 @@ pub struct Workspace<'a> {
     pub peaks: &'a mut PeakList,
     /// Peak finding's tables (≈ 6 KiB), for the same reason.
     pub find: &'a mut FindWork,
+    /// Matching's tables (≈ 2.3 KiB), for the same reason.
+    pub matching: &'a mut MatchWork,
 }
 
-/// Owned buffers for frames up to `N` pixels (13 N bytes + 2 KiB of peaks + ≈ 6 KiB of peak-finding
-/// tables): put one in a `static` on a microcontroller.
+/// What matching keeps for one check (the features, 1.6 KiB; the map in use with its fit and the
+/// lines' pixels, ≈ 700 B); nothing carries over to the next frame.
+pub struct MatchWork {
+    pub(super) features: Vec<Feature, MAX_FEATURES>,
+    pub(super) map: Option<MapInUse>,
+}
+
+impl MatchWork {
+    /// Empty (a `const`, so a `static` can hold it).
+    pub const fn new() -> Self {
+        Self {
+            features: Vec::new(),
+            map: None,
+        }
+    }
+}
+
+impl Default for MatchWork {
+    fn default() -> Self {
+        Self::new()
+    }
+}
+
+/// Owned buffers for frames up to `N` pixels (13 N bytes + 2 KiB of peaks + ≈ 8.5 KiB of tables):
+/// put one in a `static` on a microcontroller.
 pub struct Buffers<const N: usize> {
     frame: [i32; N],
     flags: [u8; N],
     scratch: [[i32; SCRATCH_PER_PIXEL]; N],
     peaks: PeakList,
     find: FindWork,
+    matching: MatchWork,
 }
 
 impl<const N: usize> Buffers<N> {
@@ -41,6 +70,7 @@ impl<const N: usize> Buffers<N> {
             scratch: [[0; SCRATCH_PER_PIXEL]; N],
             peaks: PeakList::new(),
             find: FindWork::new(),
+            matching: MatchWork::new(),
         }
     }
 
@@ -54,6 +84,7 @@ impl<const N: usize> Buffers<N> {
             scratch: scratch.get_mut(..SCRATCH_PER_PIXEL * n).unwrap_or_default(),
             peaks: &mut self.peaks,
             find: &mut self.find,
+            matching: &mut self.matching,
         }
     }
 }
