@@ -277,7 +277,7 @@ impl Checker {
             settle_placed(f, &self.catalogue, &in_use.map, &hw, &shares, &in_use.lines)?;
         }
         self.fill_lines(
-            &features,
+            features,
             &pairs,
             peaks,
             &in_use,
@@ -290,7 +290,7 @@ impl Checker {
             // The stored scale explains the peaks worse than a shifted one: said in the reasons.
         }
         at(Stage::Matched);
-        self.judge(&features, &pairs, peaks, report);
+        self.judge(features, &pairs, peaks, report);
         report.decide();
         at(Stage::Judged);
         Ok(())
