@@ -280,11 +280,11 @@ impl Checker {
             features,
             &pairs,
             peaks,
-            &in_use,
+            in_use,
             estimate.is_some(),
             report,
         )?;
-        self.unexplained(peaks, &pairs, &in_use, report);
+        self.unexplained(peaks, &pairs, in_use, report);
         self.report_shares(estimate, report);
         if cfg.mode == Mode::Verify && self.shifted_scale(peaks, report) {
             // The stored scale explains the peaks worse than a shifted one: said in the reasons.
