@@ -43,7 +43,7 @@ use glowcheck::judge::{Mode, Report};
 use glowcheck_float_baseline::{condition_find_centroid, FloatPeak, MAX_PEAKS};
 use glowcheck_pipeline_report::adversarial::{ADVERSARIES, MAX_ADVERSARY_PIXELS};
 use glowcheck_pipeline_report::traces::{AIR_LEAK, D_LAMP, H_TUBE, PIXELS};
-use glowcheck_pipeline_report::{check, checker, config_for, mode_name, Case, CASES};
+use glowcheck_pipeline_report::{check, checker, config, config_for, mode_name, Case, CASES};
 
 /// SysTick wraps (every 2²⁴ ticks) since [`start_clock`].
 static WRAPS: AtomicU32 = AtomicU32::new(0);
@@ -296,13 +296,19 @@ pub fn run(buffers: &mut Buffers<PIXELS>, report: &mut Report, syst: SYST) -> de
         return debug::EXIT_FAILURE;
     };
     let (verify, _) = stack_of(|| checker(&verify_case));
-    let (calibrate, stack_new) = stack_of(|| {
+    // The calibrate checker is predicted in place, as a small core keeps it (in the caller, here
+    // main's frame): the stack counted is configure's own.
+    let Ok(cfg) = config(&case) else {
+        return debug::EXIT_FAILURE;
+    };
+    let mut calibrate = Checker::blank(cfg.clone());
+    let (configured, stack_new) = stack_of(|| {
         mark(0);
-        let c = checker(&case);
+        let c = calibrate.configure(cfg);
         mark(1);
         c
     });
-    let (Ok(verify), Ok(calibrate)) = (verify, calibrate) else {
+    let (Ok(verify), Ok(())) = (verify, configured) else {
         return debug::EXIT_FAILURE;
     };
     let cfg = calibrate.config();

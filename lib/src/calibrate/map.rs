@@ -270,6 +270,14 @@ pub(crate) struct HalfWidth {
 }
 
 impl HalfWidth {
+    /// All zero: a placeholder until a map is known (a `static` holding one stays in `.bss`).
+    pub(crate) const ZERO: HalfWidth = HalfWidth {
+        hw: 0,
+        recip: None,
+        c1: 0,
+        recip_c1: None,
+    };
+
     /// Plain `checked_div` (one use).
     fn plain(map: &WavelengthMap) -> HalfWidth {
         HalfWidth {

@@ -19,6 +19,8 @@ pub enum CheckError {
     BadConfig,
     /// The frame's length differs from the configured pixel count.
     WrongPixelCount,
+    /// The checker has no predicted lines: made with `Checker::blank`, or its last `configure` failed.
+    NotConfigured,
 }
 
 impl fmt::Display for CheckError {
@@ -32,6 +34,9 @@ impl fmt::Display for CheckError {
             ),
             CheckError::WrongPixelCount => {
                 f.write_str("frame length differs from the configured pixel count")
+            }
+            CheckError::NotConfigured => {
+                f.write_str("checker not configured: no predicted lines to check against")
             }
         }
     }

@@ -12,7 +12,7 @@ use crate::condition::{condition_frame, FrameSum, GainTable};
 use crate::find::{find_peaks, Peak, PeakList};
 use crate::judge::{MatchedLine, Mode, Reason, Report, SpeciesShare, UnexplainedPeak};
 use crate::matching::assign::{assign, Pair};
-use crate::matching::catalogue::{build, CatalogueLine, MAX_NUCLEI};
+use crate::matching::catalogue::{build_into, CatalogueLine, MAX_NUCLEI};
 use crate::matching::feature::{group_placing, prior_share, settle_placed, Feature, MAX_FEATURES};
 use crate::matching::isotope::{
     share_by_position, share_by_profile, BlendReading, PairWindow, ShareEstimate,
@@ -48,6 +48,21 @@ pub(super) struct MapInUse {
 }
 
 impl MapInUse {
+    /// All zero, a placeholder in [`MatchWork`] until a check writes the frame's map (so a `static`
+    /// holding the workspace stays in `.bss`, not in flash).
+    pub(super) const EMPTY: MapInUse = MapInUse {
+        map: WavelengthMap {
+            center_px_q16: 0,
+            half_width_px_q16: 0,
+            degree: 0,
+            coeff_fm: [0; 4],
+        },
+        fit: None,
+        stored_sigma_fm: 0,
+        lines: LinePixels::new(),
+        div: HalfWidth::ZERO,
+    };
+
     fn new(
         map: WavelengthMap,
         fit: Option<crate::calibrate::MapFit>,
@@ -109,20 +124,67 @@ impl Checker {
     /// Validates the configuration and predicts the lines of the profile's species (and the
     /// isotope partner of a lone hydrogen species) over the sensor's range.
     ///
+    /// The checker (≈ 1.8 KiB) comes back by value; on a small core, keep one in a `static` made
+    /// with [`blank`](Self::blank) and call [`configure`](Self::configure), which predicts in place.
+    ///
     /// Work: line prediction of ≤ 4 nuclei over the sensor window (the costly part, once).
     pub fn new(cfg: Config) -> Result<Checker, CheckError> {
-        let primary = cfg.profile.primary().ok_or(CheckError::BadConfig)?;
+        let mut c = Checker::blank(cfg.clone());
+        c.configure(cfg)?;
+        Ok(c)
+    }
+
+    /// A checker holding `cfg` but no predicted lines yet: [`check`](Self::check) refuses every
+    /// frame with [`CheckError::NotConfigured`] until [`configure`](Self::configure) succeeds. A
+    /// `const fn`, so a `static` can hold one.
+    pub const fn blank(cfg: Config) -> Checker {
+        Checker {
+            cfg,
+            priors: Vec::new(),
+            catalogue: Vec::new(),
+            pair: None,
+            refs: Vec::new(),
+        }
+    }
+
+    /// [`new`](Self::new) in place: validates `cfg` and predicts its lines into this checker, e.g.
+    /// when the instrument's user picks another profile. On an error the checker is left
+    /// [`blank`](Self::blank) (it refuses frames) with `cfg` stored.
+    ///
+    /// Work: as [`new`](Self::new).
+    pub fn configure(&mut self, cfg: Config) -> Result<(), CheckError> {
+        self.cfg = cfg;
+        self.priors.clear();
+        self.catalogue.clear();
+        self.pair = None;
+        self.refs.clear();
+        let done = self.predict();
+        if done.is_err() {
+            self.priors.clear();
+            self.catalogue.clear();
+            self.pair = None;
+            self.refs.clear();
+        }
+        done
+    }
+
+    /// The prediction behind [`configure`](Self::configure), on cleared tables. Out of line: one
+    /// copy of the prediction code whether a firmware calls `new`, `configure` or both.
+    #[inline(never)]
+    fn predict(&mut self) -> Result<(), CheckError> {
+        let cfg = &self.cfg;
+        cfg.profile.primary().ok_or(CheckError::BadConfig)?;
         if !(1..=3).contains(&cfg.degree) || cfg.line_fwhm_px_q8 == 0 || cfg.pixels < 16 {
             return Err(CheckError::BadConfig);
         }
-        let mut priors: Vec<(Nucleus, u16), MAX_NUCLEI> = Vec::new();
+        let priors = &mut self.priors;
         for s in cfg.profile.expected() {
             let mid = (s.min_share_permille as u32 + s.max_share_permille as u32) / 2;
             let _ = priors.push((s.nucleus, mid.max(1) as u16));
         }
         let hydrogen: Vec<Nucleus, MAX_NUCLEI> =
             collect_bounded(priors.iter().map(|p| p.0).filter(|n| n.z() == 1));
-        let pair = match hydrogen.as_slice() {
+        self.pair = match hydrogen.as_slice() {
             [a, b, ..] => Some((*a, *b)),
             [a] => {
                 let partner = if *a == Nucleus::H1 {
@@ -135,18 +197,11 @@ impl Checker {
             }
             [] => None,
         };
-        let _ = primary;
-        let (lo, hi) = sensor_range(&cfg)?;
+        let (lo, hi) = sensor_range(cfg)?;
         let nuclei: Vec<Nucleus, MAX_NUCLEI> = collect_bounded(priors.iter().map(|p| p.0));
-        let catalogue = build(&nuclei, lo, hi, &cfg.air)?;
-        let refs = reference_lines(&catalogue, &priors);
-        Ok(Checker {
-            cfg,
-            priors,
-            catalogue,
-            pair,
-            refs,
-        })
+        build_into(&nuclei, lo, hi, &cfg.air, &mut self.catalogue)?;
+        reference_lines(&self.catalogue, &self.priors, &mut self.refs);
+        Ok(())
     }
 
     /// The configuration.
@@ -194,6 +249,9 @@ impl Checker {
         mut at: impl FnMut(Stage),
     ) -> Result<(), CheckError> {
         let cfg = &self.cfg;
+        if self.catalogue.is_empty() {
+            return Err(CheckError::NotConfigured);
+        }
         if signal.len() != cfg.pixels as usize {
             return Err(CheckError::WrongPixelCount);
         }
@@ -245,14 +303,12 @@ impl Checker {
         // The map in use lives in the caller's workspace (≈ 700 B), written in place.
         if !self.map_for(peaks, report, slot) {
             // Calibration failed: list every peak on the stored map so the user sees what was there.
-            let m = slot.insert(MapInUse::new(cfg.stored.map, None, cfg.stored.sigma_fm));
-            self.unexplained(peaks, &[], m, report);
+            *slot = MapInUse::new(cfg.stored.map, None, cfg.stored.sigma_fm);
+            self.unexplained(peaks, &[], slot, report);
             report.decide();
             return Ok(());
         }
-        let Some(in_use) = slot.as_mut() else {
-            return Ok(());
-        };
+        let in_use = slot;
         report.map = Some(in_use.map);
         at(Stage::Calibrated);
         // Closer than 1.5 line widths, two lines may show as one peak (peak finding's own blend limit);
@@ -276,14 +332,7 @@ impl Checker {
         for f in features.iter_mut() {
             settle_placed(f, &self.catalogue, &in_use.map, &hw, &shares, &in_use.lines)?;
         }
-        self.fill_lines(
-            features,
-            &pairs,
-            peaks,
-            in_use,
-            estimate.is_some(),
-            report,
-        )?;
+        self.fill_lines(features, &pairs, peaks, in_use, estimate.is_some(), report)?;
         self.unexplained(peaks, &pairs, in_use, report);
         self.report_shares(estimate, report);
         if cfg.mode == Mode::Verify && self.shifted_scale(peaks, report) {
@@ -298,11 +347,11 @@ impl Checker {
 
     /// The map for this frame into `slot`: the stored one (verify) or one fitted to the peaks
     /// (calibrate modes); `false` (and `slot` left as it was) when calibration failed.
-    fn map_for(&self, peaks: &PeakList, report: &mut Report, slot: &mut Option<MapInUse>) -> bool {
+    fn map_for(&self, peaks: &PeakList, report: &mut Report, slot: &mut MapInUse) -> bool {
         let cfg = &self.cfg;
         let stored_sigma_fm = cfg.stored.sigma_fm;
         if cfg.mode == Mode::Verify {
-            *slot = Some(MapInUse::new(cfg.stored.map, None, stored_sigma_fm));
+            *slot = MapInUse::new(cfg.stored.map, None, stored_sigma_fm);
             return true;
         }
         let refs = &self.refs;
@@ -316,7 +365,7 @@ impl Checker {
             Ok(id) => {
                 report.fit_rms_fm = Some(id.fit.rms_residual_fm);
                 report.drift_fm = drift_fm(&id.fit.map, &cfg.stored.map, cfg.pixels);
-                *slot = Some(MapInUse::new(id.fit.map, Some(id.fit), stored_sigma_fm));
+                *slot = MapInUse::new(id.fit.map, Some(id.fit), stored_sigma_fm);
                 true
             }
             Err(e) => {
@@ -925,24 +974,33 @@ impl Checker {
 fn reference_lines(
     catalogue: &[CatalogueLine],
     priors: &[(Nucleus, u16)],
-) -> Vec<ReferenceLine, MAX_REFERENCE_LINES> {
-    let mut out: Vec<(ReferenceLine, u8, u8, u8), MAX_REFERENCE_LINES> = Vec::new();
-    let mut weights: Vec<u64, MAX_REFERENCE_LINES> = Vec::new();
-    for line in catalogue.iter() {
+    refs: &mut Vec<ReferenceLine, MAX_REFERENCE_LINES>,
+) {
+    // Each entry's transition (its first catalogue line) and total weight, by position in `refs`:
+    // the lines are written in place, the keys kept as catalogue indices (48 B, not 1.2 KiB).
+    let mut first = [0u8; MAX_REFERENCE_LINES];
+    let mut weights = [0u64; MAX_REFERENCE_LINES];
+    refs.clear();
+    for (i, line) in catalogue.iter().enumerate().take(MAX_CATALOGUE) {
         let share = prior_share(priors, line.nucleus) as u64;
         if share == 0 {
             continue;
         }
         let w = line.strength as u64 * share;
         let key = (line.nucleus.z(), line.lower, line.upper);
-        if let Some(pos) = out.iter().position(|(_, z, m, n)| (*z, *m, *n) == key) {
-            if let (Some(e), Some(tw)) = (out.get_mut(pos), weights.get_mut(pos)) {
+        let same_key = |k: &u8| {
+            catalogue
+                .get(*k as usize)
+                .is_some_and(|c| (c.nucleus.z(), c.lower, c.upper) == key)
+        };
+        if let Some(pos) = first.iter().take(refs.len()).position(same_key) {
+            if let (Some(e), Some(tw)) = (refs.get_mut(pos), weights.get_mut(pos)) {
                 let total = *tw + w;
-                let mixed = (e.0.wavelength_fm as i128 * *tw as i128
+                let mixed = (e.wavelength_fm as i128 * *tw as i128
                     + line.wavelength_fm as i128 * w as i128)
                     / total.max(1) as i128;
-                e.0.wavelength_fm = mixed as i64;
-                e.0.strength = e.0.strength.saturating_add((w / 1000) as u32);
+                e.wavelength_fm = mixed as i64;
+                e.strength = e.strength.saturating_add((w / 1000) as u32);
                 *tw = total;
             }
             continue;
@@ -951,14 +1009,15 @@ fn reference_lines(
             wavelength_fm: line.wavelength_fm,
             strength: (w / 1000) as u32,
         };
-        if out.push((r, key.0, key.1, key.2)).is_ok() {
-            let _ = weights.push(w);
+        let at = refs.len();
+        if refs.push(r).is_ok() {
+            if let (Some(f), Some(tw)) = (first.get_mut(at), weights.get_mut(at)) {
+                *f = i as u8;
+                *tw = w;
+            }
         }
     }
-    let mut refs: Vec<ReferenceLine, MAX_REFERENCE_LINES> =
-        collect_bounded(out.iter().map(|e| e.0));
-    crate::sort::sort_by_key(&mut refs, |r| r.wavelength_fm);
-    refs
+    crate::sort::sort_by_key(refs, |r| r.wavelength_fm);
 }
 
 /// (v · 2^32) / d truncated, for d ≥ 1: in `i64` when |v| < 2^31 (the same quotient), else 128-bit.

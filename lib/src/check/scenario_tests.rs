@@ -327,3 +327,36 @@ fn traced_check_reports_every_stage_in_order_and_the_same_report() {
     let (_, seen) = traced(Mode::Verify, &std::vec![100u16; N]);
     assert_eq!(seen, [Stage::Conditioned, Stage::PeaksFound]);
 }
+
+/// A blank checker refuses frames; configured in place it checks exactly as a new one does, and a
+/// failed re-configuration leaves it refusing again (never checking against stale lines).
+#[test]
+fn blank_then_configure_in_place_matches_new() {
+    let cfg = config(Mode::Verify, profile::HYDROGEN, truth());
+    let raw = frame(&[(Nucleus::H1, 1000)], &[], 3 << 8, 3000, 31);
+    let mut checker = Checker::blank(cfg.clone());
+    let mut buf = std::boxed::Box::new(Buffers::<N>::new());
+    let mut report = Report::new();
+    let signal = FrameSum::single(&raw).unwrap();
+    assert_eq!(
+        checker.check(signal, None, None, buf.workspace(N), &mut report),
+        Err(CheckError::NotConfigured)
+    );
+    checker.configure(cfg.clone()).unwrap();
+    checker
+        .check(signal, None, None, buf.workspace(N), &mut report)
+        .unwrap();
+    assert_eq!(report, run(cfg.clone(), &raw));
+    assert_eq!(report.verdict, Verdict::Pass, "{:?}", report.reasons);
+    assert_eq!(
+        checker.catalogue(),
+        Checker::new(cfg.clone()).unwrap().catalogue()
+    );
+    let bad = Config { degree: 0, ..cfg };
+    assert_eq!(checker.configure(bad), Err(CheckError::BadConfig));
+    assert!(checker.catalogue().is_empty());
+    assert_eq!(
+        checker.check(signal, None, None, buf.workspace(N), &mut report),
+        Err(CheckError::NotConfigured)
+    );
+}

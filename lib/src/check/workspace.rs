@@ -25,7 +25,7 @@ pub struct Workspace<'a> {
 /// lines' pixels, ≈ 700 B); nothing carries over to the next frame.
 pub struct MatchWork {
     pub(super) features: Vec<Feature, MAX_FEATURES>,
-    pub(super) map: Option<MapInUse>,
+    pub(super) map: MapInUse,
 }
 
 impl MatchWork {
@@ -33,7 +33,7 @@ impl MatchWork {
     pub const fn new() -> Self {
         Self {
             features: Vec::new(),
-            map: None,
+            map: MapInUse::EMPTY,
         }
     }
 }

@@ -53,7 +53,21 @@ pub fn build(
     to_fm: i64,
     air: &Air,
 ) -> Result<Vec<CatalogueLine, MAX_CATALOGUE>, MatchError> {
-    let mut out: Vec<CatalogueLine, MAX_CATALOGUE> = Vec::new();
+    let mut out = Vec::new();
+    build_into(nuclei, from_fm, to_fm, air, &mut out)?;
+    Ok(out)
+}
+
+/// [`build`] into `out` (cleared first), which the caller owns: the 1.2 KiB list is written in place
+/// rather than returned through a small core's stack. Work: as [`build`].
+pub fn build_into(
+    nuclei: &[Nucleus],
+    from_fm: i64,
+    to_fm: i64,
+    air: &Air,
+    out: &mut Vec<CatalogueLine, MAX_CATALOGUE>,
+) -> Result<(), MatchError> {
+    out.clear();
     let lo = from_fm.max(0) as u64;
     let hi = to_fm.max(0) as u64;
     for &nu in nuclei.iter().take(MAX_NUCLEI) {
@@ -73,7 +87,7 @@ pub fn build(
                 strength: kramers_strength(line.lower, line.upper),
             };
             // Full: the weakest line gives way to a stronger one.
-            crate::bounded::push_keep_strongest(&mut out, entry, |l| l.strength);
+            crate::bounded::push_keep_strongest(out, entry, |l| l.strength);
         }
     }
     // Lines under 1/300 of the strongest are the crowded members near a series limit: closer to each
@@ -81,11 +95,11 @@ pub fn build(
     // features around them.
     let top = out.iter().map(|l| l.strength).max().unwrap_or(0);
     out.retain(|l| l.strength >= top / 300);
-    crate::sort::sort_by_key(&mut out, |l| (l.wavelength_fm, l.nucleus));
+    crate::sort::sort_by_key(out, |l| (l.wavelength_fm, l.nucleus));
     if out.is_empty() {
         return Err(MatchError::NoLinesOnSensor);
     }
-    Ok(out)
+    Ok(())
 }
 
 #[cfg(test)]

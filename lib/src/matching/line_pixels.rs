@@ -13,7 +13,7 @@ pub(crate) struct LinePixels {
 }
 
 impl LinePixels {
-    pub(crate) fn new() -> LinePixels {
+    pub(crate) const fn new() -> LinePixels {
         LinePixels {
             px: [0; MAX_CATALOGUE],
             known: 0,
