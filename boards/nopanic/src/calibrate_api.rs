@@ -1,7 +1,8 @@
 //! Every public entry point of `glowcheck::calibrate`, on the found peaks and predicted lines.
 
 use glowcheck::calibrate::{
-    fit_map, identify, FitPoint, IdentifyConfig, ReferenceLine, WavelengthMap, MAX_REFERENCE_LINES,
+    fit_map, identify, identify_with, FitPoint, IdentifyConfig, IdentifyWork, ReferenceLine,
+    WavelengthMap, MAX_REFERENCE_LINES,
 };
 use glowcheck::find::Peak;
 use glowcheck::predict::{Air, Lines, Nucleus};
@@ -77,6 +78,11 @@ pub fn run(peaks: &[Peak]) {
             keep(u64::from(id.fit.points) ^ id.pairs.len() as u64);
             probe_map(&id.fit.map, &s);
         }
+        Err(e) => keep_error(e),
+    }
+    let mut work = IdentifyWork::new();
+    match identify_with(peaks, &lines, &cfg, &mut work) {
+        Ok(id) => keep(id.fit.rms_residual_fm ^ id.pairs.len() as u64),
         Err(e) => keep_error(e),
     }
 

@@ -125,4 +125,13 @@ pub fn run() {
     if let Err(e) = traced {
         keep_error(e);
     }
+    // In place: a blank checker refuses, configure predicts into it.
+    let mut again = Checker::blank(checker.config().clone());
+    if let Err(e) = again.check(signal, None, None, buffers.workspace(N), &mut report) {
+        keep_error(e);
+    }
+    match again.configure(checker.config().clone()) {
+        Ok(()) => keep(again.catalogue().len() as u64),
+        Err(e) => keep_error(e),
+    }
 }

@@ -48,6 +48,21 @@ pub struct MapFit {
 }
 
 impl MapFit {
+    /// All zero: a placeholder for a fit not made yet (so a `static` holding one stays in `.bss`).
+    pub(crate) const ZERO: MapFit = MapFit {
+        map: WavelengthMap {
+            center_px_q16: 0,
+            half_width_px_q16: 0,
+            degree: 0,
+            coeff_fm: [0; 4],
+        },
+        rms_residual_fm: 0,
+        chi2_per_dof_q8: 0,
+        points: 0,
+        inverse_q40: [[0; 4]; 4],
+        variance_scale_fm2: 0,
+    };
+
     /// 1-σ uncertainty of the map's wavelength at pixel p (px, Q16), femtometres.
     ///
     /// Work: fixed, ≤ 4 × 4 terms of two rounded products each (64-bit on the sensor, else
@@ -153,6 +168,19 @@ fn mul_q30_round(a: i64, v: i64) -> i64 {
 /// Work: three passes over the points (≤ [`MAX_FIT_POINTS`]: weights, normal sums, residuals), a fixed
 /// 4 × 4 × 9 Gauss–Jordan, and the 66-slope monotonicity check of [`WavelengthMap::with_frame`].
 pub fn fit_map(points: &[FitPoint], degree: u8, pixels: u16) -> Result<MapFit, CalibrateError> {
+    let mut fit = MapFit::ZERO;
+    fit_map_into(points, degree, pixels, &mut fit)?;
+    Ok(fit)
+}
+
+/// [`fit_map`] written into `out` (its content is unspecified after an error): the fit is built in
+/// the caller's slot, not copied up through a small core's stack. Work: as [`fit_map`].
+pub(crate) fn fit_map_into(
+    points: &[FitPoint],
+    degree: u8,
+    pixels: u16,
+    out: &mut MapFit,
+) -> Result<(), CalibrateError> {
     if !(1..=3).contains(&degree) || points.len() < degree as usize + 1 {
         return Err(CalibrateError::TooFewPoints);
     }
@@ -192,11 +220,11 @@ pub fn fit_map(points: &[FitPoint], degree: u8, pixels: u16) -> Result<MapFit, C
     }
     gauss_jordan(&mut m, d)?;
     let mut coeff = [0i64; 4];
-    let mut inverse = [[0i128; 4]; 4];
+    out.inverse_q40 = [[0; 4]; 4];
     for (r, ((row, c_out), inv_row)) in m
         .iter()
         .zip(coeff.iter_mut())
-        .zip(inverse.iter_mut())
+        .zip(out.inverse_q40.iter_mut())
         .enumerate()
         .take(d)
     {
@@ -257,14 +285,12 @@ pub fn fit_map(points: &[FitPoint], degree: u8, pixels: u16) -> Result<MapFit, C
     let sref_fm = ((sigma_min * slope_mid) >> 32).max(1);
     let birge_q8 = (chi2_per_dof_q8 as i128).max(256);
     let variance_scale = (sref_fm * sref_fm * birge_q8) >> 8;
-    Ok(MapFit {
-        map,
-        rms_residual_fm: rms,
-        chi2_per_dof_q8,
-        points: points.len() as u8,
-        inverse_q40: inverse,
-        variance_scale_fm2: u64::try_from(variance_scale).map_err(|_| CalibrateError::Overflow)?,
-    })
+    out.variance_scale_fm2 = u64::try_from(variance_scale).map_err(|_| CalibrateError::Overflow)?;
+    out.map = map;
+    out.rms_residual_fm = rms;
+    out.chi2_per_dof_q8 = chi2_per_dof_q8;
+    out.points = points.len() as u8;
+    Ok(())
 }
 
 /// One point's terms of the normal equations (Q60): w · x^(r+c) and w · x^r · λ, x and w in Q30.

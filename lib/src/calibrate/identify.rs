@@ -14,7 +14,7 @@
 //! matched pairs for the strength-order tie-breaker; then a first match and ≤ 4 refit rounds over all
 //! ≤ 64 peaks (≤ 5 map fits).
 use super::error::CalibrateError;
-use super::fit::{fit_map, FitPoint, MapFit};
+use super::fit::{fit_map_into, FitPoint, MapFit};
 use super::map::{HalfWidth, WavelengthMap};
 use crate::find::Peak;
 use heapless::Vec;
@@ -142,13 +142,58 @@ pub fn identify(
     lines: &[ReferenceLine],
     cfg: &IdentifyConfig,
 ) -> Result<Identified, CalibrateError> {
+    identify_with(peaks, lines, cfg, &mut IdentifyWork::new()).cloned()
+}
+
+/// What identification keeps while it runs (the per-peak axis, 1 KiB; the fit points, 0.8 KiB)
+/// and its result (0.4 KiB), owned by the caller so a small core's stack need not hold them;
+/// nothing carries over between calls.
+pub struct IdentifyWork {
+    axis: Axis,
+    points: Vec<FitPoint, MAX_REFERENCE_LINES>,
+    found: Identified,
+}
+
+impl IdentifyWork {
+    /// Empty (a `const`, so a `static` can hold it; all zero, so it sits in `.bss`).
+    pub const fn new() -> Self {
+        Self {
+            axis: Axis::EMPTY,
+            points: Vec::new(),
+            found: Identified {
+                fit: MapFit::ZERO,
+                pairs: Vec::new(),
+            },
+        }
+    }
+}
+
+impl Default for IdentifyWork {
+    fn default() -> Self {
+        Self::new()
+    }
+}
+
+/// [`identify`] with its tables and its result in `work`. Work bound: as [`identify`].
+pub fn identify_with<'w>(
+    peaks: &[Peak],
+    lines: &[ReferenceLine],
+    cfg: &IdentifyConfig,
+    work: &'w mut IdentifyWork,
+) -> Result<&'w Identified, CalibrateError> {
     if lines.len() > MAX_REFERENCE_LINES || peaks.len() > 64 {
         return Err(CalibrateError::TooManyPoints);
     }
     if lines.len() < 3 || peaks.len() < 3 {
         return Err(CalibrateError::NoConsistentPattern);
     }
-    let axis = Axis::new(peaks, lines, cfg)?;
+    let IdentifyWork {
+        axis,
+        points,
+        found,
+    } = work;
+    axis.fill(peaks, lines, cfg)?;
+    let axis: &Axis = axis;
     let strong_peaks: Vec<u8, 20> = strongest(peaks.iter().map(|p| p.snr_q8), HYP_PEAKS);
     let strong_lines: Vec<u8, 20> = strongest(lines.iter().map(|l| l.strength), HYP_LINES);
     // The peaks hypotheses are scored on, in frame order.
@@ -173,7 +218,7 @@ pub fn identify(
     let search = Search {
         peaks,
         scored: &scored,
-        axis: &axis,
+        axis,
         lines,
         cfg,
         ends,
@@ -250,7 +295,8 @@ pub fn identify(
     let best = best
         .filter(|h| h.net >= 3)
         .ok_or(CalibrateError::NoConsistentPattern)?;
-    refine(best, peaks, &axis, lines, cfg)
+    refine(best, peaks, axis, lines, cfg, points, found)?;
+    Ok(found)
 }
 
 /// The fixed inputs of the hypothesis search.
@@ -314,13 +360,26 @@ struct Axis {
 }
 
 impl Axis {
-    fn new(
+    const EMPTY: Axis = Axis {
+        u: Vec::new(),
+        du_dp: Vec::new(),
+        b_max_u: 0,
+        b_max_du: 0,
+        uniform_du: false,
+        monotone: false,
+        lines_sorted: false,
+    };
+
+    /// The axis of `peaks`, written over `self` (in place: 1 KiB).
+    fn fill(
+        &mut self,
         peaks: &[Peak],
         lines: &[ReferenceLine],
         cfg: &IdentifyConfig,
-    ) -> Result<Axis, CalibrateError> {
-        let mut u: Vec<i64, 64> = Vec::new();
-        let mut du_dp: Vec<i64, 64> = Vec::new();
+    ) -> Result<(), CalibrateError> {
+        let Axis { u, du_dp, .. } = self;
+        u.clear();
+        du_dp.clear();
         let hw = cfg.nominal.as_ref().map(HalfWidth::forward);
         for p in peaks {
             let (v, d) = match (&cfg.nominal, &hw) {
@@ -346,17 +405,14 @@ impl Axis {
                 .max(1);
             i64::MAX as u64 / top
         };
-        Ok(Axis {
-            b_max_u: limit(&u),
-            b_max_du: limit(&du_dp),
-            uniform_du: du_dp.windows(2).all(|w| matches!(w, [a, b] if a == b)),
-            monotone: u.windows(2).all(|w| matches!(w, [a, b] if a <= b)),
-            lines_sorted: lines
-                .windows(2)
-                .all(|w| matches!(w, [a, b] if a.wavelength_fm <= b.wavelength_fm)),
-            u,
-            du_dp,
-        })
+        self.b_max_u = limit(&self.u);
+        self.b_max_du = limit(&self.du_dp);
+        self.uniform_du = self.du_dp.windows(2).all(|w| matches!(w, [a, b] if a == b));
+        self.monotone = self.u.windows(2).all(|w| matches!(w, [a, b] if a <= b));
+        self.lines_sorted = lines
+            .windows(2)
+            .all(|w| matches!(w, [a, b] if a.wavelength_fm <= b.wavelength_fm));
+        Ok(())
     }
 
     /// λ of peak `k` under the hypothesis: a + b · u (b in Q30), through `i64` where that is exact.
@@ -469,11 +525,29 @@ fn better(h: &Hypothesis, best: &Option<Hypothesis>) -> bool {
 }
 
 /// Indices of the `k` (≤ N) largest of at most 64 values, largest first, ties by index.
+///
+/// A running top-k list (no 64-entry copy on the stack): each value goes in after every kept one at
+/// least as large, so ties keep index order, as a stable sort of all of them would. Loop bound:
+/// ≤ 64 values × ≤ N shifts.
 fn strongest<const N: usize>(values: impl Iterator<Item = u32>, k: usize) -> Vec<u8, N> {
-    let mut all: Vec<(u32, u8), 64> =
-        crate::bounded::collect_bounded(values.enumerate().map(|(i, v)| (v, i as u8)));
-    crate::sort::sort_by_key(&mut all, |&(v, _)| core::cmp::Reverse(v));
-    crate::bounded::collect_bounded(all.iter().take(k.min(N)).map(|&(_, i)| i))
+    let k = k.min(N);
+    let mut top: Vec<(u32, u8), N> = Vec::new();
+    if k == 0 {
+        return Vec::new();
+    }
+    for (i, v) in values.enumerate().take(64) {
+        if top.len() >= k {
+            // Full: the last kept one is the weakest (the latest of equals) and stays ahead of v.
+            if top.last().is_some_and(|&(w, _)| w >= v) {
+                continue;
+            }
+            top.pop();
+        }
+        let _ = top.push((v, i as u8));
+        // Sorted but for the new last entry: the stable insertion sort moves just that one.
+        crate::sort::sort_by_key(&mut top, |&(w, _)| core::cmp::Reverse(w));
+    }
+    crate::bounded::collect_bounded(top.iter().map(|&(_, i)| i))
 }
 
 /// The hypothesis through (u_i, wa) and (u_i + du, wb), if it is within the search range.
@@ -726,24 +800,28 @@ fn nearest_around(lines: &[ReferenceLine], lam: i64, pos: usize) -> (usize, i64)
     best
 }
 
-/// Fits the hypothesis' inliers, then re-matches with the fitted map and tighter windows (4 rounds).
+/// Fits the hypothesis' inliers, then re-matches with the fitted map and tighter windows (4 rounds),
+/// into `out`.
 fn refine(
     h: Hypothesis,
     peaks: &[Peak],
     axis: &Axis,
     lines: &[ReferenceLine],
     cfg: &IdentifyConfig,
-) -> Result<Identified, CalibrateError> {
-    let mut pairs: Vec<(u8, u8), 48> = Vec::new();
+    points: &mut Vec<FitPoint, MAX_REFERENCE_LINES>,
+    out: &mut Identified,
+) -> Result<(), CalibrateError> {
+    let Identified { fit, pairs } = out;
+    pairs.clear();
     for k in 0..peaks.len() {
         let lam = axis.lam(&h, k);
         let tol = (axis.dispersion_fm_per_px(&h, k) * cfg.window_q8()) >> 8;
         let (idx, d) = nearest(lines, lam);
         if d <= tol {
-            push_unique(&mut pairs, k as u8, idx as u8, peaks)?;
+            push_unique(pairs, k as u8, idx as u8, peaks)?;
         }
     }
-    let mut fit = fit_pairs(&pairs, peaks, lines, cfg)?;
+    fit_pairs(pairs, peaks, lines, cfg, points, fit)?;
     for round in 0..4 {
         let mut next: Vec<(u8, u8), 48> = Vec::new();
         let hw = HalfWidth::forward(&fit.map);
@@ -761,13 +839,13 @@ fn refine(
             }
         }
         // The same pairs again: their fit is the one in hand (fits are deterministic), done.
-        if next.len() < 3 || next == pairs {
+        if next.len() < 3 || next == *pairs {
             break;
         }
-        fit = fit_pairs(&next, peaks, lines, cfg)?;
-        pairs = next;
+        fit_pairs(&next, peaks, lines, cfg, points, fit)?;
+        *pairs = next;
     }
-    Ok(Identified { fit, pairs })
+    Ok(())
 }
 
 /// Adds (peak, line); when the line is already claimed, the brighter peak keeps it (the fainter one is
@@ -795,8 +873,10 @@ fn fit_pairs(
     peaks: &[Peak],
     lines: &[ReferenceLine],
     cfg: &IdentifyConfig,
-) -> Result<MapFit, CalibrateError> {
-    let mut pts: Vec<FitPoint, 48> = Vec::new();
+    pts: &mut Vec<FitPoint, MAX_REFERENCE_LINES>,
+    out: &mut MapFit,
+) -> Result<(), CalibrateError> {
+    pts.clear();
     for &(k, l) in pairs {
         let (Some(p), Some(line)) = (peaks.get(k as usize), lines.get(l as usize)) else {
             continue;
@@ -815,12 +895,41 @@ fn fit_pairs(
     }
     // Fewer points than a full fit wants: drop the degree until the points just determine it.
     let max_deg = (pts.len() as i32 - 1).clamp(1, 3) as u8;
-    fit_map(&pts, cfg.degree.min(max_deg), cfg.pixels)
+    fit_map_into(pts, cfg.degree.min(max_deg), cfg.pixels, out)
 }
 
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    /// The running top-k list picks what a stable sort of every value did, ties by index.
+    #[test]
+    fn strongest_equals_a_stable_sort_of_all() {
+        let mut x = 12345u64;
+        for round in 0..300 {
+            let n = round % 70;
+            let vals: std::vec::Vec<u32> = (0..n)
+                .map(|_| {
+                    x = x
+                        .wrapping_mul(6364136223846793005)
+                        .wrapping_add(1442695040888963407);
+                    ((x >> 33) % if round % 3 == 0 { 4 } else { 1000 }) as u32
+                })
+                .collect();
+            for k in [0usize, 1, 6, 16, 20, 25] {
+                let mut all: std::vec::Vec<(u32, u8)> = vals
+                    .iter()
+                    .take(64)
+                    .enumerate()
+                    .map(|(i, &v)| (v, i as u8))
+                    .collect();
+                all.sort_by_key(|&(v, _)| core::cmp::Reverse(v));
+                let want: std::vec::Vec<u8> = all.iter().take(k.min(20)).map(|&(_, i)| i).collect();
+                let got: Vec<u8, 20> = strongest(vals.iter().copied(), k);
+                assert_eq!(got.as_slice(), want.as_slice(), "{vals:?} k {k}");
+            }
+        }
+    }
 
     /// True instrument: 2048 px, 370 → 700 nm, slight curvature.
     fn truth() -> WavelengthMap {

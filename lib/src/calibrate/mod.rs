@@ -11,6 +11,9 @@ mod muldiv;
 
 pub use error::CalibrateError;
 pub use fit::{fit_map, FitPoint, MapFit, MAX_FIT_POINTS};
-pub use identify::{identify, Identified, IdentifyConfig, ReferenceLine, MAX_REFERENCE_LINES};
+pub use identify::{
+    identify, identify_with, Identified, IdentifyConfig, IdentifyWork, ReferenceLine,
+    MAX_REFERENCE_LINES,
+};
 pub(crate) use map::HalfWidth;
 pub use map::{WavelengthMap, X_ONE_Q30};

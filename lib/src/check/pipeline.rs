@@ -5,8 +5,8 @@ use super::stage::Stage;
 use super::workspace::{MatchWork, Workspace};
 use crate::bounded::collect_bounded;
 use crate::calibrate::{
-    identify, CalibrateError, HalfWidth, IdentifyConfig, ReferenceLine, WavelengthMap,
-    MAX_REFERENCE_LINES,
+    identify_with, CalibrateError, HalfWidth, IdentifyConfig, IdentifyWork, ReferenceLine,
+    WavelengthMap, MAX_REFERENCE_LINES,
 };
 use crate::condition::{condition_frame, FrameSum, GainTable};
 use crate::find::{find_peaks, Peak, PeakList};
@@ -63,18 +63,19 @@ impl MapInUse {
         div: HalfWidth::ZERO,
     };
 
-    fn new(
+    /// Takes `map` (and its fit) for this check, in place: the ≈ 700-byte value is never built on
+    /// the stack and copied.
+    fn set(
+        &mut self,
         map: WavelengthMap,
-        fit: Option<crate::calibrate::MapFit>,
+        fit: Option<&crate::calibrate::MapFit>,
         stored_sigma_fm: u32,
-    ) -> MapInUse {
-        MapInUse {
-            div: HalfWidth::forward(&map),
-            map,
-            fit,
-            stored_sigma_fm,
-            lines: LinePixels::new(),
-        }
+    ) {
+        self.div = HalfWidth::forward(&map);
+        self.map = map;
+        self.fit = fit.copied();
+        self.stored_sigma_fm = stored_sigma_fm;
+        self.lines = LinePixels::new();
     }
 
     /// |dλ/dp| at a pixel (fm/px, Q16); 0 where the map cannot say.
@@ -266,6 +267,7 @@ impl Checker {
         let MatchWork {
             features,
             map: slot,
+            identify: ident,
         } = matching;
         let info = condition_frame(&cfg.condition, signal, dark, gain, frame, flags)?;
         at(Stage::Conditioned);
@@ -301,9 +303,9 @@ impl Checker {
             return Ok(());
         }
         // The map in use lives in the caller's workspace (≈ 700 B), written in place.
-        if !self.map_for(peaks, report, slot) {
+        if !self.map_for(peaks, report, slot, ident) {
             // Calibration failed: list every peak on the stored map so the user sees what was there.
-            *slot = MapInUse::new(cfg.stored.map, None, cfg.stored.sigma_fm);
+            slot.set(cfg.stored.map, None, cfg.stored.sigma_fm);
             self.unexplained(peaks, &[], slot, report);
             report.decide();
             return Ok(());
@@ -335,7 +337,7 @@ impl Checker {
         self.fill_lines(features, &pairs, peaks, in_use, estimate.is_some(), report)?;
         self.unexplained(peaks, &pairs, in_use, report);
         self.report_shares(estimate, report);
-        if cfg.mode == Mode::Verify && self.shifted_scale(peaks, report) {
+        if cfg.mode == Mode::Verify && self.shifted_scale(peaks, report, ident) {
             // The stored scale explains the peaks worse than a shifted one: said in the reasons.
         }
         at(Stage::Matched);
@@ -347,11 +349,17 @@ impl Checker {
 
     /// The map for this frame into `slot`: the stored one (verify) or one fitted to the peaks
     /// (calibrate modes); `false` (and `slot` left as it was) when calibration failed.
-    fn map_for(&self, peaks: &PeakList, report: &mut Report, slot: &mut MapInUse) -> bool {
+    fn map_for(
+        &self,
+        peaks: &PeakList,
+        report: &mut Report,
+        slot: &mut MapInUse,
+        work: &mut IdentifyWork,
+    ) -> bool {
         let cfg = &self.cfg;
         let stored_sigma_fm = cfg.stored.sigma_fm;
         if cfg.mode == Mode::Verify {
-            *slot = MapInUse::new(cfg.stored.map, None, stored_sigma_fm);
+            slot.set(cfg.stored.map, None, stored_sigma_fm);
             return true;
         }
         let refs = &self.refs;
@@ -361,11 +369,11 @@ impl Checker {
             None
         };
         let icfg = IdentifyConfig::new(cfg.pixels, cfg.degree, nominal);
-        match identify(peaks, refs, &icfg) {
+        match identify_with(peaks, refs, &icfg, work) {
             Ok(id) => {
                 report.fit_rms_fm = Some(id.fit.rms_residual_fm);
                 report.drift_fm = drift_fm(&id.fit.map, &cfg.stored.map, cfg.pixels);
-                *slot = MapInUse::new(id.fit.map, Some(id.fit), stored_sigma_fm);
+                slot.set(id.fit.map, Some(&id.fit), stored_sigma_fm);
                 true
             }
             Err(e) => {
@@ -774,7 +782,12 @@ impl Checker {
 
     /// Verify mode: does a shifted or rescaled stored map explain clearly more peaks? Then the
     /// instrument's scale, not the tube, is off. Adds the drift finding and returns true.
-    fn shifted_scale(&self, peaks: &PeakList, report: &mut Report) -> bool {
+    fn shifted_scale(
+        &self,
+        peaks: &PeakList,
+        report: &mut Report,
+        work: &mut IdentifyWork,
+    ) -> bool {
         let cfg = &self.cfg;
         let matched = report.lines.len();
         if matched >= peaks.len() || peaks.len() < 3 {
@@ -788,7 +801,7 @@ impl Checker {
         }
         let refs = &self.refs;
         let icfg = IdentifyConfig::new(cfg.pixels, cfg.degree, Some(cfg.stored.map));
-        let Ok(id) = identify(peaks, refs, &icfg) else {
+        let Ok(id) = identify_with(peaks, refs, &icfg, work) else {
             return false;
         };
         if id.pairs.len() < matched + 2 && !(rescue && id.pairs.len() >= 3) {

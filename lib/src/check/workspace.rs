@@ -1,5 +1,6 @@
 //! Caller-owned memory for one check: no heap, and the caller decides where it lives.
 use super::pipeline::MapInUse;
+use crate::calibrate::IdentifyWork;
 use crate::condition::MAX_PIXELS;
 use crate::find::{FindWork, PeakList, SCRATCH_PER_PIXEL};
 use crate::matching::feature::{Feature, MAX_FEATURES};
@@ -17,15 +18,17 @@ pub struct Workspace<'a> {
     pub peaks: &'a mut PeakList,
     /// Peak finding's tables (≈ 6 KiB), for the same reason.
     pub find: &'a mut FindWork,
-    /// Matching's tables (≈ 2.3 KiB), for the same reason.
+    /// Calibration and matching's tables (≈ 4 KiB), for the same reason.
     pub matching: &'a mut MatchWork,
 }
 
-/// What matching keeps for one check (the features, 1.6 KiB; the map in use with its fit and the
-/// lines' pixels, ≈ 700 B); nothing carries over to the next frame.
+/// What calibration and matching keep for one check (the features, 1.6 KiB; the map in use with its
+/// fit and the lines' pixels, ≈ 700 B; identification's tables, ≈ 1.8 KiB); nothing carries over to
+/// the next frame.
 pub struct MatchWork {
     pub(super) features: Vec<Feature, MAX_FEATURES>,
     pub(super) map: MapInUse,
+    pub(super) identify: IdentifyWork,
 }
 
 impl MatchWork {
@@ -34,6 +37,7 @@ impl MatchWork {
         Self {
             features: Vec::new(),
             map: MapInUse::EMPTY,
+            identify: IdentifyWork::new(),
         }
     }
 }
@@ -44,7 +48,7 @@ impl Default for MatchWork {
     }
 }
 
-/// Owned buffers for frames up to `N` pixels (13 N bytes + 2 KiB of peaks + ≈ 8.5 KiB of tables):
+/// Owned buffers for frames up to `N` pixels (13 N bytes + 2 KiB of peaks + ≈ 10 KiB of tables):
 /// put one in a `static` on a microcontroller.
 pub struct Buffers<const N: usize> {
     frame: [i32; N],
