@@ -128,6 +128,10 @@ fn building_blocks(c: &Conditioned, k: &Knobs) {
         let again = fit::refit_line(&data, &f, s_min, s_max, k.reach);
         keep(again.center_q16 as u64 ^ again.center_sigma_q16 as u64);
         keep(fit::exp_neg_q14(k.mark.1 as i32) as u64);
+        let mut scratch = fit::FitScratch::new();
+        let g = fit::fit_line_in(&data, cand.pos, s0, s_min, s_max, k.reach, &mut scratch);
+        let h = fit::refit_line_in(&data, &g, s_min, s_max, k.reach, &mut scratch);
+        keep(g.center_q16 as u64 ^ h.center_q16 as u64);
     }
 
     keep(math::exp_neg_q16(s0) as u64);

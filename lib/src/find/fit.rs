@@ -244,15 +244,23 @@ struct Window {
 }
 
 impl Window {
-    /// Loop bound: ≤ [`W`] pixels, each taking ≤ 2 neighbour profiles out.
-    fn new(d: &FitData<'_>, lo: usize, hi: usize) -> Self {
-        let mut w = Window {
-            lo,
-            len: 0,
-            resid: [UNUSABLE; W],
-            base: [0; W],
-            raw: [0; W],
-        };
+    const EMPTY: Window = Window {
+        lo: 0,
+        len: 0,
+        resid: [0; W],
+        base: [0; W],
+        raw: [0; W],
+    };
+
+    /// Gathers pixels `lo ..= hi` over whatever the window held. Loop bound: ≤ [`W`] pixels, each
+    /// taking ≤ 2 neighbour profiles out.
+    fn fill(&mut self, d: &FitData<'_>, lo: usize, hi: usize) {
+        let w = self;
+        w.lo = lo;
+        w.len = 0;
+        w.resid = [UNUSABLE; W];
+        w.base = [0; W];
+        w.raw = [0; W];
         let shapes = d.neighbours.map(|n| n.map(|f| Shape::new(&f)));
         for (k, i) in (lo..=hi).enumerate().take(W) {
             let y = i64::from(d.frame.get(i).copied().unwrap_or(0));
@@ -271,7 +279,6 @@ impl Window {
             }
             w.len = k + 1;
         }
-        w
     }
 
     fn resid_at(&self, k: usize) -> Option<i32> {
@@ -296,6 +303,56 @@ struct Weights {
     tau_ref: i32,
 }
 
+impl Weights {
+    /// Where a weight pass starts: no pixel weighed yet.
+    const START: Weights = Weights {
+        tau: [0; W],
+        var_ref_q8: 1,
+        tau_ref: 0,
+    };
+    /// All zero, for [`FitScratch::new`] (a `static` of it stays in `.bss`); never read as weights.
+    const ZERO: Weights = Weights {
+        tau: [0; W],
+        var_ref_q8: 0,
+        tau_ref: 0,
+    };
+}
+
+/// The weight pass's per-pixel rows: 1/sqrt(var) as (mantissa, exponent), and the variances.
+struct WeighRows {
+    parts: [(i32, u32); W],
+    vars: [i64; W],
+}
+
+/// One fit's window, weights and weight rows (≈ 1.2 KiB), kept by the caller — inside
+/// [`FindWork`](super::FindWork) — so a small core's stack holds only a step's sums. Nothing in it
+/// carries over from one fit to the next.
+pub struct FitScratch {
+    win: Window,
+    weights: Weights,
+    rows: WeighRows,
+}
+
+impl FitScratch {
+    /// Empty (a `const`, so a `static` can hold it; all zero, so it sits in `.bss`).
+    pub const fn new() -> Self {
+        Self {
+            win: Window::EMPTY,
+            weights: Weights::ZERO,
+            rows: WeighRows {
+                parts: [(0, 0); W],
+                vars: [0; W],
+            },
+        }
+    }
+}
+
+impl Default for FitScratch {
+    fn default() -> Self {
+        Self::new()
+    }
+}
+
 /// Normal equations of one step: `n` = Σ J_w J_wᵀ (parameter order A, μ, s, c; < 2^30 each),
 /// `b` = Σ J_w ε.
 struct Normal {
@@ -318,6 +375,28 @@ pub fn fit_line(
     s_max_q16: i64,
     max_steps: usize,
 ) -> Fit {
+    let mut scratch = FitScratch::new();
+    fit_line_in(
+        d,
+        peak,
+        s0_q16,
+        s_min_q16,
+        s_max_q16,
+        max_steps,
+        &mut scratch,
+    )
+}
+
+/// [`fit_line`] with its window and weights in `scratch`. Loop bounds: as [`fit_line`].
+pub fn fit_line_in(
+    d: &FitData<'_>,
+    peak: usize,
+    s0_q16: i64,
+    s_min_q16: i64,
+    s_max_q16: i64,
+    max_steps: usize,
+    scratch: &mut FitScratch,
+) -> Fit {
     let n = d.frame.len();
     // max/min, not clamp: clamp panics on crossed bounds, and these come from the caller.
     let s_max_q16 = s_max_q16.max(s_min_q16);
@@ -325,7 +404,8 @@ pub fn fit_line(
     let half = ((5 * s0) >> 17).saturating_add(2).clamp(2, MAX_HALF as i64) as usize;
     let lo = peak.saturating_sub(half);
     let hi = peak.saturating_add(half).min(n.saturating_sub(1));
-    let win = Window::new(d, lo, hi);
+    scratch.win.fill(d, lo, hi);
+    let win = &scratch.win;
     let at = |i: usize| {
         i.checked_sub(lo)
             .filter(|&k| k < win.len)
@@ -350,7 +430,7 @@ pub fn fit_line(
         s_q16: s0,
         c_q8: 0,
     };
-    run(d, &win, start, s_min_q16, s_max_q16, max_steps)
+    run(d, scratch, start, s_min_q16, s_max_q16, max_steps)
 }
 
 /// Fits a line again from an earlier fit `first` over the same window, e.g. once its neighbours'
@@ -364,15 +444,36 @@ pub fn refit_line(
     s_max_q16: i64,
     max_steps: usize,
 ) -> Fit {
+    refit_line_in(
+        d,
+        first,
+        s_min_q16,
+        s_max_q16,
+        max_steps,
+        &mut FitScratch::new(),
+    )
+}
+
+/// [`refit_line`] with its window and weights in `scratch`. Loop bounds: as [`fit_line`].
+pub fn refit_line_in(
+    d: &FitData<'_>,
+    first: &Fit,
+    s_min_q16: i64,
+    s_max_q16: i64,
+    max_steps: usize,
+    scratch: &mut FitScratch,
+) -> Fit {
     let s_max_q16 = s_max_q16.max(s_min_q16);
-    let win = Window::new(d, usize::from(first.lo), usize::from(first.hi));
+    scratch
+        .win
+        .fill(d, usize::from(first.lo), usize::from(first.hi));
     let start = Params {
         a_q8: first.height_q8.max(256),
         mu_q16: first.center_q16,
         s_q16: first.sigma_q16.max(s_min_q16).min(s_max_q16).max(1 << 14),
         c_q8: 0,
     };
-    run(d, &win, start, s_min_q16, s_max_q16, max_steps)
+    run(d, scratch, start, s_min_q16, s_max_q16, max_steps)
 }
 
 /// The Gauss–Newton steps over a gathered window. Loop bound: ≤ min(`max_steps`, [`ITERATIONS`])
@@ -380,12 +481,14 @@ pub fn refit_line(
 /// elimination.
 fn run(
     d: &FitData<'_>,
-    win: &Window,
+    scratch: &mut FitScratch,
     start: Params,
     s_min_q16: i64,
     s_max_q16: i64,
     max_steps: usize,
 ) -> Fit {
+    let FitScratch { win, weights, rows } = scratch;
+    let win: &Window = win;
     let (lo, hi) = (win.lo, win.lo + win.len.saturating_sub(1));
     let r0 = start.a_q8 >> 8;
     // Reduced units: the largest residual (or the start height) below 2^16.
@@ -399,7 +502,8 @@ fn run(
     let mut p = start;
     let mut converged = false;
     let mut steps = 0u8;
-    let mut weights: Option<Weights> = None;
+    // Whether `weights` holds this fit's weights yet.
+    let mut weighed = false;
     // Settling tolerances for the centre (Q16 px) and the height (Q8), set with the first weights.
     let (mut tol_mu, mut tol_a) = (SETTLED_Q16, 0i64);
     // The last step's centre pivot (and its scale) and the weights it used: the centre's σ.
@@ -407,8 +511,9 @@ fn run(
     for _ in 0..max_steps.min(ITERATIONS) {
         steps += 1;
         let model = Model::new(&p, reduce);
-        if steps <= WEIGHT_STEPS || weights.is_none() {
-            let w = weigh(win, d.noise, &p, &model, reduce);
+        if steps <= WEIGHT_STEPS || !weighed {
+            weigh(win, d.noise, &p, &model, reduce, rows, weights);
+            let w: &Weights = weights;
             if steps == 1 {
                 // Settling tolerances (see below) from the start: they only need the noise scale.
                 let sd_q4 = super::math::isqrt_i64(w.var_ref_q8);
@@ -418,11 +523,9 @@ fn run(
                     .max(SETTLED_Q16);
                 tol_a = sd_q4 << 2;
             }
-            weights = Some(w);
+            weighed = true;
         }
-        let Some(wt) = weights.as_ref() else {
-            break;
-        };
+        let wt: &Weights = weights;
         let nm = normal(win, wt, &p, &model, reduce);
         if nm.used < MIN_PIXELS {
             break;
@@ -465,7 +568,7 @@ fn run(
     }
     let center_sigma_q16 = last
         .as_ref()
-        .and_then(|(sol, _)| center_sigma(sol, weights.as_ref()?, &p))
+        .and_then(|(sol, _)| center_sigma(sol, weighed.then_some(&*weights)?, &p))
         .unwrap_or(p.s_q16);
     Fit {
         center_q16: p.mu_q16,
@@ -532,10 +635,19 @@ fn height_at(u: i32) -> i32 {
 /// Whitening factors from the noise model at baseline + current line: τ ∝ 1/σ, the largest 4096-ish.
 ///
 /// Loop bound: 2 passes over the window.
-fn weigh(win: &Window, noise: &NoiseModel, p: &Params, model: &Model, reduce: u32) -> Weights {
+fn weigh(
+    win: &Window,
+    noise: &NoiseModel,
+    p: &Params,
+    model: &Model,
+    reduce: u32,
+    rows: &mut WeighRows,
+    w: &mut Weights,
+) {
     let (u0, du) = model.u_along(p, win.lo);
-    let mut parts = [(0i32, 0u32); W];
-    let mut vars = [0i64; W];
+    let WeighRows { parts, vars } = rows;
+    *parts = [(0, 0); W];
+    *vars = [0; W];
     let mut top = 0u32;
     for (k, ((part, var), &base)) in parts
         .iter_mut()
@@ -560,11 +672,7 @@ fn weigh(win: &Window, noise: &NoiseModel, p: &Params, model: &Model, reduce: u3
         *part = rsqrt_parts(var.unsigned_abs());
         top = top.max(part.1);
     }
-    let mut w = Weights {
-        tau: [0; W],
-        var_ref_q8: 1,
-        tau_ref: 0,
-    };
+    *w = Weights::START;
     for ((t, &(m, h)), &var) in w.tau.iter_mut().zip(parts.iter()).zip(vars.iter()) {
         if m == 0 {
             continue;
@@ -576,7 +684,6 @@ fn weigh(win: &Window, noise: &NoiseModel, p: &Params, model: &Model, reduce: u3
             w.var_ref_q8 = var;
         }
     }
-    w
 }
 
 /// The whitened normal equations at `p`. Bounds: |J| ≤ 2^14 (Q14), τ ≤ 2^12, so |J_w| ≤ 2^12 and

@@ -152,6 +152,7 @@ pub fn find_peaks(
         cands,
         mask,
         fits,
+        fit: scratch_fit,
     } = work;
     mask.clear();
     blocks.measure_in_place(frame, flag, mask);
@@ -225,7 +226,7 @@ pub fn find_peaks(
             .max(s_min)
             .min(s_max);
         // Past the budget a line gets MIN_STEPS = 0 steps: the budget alone is the allowance.
-        let f = fit::fit_line(&data, c.pos, s0, s_min, s_max, budget);
+        let f = fit::fit_line_in(&data, c.pos, s0, s_min, s_max, budget, scratch_fit);
         budget = budget.saturating_sub(usize::from(f.steps));
         // Capacity: at most MAX_PEAKS candidates remain.
         let _ = fits.push((f, u16::try_from(c.pos).unwrap_or(u16::MAX)));
@@ -249,7 +250,7 @@ pub fn find_peaks(
         if budget > 0 && (prev.is_some() || next.is_some()) {
             data.neighbours = [prev, next];
             // From the first fit, over its window: only the neighbours' share of the data changed.
-            let refit = fit::refit_line(&data, &f, s_min, s_max, budget);
+            let refit = fit::refit_line_in(&data, &f, s_min, s_max, budget, scratch_fit);
             budget = budget.saturating_sub(usize::from(refit.steps));
             if let Some(slot) = fits.get_mut(k) {
                 slot.0 = refit;
