@@ -169,17 +169,19 @@ fn mul_q30_round(a: i64, v: i64) -> i64 {
 /// 4 × 4 × 9 Gauss–Jordan, and the 66-slope monotonicity check of [`WavelengthMap::with_frame`].
 pub fn fit_map(points: &[FitPoint], degree: u8, pixels: u16) -> Result<MapFit, CalibrateError> {
     let mut fit = MapFit::ZERO;
-    fit_map_into(points, degree, pixels, &mut fit)?;
+    fit_map_into(points, degree, pixels, &mut fit, &mut [[0; 9]; 4])?;
     Ok(fit)
 }
 
-/// [`fit_map`] written into `out` (its content is unspecified after an error): the fit is built in
-/// the caller's slot, not copied up through a small core's stack. Work: as [`fit_map`].
+/// [`fit_map`] written into `out` (its content is unspecified after an error), with the normal
+/// equations in `m` (576 B, overwritten): both in the caller's memory, not on a small core's stack.
+/// Work: as [`fit_map`].
 pub(crate) fn fit_map_into(
     points: &[FitPoint],
     degree: u8,
     pixels: u16,
     out: &mut MapFit,
+    m: &mut [[i128; 9]; 4],
 ) -> Result<(), CalibrateError> {
     if !(1..=3).contains(&degree) || points.len() < degree as usize + 1 {
         return Err(CalibrateError::TooFewPoints);
@@ -201,7 +203,7 @@ pub(crate) fn fit_map_into(
         .map(|p| p.sigma_px_q16.max(1))
         .min()
         .unwrap_or(1) as i128;
-    let mut m = [[0i128; 9]; 4];
+    *m = [[0; 9]; 4];
     // The frame's (and the fitted map's) half-width divides every point's x: its reciprocal once.
     let hw = HalfWidth::forward(&frame);
     for pt in points {
@@ -210,15 +212,15 @@ pub(crate) fn fit_map_into(
             mul_div_round(sigma_min * sigma_min, 1 << 30, s * s).ok_or(CalibrateError::Overflow)?;
         let x = frame.x_q30_by(pt.center_px_q16, &hw);
         if x.unsigned_abs() <= 1 << 30 && (0..=1 << 30).contains(&w) {
-            accumulate_narrow(&mut m, d, w as i64, x, pt.wavelength_fm);
+            accumulate_narrow(m, d, w as i64, x, pt.wavelength_fm);
         } else {
-            accumulate(&mut m, d, w, x, pt.wavelength_fm)?;
+            accumulate(m, d, w, x, pt.wavelength_fm)?;
         }
     }
     for (r, row) in m.iter_mut().enumerate().take(d) {
         row[5 + r] = Q60;
     }
-    gauss_jordan(&mut m, d)?;
+    gauss_jordan(m, d)?;
     let mut coeff = [0i64; 4];
     out.inverse_q40 = [[0; 4]; 4];
     for (r, ((row, c_out), inv_row)) in m

@@ -145,13 +145,19 @@ pub fn identify(
     identify_with(peaks, lines, cfg, &mut IdentifyWork::new()).cloned()
 }
 
-/// What identification keeps while it runs (the per-peak axis, 1 KiB; the fit points, 0.8 KiB)
-/// and its result (0.4 KiB), owned by the caller so a small core's stack need not hold them;
+/// What identification keeps while it runs (the per-peak axis, 1 KiB; the map fit's points and
+/// normal equations, 1.4 KiB) and its result (0.4 KiB), owned by the caller so a small core's stack need not hold them;
 /// nothing carries over between calls.
 pub struct IdentifyWork {
     axis: Axis,
-    points: Vec<FitPoint, MAX_REFERENCE_LINES>,
+    room: FitRoom,
     found: Identified,
+}
+
+/// A map fit's inputs and its normal equations (0.8 + 0.6 KiB).
+struct FitRoom {
+    points: Vec<FitPoint, MAX_REFERENCE_LINES>,
+    normal: [[i128; 9]; 4],
 }
 
 impl IdentifyWork {
@@ -159,7 +165,10 @@ impl IdentifyWork {
     pub const fn new() -> Self {
         Self {
             axis: Axis::EMPTY,
-            points: Vec::new(),
+            room: FitRoom {
+                points: Vec::new(),
+                normal: [[0; 9]; 4],
+            },
             found: Identified {
                 fit: MapFit::ZERO,
                 pairs: Vec::new(),
@@ -187,11 +196,7 @@ pub fn identify_with<'w>(
     if lines.len() < 3 || peaks.len() < 3 {
         return Err(CalibrateError::NoConsistentPattern);
     }
-    let IdentifyWork {
-        axis,
-        points,
-        found,
-    } = work;
+    let IdentifyWork { axis, room, found } = work;
     axis.fill(peaks, lines, cfg)?;
     let axis: &Axis = axis;
     let strong_peaks: Vec<u8, 20> = strongest(peaks.iter().map(|p| p.snr_q8), HYP_PEAKS);
@@ -295,7 +300,7 @@ pub fn identify_with<'w>(
     let best = best
         .filter(|h| h.net >= 3)
         .ok_or(CalibrateError::NoConsistentPattern)?;
-    refine(best, peaks, axis, lines, cfg, points, found)?;
+    refine(best, peaks, axis, lines, cfg, room, found)?;
     Ok(found)
 }
 
@@ -808,7 +813,7 @@ fn refine(
     axis: &Axis,
     lines: &[ReferenceLine],
     cfg: &IdentifyConfig,
-    points: &mut Vec<FitPoint, MAX_REFERENCE_LINES>,
+    room: &mut FitRoom,
     out: &mut Identified,
 ) -> Result<(), CalibrateError> {
     let Identified { fit, pairs } = out;
@@ -821,7 +826,7 @@ fn refine(
             push_unique(pairs, k as u8, idx as u8, peaks)?;
         }
     }
-    fit_pairs(pairs, peaks, lines, cfg, points, fit)?;
+    fit_pairs(pairs, peaks, lines, cfg, room, fit)?;
     for round in 0..4 {
         let mut next: Vec<(u8, u8), 48> = Vec::new();
         let hw = HalfWidth::forward(&fit.map);
@@ -842,7 +847,7 @@ fn refine(
         if next.len() < 3 || next == *pairs {
             break;
         }
-        fit_pairs(&next, peaks, lines, cfg, points, fit)?;
+        fit_pairs(&next, peaks, lines, cfg, room, fit)?;
         *pairs = next;
     }
     Ok(())
@@ -873,9 +878,13 @@ fn fit_pairs(
     peaks: &[Peak],
     lines: &[ReferenceLine],
     cfg: &IdentifyConfig,
-    pts: &mut Vec<FitPoint, MAX_REFERENCE_LINES>,
+    room: &mut FitRoom,
     out: &mut MapFit,
 ) -> Result<(), CalibrateError> {
+    let FitRoom {
+        points: pts,
+        normal,
+    } = room;
     pts.clear();
     for &(k, l) in pairs {
         let (Some(p), Some(line)) = (peaks.get(k as usize), lines.get(l as usize)) else {
@@ -895,7 +904,7 @@ fn fit_pairs(
     }
     // Fewer points than a full fit wants: drop the degree until the points just determine it.
     let max_deg = (pts.len() as i32 - 1).clamp(1, 3) as u8;
-    fit_map_into(pts, cfg.degree.min(max_deg), cfg.pixels, out)
+    fit_map_into(pts, cfg.degree.min(max_deg), cfg.pixels, out, normal)
 }
 
 #[cfg(test)]

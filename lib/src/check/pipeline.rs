@@ -264,11 +264,6 @@ impl Checker {
             find,
             matching,
         } = work;
-        let MatchWork {
-            features,
-            map: slot,
-            identify: ident,
-        } = matching;
         let info = condition_frame(&cfg.condition, signal, dark, gain, frame, flags)?;
         at(Stage::Conditioned);
         let mut fcfg = cfg.find;
@@ -303,16 +298,37 @@ impl Checker {
             return Ok(());
         }
         // The map in use lives in the caller's workspace (≈ 700 B), written in place.
-        if !self.map_for(peaks, report, slot, ident) {
+        if !self.map_for(peaks, report, &mut matching.map, &mut matching.identify) {
             // Calibration failed: list every peak on the stored map so the user sees what was there.
+            let slot = &mut matching.map;
             slot.set(cfg.stored.map, None, cfg.stored.sigma_fm);
             self.unexplained(peaks, &[], slot, report);
             report.decide();
             return Ok(());
         }
-        let in_use = slot;
-        report.map = Some(in_use.map);
+        report.map = Some(matching.map.map);
         at(Stage::Calibrated);
+        self.match_and_judge(peaks, frame, base, matching, report, &mut at)
+    }
+
+    /// Matching, isotope shares and judging on the map in `work`. Out of line: its locals are not
+    /// on the stack while peak finding and identification run below [`check`](Self::check).
+    #[inline(never)]
+    fn match_and_judge(
+        &self,
+        peaks: &PeakList,
+        frame: &[i32],
+        base: &[i32],
+        work: &mut MatchWork,
+        report: &mut Report,
+        at: &mut impl FnMut(Stage),
+    ) -> Result<(), CheckError> {
+        let cfg = &self.cfg;
+        let MatchWork {
+            features,
+            map: in_use,
+            identify: ident,
+        } = work;
         // Closer than 1.5 line widths, two lines may show as one peak (peak finding's own blend limit);
         // a pair that does show as two is split again after matching.
         let merge_q16 = ((cfg.line_fwhm_px_q8 as i32) << 8) * 3 / 2;
