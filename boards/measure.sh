@@ -17,7 +17,7 @@
 # check(verify mode), judge = from `Stage::Matched` to `Stage::Judged` of the verify check
 # (`Checker::check_traced`), match = check(verify) - condition - find - judge, total = check(calibrate).
 # Sizes: the digest image of boards/pipeline (the same code without the f32 baseline), minus the
-# 3 embedded 4096-byte test frames for flash. Stack: deepest lib call, each call measured on a freshly
+# 3 embedded 4096-byte test frames for flash. Stack: deepest lib call (the stages on the h-tube frame and every typical and adversarial check), each measured on a freshly
 # painted stack below its caller's stack pointer.
 #
 # Usage: bash boards/measure.sh [target ...]   (default: the three thumb targets)
@@ -98,6 +98,8 @@ for t in $targets; do
         # Plugin instructions between the two hits of pair `key` on `line`, and the cross-check
         # against SysTick: ticks x per must lie within one tick (+ 64 for a SysTick wrap handled
         # between a stamp and its marker) of it.
+        # The deepest stack so far (the "stack N" of a check line) and which call it was.
+        function deep(line, name,   v) { v = kv(line, "stack") + 0; if (v > stack) { stack = v; stack_at = name } }
         function raw(line, key, ticks,   d, s, e) {
             d = count[kv2(line, key)] - count[kv(line, key)]
             s = ticks * per; e = d - s; if (e < 0) e = -e
@@ -107,9 +109,9 @@ for t in $targets; do
         }
         FILENAME == ARGV[1] { if ($1 == "marker") count[$2] = $3; else if ($1 == "total") { plugin = 1; hits_seen = $3 } next }
         /^ticks / { tk = $0 } /^stack_bytes / { st = $0 } /^hits / { hl = $0 }
-        /^typical / { nt++; tm[nt] = $3; tname[nt] = $2; tt[nt] = kv($0, "ticks"); ta[nt] = kv($0, "hits"); tb[nt] = kv2($0, "hits"); ref_t[$3] = 1 }
+        /^typical / { nt++; tm[nt] = $3; tname[nt] = $2; tt[nt] = kv($0, "ticks"); ta[nt] = kv($0, "hits"); tb[nt] = kv2($0, "hits"); ref_t[$3] = 1; deep($0, "check " $2 " " $3) }
         /^part / { np++; pn[np] = $2; pa[np] = kv($0, "hits"); pb[np] = kv2($0, "hits"); pt[np] = kv($0, "ticks") }
-        /^adversary / { na++; an[na] = $2; am[na] = $3; ap[na] = kv($0, "pixels"); at[na] = kv($0, "ticks"); aa[na] = kv($0, "hits"); ab[na] = kv2($0, "hits"); ar[na] = kv($0, "result") }
+        /^adversary / { deep($0, "check " $2 " " $3); na++; an[na] = $2; am[na] = $3; ap[na] = kv($0, "pixels"); at[na] = kv($0, "ticks"); aa[na] = kv($0, "hits"); ab[na] = kv2($0, "hits"); ar[na] = kv($0, "result") }
         END {
             per = int(kv(tk, "loop_instructions") / kv(tk, "calibration") + 0.5)
             n = split("predict condition find check_calibrate check_verify float_baseline calibration judge", names, " ")
@@ -135,14 +137,16 @@ for t in $targets; do
             # The verify check holds the judge pair of marks: the cost of one more pair comes off.
             c = ins["condition"]; f = ins["find"]; cal = ins["check_calibrate"]; ver = ins["check_verify"] - (plugin ? empty : 0); j = ins["judge"]
             fb = ins["float_baseline"]; pr = ins["predict"]
-            stack = 0; k = split("predict condition find check_calibrate check_verify", sk, " ")
-            for (i = 1; i <= k; i++) if (kv(st, sk[i]) + 0 > stack) stack = kv(st, sk[i]) + 0
+            # Deepest stack of any lib call measured: the stages on the h-tube frame, and every typical
+            # and adversarial check.
+            k = split("predict condition find check_calibrate check_verify", sk, " ")
+            for (i = 1; i <= k; i++) if (kv(st, sk[i]) + 0 > stack) { stack = kv(st, sk[i]) + 0; stack_at = sk[i] " h-tube" }
             printf "{\"target\": \"%s\", \"pixels\": 2048, \"count_source\": \"%s\", \"instructions\": {\"condition\": %d, \"find\": %d, \"calibrate\": %d, \"match\": %d, \"judge\": %d, \"total\": %d}, ", target, source, c, f, cal - ver, ver - c - f - j, j, cal
             printf "\"systick_instructions\": {\"condition\": %d, \"find\": %d, \"calibrate\": %d, \"match\": %d, \"judge\": %d, \"total\": %d}, ", sys["condition"], sys["find"], sys["check_calibrate"] - sys["check_verify"], sys["check_verify"] - sys["condition"] - sys["find"] - sys["judge"], sys["judge"], sys["check_calibrate"]
             if (plugin) printf "\"systick_max_disagreement_instructions\": %d, \"mark_overhead_instructions\": %d, \"stamp_overhead_instructions\": %d, \"calibration_loop_instructions\": %d, ", worst_disagree, empty, empty_stamp, ins["calibration"]
             else printf "\"systick_max_disagreement_instructions\": null, \"mark_overhead_instructions\": null, \"stamp_overhead_instructions\": null, \"calibration_loop_instructions\": null, "
             printf "\"instructions_per_pixel\": %.1f, \"float_baseline_instructions\": %d, \"float_baseline_ratio\": %.3f, ", (c + f) / 2048, fb, fb / (c + f)
-            printf "\"flash_bytes\": %d, \"static_ram_bytes\": %d, \"stack_bytes\": %d, ", flash - frames, ram, stack
+            printf "\"flash_bytes\": %d, \"static_ram_bytes\": %d, \"stack_bytes\": %d, \"stack_deepest\": \"%s\", ", flash - frames, ram, stack, stack_at
             # The pieces of find_peaks, each timed alone (see find_parts in boards/pipeline/src/measure.rs).
             printf "\"find_parts\": {"
             for (i = 1; i <= np; i++) printf "%s\"%s\": %d", (i > 1 ? ", " : ""), pn[i], (plugin ? count[pb[i]] - count[pa[i]] - empty_stamp : pt[i] * per)

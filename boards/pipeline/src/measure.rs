@@ -579,6 +579,8 @@ struct Timed {
     ticks: u64,
     hits: (u32, u32),
     ok: bool,
+    /// Stack bytes used below the caller's stack pointer (the check and two time stamps).
+    stack: u32,
 }
 
 /// The pieces of `find_peaks` on the same conditioned frame, each timed alone with the look-1 noise
@@ -673,6 +675,9 @@ fn find_parts(
 
 /// Runs `check` between two stamps.
 fn timed<E>(check: impl FnOnce() -> Result<(), E>) -> Timed {
+    // The stack is painted before and scanned after, outside the marks: not counted as work.
+    repaint();
+    let sp = cortex_m::register::msp::read() as usize;
     let (t0, h0) = stamp();
     let ok = check().is_ok();
     let (t1, h1) = stamp();
@@ -680,6 +685,7 @@ fn timed<E>(check: impl FnOnce() -> Result<(), E>) -> Timed {
         ticks: t1.saturating_sub(t0),
         hits: (h0, h1),
         ok,
+        stack: sp.saturating_sub(lowest_written()) as u32,
     }
 }
 
@@ -697,8 +703,8 @@ impl Timed {
                 };
                 write!(
                     f,
-                    "ticks {} hits {} {} result {result}",
-                    t.ticks, t.hits.0, t.hits.1
+                    "ticks {} hits {} {} result {result} stack {}",
+                    t.ticks, t.hits.0, t.hits.1, t.stack
                 )
             }
         }

@@ -2,7 +2,7 @@
 use super::config::Config;
 use super::error::CheckError;
 use super::stage::Stage;
-use super::workspace::{MatchWork, Workspace};
+use super::workspace::{MatchWork, Workspace, MAX_READINGS};
 use crate::bounded::collect_bounded;
 use crate::calibrate::{
     identify_with, CalibrateError, HalfWidth, IdentifyConfig, IdentifyWork, ReferenceLine,
@@ -308,26 +308,36 @@ impl Checker {
         }
         report.map = Some(matching.map.map);
         at(Stage::Calibrated);
-        self.match_and_judge(peaks, frame, base, matching, report, &mut at)
+        self.match_lines(peaks, (frame, base), matching, report)?;
+        // Called from here, not from `match_lines`: its frame and identification's are not stacked.
+        if cfg.mode == Mode::Verify && self.shifted_scale(peaks, report, &mut matching.identify) {
+            // The stored scale explains the peaks worse than a shifted one: said in the reasons.
+        }
+        at(Stage::Matched);
+        self.judge(&matching.features, &matching.pairs, peaks, report);
+        report.decide();
+        at(Stage::Judged);
+        Ok(())
     }
 
-    /// Matching, isotope shares and judging on the map in `work`. Out of line: its locals are not
-    /// on the stack while peak finding and identification run below [`check`](Self::check).
+    /// Matching and isotope shares on the map in `work` (pairs kept there for judging); `rows` are
+    /// the frame and its baseline. Out of line: its locals are not on the stack while peak finding
+    /// and identification run below [`check`](Self::check).
     #[inline(never)]
-    fn match_and_judge(
+    fn match_lines(
         &self,
         peaks: &PeakList,
-        frame: &[i32],
-        base: &[i32],
+        rows: (&[i32], &[i32]),
         work: &mut MatchWork,
         report: &mut Report,
-        at: &mut impl FnMut(Stage),
     ) -> Result<(), CheckError> {
         let cfg = &self.cfg;
         let MatchWork {
             features,
             map: in_use,
-            identify: ident,
+            pairs: kept,
+            readings,
+            ..
         } = work;
         // Closer than 1.5 line widths, two lines may show as one peak (peak finding's own blend limit);
         // a pair that does show as two is split again after matching.
@@ -344,7 +354,7 @@ impl Checker {
         let in_use: &MapInUse = in_use;
         let pairs = assign(features, peaks, |f| self.window_px_q16(f, in_use));
         let pairs = self.split_resolved(features, pairs, peaks, in_use);
-        let estimate = self.isotope(features, &pairs, peaks, in_use, frame, base);
+        let estimate = self.isotope(features, &pairs, peaks, in_use, rows, readings);
         let shares = self.shares(estimate);
         let hw = HalfWidth::reciprocal(&in_use.map);
         for f in features.iter_mut() {
@@ -353,13 +363,7 @@ impl Checker {
         self.fill_lines(features, &pairs, peaks, in_use, estimate.is_some(), report)?;
         self.unexplained(peaks, &pairs, in_use, report);
         self.report_shares(estimate, report);
-        if cfg.mode == Mode::Verify && self.shifted_scale(peaks, report, ident) {
-            // The stored scale explains the peaks worse than a shifted one: said in the reasons.
-        }
-        at(Stage::Matched);
-        self.judge(features, &pairs, peaks, report);
-        report.decide();
-        at(Stage::Judged);
+        *kept = pairs;
         Ok(())
     }
 
@@ -462,8 +466,8 @@ impl Checker {
         pairs: &[Pair],
         peaks: &[Peak],
         m: &MapInUse,
-        frame: &[i32],
-        base: &[i32],
+        (frame, base): (&[i32], &[i32]),
+        readings: &mut Vec<BlendReading, MAX_READINGS>,
     ) -> Option<ShareEstimate> {
         let (a, b) = self.pair?;
         // The instrument's configured line width: measured widths of this frame's lines are pulled
@@ -474,7 +478,7 @@ impl Checker {
         // The strongest transition with both isotopes predicted and some peak matched to either.
         // (strength, line a, line b, their catalogue indices)
         let mut best: Option<(u64, &CatalogueLine, &CatalogueLine, u8, u8)> = None;
-        let mut readings: Vec<BlendReading, 24> = Vec::new();
+        readings.clear();
         for (ia, la) in self
             .catalogue
             .iter()
@@ -563,7 +567,7 @@ impl Checker {
                 shift_range_px_q16: range.clamp(0, 4 << 16) as i32,
             })
         } else if self.cfg.mode == Mode::Verify {
-            share_by_position(&readings, self.cfg.stored.sigma_fm as u64)
+            share_by_position(readings, self.cfg.stored.sigma_fm as u64)
         } else {
             None
         };

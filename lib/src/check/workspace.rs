@@ -3,7 +3,9 @@ use super::pipeline::MapInUse;
 use crate::calibrate::IdentifyWork;
 use crate::condition::MAX_PIXELS;
 use crate::find::{FindWork, PeakList, SCRATCH_PER_PIXEL};
+use crate::matching::assign::Pair;
 use crate::matching::feature::{Feature, MAX_FEATURES};
+use crate::matching::isotope::BlendReading;
 use heapless::Vec;
 
 /// Borrowed buffers for a frame of N pixels: `frame` and `flags` of N, `scratch` of 2N.
@@ -18,18 +20,27 @@ pub struct Workspace<'a> {
     pub peaks: &'a mut PeakList,
     /// Peak finding's tables (≈ 6 KiB), for the same reason.
     pub find: &'a mut FindWork,
-    /// Calibration and matching's tables (≈ 4 KiB), for the same reason.
+    /// Calibration and matching's tables (≈ 6 KiB), for the same reason.
     pub matching: &'a mut MatchWork,
 }
 
 /// What calibration and matching keep for one check (the features, 1.6 KiB; the map in use with its
-/// fit and the lines' pixels, ≈ 700 B; identification's tables, ≈ 1.8 KiB); nothing carries over to
-/// the next frame.
+/// fit and the lines' pixels, ≈ 700 B; identification's tables, ≈ 2.8 KiB; the pairs and isotope
+/// readings, ≈ 0.9 KiB); nothing carries over to the next frame.
 pub struct MatchWork {
     pub(super) features: Vec<Feature, MAX_FEATURES>,
     pub(super) map: MapInUse,
     pub(super) identify: IdentifyWork,
+    /// Feature–peak pairs, from matching to judging.
+    pub(super) pairs: Vec<Pair, MAX_PAIRS>,
+    /// Blended isotope pairs' positions, for the share by position (0.8 KiB).
+    pub(super) readings: Vec<BlendReading, MAX_READINGS>,
 }
+
+/// Most feature–peak pairs one check keeps (one per feature).
+pub(super) const MAX_PAIRS: usize = MAX_FEATURES;
+/// Most blended isotope pairs read for the share by position.
+pub(super) const MAX_READINGS: usize = 24;
 
 impl MatchWork {
     /// Empty (a `const`, so a `static` can hold it).
@@ -38,6 +49,8 @@ impl MatchWork {
             features: Vec::new(),
             map: MapInUse::EMPTY,
             identify: IdentifyWork::new(),
+            pairs: Vec::new(),
+            readings: Vec::new(),
         }
     }
 }
@@ -48,7 +61,7 @@ impl Default for MatchWork {
     }
 }
 
-/// Owned buffers for frames up to `N` pixels (13 N bytes + 2 KiB of peaks + ≈ 10 KiB of tables):
+/// Owned buffers for frames up to `N` pixels (13 N bytes + 2 KiB of peaks + ≈ 13 KiB of tables):
 /// put one in a `static` on a microcontroller.
 pub struct Buffers<const N: usize> {
     frame: [i32; N],
