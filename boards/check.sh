@@ -331,6 +331,16 @@ done
 [ -f "$api_elf" ] && sizes glowcheck-nopanic thumbv6m-none-eabi "$api_elf"
 [ -f "$rp_elf" ] && sizes glowcheck-rp2040 thumbv6m-none-eabi "$rp_elf"
 [ -n "$stack_bytes" ] && echo "glowcheck-nopanic stack_bytes (thumbv6m code, painted and scanned): $stack_bytes" | tee -a "$out/sizes.txt"
+# `Buffers::new()` is all zero, so a firmware's `static` of it takes RAM in .bss and no flash (a
+# non-zero default, e.g. an `Option` whose `None` is a niche value, would copy ~45 KiB into .data).
+pelf="$out/glowcheck-pipeline-thumbv6m-none-eabi.elf"
+if [ -f "$pelf" ]; then
+    kind="$("$nm" "$pelf" | awk '$3 ~ /glowcheck_pipeline.*BUFFERS/ { print $2 }')"
+    case "$kind" in
+        b | B) ok "the pipeline firmware's Buffers static sits in .bss (no flash)" ;;
+        *) fail "the pipeline firmware's Buffers static is not in .bss (symbol type '$kind'): Buffers::new() is no longer all zero" ;;
+    esac
+fi
 
 # Instruction counts and stack of the whole pipeline on the M0 code (boards/measure.sh): more than 5 %
 # over boards/expected/measure.json fails, any change prints; --bless rewrites the baseline.
@@ -354,6 +364,19 @@ PY
         ok "adversarial frames within 2 x the typical frame's instructions"
     else
         fail "an adversarial frame took more than 2 x the typical frame's instructions (see above)"
+    fi
+    # Issue 6's stack bar: every measured lib call (the stages, and each typical and adversarial
+    # check) within a 4 KiB stack on the M0 code. Not blessable.
+    if python3 - "$out/measure.json" <<'PY'
+import json, sys
+d = json.loads(open(sys.argv[1]).readline())
+print(f"  deepest stack: {d['stack_bytes']} bytes ({d.get('stack_deepest')})")
+sys.exit(0 if 0 < d["stack_bytes"] <= 4096 else 1)
+PY
+    then
+        ok "every measured lib call fits a 4 KiB stack"
+    else
+        fail "a lib call needs more than 4 KiB of stack (see above)"
     fi
     mgolden="$here/expected/measure.json"
     if [ "$bless" = 1 ]; then
