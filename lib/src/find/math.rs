@@ -116,11 +116,11 @@ pub fn div_round_i64(num: i64, den: i64) -> i64 {
 /// `a · b` in full 64 bits from four 16 × 16-bit products: the Cortex-M0 has only a 32-bit multiply,
 /// and a general 64-bit product (`__aeabi_lmul`) costs three times as many instructions.
 #[inline]
-pub fn mul_u32_wide(a: u32, b: u32) -> u64 {
+pub const fn mul_u32_wide(a: u32, b: u32) -> u64 {
     let (a1, a0) = (a >> 16, a & 0xffff);
     let (b1, b0) = (b >> 16, b & 0xffff);
-    let mid = u64::from(a1 * b0) + u64::from(a0 * b1);
-    (u64::from(a1 * b1) << 32) + (mid << 16) + u64::from(a0 * b0)
+    let mid = (a1 * b0) as u64 + (a0 * b1) as u64;
+    (((a1 * b1) as u64) << 32) + (mid << 16) + (a0 * b0) as u64
 }
 
 /// Signed [`mul_u32_wide`].
@@ -212,8 +212,8 @@ impl Recip {
     /// Division by 1.
     pub const ONE: Self = Self { r: 1 << 31, t: 29 };
 
-    /// `None` unless 0 < `d` < 2^62.
-    pub fn new(d: i64) -> Option<Self> {
+    /// `None` unless 0 < `d` < 2^62. A `const fn`: a fixed divisor's reciprocal can be a constant.
+    pub const fn new(d: i64) -> Option<Self> {
         if d <= 0 || d >= 1 << 62 {
             return None;
         }
@@ -221,8 +221,12 @@ impl Recip {
         let n = if t >= 0 { d << t } else { d >> -t };
         // x0 = 2^46 / (n >> 14) · 2^14 ≈ 2^60 / n to 2^-15; one Newton step x += x·(2^60 − n·x) / 2^60
         // squares the error (n·x0 < 2^61; the correction's factors stay below 2^32 and 2^17).
-        let n16 = u32::try_from(n >> 14).ok()?.max(1);
-        let x0 = u64::from(u32::MAX / n16) << 14; // < 2^32
+        let n14 = n >> 14;
+        if n14 < 0 || n14 > u32::MAX as i64 {
+            return None;
+        }
+        let n16 = if n14 == 0 { 1 } else { n14 as u32 };
+        let x0 = ((u32::MAX / n16) as u64) << 14; // < 2^32
         let e = (1i64 << 60) - mul_u32_wide(n as u32, x0 as u32) as i64;
         let c = e >> 29; // |c| < 2^17
         let corr = mul_u32_wide(x0 as u32, c.unsigned_abs() as u32) as i64 >> 31;
