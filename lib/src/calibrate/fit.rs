@@ -7,7 +7,7 @@
 //! the centroid noise, sets the uncertainty).
 use super::error::CalibrateError;
 use super::map::{HalfWidth, WavelengthMap, X_ONE_Q30};
-use super::muldiv::{mul_div_round, Divisor};
+use super::muldiv::{mul_64x64, mul_div_round, Divisor};
 use crate::find::math::mul_u32_wide;
 use crate::fixed::{isqrt_u128, mul_div_i128};
 
@@ -62,8 +62,7 @@ impl MapFit {
         let q = self
             .quadratic_form_narrow(x)
             .unwrap_or_else(|| self.quadratic_form(x));
-        let var =
-            mul_div_i128(q.max(0), self.variance_scale_fm2 as i128, 1 << 40).unwrap_or(i128::MAX);
+        let var = scale_variance(q.max(0), self.variance_scale_fm2).unwrap_or(i128::MAX);
         // A map σ below 65 pm takes the root in 32-bit steps (`isqrt_u128` narrows by itself).
         isqrt_u128(var.max(0) as u128) as u64
     }
@@ -125,6 +124,21 @@ impl MapFit {
             }
         }
         Some(q)
+    }
+}
+
+/// [`mul_div_i128`]`(q, scale, 2^40)` for q ≥ 0: the product rounded half up at bit 40. Below
+/// 2^64 for q (every real map) that is one 64 × 64-bit product and a shift, the same integer
+/// (`mul_div_i128` rounds r ≥ c − r up, which for c = 2^40 is adding 2^39 before the shift);
+/// else the general routine.
+fn scale_variance(q: i128, scale: u64) -> Option<i128> {
+    let fast = u64::try_from(q)
+        .ok()
+        .and_then(|a| mul_64x64(a, scale).checked_add(1 << 39))
+        .map(|v| (v >> 40) as i128);
+    match fast {
+        Some(v) => Some(v),
+        None => mul_div_i128(q, scale as i128, 1 << 40),
     }
 }
 
@@ -363,6 +377,43 @@ fn gauss_jordan(m: &mut [[i128; 9]; 4], d: usize) -> Result<(), CalibrateError> 
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn variance_scaling_is_the_general_rounded_quotient() {
+        let mut seed = 0x9e37_79b9_7f4a_7c15u64;
+        let mut next = move || {
+            seed ^= seed << 13;
+            seed ^= seed >> 7;
+            seed ^= seed << 17;
+            seed
+        };
+        for _ in 0..100_000 {
+            let q = (((next() as u128) << 64 | next() as u128) >> (next() % 128)) as i128 >> 1;
+            let scale = next() >> (next() % 64);
+            // Exact halves too: q · scale an odd multiple of 2^39.
+            let (q, scale) = if next() % 8 == 0 {
+                ((2 * (next() % 1_000_000) as i128 + 1) << 39, 1)
+            } else {
+                (q, scale)
+            };
+            assert_eq!(
+                scale_variance(q, scale),
+                mul_div_i128(q, scale as i128, 1 << 40),
+                "{q} {scale}"
+            );
+        }
+        for (q, scale) in [
+            (0, 0),
+            (u64::MAX as i128, u64::MAX),
+            (1 << 64, 3),
+            (i128::MAX, 2),
+        ] {
+            assert_eq!(
+                scale_variance(q, scale),
+                mul_div_i128(q, scale as i128, 1 << 40)
+            );
+        }
+    }
 
     fn truth(p: i64) -> i64 {
         // 380 … 720 nm over 2048 px with curvature: λ = 380 nm + 0.17 nm·p − 1e-6 nm·p² (in fm).

@@ -260,8 +260,12 @@ impl Checker {
             &mut in_use.lines,
         )?;
         let in_use = in_use;
-        let pairs = assign(&features, peaks, |f| self.window_px_q16(f, &in_use));
-        let pairs = self.split_resolved(&features, pairs, peaks, &in_use);
+        // Each feature's windows once: assignment and blend splitting both ask for them.
+        let windows: Vec<(i32, i32), MAX_FEATURES> =
+            collect_bounded(features.iter().map(|f| self.windows_px_q16(f, &in_use)));
+        let window_of = |i: usize| windows.get(i).copied().unwrap_or((1 << 16, 1 << 16));
+        let pairs = assign(&features, peaks, |i, _| window_of(i).1);
+        let pairs = self.split_resolved(&features, pairs, peaks, &in_use, |i| window_of(i).0);
         let estimate = self.isotope(&features, &pairs, peaks, &in_use, frame, base);
         let shares = self.shares(estimate);
         let hw = HalfWidth::reciprocal(&in_use.map);
@@ -315,27 +319,14 @@ impl Checker {
         }
     }
 
-    /// Match window of one line: twice the allowed position error plus 3 σ of the map, ≥ 1 px (Q16).
-    fn base_window_px_q16(&self, f: &Feature, m: &MapInUse) -> i32 {
-        self.base_window_with_slope(f, m).0
-    }
-
-    /// [`base_window_px_q16`](Self::base_window_px_q16) and |dλ/dp| at the feature's predicted pixel
-    /// (fm/px Q16, at least 1; 1 when the map cannot say), from one evaluation of the map there.
-    fn base_window_with_slope(&self, f: &Feature, m: &MapInUse) -> (i32, i64) {
+    /// Match windows of a feature (px, Q16): its line's (twice the allowed position error plus 3 σ
+    /// of the map, ≥ 1 px), and the feature's (the line's plus the reach of a blend's members,
+    /// whose centre moves with the unknown mix), from one evaluation of the map at its pixel.
+    fn windows_px_q16(&self, f: &Feature, m: &MapInUse) -> (i32, i32) {
         let (_, slope, sigma) = m.at(f.predicted_px_q16);
         let slope = slope.max(1) as i64;
         let tol_fm = 2 * self.cfg.profile.max_line_error_fm as i64 + 3 * sigma as i64;
-        (
-            (shl32_div(tol_fm, slope)).clamp(1 << 16, 64 << 16) as i32,
-            slope,
-        )
-    }
-
-    /// Match window of a feature: the line window plus the reach of a blend's members (its centre
-    /// moves with the unknown mix).
-    fn window_px_q16(&self, f: &Feature, m: &MapInUse) -> i32 {
-        let (base, slope) = self.base_window_with_slope(f, m);
+        let base = (shl32_div(tol_fm, slope)).clamp(1 << 16, 64 << 16) as i32;
         // The quotient grows with the distance: the farthest member's is the largest.
         let far = f
             .members
@@ -344,7 +335,7 @@ impl Checker {
             .map(|c| (c.wavelength_fm - f.predicted_fm).abs())
             .max();
         let reach = far.map_or(0, |v| shl32_div(v, slope));
-        (base as i128 + reach).clamp(1 << 16, 64 << 16) as i32
+        (base, (base as i128 + reach).clamp(1 << 16, 64 << 16) as i32)
     }
 
     /// Instrument line σ (px, Q16): median FWHM of matched, unsaturated, unblended peaks, else the
@@ -510,6 +501,7 @@ impl Checker {
         mut pairs: Vec<Pair, 40>,
         peaks: &[Peak],
         m: &MapInUse,
+        line_window_px_q16: impl Fn(usize) -> i32,
     ) -> Vec<Pair, 40> {
         let matched: Vec<Pair, 40> = pairs.clone();
         for (k, pk) in peaks.iter().enumerate() {
@@ -521,7 +513,7 @@ impl Checker {
                     // The window is at most 64 px: beyond that it need not be worked out.
                     f.members.len() > 1
                         && self.nearest_member(f, pk, m).is_some_and(|(_, d)| {
-                            d <= 64 << 16 && d <= self.base_window_px_q16(f, m)
+                            d <= 64 << 16 && d <= line_window_px_q16(p.feature as usize)
                         })
                 })
             });
@@ -985,12 +977,25 @@ fn sensor_range(cfg: &Config) -> Result<(i64, i64), CheckError> {
 }
 
 /// Largest (fitted − stored) difference at 17 points across the sensor, femtometres, with sign.
+///
+/// Maps on one frame (centre and half-width; a fit and a stored map of the same sensor) share each
+/// point's x: one division through the half-width's reciprocal per point for both, the same
+/// integers as evaluating each map on its own.
 fn drift_fm(fitted: &WavelengthMap, stored: &WavelengthMap, pixels: u16) -> Option<i64> {
     let last = ((pixels as i64) - 1) << 16;
     let mut worst: Option<i64> = None;
+    let same_frame = fitted.center_px_q16 == stored.center_px_q16
+        && fitted.half_width_px_q16 == stored.half_width_px_q16;
+    let hw = HalfWidth::forward(fitted);
     for i in 0..=16i64 {
-        let p = (last * i / 16) as i32;
-        let d = fitted.wavelength_fm(p).ok()? - stored.wavelength_fm(p).ok()?;
+        // last < 2^32 (pixels ≤ 65 535): last · i / 16 by a shift, the same floor for p ≥ 0.
+        let p = ((last * i) >> 4) as i32;
+        let d = if same_frame {
+            let x = fitted.x_q30_by(p, &hw);
+            fitted.wavelength_at_x(x).ok()? - stored.wavelength_at_x(x).ok()?
+        } else {
+            fitted.wavelength_fm(p).ok()? - stored.wavelength_fm(p).ok()?
+        };
         if worst.is_none_or(|w| d.abs() > w.abs()) {
             worst = Some(d);
         }
