@@ -62,14 +62,6 @@ impl MapInUse {
         }
     }
 
-    /// |dλ/dp| at a pixel (fm/px, Q16); 0 where the map cannot say.
-    fn slope_abs(&self, p_q16: i32) -> u64 {
-        self.map
-            .slope_fm_per_px_q16(p_q16)
-            .unwrap_or(0)
-            .unsigned_abs()
-    }
-
     fn sigma_fm(&self, p_q16: i32) -> u64 {
         match &self.fit {
             Some(f) => f.sigma_fm_at(p_q16),
@@ -77,10 +69,10 @@ impl MapInUse {
         }
     }
 
-    /// (λ, |dλ/dp|, map σ) at one pixel, as [`WavelengthMap::wavelength_fm`], [`slope_abs`] and
-    /// [`sigma_fm`] give them, from one normalised x (one division instead of three).
+    /// (λ, |dλ/dp| (0 where the map cannot say), map σ) at one pixel, as
+    /// [`WavelengthMap::wavelength_fm`], [`WavelengthMap::slope_fm_per_px_q16`] and [`sigma_fm`]
+    /// give them, from one normalised x (one division instead of three).
     ///
-    /// [`slope_abs`]: Self::slope_abs
     /// [`sigma_fm`]: Self::sigma_fm
     fn at(&self, p_q16: i32) -> (Result<i64, CalibrateError>, u64, u64) {
         let x = self.map.x_q30_by(p_q16, &self.div);
@@ -421,14 +413,13 @@ impl Checker {
                 == 2;
             if both {
                 if let Some(pk) = peaks.get(pair.peak as usize) {
-                    let Ok(measured) = m.map.wavelength_fm(pk.center_px_q16) else {
+                    // λ and slope of the peak's pixel from one x (the same integers as the
+                    // pixel-taking calls, one division through the half-width's reciprocal).
+                    let x = m.map.x_q30_by(pk.center_px_q16, &m.div);
+                    let Ok(measured) = m.map.wavelength_at_x(x) else {
                         continue;
                     };
-                    let slope = m
-                        .map
-                        .slope_fm_per_px_q16(pk.center_px_q16)
-                        .ok()?
-                        .unsigned_abs() as u128;
+                    let slope = m.map.slope_at_x_by(x, &m.div).ok()?.unsigned_abs() as u128;
                     let sigma_fm = ((pk.center_sigma_px_q16 as u128 * slope) >> 32) as u64;
                     let _ = readings.push(BlendReading {
                         measured_fm: measured,
@@ -635,10 +626,12 @@ impl Checker {
                 continue;
             }
             foreign += area;
-            let Ok(w) = m.map.wavelength_fm(pk.center_px_q16) else {
+            // λ and |slope| (0 where the map cannot say) from one x, as the pixel-taking calls.
+            let x = m.map.x_q30_by(pk.center_px_q16, &m.div);
+            let Ok(w) = m.map.wavelength_at_x(x) else {
                 continue;
             };
-            let slope = m.slope_abs(pk.center_px_q16) as i64;
+            let slope = m.map.slope_at_x_by(x, &m.div).unwrap_or(0).unsigned_abs() as i64;
             let window = (3 * (slope >> 16)).max(300_000);
             let entry = UnexplainedPeak {
                 wavelength_fm: w,
