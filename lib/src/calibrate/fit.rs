@@ -7,7 +7,7 @@
 //! the centroid noise, sets the uncertainty).
 use super::error::CalibrateError;
 use super::map::{HalfWidth, WavelengthMap, X_ONE_Q30};
-use super::muldiv::{mul_div_round, Divisor};
+use super::muldiv::{mul_64x64, mul_div_round, Divisor};
 use crate::find::math::mul_u32_wide;
 use crate::fixed::{isqrt_u128, mul_div_i128};
 
@@ -77,8 +77,7 @@ impl MapFit {
         let q = self
             .quadratic_form_narrow(x)
             .unwrap_or_else(|| self.quadratic_form(x));
-        let var =
-            mul_div_i128(q.max(0), self.variance_scale_fm2 as i128, 1 << 40).unwrap_or(i128::MAX);
+        let var = scale_variance(q.max(0), self.variance_scale_fm2).unwrap_or(i128::MAX);
         // A map σ below 65 pm takes the root in 32-bit steps (`isqrt_u128` narrows by itself).
         isqrt_u128(var.max(0) as u128) as u64
     }
@@ -140,6 +139,21 @@ impl MapFit {
             }
         }
         Some(q)
+    }
+}
+
+/// [`mul_div_i128`]`(q, scale, 2^40)` for q ≥ 0: the product rounded half up at bit 40. Below
+/// 2^64 for q (every real map) that is one 64 × 64-bit product and a shift, the same integer
+/// (`mul_div_i128` rounds r ≥ c − r up, which for c = 2^40 is adding 2^39 before the shift);
+/// else the general routine.
+fn scale_variance(q: i128, scale: u64) -> Option<i128> {
+    let fast = u64::try_from(q)
+        .ok()
+        .and_then(|a| mul_64x64(a, scale).checked_add(1 << 39))
+        .map(|v| (v >> 40) as i128);
+    match fast {
+        Some(v) => Some(v),
+        None => mul_div_i128(q, scale as i128, 1 << 40),
     }
 }
 
@@ -206,10 +220,21 @@ pub(crate) fn fit_map_into(
     *m = [[0; 9]; 4];
     // The frame's (and the fitted map's) half-width divides every point's x: its reciprocal once.
     let hw = HalfWidth::forward(&frame);
+    // Each point's residual weight (Q20), found with its fit weight (Q30) from one division.
+    let mut weights_q20: heapless::Vec<Option<u32>, MAX_FIT_POINTS> = heapless::Vec::new();
     for pt in points {
         let s = pt.sigma_px_q16.max(1) as i128;
-        let w =
-            mul_div_round(sigma_min * sigma_min, 1 << 30, s * s).ok_or(CalibrateError::Overflow)?;
+        let w = match both_weights(sigma_min as u64, s as u64) {
+            Some((w30, w20)) => {
+                let _ = weights_q20.push(Some(w20));
+                w30 as i128
+            }
+            None => {
+                let _ = weights_q20.push(None);
+                mul_div_round(sigma_min * sigma_min, 1 << 30, s * s)
+                    .ok_or(CalibrateError::Overflow)?
+            }
+        };
         let x = frame.x_q30_by(pt.center_px_q16, &hw);
         if x.unsigned_abs() <= 1 << 30 && (0..=1 << 30).contains(&w) {
             accumulate_narrow(m, d, w as i64, x, pt.wavelength_fm);
@@ -252,14 +277,17 @@ pub(crate) fn fit_map_into(
     let mut sum_wr2: i128 = 0;
     let mut sum_w: i128 = 0;
     let mut chi2_q8: i128 = 0;
-    for pt in points {
+    for (k, pt) in points.iter().enumerate() {
         // λ and slope share the pixel's x. (The weight below cannot fail: σ_min ≤ σ, so the first
         // error is the map's either way.)
         let (lam, slope) = map.wavelength_and_slope_by(pt.center_px_q16, &hw)?;
         let r = (lam - pt.wavelength_fm) as i128;
         let s = pt.sigma_px_q16.max(1) as i128;
-        let w =
-            mul_div_round(sigma_min * sigma_min, 1 << 20, s * s).ok_or(CalibrateError::Overflow)?;
+        let w = match weights_q20.get(k).copied().flatten() {
+            Some(w20) => w20 as i128,
+            None => mul_div_round(sigma_min * sigma_min, 1 << 20, s * s)
+                .ok_or(CalibrateError::Overflow)?,
+        };
         // w ≤ 2^20 (σ_min ≤ σ) and |r| < 2^21: w · r² < 2^62 needs neither 128 bits nor saturation.
         let wr2 = if r.unsigned_abs() < 1 << 21 && (0..=1 << 20).contains(&w) {
             ((w as i64) * (r as i64 * r as i64)) as i128
@@ -293,6 +321,25 @@ pub(crate) fn fit_map_into(
     out.chi2_per_dof_q8 = chi2_per_dof_q8;
     out.points = points.len() as u8;
     Ok(())
+}
+
+/// The fit and residual weights (σ_min / σ)² in Q30 and Q20, rounded half up as [`mul_div_round`]
+/// rounds them, from one 64-bit division: with n = σ_min² · 2^30 = q · σ² + r, the Q20 quotient is
+/// q >> 10 and its remainder ((q mod 2^10) · σ² + r) / 2^10 (exact: n / 2^10 = (q >> 10) σ² + that).
+/// `None` outside σ_min ≤ σ, σ_min < 2^17 and σ < 2^25 (σ_min² · 2^30 < 2^64 and σ² < 2^50 keep
+/// every product in `u64`; a real centroid σ is a small fraction of a pixel, below 2^16).
+fn both_weights(sigma_min: u64, sigma: u64) -> Option<(u64, u32)> {
+    if sigma_min == 0 || sigma_min > sigma || sigma_min >= 1 << 17 || sigma >= 1 << 25 {
+        return None;
+    }
+    let (n, d) = ((sigma_min * sigma_min) << 30, sigma * sigma);
+    let (q, r) = (n / d, n % d);
+    let w30 = q + u64::from(r >= d - r);
+    let (q20, t) = (q >> 10, q & 1023);
+    let r20 = (t * d + r) >> 10;
+    let w20 = q20 + u64::from(r20 >= d - r20);
+    // σ_min ≤ σ: both at most 2^30 and 2^20.
+    Some((w30, u32::try_from(w20).ok()?))
 }
 
 /// One point's terms of the normal equations (Q60): w · x^(r+c) and w · x^r · λ, x and w in Q30.
@@ -391,6 +438,77 @@ fn gauss_jordan(m: &mut [[i128; 9]; 4], d: usize) -> Result<(), CalibrateError> 
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn both_weights_from_one_division_are_the_rounded_quotients() {
+        let mut seed = 0x0123_4567_89ab_cdefu64;
+        let mut next = move |m: u64| {
+            seed ^= seed << 13;
+            seed ^= seed >> 7;
+            seed ^= seed << 17;
+            seed % m
+        };
+        let mut checked = 0;
+        for round in 0..200_000 {
+            let top = if round % 3 == 0 { 1 << 25 } else { 1 << 14 };
+            let (a, b) = (1 + next(top), 1 + next(top));
+            let (smin, s) = (a.min(b), a.max(b));
+            let (n, d) = ((smin * smin) as i128, (s * s) as i128);
+            let want = (
+                mul_div_round(n, 1 << 30, d).unwrap() as u64,
+                mul_div_round(n, 1 << 20, d).unwrap() as u32,
+            );
+            match both_weights(smin, s) {
+                Some(got) => {
+                    assert_eq!(got, want, "{smin} {s}");
+                    checked += 1;
+                }
+                None => assert!(s >= 1 << 25 || smin >= 1 << 17),
+            }
+        }
+        assert!(checked > 120_000, "{checked}");
+        // Exact halves: σ_min² · 2^20 an odd multiple of σ² / 2.
+        assert_eq!(both_weights(1, 2), Some((1 << 28, 1 << 18)));
+        assert_eq!(both_weights(3, 3), Some((1 << 30, 1 << 20)));
+        assert_eq!(both_weights(2, 1), None);
+    }
+
+    #[test]
+    fn variance_scaling_is_the_general_rounded_quotient() {
+        let mut seed = 0x9e37_79b9_7f4a_7c15u64;
+        let mut next = move || {
+            seed ^= seed << 13;
+            seed ^= seed >> 7;
+            seed ^= seed << 17;
+            seed
+        };
+        for _ in 0..100_000 {
+            let q = (((next() as u128) << 64 | next() as u128) >> (next() % 128)) as i128 >> 1;
+            let scale = next() >> (next() % 64);
+            // Exact halves too: q · scale an odd multiple of 2^39.
+            let (q, scale) = if next() % 8 == 0 {
+                ((2 * (next() % 1_000_000) as i128 + 1) << 39, 1)
+            } else {
+                (q, scale)
+            };
+            assert_eq!(
+                scale_variance(q, scale),
+                mul_div_i128(q, scale as i128, 1 << 40),
+                "{q} {scale}"
+            );
+        }
+        for (q, scale) in [
+            (0, 0),
+            (u64::MAX as i128, u64::MAX),
+            (1 << 64, 3),
+            (i128::MAX, 2),
+        ] {
+            assert_eq!(
+                scale_variance(q, scale),
+                mul_div_i128(q, scale as i128, 1 << 40)
+            );
+        }
+    }
 
     fn truth(p: i64) -> i64 {
         // 380 … 720 nm over 2048 px with curvature: λ = 380 nm + 0.17 nm·p − 1e-6 nm·p² (in fm).

@@ -633,7 +633,8 @@ fn score(mut h: Hypothesis, search: &Search<'_>, best: Option<&Hypothesis>) -> O
     } = *search;
     let floor = best.map_or(1, |b| b.net);
     let mut votes = 0i32;
-    let mut cost = 0i64;
+    // (distance, window) of each matched peak: the cost below, only when it can decide.
+    let mut hits: Vec<(i64, i64), SCORE_PEAKS> = Vec::new();
     let mut weakest = u32::MAX;
     let mut lam_of: Vec<(i64, i64), SCORE_PEAKS> = Vec::new();
     let mut matched: Vec<(u32, u32), SCORE_PEAKS> = Vec::new();
@@ -676,12 +677,7 @@ fn score(mut h: Hypothesis, search: &Search<'_>, best: Option<&Hypothesis>) -> O
             if let Some(slot) = h.lines_of.get_mut(m) {
                 *slot = idx as u8;
             }
-            // 0 ≤ d ≤ tol: below 2^23 the quotient is the same in u32, at most 256.
-            cost += if tol < 1 << 23 {
-                i64::from(ratio_q8(d as u32, tol.max(1) as u32))
-            } else {
-                d * 256 / tol.max(1)
-            };
+            let _ = hits.push((d, tol));
             let strength = lines.get(idx).map_or(0, |l| l.strength);
             weakest = weakest.min(strength);
             let _ = matched.push((p.snr_q8, strength));
@@ -717,7 +713,6 @@ fn score(mut h: Hypothesis, search: &Search<'_>, best: Option<&Hypothesis>) -> O
         }
     }
     h.net = votes - misses;
-    h.cost = cost;
     // Brighter peaks should sit on lines expected to be stronger (a tie-breaker: detector response
     // and self-absorption bend this, but rarely reverse a whole series).
     h.concord = match best {
@@ -733,6 +728,22 @@ fn score(mut h: Hypothesis, search: &Search<'_>, best: Option<&Hypothesis>) -> O
             }
             concord
         }
+    };
+    // The cost only breaks a tie of (net, concord) with the best, and is the best's own once this
+    // one is taken: below the best it decides nothing and is not summed (0 stands in).
+    h.cost = match best {
+        Some(b) if (h.net, h.concord) < (b.net, b.concord) => 0,
+        _ => hits
+            .iter()
+            .map(|&(d, tol)| {
+                // 0 ≤ d ≤ tol: below 2^23 the quotient is the same in u32, at most 256.
+                if tol < 1 << 23 {
+                    i64::from(ratio_q8(d as u32, tol.max(1) as u32))
+                } else {
+                    d * 256 / tol.max(1)
+                }
+            })
+            .sum(),
     };
     Some(h)
 }

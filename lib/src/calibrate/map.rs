@@ -196,34 +196,80 @@ impl WavelengthMap {
             && c3.unsigned_abs() <= LIMIT[3]
     }
 
-    /// Pixel (px, Q16) where the map gives `wavelength_fm`: Newton steps from the linear guess, at most
-    /// 12, stopping below 1/65536 px. May lie outside the sensor.
+    /// Pixel (px, Q16) where the map gives `wavelength_fm`: a series-reversion guess and one step
+    /// along the reversion's own slope, then (when that step was over 1/64 px) Newton steps, at most
+    /// 12, stopping after a step of at most 1/64 px (the step after it would be below 1/65536 px on
+    /// any map whose slope changes by less than 6 % per pixel). May lie outside the sensor.
     pub fn pixel_q16(&self, wavelength_fm: i64) -> Result<i32, CalibrateError> {
         self.pixel_q16_by(wavelength_fm, &HalfWidth::reciprocal(self))
     }
 
     /// [`pixel_q16`](Self::pixel_q16) with this map's half-width reciprocal made already (for many
-    /// inversions on one map: one division for all of them).
+    /// inversions on one map: one division for all of them, and the reversion ratios once).
+    ///
+    /// Work: the guess (≤ 9 products), then usually one λ and two products (no slope, no
+    /// division); else ≤ 12 Newton steps (λ, slope and one division each).
     pub(crate) fn pixel_q16_by(
         &self,
         wavelength_fm: i64,
         hw: &HalfWidth,
     ) -> Result<i32, CalibrateError> {
+        let t = self.first_x_q30(wavelength_fm, hw)?;
+        let Some((r, (x, dx_dt_q30))) = hw
+            .reversion
+            .and_then(|r| r.refine_with_slope(t).map(|g| (r, g)))
+        else {
+            let p = self.center_px_q16 as i128 + ((t * self.half_width_px_q16 as i128) >> 30);
+            return self.newton_from(p, wavelength_fm, hw, FINE_STEP_PX_Q16);
+        };
+        // |x| < 2^32 and half-width < 2^31: the product fits i64.
+        let p = self.center_px_q16 as i64 + ((x * self.half_width_px_q16 as i64) >> 30);
+        let pc = p.clamp(i32::MIN as i64 / 2, i32::MAX as i64 / 2) as i32;
+        let lam = self.wavelength_at_x(self.x_q30_by(pc, hw))?;
+        let err = lam - wavelength_fm;
+        if err.unsigned_abs() >= 1 << 24 {
+            return self.newton_from(pc as i128, wavelength_fm, hw, FINE_STEP_PX_Q16);
+        }
+        // dp/dλ = half-width · (dx/dt) / c1 (Q30; |dp/dλ| < 2^30 and |dx/dt| < 2^31 keep the
+        // product below 2^61), then the step err · dp/dλ rounded to Q16 (|err| < 2^24: below 2^56).
+        let dp_dlam_q30 = (r.dp_dlam_q30 * dx_dt_q30) >> 30;
+        let step = (err * dp_dlam_q30 + (1 << 29)) >> 30;
+        let p = pc as i64 - step;
+        if step.unsigned_abs() <= FINE_STEP_PX_Q16 as u64 {
+            return i32::try_from(p).map_err(|_| CalibrateError::Overflow);
+        }
+        self.newton_from(p as i128, wavelength_fm, hw, FINE_STEP_PX_Q16)
+    }
+
+    /// The linear guess x = (λ − c0) / c1 (Q30).
+    fn first_x_q30(&self, wavelength_fm: i64, hw: &HalfWidth) -> Result<i128, CalibrateError> {
         let [c0, c1, _, _] = self.coeff_fm.map(|c| c as i128);
         if c1 == 0 {
             return Err(CalibrateError::NotMonotone);
         }
         let off = wavelength_fm as i128 - c0;
-        let x0 = if off.unsigned_abs() < 1 << 32 && c1.unsigned_abs() < 1 << 63 {
-            // off · 2^30 fits i64: the same truncating division.
-            hw.div_c1_shl(off as i64, 30)
-                .ok_or(CalibrateError::NotMonotone)? as i128
-        } else {
-            (off << 30)
-                .checked_div(c1)
-                .ok_or(CalibrateError::NotMonotone)?
-        };
-        let mut p = self.center_px_q16 as i128 + ((x0 * self.half_width_px_q16 as i128) >> 30);
+        Ok(
+            if off.unsigned_abs() < 1 << 32 && c1.unsigned_abs() < 1 << 63 {
+                // off · 2^30 fits i64: the same truncating division.
+                hw.div_c1_shl(off as i64, 30)
+                    .ok_or(CalibrateError::NotMonotone)? as i128
+            } else {
+                (off << 30)
+                    .checked_div(c1)
+                    .ok_or(CalibrateError::NotMonotone)?
+            },
+        )
+    }
+
+    /// Newton steps on λ(p) = `wavelength_fm` from pixel `p` (px, Q16), at most 12, until a step is
+    /// at most `done_px_q16` in size (0: until a step is zero).
+    fn newton_from(
+        &self,
+        mut p: i128,
+        wavelength_fm: i64,
+        hw: &HalfWidth,
+        done_px_q16: u128,
+    ) -> Result<i32, CalibrateError> {
         for _ in 0..12 {
             let pc = i32::try_from(p.clamp(i32::MIN as i128 / 2, i32::MAX as i128 / 2))
                 .map_err(|_| CalibrateError::Overflow)?;
@@ -245,11 +291,94 @@ impl WavelengthMap {
                     .ok_or(CalibrateError::NotMonotone)?
             };
             p -= step;
-            if step == 0 {
+            if step.unsigned_abs() <= done_px_q16 {
                 break;
             }
         }
         i32::try_from(p).map_err(|_| CalibrateError::Overflow)
+    }
+
+    /// The inverse as it was first made: Newton steps from the linear guess until a step is zero
+    /// (the reference the faster [`pixel_q16_by`](Self::pixel_q16_by) is tested against).
+    #[cfg(test)]
+    pub(crate) fn pixel_q16_full_newton(&self, wavelength_fm: i64) -> Result<i32, CalibrateError> {
+        let hw = HalfWidth::reciprocal(self);
+        let x0 = self.first_x_q30(wavelength_fm, &hw)?;
+        let p = self.center_px_q16 as i128 + ((x0 * self.half_width_px_q16 as i128) >> 30);
+        self.newton_from(p, wavelength_fm, &hw, 0)
+    }
+}
+
+/// Newton on the map converges quadratically: after a step of at most 1/64 px (1 024 in Q16) the
+/// error left is about (λ''/2λ') · (1/64 px)², below 1/65536 px while the slope changes by less
+/// than 6 % per pixel (a real sensor's changes by well under 0.1 % per pixel), so the step that
+/// would follow is 0 or ±1 and is not taken. The first step, along the reversion's slope rather
+/// than the map's, leaves (1 − λ' · (dp/dλ)) of the guess' error besides: the reversion's slope is
+/// the map's at the root to its own accuracy (~10⁻⁵ of it), so after a step of ≤ 1/64 px that is
+/// below 10⁻⁶ px too.
+const FINE_STEP_PX_Q16: u128 = 1 << 10;
+
+/// Series reversion of the map, for the inverse's first guess: with λ = c0 + c1 (x + k2 x² + k3 x³)
+/// and t = (λ − c0) / c1, x ≈ t − k2 t² + (2 k2² − k3) t³ − 5 (k2³ − k2 k3) t⁴ (Abramowitz and
+/// Stegun, Handbook of Mathematical Functions (1964), 3.6.25, reversion of series; from memory).
+/// On a real sensor (|k2|, |k3| ≲ 0.05) the guess is within a few thousandths of a pixel, so one
+/// step finishes the inversion.
+#[derive(Clone, Copy)]
+pub(crate) struct Reversion {
+    /// c2 / c1 (Q30).
+    k2_q30: i64,
+    /// 2 k2² − k3 (Q30).
+    t3_q30: i64,
+    /// 5 (k2³ − k2 k3) (Q30).
+    t4_q30: i64,
+    /// dp/dx / dλ/dt = half-width / c1: Q16 pixels per femtometre, in Q30.
+    dp_dlam_q30: i64,
+}
+
+impl Reversion {
+    /// `None` when c1 is 0 or either ratio reaches 1/16 (no real sensor; the linear guess and Newton
+    /// steps then).
+    fn new(map: &WavelengthMap) -> Option<Reversion> {
+        let [_, c1, c2, c3] = map.coeff_fm;
+        let ratio = |c: i64| -> Option<i64> {
+            let q = ((c as i128) << 30).checked_div(c1 as i128)?;
+            (q.unsigned_abs() < 1 << 26).then_some(q as i64)
+        };
+        let (k2, k3) = (ratio(c2)?, ratio(c3)?);
+        // Q16 px per fm in Q30, kept below 2^30 (a sensor with over 1 px per fm is no sensor).
+        let dp = ((map.half_width_px_q16 as i128) << 30).checked_div(c1 as i128)?;
+        let dp = i64::try_from(dp)
+            .ok()
+            .filter(|d| d.unsigned_abs() < 1 << 30)?;
+        // |k2|, |k3| < 2^26: every product below is under 2^52 before its shift.
+        let k2k2 = (k2 * k2) >> 30;
+        Some(Reversion {
+            k2_q30: k2,
+            t3_q30: 2 * k2k2 - k3,
+            t4_q30: 5 * (((k2k2 * k2) >> 30) - ((k2 * k3) >> 30)),
+            dp_dlam_q30: dp,
+        })
+    }
+
+    /// The reversion guess x from the linear one t (Q30), and dx/dt there (Q30, the series'
+    /// derivative 1 − 2 k2 t + 3 (2 k2² − k3) t² − 4 · 5 (k2³ − k2 k3) t³); `None` for |t| > 1.5
+    /// (a quarter of the sensor beyond its ends, where Newton steps take over).
+    fn refine_with_slope(&self, t: i128) -> Option<(i64, i64)> {
+        if t.unsigned_abs() > 3 << 29 {
+            return None;
+        }
+        let t = t as i64;
+        // |t| ≤ 1.5 · 2^30, so t² < 2^31.2 (its square below 2^62.4), t³ < 2^31.8 and t⁴ < 2^32.4;
+        // |k2|, |k3| < 2^26 keep the coefficients below 2^26.2 (t3) and 2^24.4 (t4): each product
+        // below stays under 2^60.
+        let t2 = (t * t) >> 30;
+        let t3 = (t2 * t) >> 30;
+        let t4 = (t2 * t2) >> 30;
+        let x = t - ((self.k2_q30 * t2) >> 30) + ((self.t3_q30 * t3) >> 30)
+            - ((self.t4_q30 * t4) >> 30);
+        let d = (1 << 30) - ((2 * self.k2_q30 * t) >> 30) + ((3 * self.t3_q30 * t2) >> 30)
+            - ((4 * self.t4_q30 * t3) >> 30);
+        Some((x, d))
     }
 }
 
@@ -267,6 +396,8 @@ pub(crate) struct HalfWidth {
     c1: i64,
     /// (|c1|, m) when made for inversion and 0 < |c1| < 2^63.
     recip_c1: Option<(u64, u64)>,
+    /// The map's reversion ratios when made for inversion.
+    reversion: Option<Reversion>,
 }
 
 impl HalfWidth {
@@ -276,6 +407,7 @@ impl HalfWidth {
         recip: None,
         c1: 0,
         recip_c1: None,
+        reversion: None,
     };
 
     /// Plain `checked_div` (one use).
@@ -285,6 +417,7 @@ impl HalfWidth {
             recip: None,
             c1: map.coeff_fm[1],
             recip_c1: None,
+            reversion: None,
         }
     }
 
@@ -297,11 +430,12 @@ impl HalfWidth {
         }
     }
 
-    /// With the reciprocals of the half-width and of c1, for inverting `map` several times: two
-    /// divisions to make them. Only for `map` (or one with the same half-width and c1).
+    /// With the reciprocals of the half-width and of c1 and the reversion ratios, for inverting
+    /// `map` several times: four divisions to make them. Only for `map`.
     pub(crate) fn reciprocal(map: &WavelengthMap) -> HalfWidth {
         HalfWidth {
             recip_c1: reciprocal(map.coeff_fm[1]),
+            reversion: Reversion::new(map),
             ..HalfWidth::forward(map)
         }
     }
@@ -490,12 +624,82 @@ mod tests {
                 assert_eq!(m.slope_fm_per_px_q16(p).ok(), slope, "{m:?} at {p}");
                 if let Some(w) = lam {
                     let w = w + next(2_000_001) as i64 - 1_000_000;
-                    assert_eq!(m.pixel_q16(w).ok(), reference_pixel(&m, w), "{m:?} λ {w}");
+                    assert_eq!(
+                        m.pixel_q16_full_newton(w).ok(),
+                        reference_pixel(&m, w),
+                        "{m:?} λ {w}"
+                    );
                 }
                 checked += 1;
             }
         }
         assert!(checked > 10_000, "{checked}");
+    }
+
+    #[test]
+    fn reversion_guess_gives_the_full_newton_pixel_to_the_rounding_of_lambda() {
+        let mut seed = 0x2545_f491_4f6c_dd1du64;
+        let mut next = |m: u64| {
+            seed ^= seed << 13;
+            seed ^= seed >> 7;
+            seed ^= seed << 17;
+            seed % m
+        };
+        let (mut checked, mut same, mut worst) = (0u32, 0u32, 0i64);
+        for _ in 0..3000 {
+            // Sensors of 100–400 nm span: curvature up to 1/40 of the slope term, cubic 1/400.
+            let c1 = 50_000_000 + next(150_000_000) as i64;
+            let coeff = [
+                300_000_000 + next(500_000_000) as i64,
+                c1,
+                next(2 * c1 as u64 / 40 + 1) as i64 - c1 / 40,
+                next(c1 as u64 / 200 + 1) as i64 - c1 / 400,
+            ];
+            let degree = 1 + next(3) as u8;
+            let pixels = 256 + next(3840) as u16;
+            let Ok(m) = WavelengthMap::new(pixels, degree, coeff) else {
+                continue;
+            };
+            for _ in 0..8 {
+                // From a quarter of the sensor below it to a quarter above.
+                let p = next((u64::from(pixels) * 3) << 15) as i32 - (i32::from(pixels) << 14);
+                let Ok(w) = m.wavelength_fm(p) else { continue };
+                let w = w + next(2_001) as i64 - 1_000;
+                let (fast, full) = (m.pixel_q16(w), m.pixel_q16_full_newton(w));
+                assert_eq!(fast.is_ok(), full.is_ok(), "{m:?} λ {w}");
+                if let (Ok(a), Ok(b)) = (fast, full) {
+                    let d = (a as i64 - b as i64).abs();
+                    // The full iteration stops at any pixel whose λ is within one Q16 step's
+                    // worth of wavelength of w, and λ itself is rounded to 1 fm: two or three
+                    // neighbouring pixels qualify. The fast answer must be as close in λ.
+                    let fm_per_px = (m.slope_fm_per_px_q16(b).unwrap().abs() >> 16).max(1);
+                    let step_fm = fm_per_px / 65_536 + 1;
+                    let miss = (m.wavelength_fm(a).unwrap() - w).abs();
+                    assert!(miss <= step_fm + 2, "{m:?} λ {w}: {a} misses by {miss} fm");
+                    assert!(d <= 2 + (2 << 16) / fm_per_px, "{m:?} λ {w}: {a} vs {b}");
+                    worst = worst.max(d);
+                    same += u32::from(d == 0);
+                    checked += 1;
+                }
+            }
+        }
+        assert!(checked > 15_000, "{checked}");
+        // Straight maps far beyond the sensor (|x| up to 3): the guess is then the linear one and
+        // Newton steps finish, as in the full iteration.
+        for _ in 0..500 {
+            let c1 = 50_000_000 + next(150_000_000) as i64;
+            let m = WavelengthMap::new(2048, 1, [500_000_000, c1, 0, 0]).unwrap();
+            let w = 500_000_000 + next(6 * c1 as u64) as i64 - 3 * c1;
+            let (a, b) = (m.pixel_q16(w).unwrap(), m.pixel_q16_full_newton(w).unwrap());
+            let miss = (m.wavelength_fm(a).unwrap() - w).abs();
+            assert!(
+                miss <= c1 / 1023 / 65_536 + 3,
+                "λ {w}: {a} vs {b}, misses by {miss} fm"
+            );
+        }
+        // Most inversions give the very same integer (about two thirds here); the rest another of
+        // the pixels the full iteration may stop at.
+        assert!(same * 2 > checked, "{same} of {checked} (worst {worst})");
     }
 
     #[test]
@@ -666,7 +870,9 @@ mod tests {
         // The inverse through the reciprocal matches the 128-bit reference above.
         let m = demo_map();
         for w in [400_000_000i64, 455_555_555, 550_000_001, 699_999_999] {
-            assert_eq!(m.pixel_q16(w).ok(), reference_pixel(&m, w));
+            assert_eq!(m.pixel_q16_full_newton(w).ok(), reference_pixel(&m, w));
+            let fast = m.pixel_q16(w).unwrap();
+            assert!((fast - reference_pixel(&m, w).unwrap()).abs() <= 1, "{w}");
         }
     }
 }

@@ -9,7 +9,7 @@ use crate::calibrate::{
     WavelengthMap, MAX_REFERENCE_LINES,
 };
 use crate::condition::{condition_frame, FrameSum, GainTable};
-use crate::find::{find_peaks, Peak, PeakList};
+use crate::find::{find_peaks, FindReport, Peak, PeakList};
 use crate::judge::{MatchedLine, Mode, Reason, Report, SpeciesShare, UnexplainedPeak};
 use crate::matching::assign::{assign, Pair};
 use crate::matching::catalogue::{build_into, CatalogueLine, MAX_NUCLEI};
@@ -78,14 +78,6 @@ impl MapInUse {
         self.lines = LinePixels::new();
     }
 
-    /// |dλ/dp| at a pixel (fm/px, Q16); 0 where the map cannot say.
-    fn slope_abs(&self, p_q16: i32) -> u64 {
-        self.map
-            .slope_fm_per_px_q16(p_q16)
-            .unwrap_or(0)
-            .unsigned_abs()
-    }
-
     fn sigma_fm(&self, p_q16: i32) -> u64 {
         match &self.fit {
             Some(f) => f.sigma_fm_at(p_q16),
@@ -93,10 +85,10 @@ impl MapInUse {
         }
     }
 
-    /// (λ, |dλ/dp|, map σ) at one pixel, as [`WavelengthMap::wavelength_fm`], [`slope_abs`] and
-    /// [`sigma_fm`] give them, from one normalised x (one division instead of three).
+    /// (λ, |dλ/dp| (0 where the map cannot say), map σ) at one pixel, as
+    /// [`WavelengthMap::wavelength_fm`], [`WavelengthMap::slope_fm_per_px_q16`] and [`sigma_fm`]
+    /// give them, from one normalised x (one division instead of three).
     ///
-    /// [`slope_abs`]: Self::slope_abs
     /// [`sigma_fm`]: Self::sigma_fm
     fn at(&self, p_q16: i32) -> (Result<i64, CalibrateError>, u64, u64) {
         let x = self.map.x_q30_by(p_q16, &self.div);
@@ -256,25 +248,18 @@ impl Checker {
         if signal.len() != cfg.pixels as usize {
             return Err(CheckError::WrongPixelCount);
         }
+        let mut work = work;
+        let found = self.find_stage(signal, dark, gain, &mut work, &mut at)?;
         let Workspace {
             frame,
-            flags,
             scratch,
             peaks,
-            find,
             matching,
+            ..
         } = work;
-        let info = condition_frame(&cfg.condition, signal, dark, gain, frame, flags)?;
-        at(Stage::Conditioned);
-        let mut fcfg = cfg.find;
-        if fcfg.shot_var_per_unit_q16.is_none() {
-            fcfg.shot_var_per_unit_q16 = info.shot_var_per_unit_q16;
-        }
-        let found = find_peaks(&fcfg, frame, flags, scratch, find, peaks)?;
-        at(Stage::PeaksFound);
         let peaks: &PeakList = peaks;
         let base = scratch.get(..frame.len()).unwrap_or(&[]);
-        *report = Report::new();
+        report.clear();
         report.mode = cfg.mode;
         report.truncated = found.truncated;
         report.scores.peaks = peaks.len() as u8;
@@ -320,6 +305,35 @@ impl Checker {
         Ok(())
     }
 
+    /// Conditioning and peak finding into `work`. Out of line, as [`match_lines`](Self::match_lines).
+    #[inline(never)]
+    fn find_stage(
+        &self,
+        signal: FrameSum<'_>,
+        dark: Option<FrameSum<'_>>,
+        gain: Option<GainTable<'_>>,
+        work: &mut Workspace<'_>,
+        at: &mut impl FnMut(Stage),
+    ) -> Result<FindReport, CheckError> {
+        let cfg = &self.cfg;
+        let info = condition_frame(&cfg.condition, signal, dark, gain, work.frame, work.flags)?;
+        at(Stage::Conditioned);
+        let mut fcfg = cfg.find;
+        if fcfg.shot_var_per_unit_q16.is_none() {
+            fcfg.shot_var_per_unit_q16 = info.shot_var_per_unit_q16;
+        }
+        let found = find_peaks(
+            &fcfg,
+            work.frame,
+            work.flags,
+            work.scratch,
+            work.find,
+            work.peaks,
+        )?;
+        at(Stage::PeaksFound);
+        Ok(found)
+    }
+
     /// Matching and isotope shares on the map in `work` (pairs kept there for judging); `rows` are
     /// the frame and its baseline. Out of line: its locals are not on the stack while peak finding
     /// and identification run below [`check`](Self::check).
@@ -337,6 +351,7 @@ impl Checker {
             map: in_use,
             pairs: kept,
             readings,
+            windows,
             ..
         } = work;
         // Closer than 1.5 line widths, two lines may show as one peak (peak finding's own blend limit);
@@ -352,8 +367,14 @@ impl Checker {
             features,
         )?;
         let in_use: &MapInUse = in_use;
-        let pairs = assign(features, peaks, |f| self.window_px_q16(f, in_use));
-        let pairs = self.split_resolved(features, pairs, peaks, in_use);
+        // Each feature's windows once (kept in `work`): assignment and blend splitting both ask.
+        windows.clear();
+        for f in features.iter() {
+            let _ = windows.push(self.windows_px_q16(f, in_use));
+        }
+        let window_of = |i: usize| windows.get(i).copied().unwrap_or((1 << 16, 1 << 16));
+        let pairs = assign(features, peaks, |i, _| window_of(i).1);
+        let pairs = self.split_resolved(features, pairs, peaks, in_use, |i| window_of(i).0);
         let estimate = self.isotope(features, &pairs, peaks, in_use, rows, readings);
         let shares = self.shares(estimate);
         let hw = HalfWidth::reciprocal(&in_use.map);
@@ -403,27 +424,14 @@ impl Checker {
         }
     }
 
-    /// Match window of one line: twice the allowed position error plus 3 σ of the map, ≥ 1 px (Q16).
-    fn base_window_px_q16(&self, f: &Feature, m: &MapInUse) -> i32 {
-        self.base_window_with_slope(f, m).0
-    }
-
-    /// [`base_window_px_q16`](Self::base_window_px_q16) and |dλ/dp| at the feature's predicted pixel
-    /// (fm/px Q16, at least 1; 1 when the map cannot say), from one evaluation of the map there.
-    fn base_window_with_slope(&self, f: &Feature, m: &MapInUse) -> (i32, i64) {
+    /// Match windows of a feature (px, Q16): its line's (twice the allowed position error plus 3 σ
+    /// of the map, ≥ 1 px), and the feature's (the line's plus the reach of a blend's members,
+    /// whose centre moves with the unknown mix), from one evaluation of the map at its pixel.
+    fn windows_px_q16(&self, f: &Feature, m: &MapInUse) -> (i32, i32) {
         let (_, slope, sigma) = m.at(f.predicted_px_q16);
         let slope = slope.max(1) as i64;
         let tol_fm = 2 * self.cfg.profile.max_line_error_fm as i64 + 3 * sigma as i64;
-        (
-            (shl32_div(tol_fm, slope)).clamp(1 << 16, 64 << 16) as i32,
-            slope,
-        )
-    }
-
-    /// Match window of a feature: the line window plus the reach of a blend's members (its centre
-    /// moves with the unknown mix).
-    fn window_px_q16(&self, f: &Feature, m: &MapInUse) -> i32 {
-        let (base, slope) = self.base_window_with_slope(f, m);
+        let base = (shl32_div(tol_fm, slope)).clamp(1 << 16, 64 << 16) as i32;
         // The quotient grows with the distance: the farthest member's is the largest.
         let far = f
             .members
@@ -432,7 +440,7 @@ impl Checker {
             .map(|c| (c.wavelength_fm - f.predicted_fm).abs())
             .max();
         let reach = far.map_or(0, |v| shl32_div(v, slope));
-        (base as i128 + reach).clamp(1 << 16, 64 << 16) as i32
+        (base, (base as i128 + reach).clamp(1 << 16, 64 << 16) as i32)
     }
 
     /// Instrument line σ (px, Q16): median FWHM of matched, unsaturated, unblended peaks, else the
@@ -518,14 +526,13 @@ impl Checker {
                 == 2;
             if both {
                 if let Some(pk) = peaks.get(pair.peak as usize) {
-                    let Ok(measured) = m.map.wavelength_fm(pk.center_px_q16) else {
+                    // λ and slope of the peak's pixel from one x (the same integers as the
+                    // pixel-taking calls, one division through the half-width's reciprocal).
+                    let x = m.map.x_q30_by(pk.center_px_q16, &m.div);
+                    let Ok(measured) = m.map.wavelength_at_x(x) else {
                         continue;
                     };
-                    let slope = m
-                        .map
-                        .slope_fm_per_px_q16(pk.center_px_q16)
-                        .ok()?
-                        .unsigned_abs() as u128;
+                    let slope = m.map.slope_at_x_by(x, &m.div).ok()?.unsigned_abs() as u128;
                     let sigma_fm = ((pk.center_sigma_px_q16 as u128 * slope) >> 32) as u64;
                     let _ = readings.push(BlendReading {
                         measured_fm: measured,
@@ -598,6 +605,7 @@ impl Checker {
         mut pairs: Vec<Pair, 40>,
         peaks: &[Peak],
         m: &MapInUse,
+        line_window_px_q16: impl Fn(usize) -> i32,
     ) -> Vec<Pair, 40> {
         let matched: Vec<Pair, 40> = pairs.clone();
         for (k, pk) in peaks.iter().enumerate() {
@@ -609,7 +617,7 @@ impl Checker {
                     // The window is at most 64 px: beyond that it need not be worked out.
                     f.members.len() > 1
                         && self.nearest_member(f, pk, m).is_some_and(|(_, d)| {
-                            d <= 64 << 16 && d <= self.base_window_px_q16(f, m)
+                            d <= 64 << 16 && d <= line_window_px_q16(p.feature as usize)
                         })
                 })
             });
@@ -731,10 +739,12 @@ impl Checker {
                 continue;
             }
             foreign += area;
-            let Ok(w) = m.map.wavelength_fm(pk.center_px_q16) else {
+            // λ and |slope| (0 where the map cannot say) from one x, as the pixel-taking calls.
+            let x = m.map.x_q30_by(pk.center_px_q16, &m.div);
+            let Ok(w) = m.map.wavelength_at_x(x) else {
                 continue;
             };
-            let slope = m.slope_abs(pk.center_px_q16) as i64;
+            let slope = m.map.slope_at_x_by(x, &m.div).unwrap_or(0).unsigned_abs() as i64;
             let window = (3 * (slope >> 16)).max(300_000);
             let entry = UnexplainedPeak {
                 wavelength_fm: w,
@@ -1088,12 +1098,25 @@ fn sensor_range(cfg: &Config) -> Result<(i64, i64), CheckError> {
 }
 
 /// Largest (fitted − stored) difference at 17 points across the sensor, femtometres, with sign.
+///
+/// Maps on one frame (centre and half-width; a fit and a stored map of the same sensor) share each
+/// point's x: one division through the half-width's reciprocal per point for both, the same
+/// integers as evaluating each map on its own.
 fn drift_fm(fitted: &WavelengthMap, stored: &WavelengthMap, pixels: u16) -> Option<i64> {
     let last = ((pixels as i64) - 1) << 16;
     let mut worst: Option<i64> = None;
+    let same_frame = fitted.center_px_q16 == stored.center_px_q16
+        && fitted.half_width_px_q16 == stored.half_width_px_q16;
+    let hw = HalfWidth::forward(fitted);
     for i in 0..=16i64 {
-        let p = (last * i / 16) as i32;
-        let d = fitted.wavelength_fm(p).ok()? - stored.wavelength_fm(p).ok()?;
+        // last < 2^32 (pixels ≤ 65 535): last · i / 16 by a shift, the same floor for p ≥ 0.
+        let p = ((last * i) >> 4) as i32;
+        let d = if same_frame {
+            let x = fitted.x_q30_by(p, &hw);
+            fitted.wavelength_at_x(x).ok()? - stored.wavelength_at_x(x).ok()?
+        } else {
+            fitted.wavelength_fm(p).ok()? - stored.wavelength_fm(p).ok()?
+        };
         if worst.is_none_or(|w| d.abs() > w.abs()) {
             worst = Some(d);
         }

@@ -35,6 +35,8 @@ pub struct MatchWork {
     pub(super) pairs: Vec<Pair, MAX_PAIRS>,
     /// Blended isotope pairs' positions, for the share by position (0.8 KiB).
     pub(super) readings: Vec<BlendReading, MAX_READINGS>,
+    /// Each feature's (line, feature) match windows, px Q16.
+    pub(super) windows: Vec<(i32, i32), MAX_FEATURES>,
 }
 
 /// Most feature–peak pairs one check keeps (one per feature).
@@ -51,6 +53,7 @@ impl MatchWork {
             identify: IdentifyWork::new(),
             pairs: Vec::new(),
             readings: Vec::new(),
+            windows: Vec::new(),
         }
     }
 }

@@ -191,6 +191,35 @@ impl Report {
         }
     }
 
+    /// Empties the report in place, as [`Report::new`] would, without building a second report on
+    /// the stack of a small core.
+    pub fn clear(&mut self) {
+        let Report {
+            verdict,
+            reasons,
+            mode,
+            map,
+            fit_rms_fm,
+            drift_fm,
+            shares,
+            lines,
+            unexplained,
+            scores,
+            truncated,
+        } = self;
+        *verdict = Verdict::Inconclusive;
+        reasons.clear();
+        *mode = Mode::Verify;
+        *map = None;
+        *fit_rms_fm = None;
+        *drift_fm = None;
+        shares.clear();
+        lines.clear();
+        unexplained.clear();
+        *scores = Report::new().scores;
+        *truncated = false;
+    }
+
     /// Adds a finding (ignored when the list is full: the verdict already holds the worst ones).
     pub fn note(&mut self, reason: Reason) {
         let _ = self.reasons.push(reason);
@@ -208,5 +237,36 @@ impl Report {
             Some(super::reason::Severity::Inconclusive) => Verdict::Inconclusive,
             _ => Verdict::Pass,
         };
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::calibrate::WavelengthMap;
+
+    /// A used report, cleared in place, equals a new one field for field.
+    #[test]
+    fn clear_gives_a_new_report() {
+        let mut r = Report::new();
+        r.verdict = Verdict::Fail;
+        r.note(Reason::NoLines);
+        r.mode = Mode::Calibrate;
+        r.map = WavelengthMap::new(2048, 1, [500_000_000, 100_000_000, 0, 0]).ok();
+        r.fit_rms_fm = Some(7);
+        r.drift_fm = Some(-3);
+        let _ = r.unexplained.push(UnexplainedPeak {
+            wavelength_fm: 1,
+            center_px_q16: 2,
+            snr_q8: 3,
+            hint: Some(0),
+        });
+        r.scores.peaks = 9;
+        r.scores.noise_q8 = 11;
+        r.truncated = true;
+        assert!(r.map.is_some());
+        assert_ne!(r, Report::new());
+        r.clear();
+        assert_eq!(r, Report::new());
     }
 }

@@ -14,13 +14,13 @@ pub struct Pair {
 }
 
 /// Greedy assignment, strongest expected feature first: each takes the nearest free peak within its
-/// window (px, Q16, from `window_px_q16(feature)`). Result sorted by peak.
+/// window (px, Q16, from `window_px_q16(index, feature)`). Result sorted by peak.
 ///
 /// Work: ≤ 40 features × ≤ 64 peaks, plus sorting.
 pub fn assign(
     features: &[Feature],
     peaks: &[Peak],
-    window_px_q16: impl Fn(&Feature) -> i32,
+    window_px_q16: impl Fn(usize, &Feature) -> i32,
 ) -> Vec<Pair, 40> {
     let mut order: Vec<u8, 40> = crate::bounded::collect_bounded(0..features.len().min(40) as u8);
     crate::sort::sort_by_key(&mut order, |&i| {
@@ -32,7 +32,7 @@ pub fn assign(
         let Some(f) = features.get(fi as usize) else {
             continue;
         };
-        let win = window_px_q16(f);
+        let win = window_px_q16(fi as usize, f);
         let mut best: Option<(usize, i64)> = None;
         for (k, p) in peaks.iter().enumerate().take(64) {
             if taken.get(k).copied().unwrap_or(true) {

@@ -115,9 +115,12 @@ pub fn share_by_profile(w: &PairWindow<'_>) -> Option<ShareEstimate> {
     // Σ r² is the same for every shift, width and the mirrored pair (same frame and window).
     let srr = rr_sum(w, first, last)?;
     let mut best: Option<(i128, Sums, i64)> = None;
+    // One line shape per width searched (each takes two reciprocals).
+    let widths = [sigma * 23 / 25, sigma, sigma * 27 / 25].map(|sg| (sg, LineShape::new(sg)));
+    let [_, (_, shape), _] = widths;
     for s in 0..=steps {
         let shift = -range + s as i64 * 4096;
-        let sums = sums_at(w, first, last, shift, sigma, srr)?;
+        let sums = sums_at(w, first, last, shift, &shape, srr)?;
         let chi = sums.chi2();
         if best.as_ref().is_none_or(|(c, _, _)| chi < *c) {
             best = Some((chi, sums, shift));
@@ -128,20 +131,20 @@ pub fn share_by_profile(w: &PairWindow<'_>) -> Option<ShareEstimate> {
     // The width is refined too (±8 %): a width off by a few per cent biases the share far more than
     // the noise does.
     let (_, _, coarse) = best?;
-    let mut sigma_best = sigma;
-    for sg in [sigma * 23 / 25, sigma, sigma * 27 / 25] {
+    let mut sigma_best = (sigma, shape);
+    for (sg, shape) in widths {
         let fine = if range > 0 { 16i64 } else { 0 };
         for s in -fine..=fine {
             let shift = coarse + s * 256;
-            let sums = sums_at(w, first, last, shift, sg, srr)?;
+            let sums = sums_at(w, first, last, shift, &shape, srr)?;
             let chi = sums.chi2();
             if best.as_ref().is_none_or(|(c, _, _)| chi < *c) {
                 best = Some((chi, sums, shift));
-                sigma_best = sg;
+                sigma_best = (sg, shape);
             }
         }
     }
-    let sigma = sigma_best;
+    let (sigma, shape) = sigma_best;
     let (chi2, s, shift) = best?;
     let (a, b) = s.amplitudes_q8()?;
     let n = last - first + 1;
@@ -160,7 +163,7 @@ pub fn share_by_profile(w: &PairWindow<'_>) -> Option<ShareEstimate> {
         let (c0, c1) = (lo_c - range, hi_c + range);
         let mut c = c0;
         while c <= c1 {
-            let chi = single_chi2(w, first, last, c, sigma)?;
+            let chi = single_chi2(w, first, last, c, &shape, srr)?;
             if single.is_none_or(|(x, _)| chi < x) {
                 single = Some((chi, c));
             }
@@ -176,8 +179,9 @@ pub fn share_by_profile(w: &PairWindow<'_>) -> Option<ShareEstimate> {
                 sigma * 27 / 25,
                 sigma * 29 / 25,
             ] {
+                let shape = LineShape::new(sg);
                 for st in -16..=16i64 {
-                    let chi = single_chi2(w, first, last, at + st * 256, sg)?;
+                    let chi = single_chi2(w, first, last, at + st * 256, &shape, srr)?;
                     if single.is_none_or(|(x, _)| chi < x) {
                         single = Some((chi, at + st * 256));
                     }
@@ -209,7 +213,7 @@ pub fn share_by_profile(w: &PairWindow<'_>) -> Option<ShareEstimate> {
             if (sh + fine).abs() > range {
                 continue;
             }
-            let c = sums_at(&mirror, first, last, sh + fine, sigma, srr)?.chi2();
+            let c = sums_at(&mirror, first, last, sh + fine, &shape, srr)?.chi2();
             best_mirror = Some(best_mirror.map_or(c, |m: i128| m.min(c)));
         }
     }
@@ -219,7 +223,7 @@ pub fn share_by_profile(w: &PairWindow<'_>) -> Option<ShareEstimate> {
     }
     // The shift is a third parameter when it is searched: its freedom is what makes an unresolved
     // pair undeterminable, so the covariance comes from the full 3 × 3 Fisher matrix.
-    let f = fisher_at(w, first, last, shift, sigma, a >> 8, b >> 8, range > 0)?;
+    let f = fisher_at(w, first, last, shift, &shape, a >> 8, b >> 8, range > 0)?;
     // Variances in Q16 (the square of the amplitudes' Q8).
     let (var_a, var_b, cov_ab) = amplitude_covariance(&f, s2 << 16)?;
     let share = mul_div_i128(b, 1_000_000, total)?;
@@ -246,16 +250,17 @@ fn fisher_at(
     first: i64,
     last: i64,
     shift: i64,
-    sigma: i64,
+    shape: &LineShape,
     a: i128,
     b: i128,
     with_shift: bool,
 ) -> Option<[[i128; 3]; 3]> {
     let mut f = [[0i128; 3]; 3];
-    let shape = LineShape::new(sigma);
-    for i in first..=last {
+    let (ca, cb) = (w.a_px_q16 as i64 + shift, w.b_px_q16 as i64 + shift);
+    // Pixels where both shapes are 0 add nothing (every column is 0 there).
+    let (lo, hi) = shape.support(first, last, ca.min(cb), ca.max(cb));
+    for i in lo..=hi {
         let p = i << 16;
-        let (ca, cb) = (w.a_px_q16 as i64 + shift, w.b_px_q16 as i64 + shift);
         let (ga64, gb64) = (shape.g(p, ca), shape.g(p, cb));
         let (ga, gb) = (i128::from(ga64), i128::from(gb64));
         // ∂g/∂c = g (p − c) / σ² (per px): Q15 × Q16 / Q32 × 2^16 keeps Q15 (|g·(p − c)| < 2^38).
@@ -312,16 +317,24 @@ fn amplitude_covariance(f: &[[i128; 3]; 3], s2: i128) -> Option<(i128, i128, i12
     Some((var_a, var_b, cov_ab))
 }
 
-/// Residual sum of squares of the best single line of width `sigma` centred at `c_q16`.
-fn single_chi2(w: &PairWindow<'_>, first: i64, last: i64, c_q16: i64, sigma: i64) -> Option<i128> {
-    let (mut sgg, mut srg, mut srr) = (0i128, 0i128, 0i128);
-    let shape = LineShape::new(sigma);
-    for i in first..=last {
+/// Residual sum of squares of the best single line of `shape` centred at `c_q16`; `srr` =
+/// [`rr_sum`] of the same window.
+fn single_chi2(
+    w: &PairWindow<'_>,
+    first: i64,
+    last: i64,
+    c_q16: i64,
+    shape: &LineShape,
+    srr: i128,
+) -> Option<i128> {
+    let (mut sgg, mut srg) = (0i128, 0i128);
+    // Pixels where the shape is 0 add nothing to Σg² and Σrg.
+    let (lo, hi) = shape.support(first, last, c_q16, c_q16);
+    for i in lo..=hi {
         let r = (*w.frame.get(i as usize)? as i128) - (*w.base.get(i as usize)? as i128);
         let g = shape.g(i << 16, c_q16) as i128;
         sgg += g * g;
         srg += r * g;
-        srr += r * r;
     }
     if sgg == 0 {
         return Some(srr);
@@ -348,11 +361,18 @@ fn gauss_q15(p_q16: i64, c_q16: i64, sigma_q16: i64) -> i64 {
     LineShape::new(sigma_q16).g(p_q16, c_q16)
 }
 
-/// `x / 6` for 0 ≤ x ≤ 6 · 2^15 (Simpson's weights of three Q15 values) as a multiply: exact over
-/// that range (tested), where a division is a ~170-instruction library call on the Cortex-M0.
+/// `x / 6` for 0 ≤ x ≤ 6 · 2^15 (Simpson's weights of three Q15 values) as a 32-bit multiply:
+/// ⌊x / 6⌋ = ⌊⌊x / 2⌋ / 3⌋, and ⌊y / 3⌋ = (y · 43 691) >> 17 for y < 2^17 (43 691 · 3 = 2^17 + 1),
+/// the product below 2^32 up to y = 98 303 (the one larger y, 98 304 = 3 · 2^15, is taken as it
+/// is). Exact over that range (tested), where a division is a ~170-instruction library call and
+/// a 64-bit product a ~40-instruction one on the Cortex-M0.
 fn sixth(x: i64) -> i64 {
     if (0..=6 << 15).contains(&x) {
-        (x * 174_763) >> 20
+        let y = (x >> 1) as u32;
+        if y == 3 << 15 {
+            return 1 << 15;
+        }
+        i64::from(y.wrapping_mul(43_691) >> 17)
     } else {
         x / 6
     }
@@ -374,7 +394,8 @@ fn exp_neg_q16_q15(x_q16: i64) -> i64 {
     let (i, rem) = (f >> 10, (f & 1023) as i64);
     let t0 = i64::from(crate::find::fit::EXP2_Q15.get(i).copied().unwrap_or(0));
     let t1 = i64::from(crate::find::fit::EXP2_Q15.get(i + 1).copied().unwrap_or(0));
-    let v = t0 - (((t0 - t1) * rem + 512) >> 10);
+    // 0 ≤ t0 − t1 ≤ 2^15 and rem < 2^10: the product fits i32 (a single multiply instruction).
+    let v = t0 - i64::from((((t0 - t1) as i32) * (rem as i32) + 512) >> 10);
     if k >= 16 {
         0
     } else {
@@ -391,6 +412,22 @@ struct LineShape {
     /// 1/σ in Q14 (σ ≥ 2^12 Q16 px, so ≤ 2^18).
     inv_s_q14: i64,
     inv_s2: Recip,
+    /// From this distance on (px, Q16) the shape is exactly 0 (see [`reach_q16`]).
+    reach_q16: i64,
+}
+
+/// Smallest |v| (u in Q14) at which [`LineShape::g`]'s exponential is 0: (|v|/2)² / 2^11 reaches
+/// 11 · 2^16 from 38 424 = ⌈√(11 · 2^27)⌉ on (checked in the tests).
+const ZERO_FROM_U_Q14: i64 = 2 * 38_424;
+
+/// Distance (px, Q16) from the centre beyond which the shape with 1/σ = `inv_s_q14` is 0: all three
+/// Simpson points need |u ∓ ½/σ| ≥ [`ZERO_FROM_U_Q14`], i.e. |u| ≥ that + ½/σ, and u = ⌊d · inv /
+/// 2^16⌋ gets there from |d| ≥ ⌈(that + ½/σ) · 2^16 / inv⌉ (for d < 0 the floor only adds to |u|; the
+/// clamp of u at ±16 lies beyond it). One division per shape.
+fn reach_q16(inv_s_q14: i64) -> i64 {
+    let inv = inv_s_q14.max(1);
+    let need = ZERO_FROM_U_Q14 + (inv >> 1);
+    ((need << 16) + inv - 1) / inv
 }
 
 impl LineShape {
@@ -398,10 +435,20 @@ impl LineShape {
         let s = sigma_q16.clamp(1 << 12, 1 << 40);
         let inv = Recip::new(s).and_then(|r| r.scale(1, 30)).unwrap_or(1);
         let s2 = s.saturating_mul(s).clamp(1, (1 << 62) - 1);
+        let inv_s_q14 = inv.clamp(1, 1 << 18);
         Self {
-            inv_s_q14: inv.clamp(1, 1 << 18),
+            inv_s_q14,
             inv_s2: Recip::new(s2).unwrap_or(Recip::ONE),
+            reach_q16: reach_q16(inv_s_q14),
         }
+    }
+
+    /// The pixels of `first ..= last` where a shape centred anywhere in `c_lo ..= c_hi` (px, Q16)
+    /// may be non-zero (a pixel or so more, never fewer); empty (lo > hi) when there are none.
+    fn support(&self, first: i64, last: i64, c_lo: i64, c_hi: i64) -> (i64, i64) {
+        let lo = (c_lo.saturating_sub(self.reach_q16) >> 16).max(first);
+        let hi = ((c_hi.saturating_add(self.reach_q16) >> 16) + 1).min(last);
+        (lo, hi)
     }
 
     /// [`gauss_q15`]: the pixel-averaged unit Gaussian at pixel position `p_q16` for centre `c_q16`.
@@ -412,9 +459,14 @@ impl LineShape {
         let u = ((d * self.inv_s_q14) >> 16).clamp(-LIMIT, LIMIT);
         let half = self.inv_s_q14 >> 1; // ½ px in u
         let at = |u: i64| {
-            // u²/2 in Q16: (u/2)² < 2^34 as i64, then >> 11.
+            // u²/2 in Q16: (u/2)² >> 11. From h = 38 424 on the exponent is ≥ 11, where the
+            // exponential is 0 (see ZERO_FROM_U_Q14); below it h² < 2^31, a 32-bit product.
             let h = u.abs() >> 1;
-            exp_neg_q16_q15((h * h) >> 11)
+            if h >= ZERO_FROM_U_Q14 >> 1 {
+                return 0;
+            }
+            let h = h as u32;
+            exp_neg_q16_q15(i64::from(h.wrapping_mul(h) >> 11))
         };
         sixth(at(u - half) + 4 * at(u) + at(u + half))
     }
@@ -431,10 +483,25 @@ fn sums_at(
     first: i64,
     last: i64,
     shift: i64,
-    sigma: i64,
+    shape: &LineShape,
     srr: i128,
 ) -> Option<Sums> {
-    let shape = LineShape::new(sigma);
+    let (ca, cb) = (w.a_px_q16 as i64 + shift, w.b_px_q16 as i64 + shift);
+    // Pixels where both shapes are 0 add nothing to any sum (Σr² is taken over the whole window).
+    let (lo, hi) = shape.support(first, last, ca.min(cb), ca.max(cb));
+    sums_over(w, lo, hi, ca, cb, shape, srr)
+}
+
+/// [`sums_at`] over the pixels `lo ..= hi` for centres `ca`, `cb` (px, Q16).
+fn sums_over(
+    w: &PairWindow<'_>,
+    lo: i64,
+    hi: i64,
+    ca: i64,
+    cb: i64,
+    shape: &LineShape,
+    srr: i128,
+) -> Option<Sums> {
     let mut s = Sums {
         saa: 0,
         sab: 0,
@@ -443,13 +510,13 @@ fn sums_at(
         srb: 0,
         srr,
     };
-    for i in first..=last {
+    for i in lo..=hi {
         let r = i64::from(*w.frame.get(i as usize)?) - i64::from(*w.base.get(i as usize)?);
         let p = i << 16;
         // g ≤ 2^15 (so g·g < 2^31) and |r| < 2^33: every product fits i64, and the residual's
         // are 32 × 32-bit where r fits 32 bits (all ADC frames).
-        let ga = shape.g(p, w.a_px_q16 as i64 + shift) as i32;
-        let gb = shape.g(p, w.b_px_q16 as i64 + shift) as i32;
+        let ga = shape.g(p, ca) as i32;
+        let gb = shape.g(p, cb) as i32;
         s.saa += i128::from(ga * ga);
         s.sab += i128::from(ga * gb);
         s.sbb += i128::from(gb * gb);
@@ -532,6 +599,131 @@ mod tests {
         }
         assert_eq!(exp_neg_q16_q15(0), 1 << 15);
         assert_eq!(exp_neg_q16_q15(-7), 1 << 15);
+    }
+
+    /// The line shape as first written, in 64-bit arithmetic throughout.
+    fn g_wide(shape: &LineShape, p_q16: i64, c_q16: i64) -> i64 {
+        let d = (p_q16 - c_q16).clamp(-(1 << 30), 1 << 30);
+        let u = ((d * shape.inv_s_q14) >> 16).clamp(-(16 << 14), 16 << 14);
+        let half = shape.inv_s_q14 >> 1;
+        let exp = |x_q16: i64| {
+            if x_q16 >= 11 << 16 {
+                return 0;
+            }
+            let y = (x_q16.max(0) * 94_548) >> 16;
+            let (k, f) = (y >> 16, (y & 0xffff) as usize);
+            let (i, rem) = (f >> 10, (f & 1023) as i64);
+            let t0 = i64::from(crate::find::fit::EXP2_Q15[i]);
+            let t1 = i64::from(crate::find::fit::EXP2_Q15[i + 1]);
+            let v = t0 - (((t0 - t1) * rem + 512) >> 10);
+            if k >= 16 {
+                0
+            } else {
+                (v + ((1 << k) >> 1)) >> k
+            }
+        };
+        let at = |u: i64| {
+            let h = u.abs() >> 1;
+            exp((h * h) >> 11)
+        };
+        ((at(u - half) + 4 * at(u) + at(u + half)) * 174_763) >> 20
+    }
+
+    #[test]
+    fn shape_in_32_bit_steps_is_the_wide_one() {
+        for sigma in [1 << 12, 9_999, 65_536, 78_643, 123_457, 400_000] {
+            let shape = LineShape::new(sigma);
+            let c = (30 << 16) + 4_321;
+            for d in (-(12 << 16)..(12 << 16)).step_by(61) {
+                assert_eq!(
+                    shape.g(c + d, c),
+                    g_wide(&shape, c + d, c),
+                    "σ {sigma} d {d}"
+                );
+            }
+        }
+    }
+
+    // The reach constant: the first half-u whose exponent reaches 11 (and the one before does not).
+    const HALF_REACH: i64 = ZERO_FROM_U_Q14 / 2;
+    const _: () = assert!((HALF_REACH * HALF_REACH) >> 11 >= 11 << 16);
+    const _: () = assert!(((HALF_REACH - 1) * (HALF_REACH - 1)) >> 11 < 11 << 16);
+
+    #[test]
+    fn shape_is_zero_from_its_reach_on() {
+        assert_eq!(exp_neg_q16_q15(11 << 16), 0);
+        for sigma in [
+            1 << 12,
+            5_000,
+            30_000,
+            65_536,
+            78_643,
+            150_000,
+            400_000,
+            3 << 20,
+        ] {
+            let shape = LineShape::new(sigma);
+            let r = shape.reach_q16;
+            let c = (40 << 16) + 12_345;
+            for d in (r - 70_000..r + 70_000).step_by(7) {
+                for p in [c + d, c - d] {
+                    if d >= r {
+                        assert_eq!(shape.g(p, c), 0, "σ {sigma} d {d} reach {r}");
+                    }
+                }
+            }
+            // Not much farther out than needed: non-zero a pixel or a σ inside the reach.
+            let inside = r - sigma.max(65_536);
+            assert!(shape.g(c + inside, c) > 0, "{sigma}");
+        }
+    }
+
+    #[test]
+    fn sums_over_the_support_are_the_whole_window_sums() {
+        let mut seed = 0x1f83_d9ab_fb41_bd6bu64;
+        let mut next = move |m: u64| {
+            seed ^= seed << 13;
+            seed ^= seed >> 7;
+            seed ^= seed << 17;
+            seed % m
+        };
+        for _ in 0..300 {
+            let f: std::vec::Vec<i32> = (0..100).map(|_| next(60_000) as i32 - 1_000).collect();
+            let base: std::vec::Vec<i32> = (0..100).map(|_| next(2_000) as i32).collect();
+            let a = (10 << 16) + next(80 << 16) as i32;
+            let w = PairWindow {
+                frame: &f,
+                base: &base,
+                a_px_q16: a,
+                b_px_q16: a + next(6 << 16) as i32 - (3 << 16),
+                sigma_px_q16: 4_096 + next(200_000) as i32,
+                shift_range_px_q16: 0,
+            };
+            let shape = LineShape::new(w.sigma_px_q16 as i64);
+            let (first, last) = (next(40) as i64, 60 + next(40) as i64);
+            let srr = rr_sum(&w, first, last).unwrap();
+            let shift = next(8 << 16) as i64 - (4 << 16);
+            let (ca, cb) = (w.a_px_q16 as i64 + shift, w.b_px_q16 as i64 + shift);
+            let part = sums_at(&w, first, last, shift, &shape, srr).unwrap();
+            let whole = sums_over(&w, first, last, ca, cb, &shape, srr).unwrap();
+            let fields = |s: &Sums| (s.saa, s.sab, s.sbb, s.sra, s.srb, s.srr);
+            assert_eq!(fields(&part), fields(&whole));
+            // The single line and the Fisher matrix skip the same zero pixels.
+            let mut sgg = 0i128;
+            let mut srg = 0i128;
+            for i in first..=last {
+                let r = (f[i as usize] - base[i as usize]) as i128;
+                let g = shape.g(i << 16, ca) as i128;
+                sgg += g * g;
+                srg += r * g;
+            }
+            let single = if sgg == 0 {
+                srr
+            } else {
+                srr - mul_div_i128(srg, srg, sgg).unwrap()
+            };
+            assert_eq!(single_chi2(&w, first, last, ca, &shape, srr), Some(single));
+        }
     }
 
     /// Two Gaussians of σ = 1.2 px, 2.4 px apart, heights 3000 (a) and 1000 (b), on a flat base.
