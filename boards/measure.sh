@@ -114,7 +114,7 @@ for t in $targets; do
         /^adversary / { deep($0, "check " $2 " " $3); na++; an[na] = $2; am[na] = $3; ap[na] = kv($0, "pixels"); at[na] = kv($0, "ticks"); aa[na] = kv($0, "hits"); ab[na] = kv2($0, "hits"); ar[na] = kv($0, "result") }
         END {
             per = int(kv(tk, "loop_instructions") / kv(tk, "calibration") + 0.5)
-            n = split("predict condition find check_calibrate check_verify float_baseline calibration judge", names, " ")
+            n = split("predict condition find check_calibrate check_verify float_baseline calibration judge stage_calibrate stage_match stage_judge", names, " ")
             for (i = 1; i <= n; i++) sys[names[i]] = kv(tk, names[i]) * per
             if (plugin) {
                 if (hits_seen != kv(hl, "total")) { printf "measure.sh: %s: plugin saw %d marker hits, the firmware made %d\n", target, hits_seen, kv(hl, "total") > "/dev/stderr"; bad = 1 }
@@ -134,15 +134,17 @@ for t in $targets; do
                 for (i = 1; i <= na; i++) ai[i] = at[i] * per
                 source = "systick"
             }
-            # The verify check holds the judge pair of marks: the cost of one more pair comes off.
-            c = ins["condition"]; f = ins["find"]; cal = ins["check_calibrate"]; ver = ins["check_verify"] - (plugin ? empty : 0); j = ins["judge"]
+            # The stages after finding come from the calibrate-mode check itself (marks at its stage
+            # callbacks, each pair already less one mark); its total loses the four marks inside it.
+            c = ins["condition"]; f = ins["find"]; cal = ins["check_calibrate"] - (plugin ? 4 * empty : 0)
+            sc = ins["stage_calibrate"]; sm = ins["stage_match"]; j = ins["stage_judge"]
             fb = ins["float_baseline"]; pr = ins["predict"]
             # Deepest stack of any lib call measured: the stages on the h-tube frame, and every typical
             # and adversarial check.
             k = split("predict condition find check_calibrate check_verify", sk, " ")
             for (i = 1; i <= k; i++) if (kv(st, sk[i]) + 0 > stack) { stack = kv(st, sk[i]) + 0; stack_at = sk[i] " h-tube" }
-            printf "{\"target\": \"%s\", \"pixels\": 2048, \"count_source\": \"%s\", \"instructions\": {\"condition\": %d, \"find\": %d, \"calibrate\": %d, \"match\": %d, \"judge\": %d, \"total\": %d}, ", target, source, c, f, cal - ver, ver - c - f - j, j, cal
-            printf "\"systick_instructions\": {\"condition\": %d, \"find\": %d, \"calibrate\": %d, \"match\": %d, \"judge\": %d, \"total\": %d}, ", sys["condition"], sys["find"], sys["check_calibrate"] - sys["check_verify"], sys["check_verify"] - sys["condition"] - sys["find"] - sys["judge"], sys["judge"], sys["check_calibrate"]
+            printf "{\"target\": \"%s\", \"pixels\": 2048, \"count_source\": \"%s\", \"instructions\": {\"condition\": %d, \"find\": %d, \"calibrate\": %d, \"match\": %d, \"judge\": %d, \"total\": %d}, ", target, source, c, f, sc, sm, j, cal
+            printf "\"systick_instructions\": {\"condition\": %d, \"find\": %d, \"calibrate\": %d, \"match\": %d, \"judge\": %d, \"total\": %d}, ", sys["condition"], sys["find"], sys["stage_calibrate"], sys["stage_match"], sys["stage_judge"], sys["check_calibrate"]
             if (plugin) printf "\"systick_max_disagreement_instructions\": %d, \"mark_overhead_instructions\": %d, \"stamp_overhead_instructions\": %d, \"calibration_loop_instructions\": %d, ", worst_disagree, empty, empty_stamp, ins["calibration"]
             else printf "\"systick_max_disagreement_instructions\": null, \"mark_overhead_instructions\": null, \"stamp_overhead_instructions\": null, \"calibration_loop_instructions\": null, "
             printf "\"instructions_per_pixel\": %.1f, \"float_baseline_instructions\": %d, \"float_baseline_ratio\": %.3f, ", (c + f) / 2048, fb, fb / (c + f)

@@ -11,10 +11,12 @@
 //! count, timed the same way, gives the ratio (`boards/measure.sh` does the division). One tick is 40
 //! instructions on `mps2-an385`'s 25 MHz clock, so a SysTick count is ± 1 tick.
 //!
-//! Mark pairs: 0 → 1 `Checker::new` (line
+//! Mark pairs: 0 → 1 `Checker::configure` (line
 //! prediction, once per configuration), 2 → 3 `condition_frame`, 4 → 5 `find_peaks`, 6 → 7
-//! `Checker::check` in calibrate mode (the whole pipeline again, conditioning and peak finding
-//! included), 8 → 9 `Checker::check` in verify mode (no map fit), 10 → 11 the f32 baseline of
+//! `Checker::check_traced` in calibrate mode (the whole pipeline again, conditioning and peak finding
+//! included), with 18 → 19 → 20 → 21 at its `PeaksFound`, `Calibrated`, `Matched` and `Judged`
+//! callbacks (the calibrate, match and judge stages), 8 → 9 `Checker::check` in verify mode (16 → 17
+//! around its judging), 10 → 11 the f32 baseline of
 //! conditioning, peak finding and centroiding, 12 → 13 the calibration loop, 14 → 15 nothing (the cost
 //! of a mark itself, which `boards/measure.sh` subtracts from the plugin's counts; a bare pair of
 //! [`stamp`]s, which time the adversarial checks, is measured the same way). The frame is the hydrogen
@@ -43,7 +45,7 @@ use glowcheck::judge::{Mode, Report};
 use glowcheck_float_baseline::{condition_find_centroid, FloatPeak, MAX_PEAKS};
 use glowcheck_pipeline_report::adversarial::{ADVERSARIES, MAX_ADVERSARY_PIXELS};
 use glowcheck_pipeline_report::traces::{AIR_LEAK, D_LAMP, H_TUBE, PIXELS};
-use glowcheck_pipeline_report::{check, checker, config, config_for, mode_name, Case, CASES};
+use glowcheck_pipeline_report::{checker, config, config_for, mode_name, Case, CASES};
 
 /// SysTick wraps (every 2²⁴ ticks) since [`start_clock`].
 static WRAPS: AtomicU32 = AtomicU32::new(0);
@@ -52,7 +54,7 @@ static STAMPS: [AtomicU32; 2 * MARKS] = [const { AtomicU32::new(0) }; 2 * MARKS]
 /// The marker hit number of each mark, for pairing the plugin's counts with [`STAMPS`].
 static HIT_OF: [AtomicU32; MARKS] = [const { AtomicU32::new(0) }; MARKS];
 /// Number of marks.
-const MARKS: usize = 18;
+const MARKS: usize = 22;
 /// Calls of [`glowcheck_marker`] so far.
 static HITS: AtomicU32 = AtomicU32::new(0);
 
@@ -337,9 +339,21 @@ pub fn run(buffers: &mut Buffers<PIXELS>, report: &mut Report, syst: SYST) -> de
         return debug::EXIT_FAILURE;
     }
     let parts = find_parts(&fcfg, w.frame, w.flags, w.scratch, &peaks);
+    // Calibrate mode, the stages marked from lib's callback: 18 → 19 calibrate (identification and
+    // the map fit), 19 → 20 match (grouping, assignment, isotope shares, the report's lines), 20 → 21
+    // judge.
     let (checked, stack_calibrate) = stack_of(|| {
         mark(6);
-        let c = check(&calibrate, &case, buffers.workspace(PIXELS), report);
+        let c =
+            calibrate.check_traced(signal, None, None, buffers.workspace(PIXELS), report, |s| {
+                match s {
+                    Stage::PeaksFound => mark(18),
+                    Stage::Calibrated => mark(19),
+                    Stage::Matched => mark(20),
+                    Stage::Judged => mark(21),
+                    _ => {}
+                }
+            });
         mark(7);
         c
     });
@@ -421,8 +435,8 @@ pub fn run(buffers: &mut Buffers<PIXELS>, report: &mut Report, syst: SYST) -> de
     };
     let printed = writeln!(
         out,
-        "ticks calibration {} loop_instructions {} predict {} condition {} find {} check_calibrate {} check_verify {} float_baseline {} empty {} judge {}\n\
-         hits calibration {} {} predict {} {} condition {} {} find {} {} check_calibrate {} {} check_verify {} {} float_baseline {} {} empty {} {} judge {} {} empty_stamp {empty_stamp_0} {empty_stamp_1} total {} calibration_wraps {}\n\
+        "ticks calibration {} loop_instructions {} predict {} condition {} find {} check_calibrate {} check_verify {} float_baseline {} empty {} judge {} stage_calibrate {} stage_match {} stage_judge {}\n\
+         hits calibration {} {} predict {} {} condition {} {} find {} {} check_calibrate {} {} check_verify {} {} float_baseline {} {} empty {} {} judge {} {} stage_calibrate {} {} stage_match {} {} stage_judge {} {} empty_stamp {empty_stamp_0} {empty_stamp_1} total {} calibration_wraps {}\n\
          stack_bytes predict {stack_new} condition {stack_condition} find {stack_find} check_calibrate {stack_calibrate} check_verify {stack_verify} float_baseline {stack_float}\n\
          counts peaks {} lines_calibrate {lines_calibrate} lines_verify {} float_peaks {n_float}",
         ticks(12, 13),
@@ -435,6 +449,9 @@ pub fn run(buffers: &mut Buffers<PIXELS>, report: &mut Report, syst: SYST) -> de
         ticks(10, 11),
         ticks(14, 15),
         ticks(16, 17),
+        ticks(18, 19),
+        ticks(19, 20),
+        ticks(20, 21),
         hit_of(12),
         hit_of(13),
         hit_of(0),
@@ -453,6 +470,12 @@ pub fn run(buffers: &mut Buffers<PIXELS>, report: &mut Report, syst: SYST) -> de
         hit_of(15),
         hit_of(16),
         hit_of(17),
+        hit_of(18),
+        hit_of(19),
+        hit_of(19),
+        hit_of(20),
+        hit_of(20),
+        hit_of(21),
         HITS.load(Ordering::Relaxed),
         wraps(12, 13),
         peaks.len(),
