@@ -107,11 +107,15 @@ fn block_means(frame: &[i32], flag: &[u8], means: &mut [i32], cflag: &mut [u8]) 
         // Plain sums first; only a block holding an untrusted pixel is summed again pixel by pixel.
         let mut bad = 0u8;
         let mut sub = [0i64; 4];
-        for (j, (&v, &f)) in vals.iter().zip(fl).enumerate() {
+        // Four values at a time (a partial last block adds only the values it has).
+        for (q, c) in sub.iter_mut().zip(vals.chunks(4)) {
+            *q = match *c {
+                [a, b, c, d] => i64::from(a) + i64::from(b) + i64::from(c) + i64::from(d),
+                _ => c.iter().map(|&v| i64::from(v)).sum(),
+            };
+        }
+        for &f in fl {
             bad |= f;
-            if let Some(q) = sub.get_mut(j / 4) {
-                *q += i64::from(v);
-            }
         }
         let full = vals.len() == COARSE_PX && fl.len() == COARSE_PX && !flags::is_untrusted(bad);
         if full {
