@@ -105,6 +105,10 @@ extern "C" fn glowcheck_profile_sample(frame: *const u32) {
     // SAFETY: as above; word 5 is the interrupted code's LR (its caller, when it is a leaf routine).
     let lr = unsafe { ptr::read_volatile(frame.add(5)) };
     let n = SAMPLED.load(Ordering::Relaxed) as usize;
+    // The fine build (every 400 instructions) skips line prediction, which would fill the buffer.
+    if cfg!(feature = "profile-fine") && STAGE.load(Ordering::Relaxed) < 2 {
+        return;
+    }
     if let (Some(slot), Some(caller)) = (SAMPLES.get(n), SAMPLES.get(n + 1)) {
         slot.store(
             (STAGE.load(Ordering::Relaxed) << 24) | (pc & 0x00ff_ffff),
@@ -131,7 +135,9 @@ fn dump_samples(out: &mut hio::HostStream) {
 /// Starts SysTick on the core clock, full 24-bit range, counting wraps in its exception.
 fn start_clock(mut syst: SYST) {
     syst.set_clock_source(SystClkSource::Core);
-    syst.set_reload(if cfg!(feature = "profile") {
+    syst.set_reload(if cfg!(feature = "profile-fine") {
+        9
+    } else if cfg!(feature = "profile") {
         99
     } else {
         0x00ff_ffff
@@ -179,8 +185,10 @@ fn stamp() -> (u64, u32) {
 #[inline(never)]
 fn mark(k: usize) {
     compiler_fence(Ordering::SeqCst);
+    // The stage marks inside a check (16 and up) sample as stages 100 + k, apart from the
+    // adversarial checks' ids (16 … 66).
     #[cfg(feature = "profile")]
-    STAGE.store(k as u32, Ordering::Relaxed);
+    STAGE.store(if k >= 16 { 100 + k as u32 } else { k as u32 }, Ordering::Relaxed);
     let (t, hit) = stamp();
     if let (Some(lo), Some(hi), Some(h)) = (STAMPS.get(2 * k), STAMPS.get(2 * k + 1), HIT_OF.get(k))
     {
