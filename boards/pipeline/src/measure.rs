@@ -188,7 +188,10 @@ fn mark(k: usize) {
     // The stage marks inside a check (16 and up) sample as stages 100 + k, apart from the
     // adversarial checks' ids (16 … 66).
     #[cfg(feature = "profile")]
-    STAGE.store(if k >= 16 { 100 + k as u32 } else { k as u32 }, Ordering::Relaxed);
+    STAGE.store(
+        if k >= 16 { 100 + k as u32 } else { k as u32 },
+        Ordering::Relaxed,
+    );
     let (t, hit) = stamp();
     if let (Some(lo), Some(hi), Some(h)) = (STAMPS.get(2 * k), STAMPS.get(2 * k + 1), HIT_OF.get(k))
     {
