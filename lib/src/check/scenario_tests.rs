@@ -360,3 +360,30 @@ fn blank_then_configure_in_place_matches_new() {
         Err(CheckError::NotConfigured)
     );
 }
+
+/// The caller-owned tables carry nothing from one frame to the next: a frame checked after others
+/// on the same buffers (in both modes) gives the report it gives on fresh ones.
+#[test]
+fn reused_buffers_give_the_fresh_report() {
+    let h = frame(&[(Nucleus::H1, 1000)], &[], 3 << 8, 3000, 41);
+    let d = frame(&[(Nucleus::H2, 990), (Nucleus::H1, 10)], &[], 3 << 8, 3000, 43);
+    for mode in [Mode::Verify, Mode::Calibrate] {
+        let cfg = config(mode, profile::HYDROGEN, truth());
+        let fresh = run(cfg.clone(), &h);
+        let checker = Checker::new(cfg).unwrap();
+        let mut buf = std::boxed::Box::new(Buffers::<N>::new());
+        let mut report = Report::new();
+        for raw in [&d, &h, &d, &h] {
+            checker
+                .check(
+                    FrameSum::single(raw).unwrap(),
+                    None,
+                    None,
+                    buf.workspace(N),
+                    &mut report,
+                )
+                .unwrap();
+        }
+        assert_eq!(report, fresh, "{mode:?}");
+    }
+}
