@@ -366,7 +366,13 @@ fn blank_then_configure_in_place_matches_new() {
 #[test]
 fn reused_buffers_give_the_fresh_report() {
     let h = frame(&[(Nucleus::H1, 1000)], &[], 3 << 8, 3000, 41);
-    let d = frame(&[(Nucleus::H2, 990), (Nucleus::H1, 10)], &[], 3 << 8, 3000, 43);
+    let d = frame(
+        &[(Nucleus::H2, 990), (Nucleus::H1, 10)],
+        &[],
+        3 << 8,
+        3000,
+        43,
+    );
     for mode in [Mode::Verify, Mode::Calibrate] {
         let cfg = config(mode, profile::HYDROGEN, truth());
         let fresh = run(cfg.clone(), &h);
