@@ -45,6 +45,8 @@ struct MapInUse {
     lines: LinePixels,
     /// `map`'s half-width reciprocal, for the many evaluations of one check.
     div: HalfWidth,
+    /// The fit's σ as a polynomial in x (when it is the fit's own map), taken once per check.
+    sigma_poly: Option<crate::calibrate::SigmaPoly>,
 }
 
 impl MapInUse {
@@ -53,8 +55,13 @@ impl MapInUse {
         fit: Option<crate::calibrate::MapFit>,
         stored_sigma_fm: u32,
     ) -> MapInUse {
+        let own = |f: &crate::calibrate::MapFit| {
+            f.map.center_px_q16 == map.center_px_q16
+                && f.map.half_width_px_q16 == map.half_width_px_q16
+        };
         MapInUse {
             div: HalfWidth::forward(&map),
+            sigma_poly: fit.as_ref().filter(|f| own(f)).and_then(|f| f.sigma_poly()),
             map,
             fit,
             stored_sigma_fm,
@@ -88,7 +95,10 @@ impl MapInUse {
                 if f.map.center_px_q16 == self.map.center_px_q16
                     && f.map.half_width_px_q16 == self.map.half_width_px_q16 =>
             {
-                f.sigma_fm_at_x(x)
+                match self.sigma_poly.and_then(|s| s.sigma_fm_at_x(x)) {
+                    Some(v) => v,
+                    None => f.sigma_fm_at_x(x),
+                }
             }
             Some(f) => f.sigma_fm_at(p_q16),
             None => self.stored_sigma_fm as u64,
