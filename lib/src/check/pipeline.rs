@@ -270,9 +270,13 @@ impl Checker {
         let pairs = self.split_resolved(&features, pairs, peaks, &in_use, |i| window_of(i).0);
         let estimate = self.isotope(&features, &pairs, peaks, &in_use, frame, base);
         let shares = self.shares(estimate);
-        let hw = HalfWidth::reciprocal(&in_use.map);
-        for f in features.iter_mut() {
-            settle_placed(f, &self.catalogue, &in_use.map, &hw, &shares, &in_use.lines)?;
+        // Grouping settled every feature on the priors: with the same shares settling again
+        // gives the same features.
+        if shares != self.priors {
+            let hw = HalfWidth::reciprocal(&in_use.map);
+            for f in features.iter_mut() {
+                settle_placed(f, &self.catalogue, &in_use.map, &hw, &shares, &in_use.lines)?;
+            }
         }
         self.fill_lines(
             &features,
@@ -613,7 +617,7 @@ impl Checker {
                 predicted_fm: predicted,
                 measured_fm: measured,
                 center_px_q16: pk.center_px_q16,
-                sigma_fm: crate::fixed::isqrt_u128(c * c + s * s) as u64,
+                sigma_fm: root_sum_squares(c, s),
                 judged_error_fm: judged,
                 snr_q8: pk.snr_q8,
                 blended: pk.blended || crowded || (f.members.len() > 1 && !resolved),
@@ -943,6 +947,16 @@ fn reference_lines(
         collect_bounded(out.iter().map(|e| e.0));
     crate::sort::sort_by_key(&mut refs, |r| r.wavelength_fm);
     refs
+}
+
+/// ⌊√(c² + s²)⌋, in `u64` when both are below 2^31 (the same root; the 128-bit products and sum
+/// otherwise).
+fn root_sum_squares(c: u128, s: u128) -> u64 {
+    if c < 1 << 31 && s < 1 << 31 {
+        let (c, s) = (c as u64, s as u64);
+        return crate::fixed::isqrt_u128(u128::from(c * c + s * s)) as u64;
+    }
+    crate::fixed::isqrt_u128(c * c + s * s) as u64
 }
 
 /// (v · 2^32) / d truncated, for d ≥ 1: in `i64` when |v| < 2^31 (the same quotient), else 128-bit.
