@@ -149,7 +149,8 @@ pub fn identify(
     if lines.len() < 3 || peaks.len() < 3 {
         return Err(CalibrateError::NoConsistentPattern);
     }
-    let axis = Axis::new(peaks, lines, cfg)?;
+    let mut axis = Axis::empty();
+    axis.fill(peaks, lines, cfg)?;
     let strong_lines: Vec<u8, 20> = strongest(lines.iter().map(|l| l.strength), HYP_LINES);
     // The peaks hypotheses are scored on, in frame order.
     // A crowded frame (more than DENSE_PEAKS peaks: a comb, a random walk, a forest of foreign
@@ -318,13 +319,29 @@ struct Axis {
 }
 
 impl Axis {
-    fn new(
+    /// No peaks yet: [`fill`](Self::fill) them in place (the axis is 1 KB, which a returned value
+    /// would copy on the Cortex-M0 at some 3 000 instructions).
+    fn empty() -> Axis {
+        Axis {
+            u: Vec::new(),
+            du_dp: Vec::new(),
+            b_max_u: 0,
+            b_max_du: 0,
+            uniform_du: false,
+            monotone: false,
+            lines_sorted: false,
+        }
+    }
+
+    fn fill(
+        &mut self,
         peaks: &[Peak],
         lines: &[ReferenceLine],
         cfg: &IdentifyConfig,
-    ) -> Result<Axis, CalibrateError> {
-        let mut u: Vec<i64, 64> = Vec::new();
-        let mut du_dp: Vec<i64, 64> = Vec::new();
+    ) -> Result<(), CalibrateError> {
+        let Axis { u, du_dp, .. } = self;
+        u.clear();
+        du_dp.clear();
         let hw = cfg.nominal.as_ref().map(HalfWidth::forward);
         for p in peaks {
             let (v, d) = match (&cfg.nominal, &hw) {
@@ -350,17 +367,17 @@ impl Axis {
                 .max(1);
             i64::MAX as u64 / top
         };
-        Ok(Axis {
-            b_max_u: limit(&u),
-            b_max_du: limit(&du_dp),
-            uniform_du: du_dp.windows(2).all(|w| matches!(w, [a, b] if a == b)),
-            monotone: u.windows(2).all(|w| matches!(w, [a, b] if a <= b)),
-            lines_sorted: lines
-                .windows(2)
-                .all(|w| matches!(w, [a, b] if a.wavelength_fm <= b.wavelength_fm)),
-            u,
-            du_dp,
-        })
+        let (b_max_u, b_max_du) = (limit(u), limit(du_dp));
+        let uniform_du = du_dp.windows(2).all(|w| matches!(w, [a, b] if a == b));
+        let monotone = u.windows(2).all(|w| matches!(w, [a, b] if a <= b));
+        self.b_max_u = b_max_u;
+        self.b_max_du = b_max_du;
+        self.uniform_du = uniform_du;
+        self.monotone = monotone;
+        self.lines_sorted = lines
+            .windows(2)
+            .all(|w| matches!(w, [a, b] if a.wavelength_fm <= b.wavelength_fm));
+        Ok(())
     }
 
     /// λ of peak `k` under the hypothesis: a + b · u (b in Q30), through `i64` where that is exact.

@@ -95,7 +95,7 @@ impl MapInUse {
                 if f.map.center_px_q16 == self.map.center_px_q16
                     && f.map.half_width_px_q16 == self.map.half_width_px_q16 =>
             {
-                match self.sigma_poly.and_then(|s| s.sigma_fm_at_x(x)) {
+                match self.sigma_poly.as_ref().and_then(|s| s.sigma_fm_at_x(x)) {
                     Some(v) => v,
                     None => f.sigma_fm_at_x(x),
                 }
@@ -254,12 +254,14 @@ impl Checker {
         // a pair that does show as two is split again after matching.
         let merge_q16 = ((cfg.line_fwhm_px_q8 as i32) << 8) * 3 / 2;
         // Every line's pixel is found once, while grouping, for all the steps below.
-        let mut features = group_placing(
+        let mut features = Vec::new();
+        group_placing(
             &self.catalogue,
             &in_use.map,
             &self.priors,
             merge_q16,
             &mut in_use.lines,
+            &mut features,
         )?;
         let in_use = in_use;
         // Each feature's windows once: assignment and blend splitting both ask for them.
