@@ -653,7 +653,7 @@ mod tests {
             };
             for _ in 0..8 {
                 // From a quarter of the sensor below it to a quarter above.
-                let p = next(u64::from(pixels) * 3 << 15) as i32 - (i32::from(pixels) << 14);
+                let p = next((u64::from(pixels) * 3) << 15) as i32 - (i32::from(pixels) << 14);
                 let Ok(w) = m.wavelength_fm(p) else { continue };
                 let w = w + next(2_001) as i64 - 1_000;
                 let (fast, full) = (m.pixel_q16(w), m.pixel_q16_full_newton(w));

@@ -419,6 +419,11 @@ struct LineShape {
 /// Smallest |v| (u in Q14) at which [`LineShape::g`]'s exponential is 0: (|v|/2)² / 2^11 reaches
 /// 11 · 2^16 from 38 424 = ⌈√(11 · 2^27)⌉ on (checked in the tests).
 const ZERO_FROM_U_Q14: i64 = 2 * 38_424;
+// The first half-u whose exponent reaches 11, and the one before does not.
+const _: () = {
+    let h = ZERO_FROM_U_Q14 / 2;
+    assert!((h * h) >> 11 >= 11 << 16 && ((h - 1) * (h - 1)) >> 11 < 11 << 16);
+};
 
 /// Distance (px, Q16) from the centre beyond which the shape with 1/σ = `inv_s_q14` is 0: all three
 /// Simpson points need |u ∓ ½/σ| ≥ [`ZERO_FROM_U_Q14`], i.e. |u| ≥ that + ½/σ, and u = ⌊d · inv /
@@ -626,7 +631,7 @@ mod tests {
             let h = u.abs() >> 1;
             exp((h * h) >> 11)
         };
-        (at(u - half) + 4 * at(u) + at(u + half)) * 174_763 >> 20
+        ((at(u - half) + 4 * at(u) + at(u + half)) * 174_763) >> 20
     }
 
     #[test]
@@ -646,9 +651,6 @@ mod tests {
 
     #[test]
     fn shape_is_zero_from_its_reach_on() {
-        // The constant: the first half-u whose exponent reaches 11 (and the one before does not).
-        assert!((38_424i64 * 38_424) >> 11 >= 11 << 16);
-        assert!((38_423i64 * 38_423) >> 11 < 11 << 16);
         assert_eq!(exp_neg_q16_q15(11 << 16), 0);
         for sigma in [
             1 << 12,
@@ -671,7 +673,7 @@ mod tests {
                 }
             }
             // Not much farther out than needed: non-zero a pixel or a σ inside the reach.
-            let inside = r - (sigma as i64).max(65_536);
+            let inside = r - sigma.max(65_536);
             assert!(shape.g(c + inside, c) > 0, "{sigma}");
         }
     }
