@@ -38,6 +38,7 @@ const SCORE_PEAKS: usize = 16;
 const DENSE_PEAKS: usize = 32;
 /// Peaks a crowded frame's hypotheses are scored on.
 const DENSE_SCORE: usize = 10;
+const _: () = assert!(HYP_PEAKS <= DENSE_SCORE && DENSE_SCORE <= SCORE_PEAKS);
 
 /// A predicted line offered to identification (air or vacuum, matching the map's medium).
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
@@ -199,7 +200,6 @@ pub fn identify_with<'w>(
     let IdentifyWork { axis, room, found } = work;
     axis.fill(peaks, lines, cfg)?;
     let axis: &Axis = axis;
-    let strong_peaks: Vec<u8, 20> = strongest(peaks.iter().map(|p| p.snr_q8), HYP_PEAKS);
     let strong_lines: Vec<u8, 20> = strongest(lines.iter().map(|l| l.strength), HYP_LINES);
     // The peaks hypotheses are scored on, in frame order.
     // A crowded frame (more than DENSE_PEAKS peaks: a comb, a random walk, a forest of foreign
@@ -211,6 +211,10 @@ pub fn identify_with<'w>(
         SCORE_PEAKS
     };
     let mut scored: Vec<u8, SCORE_PEAKS> = strongest(peaks.iter().map(|p| p.snr_q8), score_peaks);
+    // The hypothesis peaks are the strongest few of the same ranking (HYP_PEAKS ≤ DENSE_SCORE):
+    // its first entries, taken before the scored ones are put in frame order.
+    let strong_peaks: Vec<u8, 20> =
+        crate::bounded::collect_bounded(scored.iter().take(HYP_PEAKS).copied());
     crate::sort::sort_by_key(&mut scored, |&k| k);
     let ends = match &cfg.nominal {
         Some(m) => (

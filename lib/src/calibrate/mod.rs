@@ -10,6 +10,7 @@ mod map;
 mod muldiv;
 
 pub use error::CalibrateError;
+pub(crate) use fit::SigmaPoly;
 pub use fit::{fit_map, FitPoint, MapFit, MAX_FIT_POINTS};
 pub use identify::{
     identify, identify_with, Identified, IdentifyConfig, IdentifyWork, ReferenceLine,

@@ -45,6 +45,8 @@ pub(super) struct MapInUse {
     lines: LinePixels,
     /// `map`'s half-width reciprocal, for the many evaluations of one check.
     div: HalfWidth,
+    /// The fit's σ as a polynomial in x (when it is the fit's own map), taken once per check.
+    sigma_poly: Option<crate::calibrate::SigmaPoly>,
 }
 
 impl MapInUse {
@@ -61,6 +63,7 @@ impl MapInUse {
         stored_sigma_fm: 0,
         lines: LinePixels::new(),
         div: HalfWidth::ZERO,
+        sigma_poly: None,
     };
 
     /// Takes `map` (and its fit) for this check, in place: the ≈ 700-byte value is never built on
@@ -71,6 +74,11 @@ impl MapInUse {
         fit: Option<&crate::calibrate::MapFit>,
         stored_sigma_fm: u32,
     ) {
+        let own = |f: &&crate::calibrate::MapFit| {
+            f.map.center_px_q16 == map.center_px_q16
+                && f.map.half_width_px_q16 == map.half_width_px_q16
+        };
+        self.sigma_poly = fit.filter(own).and_then(|f| f.sigma_poly());
         self.div = HalfWidth::forward(&map);
         self.map = map;
         self.fit = fit.copied();
@@ -104,7 +112,10 @@ impl MapInUse {
                 if f.map.center_px_q16 == self.map.center_px_q16
                     && f.map.half_width_px_q16 == self.map.half_width_px_q16 =>
             {
-                f.sigma_fm_at_x(x)
+                match self.sigma_poly.as_ref().and_then(|s| s.sigma_fm_at_x(x)) {
+                    Some(v) => v,
+                    None => f.sigma_fm_at_x(x),
+                }
             }
             Some(f) => f.sigma_fm_at(p_q16),
             None => self.stored_sigma_fm as u64,
@@ -377,9 +388,13 @@ impl Checker {
         let pairs = self.split_resolved(features, pairs, peaks, in_use, |i| window_of(i).0);
         let estimate = self.isotope(features, &pairs, peaks, in_use, rows, readings);
         let shares = self.shares(estimate);
-        let hw = HalfWidth::reciprocal(&in_use.map);
-        for f in features.iter_mut() {
-            settle_placed(f, &self.catalogue, &in_use.map, &hw, &shares, &in_use.lines)?;
+        // Grouping settled every feature on the priors: with the same shares settling again
+        // gives the same features.
+        if shares != self.priors {
+            let hw = HalfWidth::reciprocal(&in_use.map);
+            for f in features.iter_mut() {
+                settle_placed(f, &self.catalogue, &in_use.map, &hw, &shares, &in_use.lines)?;
+            }
         }
         self.fill_lines(features, &pairs, peaks, in_use, estimate.is_some(), report)?;
         self.unexplained(peaks, &pairs, in_use, report);
@@ -716,7 +731,7 @@ impl Checker {
                 predicted_fm: predicted,
                 measured_fm: measured,
                 center_px_q16: pk.center_px_q16,
-                sigma_fm: crate::fixed::isqrt_u128(c * c + s * s) as u64,
+                sigma_fm: root_sum_squares(c, s),
                 judged_error_fm: judged,
                 snr_q8: pk.snr_q8,
                 blended: pk.blended || crowded || (f.members.len() > 1 && !resolved),
@@ -1061,6 +1076,16 @@ fn reference_lines(
         }
     }
     crate::sort::sort_by_key(refs, |r| r.wavelength_fm);
+}
+
+/// ⌊√(c² + s²)⌋, in `u64` when both are below 2^31 (the same root; the 128-bit products and sum
+/// otherwise).
+fn root_sum_squares(c: u128, s: u128) -> u64 {
+    if c < 1 << 31 && s < 1 << 31 {
+        let (c, s) = (c as u64, s as u64);
+        return crate::fixed::isqrt_u128(u128::from(c * c + s * s)) as u64;
+    }
+    crate::fixed::isqrt_u128(c * c + s * s) as u64
 }
 
 /// (v · 2^32) / d truncated, for d ≥ 1: in `i64` when |v| < 2^31 (the same quotient), else 128-bit.

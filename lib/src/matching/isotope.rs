@@ -419,6 +419,11 @@ struct LineShape {
 /// Smallest |v| (u in Q14) at which [`LineShape::g`]'s exponential is 0: (|v|/2)² / 2^11 reaches
 /// 11 · 2^16 from 38 424 = ⌈√(11 · 2^27)⌉ on (checked in the tests).
 const ZERO_FROM_U_Q14: i64 = 2 * 38_424;
+// The first half-u whose exponent reaches 11, and the one before does not.
+const _: () = {
+    let h = ZERO_FROM_U_Q14 / 2;
+    assert!((h * h) >> 11 >= 11 << 16 && ((h - 1) * (h - 1)) >> 11 < 11 << 16);
+};
 
 /// Distance (px, Q16) from the centre beyond which the shape with 1/σ = `inv_s_q14` is 0: all three
 /// Simpson points need |u ∓ ½/σ| ≥ [`ZERO_FROM_U_Q14`], i.e. |u| ≥ that + ½/σ, and u = ⌊d · inv /
