@@ -418,13 +418,16 @@ mod tests {
     }
 
     fn run(cfg: &FindConfig, frame: &[i32]) -> (PeakList, FindReport) {
-        let fl = std::vec![0u8; frame.len()];
+        run_flagged(cfg, frame, &std::vec![0u8; frame.len()])
+    }
+
+    fn run_flagged(cfg: &FindConfig, frame: &[i32], fl: &[u8]) -> (PeakList, FindReport) {
         let mut scratch = std::vec![0i32; SCRATCH_PER_PIXEL * frame.len()];
         let mut out = PeakList::new();
         let rep = find_peaks(
             cfg,
             frame,
-            &fl,
+            fl,
             &mut scratch,
             &mut FindWork::new(),
             &mut out,
@@ -659,17 +662,7 @@ mod tests {
                 }
             })
             .collect();
-        let mut scratch = std::vec![0i32; 512];
-        let mut out = PeakList::new();
-        find_peaks(
-            &FindConfig::DEFAULT,
-            &frame,
-            &fl,
-            &mut scratch,
-            &mut FindWork::new(),
-            &mut out,
-        )
-        .unwrap();
+        let (out, _) = run_flagged(&FindConfig::DEFAULT, &frame, &fl);
         assert_eq!(out.len(), 1);
         assert!(out[0].saturated);
         assert!((i64::from(out[0].center_px_q16) - c).abs() < 1 << 11);
