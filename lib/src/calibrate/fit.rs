@@ -50,12 +50,7 @@ pub struct MapFit {
 impl MapFit {
     /// All zero: a placeholder for a fit not made yet (so a `static` holding one stays in `.bss`).
     pub(crate) const ZERO: MapFit = MapFit {
-        map: WavelengthMap {
-            center_px_q16: 0,
-            half_width_px_q16: 0,
-            degree: 0,
-            coeff_fm: [0; 4],
-        },
+        map: WavelengthMap::ZERO,
         rms_residual_fm: 0,
         chi2_per_dof_q8: 0,
         points: 0,

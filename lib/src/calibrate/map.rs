@@ -24,6 +24,15 @@ pub struct WavelengthMap {
 }
 
 impl WavelengthMap {
+    /// All zero (degree 0): a placeholder before a map is known, so a `static` holding one stays
+    /// in `.bss`. Not a usable map.
+    pub(crate) const ZERO: WavelengthMap = WavelengthMap {
+        center_px_q16: 0,
+        half_width_px_q16: 0,
+        degree: 0,
+        coeff_fm: [0; 4],
+    };
+
     /// A map for a sensor of `pixels` pixels from normalised coefficients; checks degree, width and
     /// that λ is monotone across the sensor (so the inverse exists).
     ///

@@ -53,12 +53,7 @@ impl MapInUse {
     /// All zero, a placeholder in [`MatchWork`] until a check writes the frame's map (so a `static`
     /// holding the workspace stays in `.bss`, not in flash).
     pub(super) const EMPTY: MapInUse = MapInUse {
-        map: WavelengthMap {
-            center_px_q16: 0,
-            half_width_px_q16: 0,
-            degree: 0,
-            coeff_fm: [0; 4],
-        },
+        map: WavelengthMap::ZERO,
         fit: None,
         stored_sigma_fm: 0,
         lines: LinePixels::new(),
