@@ -424,15 +424,7 @@ mod tests {
     fn run_flagged(cfg: &FindConfig, frame: &[i32], fl: &[u8]) -> (PeakList, FindReport) {
         let mut scratch = std::vec![0i32; SCRATCH_PER_PIXEL * frame.len()];
         let mut out = PeakList::new();
-        let rep = find_peaks(
-            cfg,
-            frame,
-            fl,
-            &mut scratch,
-            &mut FindWork::new(),
-            &mut out,
-        )
-        .unwrap();
+        let rep = find_peaks(cfg, frame, fl, &mut scratch, &mut FindWork::new(), &mut out).unwrap();
         (out, rep)
     }
 
