@@ -10,7 +10,7 @@
 //!    its Fisher σ, FWHM, height, area.
 //!
 //! Every per-pixel pass runs in 32-bit arithmetic on ADC frames (values within ±2^23): the
-//! M0 build spends ~740 instructions per pixel on a 2048-px frame of a dozen lines, about a third
+//! M0 build spends ~650 instructions per pixel on a 2048-px frame of a dozen lines, about a third
 //! of them in the per-line fits (`bash boards/measure.sh` prints the pieces as `find_parts`).
 //!
 //! # Scales
@@ -72,7 +72,7 @@ use math::{isqrt_i64, FWHM_PER_SIGMA_Q16};
 pub const MIN_PIXELS: usize = 16;
 /// Gauss–Newton steps per frame at full allowance (16 lines × 4 steps): the strongest lines are fitted
 /// first; once the budget is spent every further first fit gets [`MIN_STEPS`] and no neighbour refit.
-/// A typical frame of a dozen lines takes ~40 steps (2–3 a line) and never reaches it; a frame of 64
+/// A typical frame of a dozen lines takes ~35 steps (about 2 a line) and never reaches it; a frame of 64
 /// noise bumps would take ~300 (many fits run to the step limit), which kept its work at 3 × a
 /// typical frame's.
 pub const STEP_BUDGET: usize = 64;
