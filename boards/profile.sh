@@ -36,7 +36,10 @@ stages = {0: "Checker::new (x2: verify and calibrate checkers)", 2: "condition_f
           6: "check (calibrate)", 8: "check (verify)", 10: "f32 baseline", 12: "calibration loop",
           116: "check (verify): judging", 117: "check (verify): after judging",
           118: "check (calibrate): calibrate stage", 119: "check (calibrate): match stage",
-          120: "check (calibrate): judge stage", 121: "check (calibrate): after judging"}
+          120: "check (calibrate): judge stage", 121: "check (calibrate): after judging",
+          80: "find part: noise", 81: "find part: baseline", 82: "find part: detect",
+          83: "find part: fits", 84: "find part: fit of the strongest", 85: "find part: div32",
+          86: "find part: div64"}
 pcs = sorted({w & 0xFFFFFF for w in words} | {max((c & 0xFFFFFE) - 2, 0) for c in callers})
 res = subprocess.run(["llvm-addr2line", "-e", elf, "-a", "-i", "-f", "-C"],
                      input="\n".join(hex(p) for p in pcs), capture_output=True, text=True).stdout

@@ -608,6 +608,14 @@ fn adversaries(out: &mut hio::HostStream, report: &mut Report) -> Result<(), ()>
     Ok(())
 }
 
+/// The profile build samples `find_parts`' piece `k` as stage 80 + k.
+fn part_stage(k: u32) {
+    #[cfg(feature = "profile")]
+    STAGE.store(80 + k, Ordering::Relaxed);
+    #[cfg(not(feature = "profile"))]
+    let _ = k;
+}
+
 /// Ticks and marker hits around one timed check, and whether it gave a report.
 struct Timed {
     ticks: u64,
@@ -630,6 +638,7 @@ fn find_parts(
     use glowcheck::find::{baseline, detect, fit, mask::LineMask, noise};
     let shot = cfg.shot_var_per_unit_q16;
     let mut nm = noise::fallback(shot);
+    part_stage(0);
     let t_noise = timed(|| {
         nm = noise::NoiseBlocks::measure(frame, flags, &LineMask::new())
             .model(shot)
@@ -639,11 +648,13 @@ fn find_parts(
     let (base, rest) = scratch.split_at_mut(frame.len());
     let tmp = rest.get_mut(..frame.len()).unwrap_or(&mut []);
     let half = 2 * usize::from(cfg.fwhm_max_px_q8.div_ceil(256));
+    part_stage(1);
     let t_base = timed(|| {
         baseline::estimate_baseline(frame, flags, &nm, half, base, tmp);
         Ok::<(), ()>(())
     });
     let mut cands = heapless::Vec::new();
+    part_stage(2);
     let t_detect = timed(|| {
         detect::smooth_residual(frame, base, tmp);
         detect::find_candidates(tmp, base, &nm, cfg, 2 * half, &mut cands);
@@ -662,6 +673,7 @@ fn find_parts(
         let pos = (p.center_px_q16.max(0) as usize + (1 << 15)) >> 16;
         (pos, (i64::from(p.fwhm_px_q16) << 16) / 154_325)
     };
+    part_stage(3);
     let t_fits = timed(|| {
         for p in peaks.iter() {
             let (pos, s0) = start(p);
@@ -670,6 +682,7 @@ fn find_parts(
         Ok::<(), ()>(())
     });
     let strongest = peaks.iter().max_by_key(|p| p.height).copied();
+    part_stage(4);
     let t_one = timed(|| {
         let p = strongest.ok_or(())?;
         let (pos, s0) = start(&p);
@@ -677,6 +690,7 @@ fn find_parts(
         Ok::<(), ()>(())
     });
     let mut acc = 0u64;
+    part_stage(5);
     let t_div32 = timed(|| {
         for k in 1..=100u32 {
             acc = acc.wrapping_add(u64::from(
@@ -686,6 +700,7 @@ fn find_parts(
         }
         Ok::<(), ()>(())
     });
+    part_stage(6);
     let t_div64 = timed(|| {
         for k in 1..=100u64 {
             acc = acc.wrapping_add(
