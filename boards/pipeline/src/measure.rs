@@ -634,7 +634,7 @@ fn find_parts(
     flags: &[u8],
     scratch: &mut [i32],
     peaks: &PeakList,
-) -> [(&'static str, Timed); 7] {
+) -> [(&'static str, Timed); 9] {
     use glowcheck::find::{baseline, detect, fit, mask::LineMask, noise};
     let shot = cfg.shot_var_per_unit_q16;
     let mut nm = noise::fallback(shot);
@@ -673,11 +673,14 @@ fn find_parts(
         let pos = (p.center_px_q16.max(0) as usize + (1 << 15)) >> 16;
         (pos, (i64::from(p.fwhm_px_q16) << 16) / 154_325)
     };
+    // The fits run on one scratch, as find_peaks runs them.
+    let mut fs = fit::FitScratch::new();
     part_stage(3);
     let t_fits = timed(|| {
         for p in peaks.iter() {
             let (pos, s0) = start(p);
-            core::hint::black_box(fit::fit_line(&data, pos, s0, s_min, s_max, fit::ITERATIONS));
+            let f = fit::fit_line_in(&data, pos, s0, s_min, s_max, fit::ITERATIONS, &mut fs);
+            core::hint::black_box(f);
         }
         Ok::<(), ()>(())
     });
@@ -686,9 +689,26 @@ fn find_parts(
     let t_one = timed(|| {
         let p = strongest.ok_or(())?;
         let (pos, s0) = start(&p);
-        core::hint::black_box(fit::fit_line(&data, pos, s0, s_min, s_max, fit::ITERATIONS));
+        let f = fit::fit_line_in(&data, pos, s0, s_min, s_max, fit::ITERATIONS, &mut fs);
+        core::hint::black_box(f);
         Ok::<(), ()>(())
     });
+    // The same fit allowed no Gauss–Newton step, then one: what a fit costs besides its steps, and
+    // what its first step (the one with the weight pass) costs.
+    let mut fit_steps = |steps: usize| {
+        timed(|| {
+            let p = strongest.ok_or(())?;
+            let (pos, s0) = start(&p);
+            core::hint::black_box(fit::fit_line_in(
+                &data, pos, s0, s_min, s_max, steps, &mut fs,
+            ));
+            Ok::<(), ()>(())
+        })
+    };
+    part_stage(7);
+    let t_zero = fit_steps(0);
+    part_stage(8);
+    let t_first = fit_steps(1);
     let mut acc = 0u64;
     part_stage(5);
     let t_div32 = timed(|| {
@@ -717,6 +737,8 @@ fn find_parts(
         ("detect", t_detect),
         ("fits", t_fits),
         ("fit_strongest", t_one),
+        ("fit_strongest_0_steps", t_zero),
+        ("fit_strongest_1_step", t_first),
         ("div32_x100", t_div32),
         ("div64_x100", t_div64),
     ]
