@@ -15,3 +15,4 @@ pub use fit::{fit_map, FitPoint, MapFit, MAX_FIT_POINTS};
 pub use identify::{identify, Identified, IdentifyConfig, ReferenceLine, MAX_REFERENCE_LINES};
 pub(crate) use map::HalfWidth;
 pub use map::{WavelengthMap, X_ONE_Q30};
+pub(crate) use muldiv::mul_div_round;
