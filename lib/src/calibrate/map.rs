@@ -105,7 +105,9 @@ impl WavelengthMap {
         self.x_q30_by(p_px_q16, &HalfWidth::plain(self))
     }
 
-    /// [`x_q30`](Self::x_q30) dividing through `hw` (this map's half-width).
+    /// [`x_q30`](Self::x_q30) dividing through `hw` (this map's half-width). One copy (not inlined):
+    /// its division is inlined into it.
+    #[inline(never)]
     pub(crate) fn x_q30_by(&self, p_px_q16: i32, hw: &HalfWidth) -> i64 {
         // A map built by `new` has half-width > 0; a hand-made zero gives x = 0 rather than a fault.
         // |p − centre| < 2^32, so the shifted value is below 2^62.
@@ -442,11 +444,13 @@ impl HalfWidth {
     }
 
     /// `(a << k).checked_div(hw)` for |a| < 2^32 and k ≤ 32 with |a| · 2^k < 2^63.
+    #[inline(always)]
     fn div_shl(&self, a: i64, k: u32) -> Option<i64> {
         divide_shl(a, k, self.hw, self.recip)
     }
 
     /// `(a << k).checked_div(c1)`, as [`div_shl`](Self::div_shl).
+    #[inline(always)]
     fn div_c1_shl(&self, a: i64, k: u32) -> Option<i64> {
         divide_shl(a, k, self.c1, self.recip_c1)
     }
@@ -461,6 +465,10 @@ fn reciprocal(d: i64) -> Option<(u64, u64)> {
 /// (= [`reciprocal`]`(d)`) when there is one (see [`HalfWidth`]). With n = |a| · 2^k the estimate
 /// ⌊n · m / 2^64⌋ is ⌊|a| · m / 2^(64 − k)⌋, and with m = m_hi · 2^32 + m_lo that is
 /// ⌊(|a| · m_hi + ⌊|a| · m_lo / 2^32⌋) / 2^(32 − k)⌋: two 32 × 32-bit products, no 128-bit one.
+///
+/// Inlined where it is called (x of a pixel, the slope, the inverse's first guess), so each copy
+/// shifts by its constant k: a variable 64-bit shift is a library call on the Cortex-M0.
+#[inline(always)]
 fn divide_shl(a: i64, k: u32, d: i64, recip: Option<(u64, u64)>) -> Option<i64> {
     let n = a << k;
     let fits = k <= 32 && a.unsigned_abs() < 1 << 32 && a.unsigned_abs() < 1 << (63 - k);
