@@ -160,7 +160,7 @@ impl WavelengthMap {
             // On the sensor (|x| ≤ 1) with every k·c_k below 2^31, |d| stays below 3 · 2^31 and
             // d · x below 2^63: the same integers in i64.
             // Horner from the top term (the first step of the general loop, (0 · x) >> 30 + k c_k,
-            // is that term), k · c_k by shifts and adds, d · x by 32-bit pieces.
+            // is that term), k · c_k by shifts and adds.
             let deg = self.degree as usize;
             let kc = |k: usize| -> Result<i64, CalibrateError> {
                 let c = *self.coeff_fm.get(k).ok_or(CalibrateError::Overflow)?;
@@ -172,7 +172,7 @@ impl WavelengthMap {
             };
             let mut d = kc(deg)?;
             for k in (1..deg).rev() {
-                d = (mul_narrow_q30(d, x) >> 30) + kc(k)?;
+                d = ((d * x) >> 30) + kc(k)?;
             }
             d as i128
         } else {
@@ -501,24 +501,6 @@ fn divide_shl(a: i64, k: u32, d: i64, recip: Option<(u64, u64)>) -> Option<i64> 
     })
 }
 
-/// a · x for |a| < 2^33 and |x| ≤ 2^30 (the Horner steps on the sensor): with |a| = h · 2^32 + l
-/// (h ≤ 1), |a| · |x| = (h|x|) · 2^32 + l|x|, one 32 × 32 → 64-bit product and a small one instead
-/// of the 64-bit library product; the same integer (below 2^63 in size). The plain product outside
-/// that range.
-fn mul_narrow_q30(a: i64, x: i64) -> i64 {
-    let (ua, ux) = (a.unsigned_abs(), x.unsigned_abs());
-    if ua >= 1 << 33 || ux > 1 << 30 {
-        return a * x;
-    }
-    // h ≤ 1 and |x| ≤ 2^30: h|x| < 2^32, a 32-bit product.
-    let p = ((((ua >> 32) as u32 * ux as u32) as u64) << 32) + mul_u32_wide(ua as u32, ux as u32);
-    if (a < 0) != (x < 0) {
-        -(p as i64)
-    } else {
-        p as i64
-    }
-}
-
 /// Σ c_k x^k by Horner, x in Q30, result in the coefficients' unit.
 pub(crate) fn eval_q30(coeff: &[i64; 4], degree: u8, x_q30: i64) -> Result<i64, CalibrateError> {
     let narrow = x_q30.unsigned_abs() <= 1 << 30
@@ -529,11 +511,11 @@ pub(crate) fn eval_q30(coeff: &[i64; 4], degree: u8, x_q30: i64) -> Result<i64, 
         // |x| ≤ 1 and |c_k| < 2^31 (k ≥ 1): the accumulator stays below 2^33 before the last
         // product, so every step is the same integer in i64.
         // From the top coefficient: the general loop's first step, ((0 · x + 2^29) >> 30) + c, is
-        // c. The products by 32-bit pieces.
+        // c.
         let mut acc: i64 = *coeff.get(degree as usize).ok_or(CalibrateError::Overflow)?;
         for k in (0..degree as usize).rev() {
             let c = *coeff.get(k).ok_or(CalibrateError::Overflow)?;
-            acc = ((mul_narrow_q30(acc, x_q30) + (1 << 29)) >> 30) + c;
+            acc = ((acc * x_q30 + (1 << 29)) >> 30) + c;
         }
         return Ok(acc);
     }
@@ -804,26 +786,6 @@ mod tests {
         }
         // Both answers are exercised.
         assert!((100..700).contains(&refused), "{refused}");
-    }
-
-    #[test]
-    fn horner_products_by_pieces_are_the_plain_ones() {
-        let mut seed = 0x510e_527f_ade6_82d1u64;
-        for _ in 0..200_000 {
-            seed ^= seed << 13;
-            seed ^= seed >> 7;
-            seed ^= seed << 17;
-            let a = ((seed >> 31) as i64) * if seed & 1 == 1 { -1 } else { 1 };
-            let x = ((seed >> 3) % ((1 << 31) + 1)) as i64 - (1 << 30);
-            assert_eq!(mul_narrow_q30(a, x), a.wrapping_mul(x), "{a} {x}");
-        }
-        for (a, x) in [
-            ((1 << 33) - 1, 1 << 30),
-            (-((1 << 33) - 1), -(1 << 30)),
-            (0, 5),
-        ] {
-            assert_eq!(mul_narrow_q30(a, x), a * x);
-        }
     }
 
     #[test]
