@@ -8,7 +8,7 @@
 use super::error::CalibrateError;
 use super::map::{HalfWidth, WavelengthMap, X_ONE_Q30};
 use super::muldiv::{mul_64x64, mul_div_round, Divisor};
-use crate::find::math::mul_u32_wide;
+use crate::find::math::{mul_i32_wide, mul_u32_wide};
 use crate::fixed::{isqrt_u128, mul_div_i128};
 
 /// Most points one fit takes.
@@ -347,9 +347,19 @@ pub(crate) fn fit_map_into(
         };
         sum_wr2 = sum_wr2.saturating_add(wr2);
         sum_w += w;
-        let slope = slope.unsigned_abs() as i128;
-        let s_fm = ((pt.sigma_px_q16.max(1) as i128 * slope) >> 32).max(1);
-        chi2_q8 += mul_div_round(r * r, 256, s_fm * s_fm).ok_or(CalibrateError::Overflow)?;
+        // σ (< 2^32) · |slope| (< 2^64) and the squares below: the same integers from 64-bit
+        // products where they fit (r < 2^21 and s_fm < 2^31 on any real fit).
+        let s_fm =
+            ((mul_64x64(pt.sigma_px_q16.max(1) as u64, slope.unsigned_abs()) >> 32) as i128).max(1);
+        let r2 = match i32::try_from(r) {
+            Ok(r32) => mul_i32_wide(r32, r32) as i128,
+            Err(_) => r * r,
+        };
+        let s2 = match u32::try_from(s_fm) {
+            Ok(s32) => mul_u32_wide(s32, s32) as i128,
+            Err(_) => s_fm * s_fm,
+        };
+        chi2_q8 += mul_div_round(r2, 256, s2).ok_or(CalibrateError::Overflow)?;
     }
     let n = points.len() as i128;
     let dof = n - d as i128;
@@ -423,6 +433,11 @@ fn accumulate(
 /// [`accumulate`] for |x| ≤ 1 (Q30) and a weight 0 ≤ w ≤ 1 (Q30), the same integers: every
 /// product but the last fits `i64` there (each is at most 2^60), and that one is a single widening
 /// product of at most 2^123, so the checked product of the general path cannot fail.
+///
+/// w · x^r · λ splits into two 32 × 32 → 64-bit products (λ below 2^32 in size; a 128-bit
+/// product otherwise): the same integers without the 128-bit library product. (The other
+/// products stay 64-bit: on the Cortex-M0 the library's is no slower than one from 32-bit pieces
+/// behind a range test, measured.)
 fn accumulate_narrow(m: &mut [[i128; 9]; 4], d: usize, w: i64, x: i64, wavelength_fm: i64) {
     let mut pw = [0i64; 7];
     let mut xk: i64 = 1 << 30;
@@ -435,7 +450,24 @@ fn accumulate_narrow(m: &mut [[i128; 9]; 4], d: usize, w: i64, x: i64, wavelengt
             *cell += (w * pw.get(r + c).copied().unwrap_or(0)) as i128;
         }
         let wx = w * pw.get(r).copied().unwrap_or(0);
-        row[4] += wx as i128 * wavelength_fm as i128;
+        row[4] += wide_by_narrow(wx, wavelength_fm);
+    }
+}
+
+/// a · b in `i128` for |b| < 2^32: |a| = h · 2^32 + l, so |a| · |b| = (h|b|) · 2^32 + l|b|, two
+/// 32 × 32 → 64-bit products (h < 2^31 for `i64`); the 128-bit product otherwise.
+fn wide_by_narrow(a: i64, b: i64) -> i128 {
+    let Ok(ub) = u32::try_from(b.unsigned_abs()) else {
+        return a as i128 * b as i128;
+    };
+    let ua = a.unsigned_abs();
+    let hi = mul_u32_wide((ua >> 32) as u32, ub) as u128;
+    let lo = mul_u32_wide(ua as u32, ub) as u128;
+    let mag = ((hi << 32) + lo) as i128;
+    if (a < 0) != (b < 0) {
+        -mag
+    } else {
+        mag
     }
 }
 
@@ -528,6 +560,40 @@ mod tests {
         assert_eq!(both_weights(1, 2), Some((1 << 28, 1 << 18)));
         assert_eq!(both_weights(3, 3), Some((1 << 30, 1 << 20)));
         assert_eq!(both_weights(2, 1), None);
+    }
+
+    #[test]
+    fn split_product_is_the_wide_one() {
+        let mut seed = 0x6a09_e667_bb67_ae85u64;
+        let mut next = move || {
+            seed ^= seed << 13;
+            seed ^= seed >> 7;
+            seed ^= seed << 17;
+            seed
+        };
+        let signed = |v: u64, bits: u64| {
+            let m = (v >> (64 - bits)) as i64;
+            if v & 1 == 1 {
+                -m
+            } else {
+                m
+            }
+        };
+        for _ in 0..200_000 {
+            let (w, l) = (
+                signed(next(), 1 + next() % 63),
+                signed(next(), 1 + next() % 40),
+            );
+            assert_eq!(wide_by_narrow(w, l), w as i128 * l as i128, "{w} {l}");
+        }
+        for (a, b) in [
+            (1 << 30, 1 << 30),
+            (-(1 << 30), 1 << 30),
+            (i64::MAX, 3),
+            (i64::MIN, -1),
+        ] {
+            assert_eq!(wide_by_narrow(a, b), a as i128 * b as i128);
+        }
     }
 
     #[test]

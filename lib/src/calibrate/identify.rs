@@ -456,11 +456,24 @@ fn wide_q30(b: i64, v: i64) -> i128 {
 /// the bound on b), rounded up; `None` (no limit) when calibrating blind.
 fn scale_slack(du: i64, cfg: &IdentifyConfig) -> Option<u128> {
     cfg.nominal?;
-    let prod = du.unsigned_abs() as u128 * (cfg.max_scale_error_ppm as u128 + 2);
+    let (du, ppm) = (du.unsigned_abs(), cfg.max_scale_error_ppm.checked_add(2));
+    if let (Ok(du), Some(ppm)) = (u32::try_from(du), ppm) {
+        // Both below 2^32: the product is one 32 × 32 → 64-bit multiply.
+        return Some(per_million(crate::find::math::mul_u32_wide(du, ppm)) as u128 + 1);
+    }
+    let prod = du as u128 * (cfg.max_scale_error_ppm as u128 + 2);
     Some(match u64::try_from(prod) {
-        Ok(p) => (p / 1_000_000) as u128 + 1,
+        Ok(p) => per_million(p) as u128 + 1,
         Err(_) => prod / 1_000_000 + 1,
     })
+}
+
+/// ⌊p / 10⁶⌋ by a multiply: 10⁶ = 2^6 · 15 625, and ⌊n / 15 625⌋ = (n · m) >> 72 for n < 2^58 with
+/// m = ⌈2^72 / 15 625⌉ (m · 15 625 − 2^72 = 5 054 < 2^14, the bound for exactness). One 64 × 64-bit
+/// product instead of a ~400-instruction division on the Cortex-M0.
+fn per_million(p: u64) -> u64 {
+    const M: u64 = 302_231_454_903_657_294;
+    (super::muldiv::mul_64x64(p >> 6, M) >> 72) as u64
 }
 
 /// Per strong peak, the strong lines (bit = position in `strong_lines`) it may be paired with as the
@@ -646,7 +659,7 @@ fn score(mut h: Hypothesis, search: &Search<'_>, best: Option<&Hypothesis>) -> O
     // One dispersion for every peak when du/dp is the same everywhere (blind: u is the pixel).
     let uniform_tol = axis
         .uniform_du
-        .then(|| (axis.dispersion_fm_per_px(&h, 0) * window) >> 8);
+        .then(|| window_of(axis.dispersion_fm_per_px(&h, 0), window));
     // λ runs monotonically over the peaks (u sorted): the nearest line moves one way only. With
     // |a| ≤ 2^61 and |b · u| ≤ 2^61 no λ wraps, so the order holds.
     let bounded = h.a_fm.unsigned_abs() <= 1 << 61 && h.b_q30.unsigned_abs() <= axis.b_max_u / 4;
@@ -668,7 +681,7 @@ fn score(mut h: Hypothesis, search: &Search<'_>, best: Option<&Hypothesis>) -> O
         let lam = axis.lam(&h, k);
         let tol = match uniform_tol {
             Some(t) => t,
-            None => (axis.dispersion_fm_per_px(&h, k) * window) >> 8,
+            None => window_of(axis.dispersion_fm_per_px(&h, k), window),
         };
         let _ = lam_of.push((lam, tol));
         let (idx, d) = cursor.nearest(lines, lam);
@@ -750,6 +763,16 @@ fn score(mut h: Hypothesis, search: &Search<'_>, best: Option<&Hypothesis>) -> O
             .sum(),
     };
     Some(h)
+}
+
+/// A consensus window in fm: (dispersion · window) >> 8 for a dispersion ≥ 0 (fm/px) and a window
+/// ≥ 0 (px, Q8); one 32-bit multiply where both are small enough for the product to fit (a real
+/// dispersion is below 2^22 fm/px, a window below 2^10), the same integer as the 64-bit product.
+fn window_of(dispersion: i64, window_q8: i64) -> i64 {
+    if (0..1 << 22).contains(&dispersion) && (0..1 << 10).contains(&window_q8) {
+        return i64::from(((dispersion as u32) * (window_q8 as u32)) >> 8);
+    }
+    (dispersion * window_q8) >> 8
 }
 
 /// ⌊256 · d / t⌋ for 0 ≤ d ≤ t and 1 ≤ t < 2^23 (so the quotient is at most 256 and t · 2^8 fits):
@@ -1058,6 +1081,40 @@ mod tests {
             .collect();
         let cfg = IdentifyConfig::new(2048, 2, None);
         assert!(identify(&peaks, &lines, &cfg).is_err());
+    }
+
+    #[test]
+    fn per_million_is_the_plain_quotient() {
+        let mut seed = 0x3c6e_f372_fe94_f82bu64;
+        for _ in 0..200_000 {
+            seed ^= seed << 13;
+            seed ^= seed >> 7;
+            seed ^= seed << 17;
+            let p = seed >> (seed % 64);
+            assert_eq!(per_million(p), p / 1_000_000, "{p}");
+        }
+        for p in [0, 999_999, 1_000_000, u64::MAX, u64::MAX - 999_999] {
+            assert_eq!(per_million(p), p / 1_000_000, "{p}");
+        }
+        // The constant: ⌈2^72 / 15 625⌉.
+        assert_eq!(302_231_454_903_657_294u128, (1u128 << 72).div_ceil(15_625));
+    }
+
+    #[test]
+    fn window_in_32_bits_is_the_64_bit_product() {
+        let mut seed = 0x7f4a_7c15_9e37_79b9u64;
+        for _ in 0..100_000 {
+            seed ^= seed << 13;
+            seed ^= seed >> 7;
+            seed ^= seed << 17;
+            let d = (seed >> 20) as i64 >> (seed % 40);
+            let w = (seed & 0xfff) as i64 >> (seed % 3);
+            assert_eq!(window_of(d, w), (d * w) >> 8, "{d} {w}");
+        }
+        assert_eq!(
+            window_of((1 << 22) - 1, 1023),
+            (((1 << 22) - 1) * 1023) >> 8
+        );
     }
 
     #[test]

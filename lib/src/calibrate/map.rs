@@ -114,7 +114,9 @@ impl WavelengthMap {
         self.x_q30_by(p_px_q16, &HalfWidth::plain(self))
     }
 
-    /// [`x_q30`](Self::x_q30) dividing through `hw` (this map's half-width).
+    /// [`x_q30`](Self::x_q30) dividing through `hw` (this map's half-width). One copy (not inlined):
+    /// its division is inlined into it.
+    #[inline(never)]
     pub(crate) fn x_q30_by(&self, p_px_q16: i32, hw: &HalfWidth) -> i64 {
         // A map built by `new` has half-width > 0; a hand-made zero gives x = 0 rather than a fault.
         // |p − centre| < 2^32, so the shifted value is below 2^62.
@@ -166,10 +168,20 @@ impl WavelengthMap {
         let d: i128 = if x.unsigned_abs() <= 1 << 30 && self.narrow_slope() {
             // On the sensor (|x| ≤ 1) with every k·c_k below 2^31, |d| stays below 3 · 2^31 and
             // d · x below 2^63: the same integers in i64.
-            let mut d: i64 = 0;
-            for k in (1..=self.degree as usize).rev() {
+            // Horner from the top term (the first step of the general loop, (0 · x) >> 30 + k c_k,
+            // is that term), k · c_k by shifts and adds.
+            let deg = self.degree as usize;
+            let kc = |k: usize| -> Result<i64, CalibrateError> {
                 let c = *self.coeff_fm.get(k).ok_or(CalibrateError::Overflow)?;
-                d = ((d * x) >> 30) + c * k as i64;
+                Ok(match k {
+                    1 => c,
+                    2 => c << 1,
+                    _ => (c << 1) + c,
+                })
+            };
+            let mut d = kc(deg)?;
+            for k in (1..deg).rev() {
+                d = ((d * x) >> 30) + kc(k)?;
             }
             d as i128
         } else {
@@ -450,11 +462,13 @@ impl HalfWidth {
     }
 
     /// `(a << k).checked_div(hw)` for |a| < 2^32 and k ≤ 32 with |a| · 2^k < 2^63.
+    #[inline(always)]
     fn div_shl(&self, a: i64, k: u32) -> Option<i64> {
         divide_shl(a, k, self.hw, self.recip)
     }
 
     /// `(a << k).checked_div(c1)`, as [`div_shl`](Self::div_shl).
+    #[inline(always)]
     fn div_c1_shl(&self, a: i64, k: u32) -> Option<i64> {
         divide_shl(a, k, self.c1, self.recip_c1)
     }
@@ -469,6 +483,10 @@ fn reciprocal(d: i64) -> Option<(u64, u64)> {
 /// (= [`reciprocal`]`(d)`) when there is one (see [`HalfWidth`]). With n = |a| · 2^k the estimate
 /// ⌊n · m / 2^64⌋ is ⌊|a| · m / 2^(64 − k)⌋, and with m = m_hi · 2^32 + m_lo that is
 /// ⌊(|a| · m_hi + ⌊|a| · m_lo / 2^32⌋) / 2^(32 − k)⌋: two 32 × 32-bit products, no 128-bit one.
+///
+/// Inlined where it is called (x of a pixel, the slope, the inverse's first guess), so each copy
+/// shifts by its constant k: a variable 64-bit shift is a library call on the Cortex-M0.
+#[inline(always)]
 fn divide_shl(a: i64, k: u32, d: i64, recip: Option<(u64, u64)>) -> Option<i64> {
     let n = a << k;
     let fits = k <= 32 && a.unsigned_abs() < 1 << 32 && a.unsigned_abs() < 1 << (63 - k);
@@ -480,7 +498,12 @@ fn divide_shl(a: i64, k: u32, d: i64, recip: Option<(u64, u64)>) -> Option<i64> 
     // |a| < 2^32 and m_hi < 2^32: |a| · m_hi + 2^32 stays below 2^64.
     let hi = mul_u32_wide(ua as u32, (m >> 32) as u32) + (mul_u32_wide(ua as u32, m as u32) >> 32);
     let mut q = hi >> (32 - k);
-    let mut r = u - q * ud;
+    // q · ud ≤ u < 2^63: in one 32 × 32 → 64-bit product when both fit 32 bits (x of a pixel).
+    let qd = match (u32::try_from(q), u32::try_from(ud)) {
+        (Ok(q32), Ok(d32)) => mul_u32_wide(q32, d32),
+        _ => q * ud,
+    };
+    let mut r = u - qd;
     // One step suffices (see `HalfWidth`); a second costs nothing and bounds the loop anyway.
     for _ in 0..2 {
         if r >= ud {
@@ -505,8 +528,10 @@ pub(crate) fn eval_q30(coeff: &[i64; 4], degree: u8, x_q30: i64) -> Result<i64, 
     if narrow {
         // |x| ≤ 1 and |c_k| < 2^31 (k ≥ 1): the accumulator stays below 2^33 before the last
         // product, so every step is the same integer in i64.
-        let mut acc: i64 = 0;
-        for k in (0..=degree as usize).rev() {
+        // From the top coefficient: the general loop's first step, ((0 · x + 2^29) >> 30) + c, is
+        // c.
+        let mut acc: i64 = *coeff.get(degree as usize).ok_or(CalibrateError::Overflow)?;
+        for k in (0..degree as usize).rev() {
             let c = *coeff.get(k).ok_or(CalibrateError::Overflow)?;
             acc = ((acc * x_q30 + (1 << 29)) >> 30) + c;
         }

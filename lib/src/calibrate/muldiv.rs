@@ -45,13 +45,13 @@ pub(crate) struct Divisor {
 }
 
 impl Divisor {
-    /// `None` for 0 or |c| ≥ 2^64. Work: one 64-step long division for the reciprocal.
+    /// `None` for 0 or |c| ≥ 2^64. Work: a table look-up and four refinement steps for the
+    /// reciprocal ([`reciprocal_word`]), a few 64 × 64-bit products.
     pub(crate) fn new(c: i128) -> Option<Divisor> {
         let abs = u64::try_from(c.unsigned_abs()).ok().filter(|&a| a != 0)?;
         let shift = abs.leading_zeros();
         let d = abs << shift;
-        // (2^128 − 1) − 2^64 · d = (!d) · 2^64 + (2^64 − 1), and !d < d for d ≥ 2^63.
-        let v = div_2by1_slow(!d, u64::MAX, d);
+        let v = reciprocal_word(d);
         Some(Divisor {
             c,
             abs,
@@ -156,7 +156,49 @@ fn div_2by1(d: u64, v: u64, u1: u64, u0: u64) -> (u64, u64) {
     (q1, r)
 }
 
-/// ⌊(u1 · 2^64 + u0) / d⌋ for u1 < d by 64 steps of restoring division (for the reciprocal only).
+/// v0 of [`reciprocal_word`]: ⌊(2^19 − 3 · 2^8) / d9⌋ for the top nine bits d9 = 256 … 511 of d.
+const RECIPROCAL_TABLE: [u16; 256] = {
+    let mut t = [0u16; 256];
+    let mut i = 0;
+    while i < 256 {
+        t[i] = (((1u32 << 19) - 3 * (1 << 8)) / (256 + i as u32)) as u16;
+        i += 1;
+    }
+    t
+};
+
+/// ⌊(2^128 − 1) / d⌋ − 2^64 for d with its top bit set: Möller and Granlund, "Improved division by
+/// invariant integers", IEEE Trans. Computers 60 (2011), Algorithm 3 (`reciprocal_word`, from
+/// memory; checked against the 64-step long division in the tests): an 11-bit table value and
+/// Newton steps to 21, 34 and 64 bits, then one exact adjustment. Every product fits its type
+/// (u64, or the full product of [`mul_64x64`]); the steps mod 2^64 are the paper's.
+fn reciprocal_word(d: u64) -> u64 {
+    let d0 = d & 1;
+    let d9 = (d >> 55) as usize;
+    let d40 = (d >> 24) + 1;
+    let d63 = (d >> 1) + d0;
+    let v0 = u64::from(
+        RECIPROCAL_TABLE
+            .get(d9.wrapping_sub(256))
+            .copied()
+            .unwrap_or(0),
+    );
+    // v0 < 2^11 and d40 ≤ 2^40: v0² · d40 < 2^62.
+    let v1 = (v0 << 11)
+        .wrapping_sub((v0 * v0 * d40) >> 40)
+        .wrapping_sub(1);
+    // 0 ≤ 2^60 − v1 · d40 < 2^44 and v1 < 2^21: the product below fits 128 bits (and 64).
+    let e1 = (1u64 << 60).wrapping_sub(v1.wrapping_mul(d40));
+    let v2 = (v1 << 13).wrapping_add((mul_64x64(v1, e1) >> 47) as u64);
+    let e = ((v2 >> 1) * d0).wrapping_sub(v2.wrapping_mul(d63));
+    let v3 = (v2 << 31).wrapping_add((mul_64x64(v2, e) >> 65) as u64);
+    let hi = (mul_64x64(v3, d).wrapping_add(u128::from(d)) >> 64) as u64;
+    v3.wrapping_sub(hi).wrapping_sub(d)
+}
+
+/// ⌊(u1 · 2^64 + u0) / d⌋ for u1 < d by 64 steps of restoring division (the reference the table
+/// reciprocal is tested against).
+#[cfg(test)]
 fn div_2by1_slow(u1: u64, u0: u64, d: u64) -> u64 {
     let mut r = u1;
     let mut q = 0u64;
@@ -292,6 +334,27 @@ mod tests {
             }
         }
         assert!(Divisor::new(0).is_none() && Divisor::new(1 << 64).is_none());
+    }
+
+    #[test]
+    fn table_reciprocal_is_the_long_division_one() {
+        let mut seed = 0xbb67_ae85_84ca_a73bu64;
+        let check = |d: u64| {
+            // (2^128 − 1) − 2^64 · d = (!d) · 2^64 + (2^64 − 1), and !d < d for d ≥ 2^63.
+            assert_eq!(reciprocal_word(d), div_2by1_slow(!d, u64::MAX, d), "{d:#x}");
+        };
+        for k in 0..1_000u64 {
+            check((1 << 63) + k);
+            check(u64::MAX - k);
+            check((1 << 63) | (k << 55));
+            check(((1 << 63) | (k << 55)).wrapping_sub(1) | (1 << 63));
+        }
+        for _ in 0..200_000 {
+            seed ^= seed << 13;
+            seed ^= seed >> 7;
+            seed ^= seed << 17;
+            check(seed | 1 << 63);
+        }
     }
 
     #[test]

@@ -8,6 +8,7 @@
 //! - **Position**: when unresolved, the blend centre moves linearly with the share. This needs a map
 //!   that does not come from the tube itself and is precise well below the shift; its stated
 //!   uncertainty enters as a systematic term common to all lines.
+use crate::calibrate::mul_div_round;
 use crate::find::math::{mul_i32_wide, Recip};
 use crate::fixed::{isqrt_u128, mul_div_i128};
 
@@ -40,7 +41,9 @@ pub struct BlendReading {
 /// Share from blend positions; `systematic_fm` is the map's own uncertainty, common to every line.
 /// `None` when no reading has a usable shift.
 ///
-/// Work: one pass over the readings.
+/// Work: one pass over the readings. The rounded quotients are `mul_div_round`'s: the same as
+/// `mul_div_i128`, through one 64-bit division where the operands allow (they do for any real
+/// blend), not the 128-bit long division.
 pub fn share_by_position(readings: &[BlendReading], systematic_fm: u64) -> Option<ShareEstimate> {
     let mut sum_w: i128 = 0;
     let mut sum_wx: i128 = 0;
@@ -50,9 +53,9 @@ pub fn share_by_position(readings: &[BlendReading], systematic_fm: u64) -> Optio
         if delta == 0 {
             continue;
         }
-        let x_ppm = mul_div_i128((r.measured_fm - r.a_fm) as i128, 1_000_000, delta)?;
-        let s_ppm = mul_div_i128(r.sigma_fm.max(1) as i128, 1_000_000, delta.abs())?.max(1);
-        let w = mul_div_i128(1_000_000_000_000_000_000, 1, s_ppm * s_ppm)?.max(1);
+        let x_ppm = mul_div_round((r.measured_fm - r.a_fm) as i128, 1_000_000, delta)?;
+        let s_ppm = mul_div_round(r.sigma_fm.max(1) as i128, 1_000_000, delta.abs())?.max(1);
+        let w = mul_div_round(1_000_000_000_000_000_000, 1, s_ppm * s_ppm)?.max(1);
         sum_w += w;
         sum_wx += w * x_ppm;
         sum_w_delta += w * delta.abs();
@@ -61,9 +64,9 @@ pub fn share_by_position(readings: &[BlendReading], systematic_fm: u64) -> Optio
         return None;
     }
     let share = sum_wx.checked_div(sum_w)?;
-    let var_stat = mul_div_i128(1_000_000_000_000_000_000, 1, sum_w)?;
+    let var_stat = mul_div_round(1_000_000_000_000_000_000, 1, sum_w)?;
     let mean_delta = sum_w_delta.checked_div(sum_w)?.max(1);
-    let sys_ppm = mul_div_i128(systematic_fm as i128, 1_000_000, mean_delta)?;
+    let sys_ppm = mul_div_round(systematic_fm as i128, 1_000_000, mean_delta)?;
     let var = var_stat + sys_ppm * sys_ppm;
     Some(ShareEstimate {
         share_b_ppm: share.clamp(i32::MIN as i128, i32::MAX as i128) as i32,
