@@ -406,7 +406,7 @@ for k in o:
         continue
     if n[k] != o[k]:
         print(f"  {k}: {o[k]} -> {n[k]}", file=sys.stderr)
-    # 5 % of the baseline's size: the calibrate stage (calibrate check - verify check) may be negative.
+    # 5 % of the baseline's size (a zero or negative figure cannot make every change a growth).
     if n[k] > o[k] + abs(o[k]) * 0.05:
         grown.append(k)
 if grown:
