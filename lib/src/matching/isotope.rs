@@ -342,7 +342,12 @@ fn single_chi2(
     if sgg == 0 {
         return Some(srr);
     }
-    Some(srr - mul_div_i128(srg, srg, sgg)?)
+    // Σg² < 2^36 (≤ 64 px of a Q15 shape): its reciprocal gives the long division's quotient.
+    let fitted = match Divisor::new(sgg) {
+        Some(d) => d.mul_div_round(srg, srg)?,
+        None => mul_div_i128(srg, srg, sgg)?,
+    };
+    Some(srr - fitted)
 }
 
 /// Sums of the linear 2 × 2 problem at one shift. g in Q15, r in frame units.
