@@ -34,6 +34,18 @@ pub struct Checker {
     pair: Option<(Nucleus, Nucleus)>,
     /// What identification matches peaks against (from the catalogue and priors, so once here).
     refs: Vec<ReferenceLine, MAX_REFERENCE_LINES>,
+    /// Verify mode: the features, the lines' pixels and the match windows on the stored map, which
+    /// every frame would otherwise work out again (~120 k instructions on the M0); built in place.
+    placed: Placed,
+    /// Whether `placed` holds them (verify mode, grouping succeeded).
+    placed_valid: bool,
+}
+
+/// Grouping's output on one map: see [`Checker::placed`](Checker).
+struct Placed {
+    features: Vec<Feature, MAX_FEATURES>,
+    lines: LinePixels,
+    windows: Vec<(i32, i32), MAX_FEATURES>,
 }
 
 /// The map a check measures with, and its uncertainty.
@@ -143,6 +155,12 @@ impl Checker {
             catalogue: Vec::new(),
             pair: None,
             refs: Vec::new(),
+            placed: Placed {
+                features: Vec::new(),
+                lines: LinePixels::new(),
+                windows: Vec::new(),
+            },
+            placed_valid: false,
         }
     }
 
@@ -157,6 +175,7 @@ impl Checker {
         self.catalogue.clear();
         self.pair = None;
         self.refs.clear();
+        self.placed_valid = false;
         let done = self.predict();
         if done.is_err() {
             self.priors.clear();
@@ -200,7 +219,58 @@ impl Checker {
         let nuclei: Vec<Nucleus, MAX_NUCLEI> = collect_bounded(priors.iter().map(|p| p.0));
         build_into(&nuclei, lo, hi, &cfg.air, &mut self.catalogue)?;
         reference_lines(&self.catalogue, &self.priors, &mut self.refs);
+        if self.cfg.mode == Mode::Verify {
+            self.placed_valid = self.place_on_stored();
+        }
         Ok(())
+    }
+
+    /// Verify mode's grouping on the stored map into `placed`, once (see [`Checker::placed`](Checker)):
+    /// exactly what [`match_lines`](Self::match_lines) would work out per frame. `false` where
+    /// grouping fails; then each frame groups (and reports the failure) itself.
+    #[inline(never)]
+    fn place_on_stored(&mut self) -> bool {
+        let mut m = MapInUse::EMPTY;
+        m.set(self.cfg.stored.map, None, self.cfg.stored.sigma_fm);
+        let merge = self.merge_px_q16();
+        let Checker {
+            catalogue,
+            priors,
+            placed,
+            ..
+        } = self;
+        if group_placing(
+            catalogue,
+            &m.map,
+            priors,
+            merge,
+            &mut m.lines,
+            &mut placed.features,
+        )
+        .is_err()
+        {
+            return false;
+        }
+        placed.lines = m.lines.clone();
+        let mut windows: Vec<(i32, i32), MAX_FEATURES> = Vec::new();
+        for f in self.placed.features.iter() {
+            let _ = windows.push(self.windows_px_q16(f, &m));
+        }
+        self.placed.windows = windows;
+        true
+    }
+
+    /// Drops the verify-mode grouping made in `configure`, so each frame groups itself (tests
+    /// compare the two); whether there was one.
+    #[cfg(test)]
+    pub(super) fn forget_placement(&mut self) -> bool {
+        core::mem::replace(&mut self.placed_valid, false)
+    }
+
+    /// Closer than 1.5 line widths, two lines may show as one peak (peak finding's own blend limit);
+    /// a pair that does show as two is split again after matching. px, Q16.
+    fn merge_px_q16(&self) -> i32 {
+        ((self.cfg.line_fwhm_px_q8 as i32) << 8) * 3 / 2
     }
 
     /// The configuration.
@@ -360,24 +430,31 @@ impl Checker {
             windows,
             ..
         } = work;
-        // Closer than 1.5 line widths, two lines may show as one peak (peak finding's own blend limit);
-        // a pair that does show as two is split again after matching.
-        let merge_q16 = ((cfg.line_fwhm_px_q8 as i32) << 8) * 3 / 2;
-        // Every line's pixel is found once, while grouping, for all the steps below.
-        group_placing(
-            &self.catalogue,
-            &in_use.map,
-            &self.priors,
-            merge_q16,
-            &mut in_use.lines,
-            features,
-        )?;
-        let in_use: &MapInUse = in_use;
-        // Each feature's windows once (kept in `work`): assignment and blend splitting both ask.
-        windows.clear();
-        for f in features.iter() {
-            let _ = windows.push(self.windows_px_q16(f, in_use));
+        if self.placed_valid && cfg.mode == Mode::Verify {
+            // Verify mode measures on the stored map: its grouping was made once, in `configure`.
+            let p = &self.placed;
+            features.clear();
+            let _ = features.extend_from_slice(&p.features);
+            in_use.lines = p.lines.clone();
+            windows.clear();
+            let _ = windows.extend_from_slice(&p.windows);
+        } else {
+            // Every line's pixel is found once, while grouping, for all the steps below.
+            group_placing(
+                &self.catalogue,
+                &in_use.map,
+                &self.priors,
+                self.merge_px_q16(),
+                &mut in_use.lines,
+                features,
+            )?;
+            // Each feature's windows once (kept in `work`): assignment and blend splitting both ask.
+            windows.clear();
+            for f in features.iter() {
+                let _ = windows.push(self.windows_px_q16(f, in_use));
+            }
         }
+        let in_use: &MapInUse = in_use;
         let window_of = |i: usize| windows.get(i).copied().unwrap_or((1 << 16, 1 << 16));
         let pairs = assign(features, peaks, |i, _| window_of(i).1);
         let pairs = self.split_resolved(features, pairs, peaks, in_use, |i| window_of(i).0);

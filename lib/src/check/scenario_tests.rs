@@ -393,3 +393,43 @@ fn reused_buffers_give_the_fresh_report() {
         assert_eq!(report, fresh, "{mode:?}");
     }
 }
+
+/// Verify mode's grouping on the stored map, made once in `configure`, gives every frame the report
+/// the frame's own grouping gives: hydrogen, deuterium and a frame with foreign lines, each profile.
+#[test]
+fn verify_grouping_made_once_gives_the_per_frame_report() {
+    let frames = [
+        frame(&[(Nucleus::H1, 1000)], &[], 3 << 8, 3000, 51),
+        frame(
+            &[(Nucleus::H2, 990), (Nucleus::H1, 10)],
+            &[],
+            3 << 8,
+            3000,
+            52,
+        ),
+        frame(
+            &[(Nucleus::H1, 1000)],
+            &[(587_562_000, 1500), (501_568_000, 900)],
+            3 << 8,
+            3000,
+            53,
+        ),
+    ];
+    for prof in [profile::HYDROGEN, profile::DEUTERIUM] {
+        let cfg = config(Mode::Verify, prof, truth());
+        let once = Checker::new(cfg.clone()).unwrap();
+        let mut each = Checker::new(cfg).unwrap();
+        assert!(each.forget_placement());
+        let mut buf = std::boxed::Box::new(Buffers::<N>::new());
+        for raw in &frames {
+            let (mut a, mut b) = (Report::new(), Report::new());
+            let signal = FrameSum::single(raw).unwrap();
+            once.check(signal, None, None, buf.workspace(N), &mut a)
+                .unwrap();
+            each.check(signal, None, None, buf.workspace(N), &mut b)
+                .unwrap();
+            assert_eq!(a, b);
+            assert!(!a.lines.is_empty());
+        }
+    }
+}

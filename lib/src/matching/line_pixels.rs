@@ -5,6 +5,7 @@ use crate::calibrate::WavelengthMap;
 
 /// Pixels of catalogue lines on the map in use, recorded as grouping inverts the map for them (a
 /// Newton iteration each).
+#[derive(Clone)]
 pub(crate) struct LinePixels {
     px: [i32; MAX_CATALOGUE],
     /// Bit i: line i looked up; `placed` bit i: it has a pixel.
