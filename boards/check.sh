@@ -380,7 +380,7 @@ PY
     fi
     # The same bar as a worst case over every path, read from the M0 image's call graph and
     # prologues (stack-bound.py): the entry points a small core calls. (`Checker::new` returns the
-    # 1.8 KiB checker by value; such a firmware keeps a `Checker::blank` and calls `configure`.)
+    # ≈ 4 KiB checker by value; such a firmware keeps a `Checker::blank` and calls `configure`.)
     melf="$CARGO_TARGET_DIR/glowcheck-measure/thumbv6m-none-eabi-measure.elf"
     if python3 "$here/stack-bound.py" "$objdump" "$melf" 4096 "pipeline::Checker::check::" \
         "Checker::configure" "glowcheck::find::find_peaks" "glowcheck::condition::condition_frame" \

@@ -135,8 +135,8 @@ impl Checker {
     /// Validates the configuration and predicts the lines of the profile's species (and the
     /// isotope partner of a lone hydrogen species) over the sensor's range.
     ///
-    /// The checker (≈ 1.8 KiB) comes back by value; on a small core, keep one in a `static` made
-    /// with [`blank`](Self::blank) and call [`configure`](Self::configure), which predicts in place.
+    /// The checker (≈ 4 KiB) comes back by value; on a small core, keep one in a `static` made with
+    /// [`blank`](Self::blank) and call [`configure`](Self::configure), which predicts in place.
     ///
     /// Work: line prediction of ≤ 4 nuclei over the sensor window (the costly part, once).
     pub fn new(cfg: Config) -> Result<Checker, CheckError> {
