@@ -347,13 +347,7 @@ mod tests {
 
     #[test]
     fn every_division_path_gives_the_long_divisions_result() {
-        let mut seed = 0x9e37_79b9_7f4a_7c15u64;
-        let mut next = || {
-            seed ^= seed << 13;
-            seed ^= seed >> 7;
-            seed ^= seed << 17;
-            seed
-        };
+        let mut next = crate::test_rng::xorshift(0x9e37_79b9_7f4a_7c15u64);
         let mut wide = |bits: u32| -> u128 {
             let v = (u128::from(next()) << 64) | u128::from(next());
             if bits == 0 {

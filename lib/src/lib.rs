@@ -30,3 +30,5 @@ pub mod judge;
 pub mod matching;
 pub mod predict;
 pub mod sort;
+#[cfg(test)]
+mod test_rng;

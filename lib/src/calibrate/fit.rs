@@ -530,13 +530,8 @@ mod tests {
 
     #[test]
     fn both_weights_from_one_division_are_the_rounded_quotients() {
-        let mut seed = 0x0123_4567_89ab_cdefu64;
-        let mut next = move |m: u64| {
-            seed ^= seed << 13;
-            seed ^= seed >> 7;
-            seed ^= seed << 17;
-            seed % m
-        };
+        let mut bits = crate::test_rng::xorshift(0x0123_4567_89ab_cdefu64);
+        let mut next = move |m: u64| bits() % m;
         let mut checked = 0;
         for round in 0..200_000 {
             let top = if round % 3 == 0 { 1 << 25 } else { 1 << 14 };
@@ -564,13 +559,7 @@ mod tests {
 
     #[test]
     fn split_product_is_the_wide_one() {
-        let mut seed = 0x6a09_e667_bb67_ae85u64;
-        let mut next = move || {
-            seed ^= seed << 13;
-            seed ^= seed >> 7;
-            seed ^= seed << 17;
-            seed
-        };
+        let mut next = crate::test_rng::xorshift(0x6a09_e667_bb67_ae85u64);
         let signed = |v: u64, bits: u64| {
             let m = (v >> (64 - bits)) as i64;
             if v & 1 == 1 {
@@ -598,18 +587,12 @@ mod tests {
 
     #[test]
     fn variance_scaling_is_the_general_rounded_quotient() {
-        let mut seed = 0x9e37_79b9_7f4a_7c15u64;
-        let mut next = move || {
-            seed ^= seed << 13;
-            seed ^= seed >> 7;
-            seed ^= seed << 17;
-            seed
-        };
+        let mut next = crate::test_rng::xorshift(0x9e37_79b9_7f4a_7c15u64);
         for _ in 0..100_000 {
             let q = (((next() as u128) << 64 | next() as u128) >> (next() % 128)) as i128 >> 1;
             let scale = next() >> (next() % 64);
             // Exact halves too: q · scale an odd multiple of 2^39.
-            let (q, scale) = if next() % 8 == 0 {
+            let (q, scale) = if next().is_multiple_of(8) {
                 ((2 * (next() % 1_000_000) as i128 + 1) << 39, 1)
             } else {
                 (q, scale)
@@ -661,13 +644,8 @@ mod tests {
 
     #[test]
     fn sigma_polynomial_gives_the_term_by_term_sigma() {
-        let mut seed = 0x5851_f42d_4c95_7f2du64;
-        let mut next = move |m: u64| {
-            seed ^= seed << 13;
-            seed ^= seed >> 7;
-            seed ^= seed << 17;
-            seed % m
-        };
+        let mut bits = crate::test_rng::xorshift(0x5851_f42d_4c95_7f2du64);
+        let mut next = move |m: u64| bits() % m;
         let (mut checked, mut same, mut wide) = (0u32, 0u32, 0u32);
         for _ in 0..300 {
             let degree = 1 + next(3) as u8;
@@ -753,13 +731,7 @@ mod tests {
 
     #[test]
     fn narrow_quadratic_form_gives_the_wide_integers() {
-        let mut seed = 0x9e37_79b9_7f4a_7c15u64;
-        let mut next = move || {
-            seed ^= seed << 13;
-            seed ^= seed >> 7;
-            seed ^= seed << 17;
-            seed
-        };
+        let mut next = crate::test_rng::xorshift(0x9e37_79b9_7f4a_7c15u64);
         let base = fit_map(
             &[100i64, 400, 800, 1200, 1600, 1900].map(|p| FitPoint {
                 center_px_q16: (p << 16) as i32,
@@ -798,13 +770,7 @@ mod tests {
 
     #[test]
     fn narrow_accumulation_gives_the_wide_sums() {
-        let mut seed = 0x51_7cc1_b727_220au64;
-        let mut next = move || {
-            seed ^= seed << 13;
-            seed ^= seed >> 7;
-            seed ^= seed << 17;
-            seed
-        };
+        let mut next = crate::test_rng::xorshift(0x51_7cc1_b727_220au64);
         for case in 0..2_000 {
             let d = 2 + case % 3;
             let (mut a, mut b) = ([[0i128; 9]; 4], [[0i128; 9]; 4]);

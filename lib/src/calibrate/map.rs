@@ -846,13 +846,7 @@ mod tests {
 
     #[test]
     fn half_width_reciprocal_gives_the_plain_quotients() {
-        let mut seed = 0xdead_beef_cafe_f00du64;
-        let mut next = move || {
-            seed ^= seed << 13;
-            seed ^= seed >> 7;
-            seed ^= seed << 17;
-            seed
-        };
+        let mut next = crate::test_rng::xorshift(0xdead_beef_cafe_f00du64);
         let mut m = demo_map();
         for _ in 0..2_000 {
             m.half_width_px_q16 = match next() % 4 {

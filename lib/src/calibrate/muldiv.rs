@@ -220,13 +220,7 @@ mod tests {
 
     #[test]
     fn narrow_route_gives_the_wide_quotients() {
-        let mut seed = 0x1234_5678_9abc_def1u64;
-        let mut next = move || {
-            seed ^= seed << 13;
-            seed ^= seed >> 7;
-            seed ^= seed << 17;
-            seed
-        };
+        let mut next = crate::test_rng::xorshift(0x1234_5678_9abc_def1u64);
         let mut narrow = 0;
         for _ in 0..200_000 {
             let pick = |v: u64, bits: u64| -> i128 {
@@ -240,7 +234,7 @@ mod tests {
             let (ba, bb, bc) = (next() % 66, next() % 66, next() % 66);
             let (a, b, c) = (pick(next(), ba), pick(next(), bb), pick(next(), bc));
             // Exact halves too: c even and a · b an odd multiple of c / 2.
-            let (a, b, c) = if next() % 8 == 0 && c.unsigned_abs() >= 2 && c % 2 == 0 {
+            let (a, b, c) = if next().is_multiple_of(8) && c.unsigned_abs() >= 2 && c % 2 == 0 {
                 (c / 2 * (2 * (next() % 1000) as i128 + 1), 1, c)
             } else {
                 (a, b, c)
@@ -261,13 +255,7 @@ mod tests {
 
     #[test]
     fn reciprocal_division_gives_the_wide_quotients() {
-        let mut seed = 0x6a09_e667_f3bc_c908u64;
-        let mut next = move || {
-            seed ^= seed << 13;
-            seed ^= seed >> 7;
-            seed ^= seed << 17;
-            seed
-        };
+        let mut next = crate::test_rng::xorshift(0x6a09_e667_f3bc_c908u64);
         let pick = |v: u64, bits: u64, neg: bool| -> i128 {
             let m = (v >> (64 - bits.clamp(1, 64))) as i128;
             if neg {
@@ -307,7 +295,7 @@ mod tests {
                     ),
                 };
                 // Exact halves too: a · b an odd multiple of c / 2.
-                let (a, b) = if next() % 8 == 0 && c % 2 == 0 {
+                let (a, b) = if next().is_multiple_of(8) && c % 2 == 0 {
                     (c / 2, 2 * (next() % 1_000_000) as i128 + 1)
                 } else {
                     (a, b)

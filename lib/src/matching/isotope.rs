@@ -604,13 +604,7 @@ mod tests {
     /// χ² through the determinant's reciprocal is the one through two 128-bit divisions.
     #[test]
     fn chi2_by_reciprocal_is_the_long_division() {
-        let mut seed = 0x2545_f491_4f6c_dd1du64;
-        let mut next = move || {
-            seed ^= seed << 13;
-            seed ^= seed >> 7;
-            seed ^= seed << 17;
-            seed
-        };
+        let mut next = crate::test_rng::xorshift(0x2545_f491_4f6c_dd1du64);
         let mut checked = 0;
         for _ in 0..20_000 {
             let mut v = || ((next() >> (next() % 40)) as i64) as i128;
@@ -739,13 +733,8 @@ mod tests {
 
     #[test]
     fn sums_over_the_support_are_the_whole_window_sums() {
-        let mut seed = 0x1f83_d9ab_fb41_bd6bu64;
-        let mut next = move |m: u64| {
-            seed ^= seed << 13;
-            seed ^= seed >> 7;
-            seed ^= seed << 17;
-            seed % m
-        };
+        let mut bits = crate::test_rng::xorshift(0x1f83_d9ab_fb41_bd6bu64);
+        let mut next = move |m: u64| bits() % m;
         for _ in 0..300 {
             let f: std::vec::Vec<i32> = (0..100).map(|_| next(60_000) as i32 - 1_000).collect();
             let base: std::vec::Vec<i32> = (0..100).map(|_| next(2_000) as i32).collect();
