@@ -257,11 +257,9 @@ mod tests {
 
     #[test]
     fn root_of_a_u32_is_the_wide_root() {
-        let mut seed = 0x2718_2818_2845_9045u64;
+        let mut next = crate::test_rng::xorshift(0x2718_2818_2845_9045u64);
         for _ in 0..100_000 {
-            seed ^= seed << 13;
-            seed ^= seed >> 7;
-            seed ^= seed << 17;
+            let seed = next();
             let v = (seed >> (32 + seed % 32)) as u32;
             assert_eq!(u128::from(isqrt_u32(v)), wide_root(u128::from(v)), "{v}");
         }

@@ -1085,11 +1085,9 @@ mod tests {
 
     #[test]
     fn per_million_is_the_plain_quotient() {
-        let mut seed = 0x3c6e_f372_fe94_f82bu64;
+        let mut next = crate::test_rng::xorshift(0x3c6e_f372_fe94_f82bu64);
         for _ in 0..200_000 {
-            seed ^= seed << 13;
-            seed ^= seed >> 7;
-            seed ^= seed << 17;
+            let seed = next();
             let p = seed >> (seed % 64);
             assert_eq!(per_million(p), p / 1_000_000, "{p}");
         }
@@ -1102,11 +1100,9 @@ mod tests {
 
     #[test]
     fn window_in_32_bits_is_the_64_bit_product() {
-        let mut seed = 0x7f4a_7c15_9e37_79b9u64;
+        let mut next = crate::test_rng::xorshift(0x7f4a_7c15_9e37_79b9u64);
         for _ in 0..100_000 {
-            seed ^= seed << 13;
-            seed ^= seed >> 7;
-            seed ^= seed << 17;
+            let seed = next();
             let d = (seed >> 20) as i64 >> (seed % 40);
             let w = (seed & 0xfff) as i64 >> (seed % 3);
             assert_eq!(window_of(d, w), (d * w) >> 8, "{d} {w}");
@@ -1119,11 +1115,9 @@ mod tests {
 
     #[test]
     fn ratio_q8_is_the_plain_quotient() {
-        let mut seed = 0x0bad_5eed_1234_5678u64;
+        let mut next = crate::test_rng::xorshift(0x0bad_5eed_1234_5678u64);
         for _ in 0..100_000 {
-            seed ^= seed << 13;
-            seed ^= seed >> 7;
-            seed ^= seed << 17;
+            let seed = next();
             let t = ((1 + (seed % ((1 << 23) - 1)) as u32) >> (seed >> 59)).max(1);
             let d = ((seed >> 24) % (t as u64 + 1)) as u32;
             assert_eq!(ratio_q8(d, t), (d << 8) / t, "{d} {t}");

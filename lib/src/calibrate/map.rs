@@ -629,13 +629,8 @@ mod tests {
 
     #[test]
     fn narrow_arithmetic_gives_the_wide_results() {
-        let mut seed = 0x1234_5678_9abc_def1u64;
-        let mut next = |m: u64| {
-            seed ^= seed << 13;
-            seed ^= seed >> 7;
-            seed ^= seed << 17;
-            seed % m
-        };
+        let mut bits = crate::test_rng::xorshift(0x1234_5678_9abc_def1u64);
+        let mut next = move |m: u64| bits() % m;
         let mut checked = 0;
         for round in 0..3000 {
             let big = round % 7 == 0;
@@ -672,13 +667,8 @@ mod tests {
 
     #[test]
     fn reversion_guess_gives_the_full_newton_pixel_to_the_rounding_of_lambda() {
-        let mut seed = 0x2545_f491_4f6c_dd1du64;
-        let mut next = |m: u64| {
-            seed ^= seed << 13;
-            seed ^= seed >> 7;
-            seed ^= seed << 17;
-            seed % m
-        };
+        let mut bits = crate::test_rng::xorshift(0x2545_f491_4f6c_dd1du64);
+        let mut next = move |m: u64| bits() % m;
         let (mut checked, mut same, mut worst) = (0u32, 0u32, 0i64);
         for _ in 0..3000 {
             // Sensors of 100–400 nm span: curvature up to 1/40 of the slope term, cubic 1/400.

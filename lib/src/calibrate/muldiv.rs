@@ -347,11 +347,9 @@ mod tests {
 
     #[test]
     fn products_from_halves_are_the_full_products() {
-        let mut seed = 0x3c6e_f372_fe94_f82bu64;
+        let mut next = crate::test_rng::xorshift(0x3c6e_f372_fe94_f82bu64);
         for _ in 0..100_000 {
-            seed ^= seed << 13;
-            seed ^= seed >> 7;
-            seed ^= seed << 17;
+            let seed = next();
             let (a, b) = (seed >> (seed % 64), seed.rotate_left(29));
             assert_eq!(mul_64x64(a, b), a as u128 * b as u128);
             assert_eq!(

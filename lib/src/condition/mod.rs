@@ -563,13 +563,8 @@ mod tests {
 
     #[test]
     fn every_arithmetic_path_gives_the_wide_formulas_integers() {
-        let mut seed = 0x2545_f491_4f6c_dd1du64;
-        let mut next = |m: u64| {
-            seed ^= seed << 13;
-            seed ^= seed >> 7;
-            seed ^= seed << 17;
-            seed % m
-        };
+        let mut bits = crate::test_rng::xorshift(0x2545_f491_4f6c_dd1du64);
+        let mut next = move |m: u64| bits() % m;
         for round in 0..400 {
             let n = 1 + next(40) as usize;
             let fs = [255u16, 4095, 16383, u16::MAX][next(4) as usize];
