@@ -19,7 +19,7 @@ use crate::matching::isotope::{
 };
 use crate::matching::line_pixels::LinePixels;
 use crate::matching::markers::nearest_marker;
-use crate::matching::{MAX_CATALOGUE, MAX_SHARE_SIGMA_PPM};
+use crate::matching::{MatchError, MAX_CATALOGUE, MAX_SHARE_SIGMA_PPM};
 use crate::predict::Nucleus;
 use heapless::Vec;
 
@@ -171,19 +171,21 @@ impl Checker {
     /// Work: as [`new`](Self::new).
     pub fn configure(&mut self, cfg: Config) -> Result<(), CheckError> {
         self.cfg = cfg;
+        self.clear_predictions();
+        let done = self.predict();
+        if done.is_err() {
+            self.clear_predictions();
+        }
+        done
+    }
+
+    /// Back to [`blank`](Self::blank)'s tables (the configuration stays).
+    fn clear_predictions(&mut self) {
         self.priors.clear();
         self.catalogue.clear();
         self.pair = None;
         self.refs.clear();
         self.placed_valid = false;
-        let done = self.predict();
-        if done.is_err() {
-            self.priors.clear();
-            self.catalogue.clear();
-            self.pair = None;
-            self.refs.clear();
-        }
-        done
     }
 
     /// The prediction behind [`configure`](Self::configure), on cleared tables. Out of line: one
@@ -230,33 +232,24 @@ impl Checker {
     /// grouping fails; then each frame groups (and reports the failure) itself.
     #[inline(never)]
     fn place_on_stored(&mut self) -> bool {
-        let mut m = MapInUse::EMPTY;
-        m.set(self.cfg.stored.map, None, self.cfg.stored.sigma_fm);
-        let merge = self.merge_px_q16();
         let Checker {
+            cfg,
             catalogue,
             priors,
             placed,
             ..
         } = self;
-        if group_placing(
-            catalogue,
-            &m.map,
-            priors,
-            merge,
-            &mut m.lines,
-            &mut placed.features,
-        )
-        .is_err()
-        {
+        let mut m = MapInUse::EMPTY;
+        m.set(cfg.stored.map, None, cfg.stored.sigma_fm);
+        let Placed {
+            features,
+            lines,
+            windows,
+        } = placed;
+        if group_with_windows(cfg, catalogue, priors, &mut m, features, windows).is_err() {
             return false;
         }
-        placed.lines = m.lines.clone();
-        let mut windows: Vec<(i32, i32), MAX_FEATURES> = Vec::new();
-        for f in self.placed.features.iter() {
-            let _ = windows.push(self.windows_px_q16(f, &m));
-        }
-        self.placed.windows = windows;
+        *lines = m.lines;
         true
     }
 
@@ -265,12 +258,6 @@ impl Checker {
     #[cfg(test)]
     pub(super) fn forget_placement(&mut self) -> bool {
         core::mem::replace(&mut self.placed_valid, false)
-    }
-
-    /// Closer than 1.5 line widths, two lines may show as one peak (peak finding's own blend limit);
-    /// a pair that does show as two is split again after matching. px, Q16.
-    fn merge_px_q16(&self) -> i32 {
-        ((self.cfg.line_fwhm_px_q8 as i32) << 8) * 3 / 2
     }
 
     /// The configuration.
@@ -439,20 +426,14 @@ impl Checker {
             windows.clear();
             let _ = windows.extend_from_slice(&p.windows);
         } else {
-            // Every line's pixel is found once, while grouping, for all the steps below.
-            group_placing(
+            group_with_windows(
+                cfg,
                 &self.catalogue,
-                &in_use.map,
                 &self.priors,
-                self.merge_px_q16(),
-                &mut in_use.lines,
+                in_use,
                 features,
+                windows,
             )?;
-            // Each feature's windows once (kept in `work`): assignment and blend splitting both ask.
-            windows.clear();
-            for f in features.iter() {
-                let _ = windows.push(self.windows_px_q16(f, in_use));
-            }
         }
         let in_use: &MapInUse = in_use;
         let window_of = |i: usize| windows.get(i).copied().unwrap_or((1 << 16, 1 << 16));
@@ -509,25 +490,6 @@ impl Checker {
                 false
             }
         }
-    }
-
-    /// Match windows of a feature (px, Q16): its line's (twice the allowed position error plus 3 σ
-    /// of the map, ≥ 1 px), and the feature's (the line's plus the reach of a blend's members,
-    /// whose centre moves with the unknown mix), from one evaluation of the map at its pixel.
-    fn windows_px_q16(&self, f: &Feature, m: &MapInUse) -> (i32, i32) {
-        let (_, slope, sigma) = m.at(f.predicted_px_q16);
-        let slope = slope.max(1) as i64;
-        let tol_fm = 2 * self.cfg.profile.max_line_error_fm as i64 + 3 * sigma as i64;
-        let base = (shl32_div(tol_fm, slope)).clamp(1 << 16, 64 << 16) as i32;
-        // The quotient grows with the distance: the farthest member's is the largest.
-        let far = f
-            .members
-            .iter()
-            .filter_map(|&i| self.catalogue.get(i as usize))
-            .map(|c| (c.wavelength_fm - f.predicted_fm).abs())
-            .max();
-        let reach = far.map_or(0, |v| shl32_div(v, slope));
-        (base, (base as i128 + reach).clamp(1 << 16, 64 << 16) as i32)
     }
 
     /// Instrument line σ (px, Q16): median FWHM of matched, unsaturated, unblended peaks, else the
@@ -1101,6 +1063,53 @@ impl Checker {
 
 /// Predicted lines for identification: isotopes of one transition merged at the prior shares
 /// (a calibration cannot tell them apart anyway), species with no prior left out.
+/// Groups the catalogue on `m`'s map into `features` (recording the lines' pixels in `m`) and each
+/// feature's match windows into `windows` (kept because assignment and blend splitting both ask):
+/// what matching needs from a map, per frame or, in verify mode, once in `configure`.
+fn group_with_windows(
+    cfg: &Config,
+    catalogue: &[CatalogueLine],
+    priors: &[(Nucleus, u16)],
+    m: &mut MapInUse,
+    features: &mut Vec<Feature, MAX_FEATURES>,
+    windows: &mut Vec<(i32, i32), MAX_FEATURES>,
+) -> Result<(), MatchError> {
+    // Closer than 1.5 line widths, two lines may show as one peak (peak finding's own blend limit);
+    // a pair that does show as two is split again after matching.
+    let merge_q16 = ((cfg.line_fwhm_px_q8 as i32) << 8) * 3 / 2;
+    // Every line's pixel is found once, while grouping, for all the steps after it.
+    group_placing(catalogue, &m.map, priors, merge_q16, &mut m.lines, features)?;
+    windows.clear();
+    for f in features.iter() {
+        let _ = windows.push(windows_px_q16(cfg, catalogue, f, m));
+    }
+    Ok(())
+}
+
+/// Match windows of a feature (px, Q16): its line's (twice the allowed position error plus 3 σ
+/// of the map, ≥ 1 px), and the feature's (the line's plus the reach of a blend's members,
+/// whose centre moves with the unknown mix), from one evaluation of the map at its pixel.
+fn windows_px_q16(
+    cfg: &Config,
+    catalogue: &[CatalogueLine],
+    f: &Feature,
+    m: &MapInUse,
+) -> (i32, i32) {
+    let (_, slope, sigma) = m.at(f.predicted_px_q16);
+    let slope = slope.max(1) as i64;
+    let tol_fm = 2 * cfg.profile.max_line_error_fm as i64 + 3 * sigma as i64;
+    let base = (shl32_div(tol_fm, slope)).clamp(1 << 16, 64 << 16) as i32;
+    // The quotient grows with the distance: the farthest member's is the largest.
+    let far = f
+        .members
+        .iter()
+        .filter_map(|&i| catalogue.get(i as usize))
+        .map(|c| (c.wavelength_fm - f.predicted_fm).abs())
+        .max();
+    let reach = far.map_or(0, |v| shl32_div(v, slope));
+    (base, (base as i128 + reach).clamp(1 << 16, 64 << 16) as i32)
+}
+
 fn reference_lines(
     catalogue: &[CatalogueLine],
     priors: &[(Nucleus, u16)],
