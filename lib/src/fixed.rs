@@ -155,72 +155,49 @@ const fn mul_wide(a: u128, b: u128) -> (u128, u128) {
     (hi, lo)
 }
 
-/// Floor square root of a u128 (bit-by-bit, at most 64 steps; in u64 below 2^64, the same root).
+/// The bit-by-bit floor square root of `$x` in `$t`, from the highest bit pair that can be set (small
+/// arguments skip most steps): one body for the three widths below, each as fast as written out.
+macro_rules! bitwise_isqrt {
+    ($x:expr, $t:ty) => {{
+        let mut rem: $t = $x;
+        let mut root: $t = 0;
+        let mut bit: $t = 1 << (<$t>::BITS - 2);
+        while bit > rem {
+            bit >>= 2;
+        }
+        while bit > 0 {
+            if rem >= root + bit {
+                rem -= root + bit;
+                root = (root >> 1) + bit;
+            } else {
+                root >>= 1;
+            }
+            bit >>= 2;
+        }
+        root
+    }};
+}
+
+/// Floor square root of a u128 (at most 64 steps; in u64 below 2^64, the same root).
 pub const fn isqrt_u128(x: u128) -> u128 {
     if x >> 64 == 0 {
         return isqrt_u64(x as u64) as u128;
     }
-    let mut rem = x;
-    let mut root: u128 = 0;
-    let mut bit: u128 = 1 << 126;
-    // Start at the highest bit pair that can be set: small arguments skip most of the 64 steps.
-    while bit > rem {
-        bit >>= 2;
-    }
-    while bit > 0 {
-        if rem >= root + bit {
-            rem -= root + bit;
-            root = (root >> 1) + bit;
-        } else {
-            root >>= 1;
-        }
-        bit >>= 2;
-    }
-    root
+    bitwise_isqrt!(x, u128)
 }
 
-/// Floor square root of a u64 (bit-by-bit, at most 32 steps; in u32 below 2^32, the same root).
+/// Floor square root of a u64 (at most 32 steps; in u32 below 2^32, the same root).
 const fn isqrt_u64(x: u64) -> u64 {
     if x >> 32 == 0 {
         return isqrt_u32(x as u32) as u64;
     }
-    let mut rem = x;
-    let mut root: u64 = 0;
-    let mut bit: u64 = 1 << 62;
-    while bit > rem {
-        bit >>= 2;
-    }
-    while bit > 0 {
-        if rem >= root + bit {
-            rem -= root + bit;
-            root = (root >> 1) + bit;
-        } else {
-            root >>= 1;
-        }
-        bit >>= 2;
-    }
-    root
+    bitwise_isqrt!(x, u64)
 }
 
-/// Floor square root of a u32 (bit by bit, at most 16 steps: a 64-bit step is several instructions
-/// on a 32-bit core).
+/// Floor square root of a u32 (at most 16 steps: a 64-bit step is several instructions on a
+/// 32-bit core).
 const fn isqrt_u32(x: u32) -> u32 {
-    let mut rem = x;
-    let mut root: u32 = 0;
-    let mut bit: u32 = 1 << 30;
-    while bit > rem {
-        bit >>= 2;
-    }
-    while bit > 0 {
-        if rem >= root + bit {
-            rem -= root + bit;
-            root = (root >> 1) + bit;
-        } else {
-            root >>= 1;
-        }
-        bit >>= 2;
-    }
-    root
+    bitwise_isqrt!(x, u32)
 }
 
 /// Divides rounding to nearest (ties up); `None` for a zero divisor.
