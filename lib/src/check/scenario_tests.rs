@@ -96,16 +96,21 @@ fn run(cfg: Config, raw: &[u16]) -> Report {
     let checker = Checker::new(cfg).unwrap();
     let mut buf = std::boxed::Box::new(Buffers::<N>::new());
     let mut report = Report::new();
+    check_on(&checker, &mut buf, raw, &mut report);
+    report
+}
+
+/// One frame through `checker` on the given buffers, into `report` (overwritten).
+fn check_on(checker: &Checker, buf: &mut Buffers<N>, raw: &[u16], report: &mut Report) {
     checker
         .check(
             FrameSum::single(raw).unwrap(),
             None,
             None,
             buf.workspace(N),
-            &mut report,
+            report,
         )
         .unwrap();
-    report
 }
 
 #[test]
@@ -380,15 +385,7 @@ fn reused_buffers_give_the_fresh_report() {
         let mut buf = std::boxed::Box::new(Buffers::<N>::new());
         let mut report = Report::new();
         for raw in [&d, &h, &d, &h] {
-            checker
-                .check(
-                    FrameSum::single(raw).unwrap(),
-                    None,
-                    None,
-                    buf.workspace(N),
-                    &mut report,
-                )
-                .unwrap();
+            check_on(&checker, &mut buf, raw, &mut report);
         }
         assert_eq!(report, fresh, "{mode:?}");
     }
@@ -423,11 +420,8 @@ fn verify_grouping_made_once_gives_the_per_frame_report() {
         let mut buf = std::boxed::Box::new(Buffers::<N>::new());
         for raw in &frames {
             let (mut a, mut b) = (Report::new(), Report::new());
-            let signal = FrameSum::single(raw).unwrap();
-            once.check(signal, None, None, buf.workspace(N), &mut a)
-                .unwrap();
-            each.check(signal, None, None, buf.workspace(N), &mut b)
-                .unwrap();
+            check_on(&once, &mut buf, raw, &mut a);
+            check_on(&each, &mut buf, raw, &mut b);
             assert_eq!(a, b);
             assert!(!a.lines.is_empty());
         }
