@@ -6,7 +6,7 @@
 //! the hypothesis scores by how many other peaks then land on a predicted line (consensus). The
 //! best one seeds a least-squares fit, which is refined by re-matching with tighter windows.
 //!
-//! Work bound: at most C(6,2) peak pairs × C(20,2) line pairs × 2 orientations = 5 700 hypotheses
+//! Work bound: at most C(4,2) peak pairs × C(20,2) line pairs × 2 orientations = 2 280 hypotheses
 //! (with a nominal map only the line pairs within its offset and scale tolerance are tried), each
 //! scoring the ≤ 16 strongest peaks against ≤ 48 lines (one walk along the sorted
 //! lines, or a binary search each), stopping as soon as it cannot beat the best so far, and for those
@@ -23,10 +23,12 @@ use heapless::Vec;
 pub const MAX_REFERENCE_LINES: usize = 48;
 /// Strongest peaks used to form hypotheses: one pair of real lines among them fixes offset and
 /// scale, and a lamp's brightest few peaks are its own lines (foreign or noise peaks among them
-/// only add hypotheses that lose). Six give 15 pairs where twelve gave 66: the same results on the
-/// embedded frames and every `check_bar_` sweep of host-sim, and on the Cortex-M0 the calibrate-mode
-/// search of the hydrogen tube fell from about 0.9 M to 0.1 M instructions, the blind one 2.4 ×.
-const HYP_PEAKS: usize = 6;
+/// only add hypotheses that lose). Six gave 15 pairs where twelve gave 66 (the calibrate-mode
+/// search of the hydrogen tube on the Cortex-M0 fell from about 0.9 M to 0.1 M instructions); four
+/// give 6: the same digest of the embedded frames and every `check_bar_` sweep of host-sim passing,
+/// with the hydrogen tube's calibrate stage 368 k → 264 k instructions and its blind check
+/// 7.3 M → 4.2 M.
+const HYP_PEAKS: usize = 4;
 /// Strongest predicted lines used to form hypotheses.
 const HYP_LINES: usize = 20;
 /// Strongest peaks a hypothesis is scored on (refinement then matches every peak): all of a lamp's
@@ -134,7 +136,7 @@ struct Hypothesis {
 /// Identifies peaks against `lines` (sorted by wavelength) and fits the map.
 ///
 /// Peaks must be sorted by centre (as [`find_peaks`](crate::find::find_peaks) returns them).
-/// Work bound: ≤ 5 700 hypotheses (C(6,2) peak pairs × C(20,2) line pairs × 2), each scoring the
+/// Work bound: ≤ 2 280 hypotheses (C(4,2) peak pairs × C(20,2) line pairs × 2), each scoring the
 /// ≤ 16 strongest peaks against ≤ 48 lines and, while it can still win, ≤ 48 × 16 miss checks and
 /// ≤ 120 peak pairs for strength order; then ≤ 5 matching passes over ≤ 64 peaks and ≤ 5 map fits.
 /// Worst case about 5 × 10⁶ inner steps (see the module docs).

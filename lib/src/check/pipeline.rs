@@ -276,7 +276,7 @@ impl Checker {
     /// Work, for N pixels and the fixed capacities (64 peaks, 48 predicted lines, 40 features):
     /// conditioning and peak finding O(N) (see [`condition_frame`] and [`find_peaks`], whose fits share
     /// a budget of [`STEP_BUDGET`](crate::find::STEP_BUDGET) Gauss–Newton steps); the bounded search of
-    /// [`identify()`](crate::calibrate::identify()) (≤ 5 700 hypotheses, each scored on ≤ 16 peaks) at most once: in calibrate
+    /// [`identify()`](crate::calibrate::identify()) (≤ 2 280 hypotheses, each scored on ≤ 16 peaks) at most once: in calibrate
     /// modes for the map, in verify mode to test for a shifted scale when at least two more peaks
     /// were found than lines matched (or fewer lines matched than the profile needs); matching ≤ 40 features × 64 peaks and ≤ 64 × 40 × 4 member tests, with ≤ 338
     /// map inversions (≤ 12 Newton steps each); one isotope pair fit of ≤ 615 pair and ≤ 379
