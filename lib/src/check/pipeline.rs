@@ -39,6 +39,12 @@ pub struct Checker {
     placed: Placed,
     /// Whether `placed` holds them (verify mode, grouping succeeded).
     placed_valid: bool,
+    /// Per catalogue line, the first line with the same nucleus and transition (itself, on a
+    /// catalogue without repeats): [`same`] is equality of these. Made in `configure`.
+    same_as: [u8; MAX_CATALOGUE],
+    /// Per line of the pair's first nucleus, its first line of the second nucleus with the same
+    /// transition (`u8::MAX`: none); the isotope search asked this of the catalogue every frame.
+    partner: [u8; MAX_CATALOGUE],
 }
 
 /// Grouping's output on one map: see [`Checker::placed`](Checker).
@@ -107,6 +113,18 @@ impl MapInUse {
     /// [`sigma_fm`]: Self::sigma_fm
     fn at(&self, p_q16: i32) -> (Result<i64, CalibrateError>, u64, u64) {
         let x = self.map.x_q30_by(p_q16, &self.div);
+        let (slope, sigma) = self.slope_sigma_at_x(p_q16, x);
+        (self.map.wavelength_at_x(x), slope, sigma)
+    }
+
+    /// [`at`](Self::at) without the wavelength (match windows need only slope and σ): one Horner
+    /// evaluation fewer, the same integers.
+    fn slope_sigma(&self, p_q16: i32) -> (u64, u64) {
+        self.slope_sigma_at_x(p_q16, self.map.x_q30_by(p_q16, &self.div))
+    }
+
+    /// |slope| and σ of [`at`](Self::at) from the pixel and its x on `map`.
+    fn slope_sigma_at_x(&self, p_q16: i32, x: i64) -> (u64, u64) {
         let slope = self
             .map
             .slope_at_x_by(x, &self.div)
@@ -127,7 +145,7 @@ impl MapInUse {
             Some(f) => f.sigma_fm_at(p_q16),
             None => self.stored_sigma_fm as u64,
         };
-        (self.map.wavelength_at_x(x), slope, sigma)
+        (slope, sigma)
     }
 }
 
@@ -161,6 +179,8 @@ impl Checker {
                 windows: Vec::new(),
             },
             placed_valid: false,
+            same_as: [u8::MAX; MAX_CATALOGUE],
+            partner: [u8::MAX; MAX_CATALOGUE],
         }
     }
 
@@ -186,6 +206,8 @@ impl Checker {
         self.pair = None;
         self.refs.clear();
         self.placed_valid = false;
+        self.same_as = [u8::MAX; MAX_CATALOGUE];
+        self.partner = [u8::MAX; MAX_CATALOGUE];
     }
 
     /// The prediction behind [`configure`](Self::configure), on cleared tables. Out of line: one
@@ -221,6 +243,10 @@ impl Checker {
         let nuclei: Vec<Nucleus, MAX_NUCLEI> = collect_bounded(priors.iter().map(|p| p.0));
         build_into(&nuclei, lo, hi, &cfg.air, &mut self.catalogue)?;
         reference_lines(&self.catalogue, &self.priors, &mut self.refs);
+        self.same_as = same_classes(&self.catalogue);
+        if let Some((a, b)) = self.pair {
+            self.partner = partners(&self.catalogue, a, b);
+        }
         if self.cfg.mode == Mode::Verify {
             self.placed_valid = self.place_on_stored();
         }
@@ -526,7 +552,7 @@ impl Checker {
         (frame, base): (&[i32], &[i32]),
         readings: &mut Vec<BlendReading, MAX_READINGS>,
     ) -> Option<ShareEstimate> {
-        let (a, b) = self.pair?;
+        let (a, _) = self.pair?;
         // The instrument's configured line width: measured widths of this frame's lines are pulled
         // up by the very pairs being split. The pair fit refines it by ±8 %.
         let sigma = ((((self.cfg.line_fwhm_px_q8 as i64) << 8) << 16) / FWHM_PER_SIGMA_Q16) as i32;
@@ -536,30 +562,30 @@ impl Checker {
         // (strength, line a, line b, their catalogue indices)
         let mut best: Option<(u64, &CatalogueLine, &CatalogueLine, u8, u8)> = None;
         readings.clear();
+        // The first pair (by position) holding each line, by `same_as` class: what searching the
+        // pairs for a member `same` as a line finds, from one pass over the pairs.
+        let first = first_pairs(pairs, features, &self.same_as);
+        let first_of = |i: usize| {
+            self.same_as
+                .get(i)
+                .and_then(|&c| first.get(c as usize))
+                .copied()
+                .unwrap_or(u8::MAX)
+        };
         for (ia, la) in self
             .catalogue
             .iter()
             .enumerate()
             .filter(|(_, l)| l.nucleus == a)
         {
-            let Some((ib, lb)) = self
-                .catalogue
-                .iter()
-                .enumerate()
-                .find(|(_, l)| l.nucleus == b && l.lower == la.lower && l.upper == la.upper)
-            else {
+            let ib = self.partner.get(ia).copied().unwrap_or(u8::MAX) as usize;
+            let Some(lb) = self.catalogue.get(ib) else {
                 continue;
             };
-            let matched = pairs.iter().find(|p| {
-                features.get(p.feature as usize).is_some_and(|f| {
-                    f.members.iter().any(|&i| {
-                        self.catalogue
-                            .get(i as usize)
-                            .is_some_and(|c| same(c, la) || same(c, lb))
-                    })
-                })
-            });
-            let Some(pair) = matched else { continue };
+            let at = first_of(ia).min(first_of(ib));
+            let Some(pair) = pairs.get(at as usize) else {
+                continue;
+            };
             let strength = la.strength as u64;
             if best.is_none_or(|(s, ..)| strength > s) {
                 best = Some((strength, la, lb, ia as u8, ib as u8));
@@ -1095,7 +1121,7 @@ fn windows_px_q16(
     f: &Feature,
     m: &MapInUse,
 ) -> (i32, i32) {
-    let (_, slope, sigma) = m.at(f.predicted_px_q16);
+    let (slope, sigma) = m.slope_sigma(f.predicted_px_q16);
     let slope = slope.max(1) as i64;
     let tol_fm = 2 * cfg.profile.max_line_error_fm as i64 + 3 * sigma as i64;
     let base = (shl32_div(tol_fm, slope)).clamp(1 << 16, 64 << 16) as i32;
@@ -1178,6 +1204,58 @@ fn shl32_div(v: i64, d: i64) -> i128 {
     }
 }
 
+/// Per catalogue line, the index of the first line [`same`] as it (see [`Checker`]'s `same_as`).
+fn same_classes(catalogue: &[CatalogueLine]) -> [u8; MAX_CATALOGUE] {
+    let mut out = [u8::MAX; MAX_CATALOGUE];
+    for (i, (slot, line)) in out.iter_mut().zip(catalogue).enumerate() {
+        let first = catalogue.iter().take(i).position(|c| same(c, line));
+        *slot = first.unwrap_or(i) as u8;
+    }
+    out
+}
+
+/// Per line of nucleus `a`, the first line of nucleus `b` with its transition (`u8::MAX`: none).
+fn partners(catalogue: &[CatalogueLine], a: Nucleus, b: Nucleus) -> [u8; MAX_CATALOGUE] {
+    let mut out = [u8::MAX; MAX_CATALOGUE];
+    for (slot, la) in out
+        .iter_mut()
+        .zip(catalogue)
+        .filter(|(_, l)| l.nucleus == a)
+    {
+        let found = catalogue
+            .iter()
+            .position(|l| l.nucleus == b && l.lower == la.lower && l.upper == la.upper);
+        if let Some(ib) = found {
+            *slot = ib as u8;
+        }
+    }
+    out
+}
+
+/// Per `same_as` class, the position in `pairs` of the first pair whose feature has a member of
+/// that class (`u8::MAX`: none): the pair `pairs.iter().find` would give for a line of the class.
+fn first_pairs(
+    pairs: &[Pair],
+    features: &[Feature],
+    same_as: &[u8; MAX_CATALOGUE],
+) -> [u8; MAX_CATALOGUE] {
+    let mut out = [u8::MAX; MAX_CATALOGUE];
+    for (k, p) in pairs.iter().enumerate() {
+        let Some(f) = features.get(p.feature as usize) else {
+            continue;
+        };
+        for &m in f.members.iter() {
+            let class = same_as.get(m as usize).copied().unwrap_or(u8::MAX);
+            if let Some(slot) = out.get_mut(class as usize) {
+                if *slot == u8::MAX {
+                    *slot = k as u8;
+                }
+            }
+        }
+    }
+    out
+}
+
 fn same(a: &CatalogueLine, b: &CatalogueLine) -> bool {
     a.nucleus == b.nucleus && a.lower == b.lower && a.upper == b.upper
 }
@@ -1232,3 +1310,86 @@ fn drift_fm(fitted: &WavelengthMap, stored: &WavelengthMap, pixels: u16) -> Opti
 
 const _: () = assert!(MAX_FEATURES <= 64);
 const _: () = assert!(MAX_CATALOGUE <= 64);
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// A catalogue with repeats of (nucleus, transition), from a seed.
+    fn catalogue(next: &mut impl FnMut() -> u64) -> std::vec::Vec<CatalogueLine> {
+        let nuclei = [Nucleus::H1, Nucleus::H2, Nucleus::He4];
+        (0..(next() % (MAX_CATALOGUE as u64 + 1)))
+            .map(|_| CatalogueLine {
+                nucleus: nuclei[(next() % 3) as usize],
+                lower: 2 + (next() % 2) as u8,
+                upper: 3 + (next() % 5) as u8,
+                wavelength_fm: (next() % 1_000_000) as i64,
+                strength: 1,
+            })
+            .collect()
+    }
+
+    #[test]
+    fn precomputed_classes_partners_and_first_pairs_are_the_searches() {
+        let mut next = crate::test_rng::xorshift(0x1503_70fe_a7c0_9d11u64);
+        for _ in 0..3_000 {
+            let cat = catalogue(&mut next);
+            let same_as = same_classes(&cat);
+            for (i, li) in cat.iter().enumerate() {
+                for (j, lj) in cat.iter().enumerate() {
+                    assert_eq!(same_as[i] == same_as[j], same(li, lj), "{i} {j}");
+                }
+            }
+            assert!(same_as.iter().skip(cat.len()).all(|&c| c == u8::MAX));
+            let (a, b) = (Nucleus::H1, Nucleus::H2);
+            let partner = partners(&cat, a, b);
+            for (ia, la) in cat.iter().enumerate() {
+                let want = (la.nucleus == a)
+                    .then(|| {
+                        cat.iter().enumerate().find(|(_, l)| {
+                            l.nucleus == b && l.lower == la.lower && l.upper == la.upper
+                        })
+                    })
+                    .flatten()
+                    .map_or(u8::MAX, |(ib, _)| ib as u8);
+                assert_eq!(partner[ia], want);
+            }
+            // Features with members anywhere (some past the catalogue), pairs in any order.
+            let mut features: Vec<Feature, MAX_FEATURES> = Vec::new();
+            for _ in 0..(next() % 12) {
+                let mut members = Vec::new();
+                for _ in 0..(1 + next() % 4) {
+                    let _ = members.push((next() % (cat.len() as u64 + 3)) as u8);
+                }
+                let _ = features.push(Feature {
+                    members,
+                    primary: 0,
+                    predicted_fm: 0,
+                    predicted_px_q16: 0,
+                    expected: 0,
+                });
+            }
+            let pairs: std::vec::Vec<Pair> = (0..(next() % 40))
+                .map(|_| Pair {
+                    feature: (next() % (features.len() as u64 + 2)) as u8,
+                    peak: 0,
+                })
+                .collect();
+            let first = first_pairs(&pairs, &features, &same_as);
+            for (ia, la) in cat.iter().enumerate() {
+                for (ib, lb) in cat.iter().enumerate() {
+                    let want = pairs.iter().position(|p| {
+                        features.get(p.feature as usize).is_some_and(|f| {
+                            f.members.iter().any(|&i| {
+                                cat.get(i as usize)
+                                    .is_some_and(|c| same(c, la) || same(c, lb))
+                            })
+                        })
+                    });
+                    let got = first[same_as[ia] as usize].min(first[same_as[ib] as usize]);
+                    assert_eq!(want.map_or(u8::MAX, |k| k as u8), got, "{ia} {ib}");
+                }
+            }
+        }
+    }
+}
