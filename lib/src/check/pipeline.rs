@@ -45,6 +45,8 @@ pub struct Checker {
     /// Per line of the pair's first nucleus, its first line of the second nucleus with the same
     /// transition (`u8::MAX`: none); the isotope search asked this of the catalogue every frame.
     partner: [u8; MAX_CATALOGUE],
+    /// The stored map's x and wavelength at the drift points (see [`DriftPoints`]), made once.
+    drift_points: DriftPoints,
 }
 
 /// Grouping's output on one map: see [`Checker::placed`](Checker).
@@ -181,6 +183,7 @@ impl Checker {
             placed_valid: false,
             same_as: [u8::MAX; MAX_CATALOGUE],
             partner: [u8::MAX; MAX_CATALOGUE],
+            drift_points: DriftPoints::NONE,
         }
     }
 
@@ -208,6 +211,7 @@ impl Checker {
         self.placed_valid = false;
         self.same_as = [u8::MAX; MAX_CATALOGUE];
         self.partner = [u8::MAX; MAX_CATALOGUE];
+        self.drift_points = DriftPoints::NONE;
     }
 
     /// The prediction behind [`configure`](Self::configure), on cleared tables. Out of line: one
@@ -244,6 +248,7 @@ impl Checker {
         build_into(&nuclei, lo, hi, &cfg.air, &mut self.catalogue)?;
         reference_lines(&self.catalogue, &self.priors, &mut self.refs);
         self.same_as = same_classes(&self.catalogue);
+        self.drift_points = DriftPoints::new(&self.cfg.stored.map, self.cfg.pixels);
         if let Some((a, b)) = self.pair {
             self.partner = partners(&self.catalogue, a, b);
         }
@@ -507,7 +512,9 @@ impl Checker {
         match identify_with(peaks, refs, &icfg, work) {
             Ok(id) => {
                 report.fit_rms_fm = Some(id.fit.rms_residual_fm);
-                report.drift_fm = drift_fm(&id.fit.map, &cfg.stored.map, cfg.pixels);
+                report.drift_fm =
+                    self.drift_points
+                        .drift_fm(&id.fit.map, &cfg.stored.map, cfg.pixels);
                 slot.set(id.fit.map, Some(&id.fit), stored_sigma_fm);
                 true
             }
@@ -912,7 +919,10 @@ impl Checker {
         if id.pairs.len() < matched + 2 && !(rescue && id.pairs.len() >= 3) {
             return false;
         }
-        let Some(drift) = drift_fm(&id.fit.map, &cfg.stored.map, cfg.pixels) else {
+        let Some(drift) = self
+            .drift_points
+            .drift_fm(&id.fit.map, &cfg.stored.map, cfg.pixels)
+        else {
             return false;
         };
         if drift.unsigned_abs() > cfg.profile.max_line_error_fm as u64 {
@@ -1281,6 +1291,63 @@ fn sensor_range(cfg: &Config) -> Result<(i64, i64), CheckError> {
     Ok((lo - margin, hi + margin))
 }
 
+/// Pixel of drift point `i` (0 … 16) of a sensor whose last pixel (Q16) is `last`.
+fn drift_pixel(last: i64, i: i64) -> i32 {
+    // last < 2^32 (pixels ≤ 65 535): last · i / 16 by a shift, the same floor for p ≥ 0.
+    ((last * i) >> 4) as i32
+}
+
+/// The stored map's side of [`drift_fm`], once per configuration: each drift point's x and the
+/// stored wavelength there. x depends only on the pixel and the map's frame (centre, half-width),
+/// so for a fitted map on the stored map's frame (every fit: both are the sensor's standard frame)
+/// the drift needs only the fitted map's evaluation at each x, 17 divisions and 17 Horner
+/// evaluations fewer per check, the same integers.
+struct DriftPoints {
+    /// (frame centre, half-width) and per point (x Q30, stored λ fm), when every point evaluates.
+    points: Option<((i32, i32), [(i64, i64); 17])>,
+}
+
+impl DriftPoints {
+    const NONE: DriftPoints = DriftPoints { points: None };
+
+    fn new(stored: &WavelengthMap, pixels: u16) -> DriftPoints {
+        let last = ((pixels as i64) - 1) << 16;
+        let hw = HalfWidth::forward(stored);
+        let mut out = [(0i64, 0i64); 17];
+        for (i, slot) in (0..=16i64).zip(out.iter_mut()) {
+            let x = stored.x_q30_by(drift_pixel(last, i), &hw);
+            let Ok(lam) = stored.wavelength_at_x(x) else {
+                return DriftPoints::NONE;
+            };
+            *slot = (x, lam);
+        }
+        let frame = (stored.center_px_q16, stored.half_width_px_q16);
+        DriftPoints {
+            points: Some((frame, out)),
+        }
+    }
+
+    /// [`drift_fm`]`(fitted, stored, pixels)`, from the points where they were made for `stored`'s
+    /// frame and `fitted` shares it.
+    fn drift_fm(&self, fitted: &WavelengthMap, stored: &WavelengthMap, pixels: u16) -> Option<i64> {
+        let frame = (fitted.center_px_q16, fitted.half_width_px_q16);
+        let Some((made, points)) = &self.points else {
+            return drift_fm(fitted, stored, pixels);
+        };
+        if *made != frame || (stored.center_px_q16, stored.half_width_px_q16) != frame {
+            return drift_fm(fitted, stored, pixels);
+        }
+        let mut worst: Option<i64> = None;
+        for &(x, lam_stored) in points.iter() {
+            let d = fitted.wavelength_at_x(x).ok()? - lam_stored;
+            if worst.is_none_or(|w| d.abs() > w.abs()) {
+                worst = Some(d);
+            }
+        }
+        worst
+    }
+}
+
 /// Largest (fitted − stored) difference at 17 points across the sensor, femtometres, with sign.
 ///
 /// Maps on one frame (centre and half-width; a fit and a stored map of the same sensor) share each
@@ -1293,8 +1360,7 @@ fn drift_fm(fitted: &WavelengthMap, stored: &WavelengthMap, pixels: u16) -> Opti
         && fitted.half_width_px_q16 == stored.half_width_px_q16;
     let hw = HalfWidth::forward(fitted);
     for i in 0..=16i64 {
-        // last < 2^32 (pixels ≤ 65 535): last · i / 16 by a shift, the same floor for p ≥ 0.
-        let p = ((last * i) >> 4) as i32;
+        let p = drift_pixel(last, i);
         let d = if same_frame {
             let x = fitted.x_q30_by(p, &hw);
             fitted.wavelength_at_x(x).ok()? - stored.wavelength_at_x(x).ok()?
@@ -1391,5 +1457,48 @@ mod tests {
                 }
             }
         }
+    }
+
+    #[test]
+    fn drift_from_stored_points_is_the_drift_of_both_maps() {
+        let mut next = crate::test_rng::xorshift(0x2d1f_7e3a_44c0_b905u64);
+        let mut compared = 0;
+        for round in 0..3_000 {
+            let pixels = [16u16, 2048, 4096, 65_535][round % 4];
+            let spread = |next: &mut dyn FnMut() -> u64, top: u64| {
+                (next() % (2 * top + 1)) as i64 - top as i64
+            };
+            let coeff = |n: &mut dyn FnMut() -> u64| {
+                [
+                    400_000_000 + spread(n, 50_000_000),
+                    100_000_000 + spread(n, 90_000_000),
+                    spread(n, 8_000_000),
+                    spread(n, 1_000_000),
+                ]
+            };
+            let degree = 1 + (next() % 3) as u8;
+            let Ok(stored) = WavelengthMap::new(pixels, degree, coeff(&mut next)) else {
+                continue;
+            };
+            let fitted = if round % 5 == 0 {
+                // Another frame: the general path.
+                let half = stored.half_width_px_q16 + 1 + (next() % 1000) as i32;
+                WavelengthMap::with_frame(half, half, 2, coeff(&mut next), pixels)
+            } else {
+                WavelengthMap::new(pixels, 1 + (next() % 3) as u8, coeff(&mut next))
+            };
+            let Ok(fitted) = fitted else {
+                continue;
+            };
+            let points = DriftPoints::new(&stored, pixels);
+            assert_eq!(
+                points.drift_fm(&fitted, &stored, pixels),
+                drift_fm(&fitted, &stored, pixels)
+            );
+            compared += 1;
+        }
+        assert!(compared > 1_000, "{compared}");
+        let m = WavelengthMap::new(2048, 2, [500_000_000, 150_000_000, -5_000_000, 0]).unwrap();
+        assert!(DriftPoints::new(&m, 2048).points.is_some());
     }
 }
