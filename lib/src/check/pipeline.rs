@@ -1304,8 +1304,11 @@ fn drift_pixel(last: i64, i: i64) -> i32 {
 /// evaluations fewer per check, the same integers.
 struct DriftPoints {
     /// (frame centre, half-width) and per point (x Q30, stored λ fm), when every point evaluates.
-    points: Option<((i32, i32), [(i64, i64); 17])>,
+    points: Option<((i32, i32), PointTable)>,
 }
+
+/// Per drift point (x Q30, stored λ fm).
+type PointTable = [(i64, i64); 17];
 
 impl DriftPoints {
     const NONE: DriftPoints = DriftPoints { points: None };
