@@ -238,11 +238,38 @@ pub fn fit_map(points: &[FitPoint], degree: u8, pixels: u16) -> Result<MapFit, C
     Ok(fit)
 }
 
+/// The frame (centre, half-width) every fitted map of a `pixels`-pixel sensor has: x = ±1 at its
+/// ends. Coefficients zero, degree 1: for x only.
+pub(crate) fn standard_frame(pixels: u16) -> WavelengthMap {
+    let half = ((pixels.max(2) as i32 - 1) << 16) / 2;
+    WavelengthMap {
+        center_px_q16: half,
+        half_width_px_q16: half,
+        degree: 1,
+        coeff_fm: [0; 4],
+    }
+}
+
 /// [`fit_map`] written into `out` (its content is unspecified after an error), with the normal
 /// equations in `m` (576 B, overwritten): both in the caller's memory, not on a small core's stack.
 /// Work: as [`fit_map`].
 pub(crate) fn fit_map_into(
     points: &[FitPoint],
+    degree: u8,
+    pixels: u16,
+    out: &mut MapFit,
+    m: &mut [[i128; 9]; 4],
+) -> Result<(), CalibrateError> {
+    fit_map_at(points, None, degree, pixels, out, m)
+}
+
+/// [`fit_map_into`] with each point's x already known: `xs[k]` is `points[k]`'s x on
+/// [`standard_frame`]`(pixels)` (as [`WavelengthMap::x_q30`] gives it there), so neither the normal
+/// sums nor the residuals divide by the half-width again; the same fit. A slice of another length
+/// is not used.
+pub(crate) fn fit_map_at(
+    points: &[FitPoint],
+    xs: Option<&[i64]>,
     degree: u8,
     pixels: u16,
     out: &mut MapFit,
@@ -255,13 +282,11 @@ pub(crate) fn fit_map_into(
         return Err(CalibrateError::TooManyPoints);
     }
     let d = degree as usize + 1;
-    let half = ((pixels.max(2) as i32 - 1) << 16) / 2;
     let frame = WavelengthMap {
-        center_px_q16: half,
-        half_width_px_q16: half,
         degree,
-        coeff_fm: [0; 4],
+        ..standard_frame(pixels)
     };
+    let half = frame.center_px_q16;
     // Relative weights (σ_min / σ)² in Q30.
     let sigma_min = points
         .iter()
@@ -271,9 +296,14 @@ pub(crate) fn fit_map_into(
     *m = [[0; 9]; 4];
     // The frame's (and the fitted map's) half-width divides every point's x: its reciprocal once.
     let hw = HalfWidth::forward(&frame);
+    let xs = xs.filter(|v| v.len() == points.len());
+    let x_of = |k: usize, pt: &FitPoint| match xs.and_then(|v| v.get(k)) {
+        Some(&x) => x,
+        None => frame.x_q30_by(pt.center_px_q16, &hw),
+    };
     // Each point's residual weight (Q20), found with its fit weight (Q30) from one division.
     let mut weights_q20: heapless::Vec<Option<u32>, MAX_FIT_POINTS> = heapless::Vec::new();
-    for pt in points {
+    for (k, pt) in points.iter().enumerate() {
         let s = pt.sigma_px_q16.max(1) as i128;
         let w = match both_weights(sigma_min as u64, s as u64) {
             Some((w30, w20)) => {
@@ -286,7 +316,7 @@ pub(crate) fn fit_map_into(
                     .ok_or(CalibrateError::Overflow)?
             }
         };
-        let x = frame.x_q30_by(pt.center_px_q16, &hw);
+        let x = x_of(k, pt);
         if x.unsigned_abs() <= 1 << 30 && (0..=1 << 30).contains(&w) {
             accumulate_narrow(m, d, w as i64, x, pt.wavelength_fm);
         } else {
@@ -331,7 +361,10 @@ pub(crate) fn fit_map_into(
     for (k, pt) in points.iter().enumerate() {
         // λ and slope share the pixel's x. (The weight below cannot fail: σ_min ≤ σ, so the first
         // error is the map's either way.)
-        let (lam, slope) = map.wavelength_and_slope_by(pt.center_px_q16, &hw)?;
+        // map shares the frame: x is the pixel's x on it (wavelength_and_slope_by's own steps).
+        let x = x_of(k, pt);
+        let lam = map.wavelength_at_x(x)?;
+        let slope = map.slope_at_x_by(x, &hw)?;
         let r = (lam - pt.wavelength_fm) as i128;
         let s = pt.sigma_px_q16.max(1) as i128;
         let w = match weights_q20.get(k).copied().flatten() {
@@ -784,5 +817,42 @@ mod tests {
             }
             assert_eq!(a, b);
         }
+    }
+
+    #[test]
+    fn fit_with_known_x_is_the_fit() {
+        let mut next = crate::test_rng::xorshift(0x6a09_e667_f3bc_c908u64);
+        let mut fitted = 0;
+        for round in 0..600 {
+            let pixels = [16u16, 2048, 4096][round % 3];
+            let n = 2 + (next() % 20) as usize;
+            let pts: std::vec::Vec<FitPoint> = (0..n)
+                .map(|_| {
+                    // Some beyond the sensor's ends (|x| > 1), some wide σ.
+                    let p = (next() % (pixels as u64 * 3 / 2)) as i64 - pixels as i64 / 8;
+                    FitPoint {
+                        center_px_q16: ((p << 16) + (next() % 65_536) as i64) as i32,
+                        sigma_px_q16: (64 + next() % 20_000) as u32 >> (next() % 3),
+                        wavelength_fm: truth(p) + (next() % 20_001) as i64 - 10_000,
+                    }
+                })
+                .collect();
+            let frame = standard_frame(pixels);
+            let xs: std::vec::Vec<i64> = pts.iter().map(|p| frame.x_q30(p.center_px_q16)).collect();
+            let degree = 1 + (next() % 3) as u8;
+            let (mut a, mut b) = (MapFit::ZERO, MapFit::ZERO);
+            let mut m = [[0i128; 9]; 4];
+            let plain = fit_map_into(&pts, degree, pixels, &mut a, &mut m);
+            let known = fit_map_at(&pts, Some(&xs), degree, pixels, &mut b, &mut m);
+            assert_eq!(plain, known);
+            if plain.is_ok() {
+                assert_eq!(a, b);
+                fitted += 1;
+            }
+            // A slice of another length is ignored.
+            let short = fit_map_at(&pts, Some(&xs[1..]), degree, pixels, &mut b, &mut m);
+            assert_eq!(plain, short);
+        }
+        assert!(fitted > 300, "{fitted}");
     }
 }

@@ -14,7 +14,7 @@
 //! matched pairs for the strength-order tie-breaker; then a first match and ≤ 4 refit rounds over all
 //! ≤ 64 peaks (≤ 5 map fits).
 use super::error::CalibrateError;
-use super::fit::{fit_map_into, FitPoint, MapFit};
+use super::fit::{fit_map_at, standard_frame, FitPoint, MapFit};
 use super::map::{HalfWidth, WavelengthMap};
 use crate::find::Peak;
 use heapless::Vec;
@@ -148,8 +148,8 @@ pub fn identify(
     identify_with(peaks, lines, cfg, &mut IdentifyWork::new()).cloned()
 }
 
-/// What identification keeps while it runs (the per-peak axis, 1 KiB; the map fit's points and
-/// normal equations, 1.4 KiB) and its result (0.4 KiB), owned by the caller so a small core's stack need not hold them;
+/// What identification keeps while it runs (the per-peak axis, 1.5 KiB; the map fit's points with their x and
+/// normal equations, 1.8 KiB) and its result (0.4 KiB), owned by the caller so a small core's stack need not hold them;
 /// nothing carries over between calls.
 pub struct IdentifyWork {
     axis: Axis,
@@ -157,9 +157,11 @@ pub struct IdentifyWork {
     found: Identified,
 }
 
-/// A map fit's inputs and its normal equations (0.8 + 0.6 KiB).
+/// A map fit's inputs (with each point's x on the fit's frame) and its normal equations
+/// (0.8 + 0.4 + 0.6 KiB).
 struct FitRoom {
     points: Vec<FitPoint, MAX_REFERENCE_LINES>,
+    xs: Vec<i64, MAX_REFERENCE_LINES>,
     normal: [[i128; 9]; 4],
 }
 
@@ -170,6 +172,7 @@ impl IdentifyWork {
             axis: Axis::EMPTY,
             room: FitRoom {
                 points: Vec::new(),
+                xs: Vec::new(),
                 normal: [[0; 9]; 4],
             },
             found: Identified {
@@ -177,6 +180,15 @@ impl IdentifyWork {
                 pairs: Vec::new(),
             },
         }
+    }
+}
+
+impl IdentifyWork {
+    /// Each peak's x (Q30) on the fit frame (centre, half-width: every fitted map's), as
+    /// [`WavelengthMap::x_q30`] gives it there, by peak index, for the last call's peaks (empty
+    /// before any): a caller evaluating the fitted map at those peaks need not divide again.
+    pub(crate) fn peak_x_q30(&self) -> &[i64] {
+        &self.axis.x
     }
 }
 
@@ -358,6 +370,8 @@ struct Axis {
     u: Vec<i64, 64>,
     /// du/dp per peak: the nominal map's slope (fm per px) or 65 536 (blind: u is the pixel in Q16).
     du_dp: Vec<i64, 64>,
+    /// x (Q30) per peak on the fit's frame ([`standard_frame`]), for the fits and refinement.
+    x: Vec<i64, 64>,
     /// Largest |b| (Q30) for which b · u stays within `i64` for every peak.
     b_max_u: u64,
     /// Largest |b| (Q30) for which b · du/dp stays within `i64` for every peak.
@@ -374,6 +388,7 @@ impl Axis {
     const EMPTY: Axis = Axis {
         u: Vec::new(),
         du_dp: Vec::new(),
+        x: Vec::new(),
         b_max_u: 0,
         b_max_du: 0,
         uniform_du: false,
@@ -381,22 +396,36 @@ impl Axis {
         lines_sorted: false,
     };
 
-    /// The axis of `peaks`, written over `self` (in place: 1 KiB).
+    /// The axis of `peaks`, written over `self` (in place: 1.5 KiB).
     fn fill(
         &mut self,
         peaks: &[Peak],
         lines: &[ReferenceLine],
         cfg: &IdentifyConfig,
     ) -> Result<(), CalibrateError> {
-        let Axis { u, du_dp, .. } = self;
+        let Axis { u, du_dp, x, .. } = self;
         u.clear();
         du_dp.clear();
+        x.clear();
         let hw = cfg.nominal.as_ref().map(HalfWidth::forward);
+        let fit_frame = standard_frame(cfg.pixels);
+        let fit_hw = HalfWidth::forward(&fit_frame);
+        // A nominal map on the fit's frame (as every stored map made by `WavelengthMap::new`) gives
+        // each peak the same x: the same centre and the same half-width divide the same pixel.
+        let shared = cfg.nominal.as_ref().is_some_and(|m| {
+            (m.center_px_q16, m.half_width_px_q16)
+                == (fit_frame.center_px_q16, fit_frame.half_width_px_q16)
+        });
         for p in peaks {
+            let x_fit = fit_frame.x_q30_by(p.center_px_q16, &fit_hw);
             let (v, d) = match (&cfg.nominal, &hw) {
                 (Some(m), Some(hw)) => {
                     // wavelength_fm and slope_fm_per_px_q16 of the same pixel, sharing its x.
-                    let x = m.x_q30_by(p.center_px_q16, hw);
+                    let x = if shared {
+                        x_fit
+                    } else {
+                        m.x_q30_by(p.center_px_q16, hw)
+                    };
                     (
                         m.wavelength_at_x(x)?,
                         m.slope_at_x_by(x, hw).unwrap_or(0) >> 16,
@@ -406,6 +435,7 @@ impl Axis {
             };
             u.push(v).map_err(|_| CalibrateError::TooManyPoints)?;
             du_dp.push(d).map_err(|_| CalibrateError::TooManyPoints)?;
+            x.push(x_fit).map_err(|_| CalibrateError::TooManyPoints)?;
         }
         let limit = |vals: &[i64]| {
             let top = vals
@@ -866,12 +896,24 @@ fn refine(
             push_unique(pairs, k as u8, idx as u8, peaks)?;
         }
     }
-    fit_pairs(pairs, peaks, lines, cfg, room, fit)?;
+    fit_pairs(pairs, peaks, axis, lines, cfg, room, fit)?;
     for round in 0..4 {
         let mut next: Vec<(u8, u8), 48> = Vec::new();
         let hw = HalfWidth::forward(&fit.map);
+        // Every fit is on the fit frame, where the axis holds each peak's x already.
+        let on_frame = {
+            let f = standard_frame(cfg.pixels);
+            (fit.map.center_px_q16, fit.map.half_width_px_q16)
+                == (f.center_px_q16, f.half_width_px_q16)
+        };
         for (k, p) in peaks.iter().enumerate() {
-            let (lam, slope) = fit.map.wavelength_and_slope_by(p.center_px_q16, &hw)?;
+            let (lam, slope) = match axis.x.get(k) {
+                // wavelength_and_slope_by's steps from its x.
+                Some(&x) if on_frame => {
+                    (fit.map.wavelength_at_x(x)?, fit.map.slope_at_x_by(x, &hw)?)
+                }
+                _ => fit.map.wavelength_and_slope_by(p.center_px_q16, &hw)?,
+            };
             let disp = slope.abs() >> 16;
             let sigma_win = (p.center_sigma_px_q16 as i64 * cfg.final_window_sigma_q8 as i64) >> 16;
             // Windows shrink from the search width towards the final one over the rounds.
@@ -887,7 +929,7 @@ fn refine(
         if next.len() < 3 || next == *pairs {
             break;
         }
-        fit_pairs(&next, peaks, lines, cfg, room, fit)?;
+        fit_pairs(&next, peaks, axis, lines, cfg, room, fit)?;
         *pairs = next;
     }
     Ok(())
@@ -916,6 +958,7 @@ fn push_unique(
 fn fit_pairs(
     pairs: &[(u8, u8)],
     peaks: &[Peak],
+    axis: &Axis,
     lines: &[ReferenceLine],
     cfg: &IdentifyConfig,
     room: &mut FitRoom,
@@ -923,9 +966,11 @@ fn fit_pairs(
 ) -> Result<(), CalibrateError> {
     let FitRoom {
         points: pts,
+        xs,
         normal,
     } = room;
     pts.clear();
+    xs.clear();
     for &(k, l) in pairs {
         let (Some(p), Some(line)) = (peaks.get(k as usize), lines.get(l as usize)) else {
             continue;
@@ -941,10 +986,15 @@ fn fit_pairs(
             wavelength_fm: line.wavelength_fm,
         })
         .map_err(|_| CalibrateError::TooManyPoints)?;
+        // The axis' x is the fit frame's (a peak without one leaves `xs` short: not used).
+        if let Some(&x) = axis.x.get(k as usize) {
+            let _ = xs.push(x);
+        }
     }
     // Fewer points than a full fit wants: drop the degree until the points just determine it.
     let max_deg = (pts.len() as i32 - 1).clamp(1, 3) as u8;
-    fit_map_into(pts, cfg.degree.min(max_deg), cfg.pixels, out, normal)
+    let degree = cfg.degree.min(max_deg);
+    fit_map_at(pts, Some(xs), degree, cfg.pixels, out, normal)
 }
 
 #[cfg(test)]
@@ -1129,5 +1179,34 @@ mod tests {
         let top = (1 << 23) - 1;
         assert_eq!(ratio_q8(top, top), 256);
         assert_eq!(ratio_q8(top - 1, top), ((top - 1) << 8) / top);
+    }
+
+    #[test]
+    fn axis_x_and_u_are_the_maps_own() {
+        let lines = balmer();
+        let peaks = frame(&lines, &[0, 1, 2, 3, 4, 5, 6], &[]);
+        // The nominal on the fit frame (shared x) and on another frame (its own x).
+        let other = WavelengthMap::with_frame(
+            900 << 16,
+            1100 << 16,
+            2,
+            [500_000_000, 180_000_000, -2_000_000, 0],
+            2048,
+        )
+        .unwrap();
+        for nominal in [Some(truth()), Some(other), None] {
+            let cfg = IdentifyConfig::new(2048, 2, nominal);
+            let mut axis = Axis::EMPTY;
+            axis.fill(&peaks, &lines, &cfg).unwrap();
+            let fit_frame = standard_frame(2048);
+            for (k, p) in peaks.iter().enumerate() {
+                assert_eq!(axis.x[k], fit_frame.x_q30(p.center_px_q16));
+                let u = match &nominal {
+                    Some(m) => m.wavelength_fm(p.center_px_q16).unwrap(),
+                    None => p.center_px_q16 as i64,
+                };
+                assert_eq!(axis.u[k], u);
+            }
+        }
     }
 }

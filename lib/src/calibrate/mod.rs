@@ -10,8 +10,8 @@ mod map;
 mod muldiv;
 
 pub use error::CalibrateError;
-pub(crate) use fit::SigmaPoly;
 pub use fit::{fit_map, FitPoint, MapFit, MAX_FIT_POINTS};
+pub(crate) use fit::{standard_frame, SigmaPoly};
 pub use identify::{
     identify, identify_with, Identified, IdentifyConfig, IdentifyWork, ReferenceLine,
     MAX_REFERENCE_LINES,

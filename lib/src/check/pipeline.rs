@@ -67,6 +67,9 @@ pub(super) struct MapInUse {
     div: HalfWidth,
     /// The fit's σ as a polynomial in x (when it is the fit's own map), taken once per check.
     sigma_poly: Option<crate::calibrate::SigmaPoly>,
+    /// Each peak's x (Q30) on `map`, by peak index, where identification worked them out for this
+    /// check's peaks on `map`'s frame (else empty: worked out where needed).
+    peak_x: Vec<i64, 64>,
 }
 
 impl MapInUse {
@@ -79,9 +82,10 @@ impl MapInUse {
         lines: LinePixels::new(),
         div: HalfWidth::ZERO,
         sigma_poly: None,
+        peak_x: Vec::new(),
     };
 
-    /// Takes `map` (and its fit) for this check, in place: the ≈ 700-byte value is never built on
+    /// Takes `map` (and its fit) for this check, in place: the ≈ 1.2 KiB value is never built on
     /// the stack and copied.
     fn set(
         &mut self,
@@ -99,6 +103,26 @@ impl MapInUse {
         self.fit = fit.copied();
         self.stored_sigma_fm = stored_sigma_fm;
         self.lines = LinePixels::new();
+        self.peak_x.clear();
+    }
+
+    /// Takes the peaks' x from identification (`xs`, on the frame of `pixels`' fitted maps) when
+    /// `map` is on that frame and there is one per peak.
+    fn take_peak_x(&mut self, xs: &[i64], pixels: u16, peaks: usize) {
+        self.peak_x.clear();
+        let f = crate::calibrate::standard_frame(pixels);
+        let frame = (self.map.center_px_q16, self.map.half_width_px_q16);
+        if frame == (f.center_px_q16, f.half_width_px_q16) && xs.len() == peaks {
+            let _ = self.peak_x.extend_from_slice(xs);
+        }
+    }
+
+    /// Peak `k`'s x on `map` (the recorded one, else divided now: the same integer).
+    fn x_of_peak(&self, k: usize, pk: &Peak) -> i64 {
+        match self.peak_x.get(k) {
+            Some(&x) => x,
+            None => self.map.x_q30_by(pk.center_px_q16, &self.div),
+        }
     }
 
     fn sigma_fm(&self, p_q16: i32) -> u64 {
@@ -108,24 +132,23 @@ impl MapInUse {
         }
     }
 
-    /// (λ, |dλ/dp| (0 where the map cannot say), map σ) at one pixel, as
-    /// [`WavelengthMap::wavelength_fm`], [`WavelengthMap::slope_fm_per_px_q16`] and [`sigma_fm`]
-    /// give them, from one normalised x (one division instead of three).
+    /// (λ, |dλ/dp| (0 where the map cannot say), map σ) at one pixel `p_q16` whose x on `map` is
+    /// `x`, as [`WavelengthMap::wavelength_fm`], [`WavelengthMap::slope_fm_per_px_q16`] and
+    /// [`sigma_fm`] give them (one division, or none where x is known, instead of three).
     ///
     /// [`sigma_fm`]: Self::sigma_fm
-    fn at(&self, p_q16: i32) -> (Result<i64, CalibrateError>, u64, u64) {
-        let x = self.map.x_q30_by(p_q16, &self.div);
+    fn at_x(&self, p_q16: i32, x: i64) -> (Result<i64, CalibrateError>, u64, u64) {
         let (slope, sigma) = self.slope_sigma_at_x(p_q16, x);
         (self.map.wavelength_at_x(x), slope, sigma)
     }
 
-    /// [`at`](Self::at) without the wavelength (match windows need only slope and σ): one Horner
-    /// evaluation fewer, the same integers.
+    /// [`at_x`](Self::at_x) at a pixel, without the wavelength (match windows need only slope and
+    /// σ): one Horner evaluation fewer, the same integers.
     fn slope_sigma(&self, p_q16: i32) -> (u64, u64) {
         self.slope_sigma_at_x(p_q16, self.map.x_q30_by(p_q16, &self.div))
     }
 
-    /// |slope| and σ of [`at`](Self::at) from the pixel and its x on `map`.
+    /// |slope| and σ of [`at_x`](Self::at_x).
     fn slope_sigma_at_x(&self, p_q16: i32, x: i64) -> (u64, u64) {
         let slope = self
             .map
@@ -376,7 +399,7 @@ impl Checker {
             report.decide();
             return Ok(());
         }
-        // The map in use lives in the caller's workspace (≈ 700 B), written in place.
+        // The map in use lives in the caller's workspace (≈ 1.2 KiB), written in place.
         if !self.map_for(peaks, report, &mut matching.map, &mut matching.identify) {
             // Calibration failed: list every peak on the stored map so the user sees what was there.
             let slot = &mut matching.map;
@@ -509,13 +532,17 @@ impl Checker {
             None
         };
         let icfg = IdentifyConfig::new(cfg.pixels, cfg.degree, nominal);
-        match identify_with(peaks, refs, &icfg, work) {
-            Ok(id) => {
-                report.fit_rms_fm = Some(id.fit.rms_residual_fm);
-                report.drift_fm =
-                    self.drift_points
-                        .drift_fm(&id.fit.map, &cfg.stored.map, cfg.pixels);
-                slot.set(id.fit.map, Some(&id.fit), stored_sigma_fm);
+        let found = identify_with(peaks, refs, &icfg, work).map(|id| {
+            report.fit_rms_fm = Some(id.fit.rms_residual_fm);
+            report.drift_fm = self
+                .drift_points
+                .drift_fm(&id.fit.map, &cfg.stored.map, cfg.pixels);
+            slot.set(id.fit.map, Some(&id.fit), stored_sigma_fm);
+        });
+        match found {
+            Ok(()) => {
+                // The fitted map's x at each peak, worked out by identification.
+                slot.take_peak_x(work.peak_x_q30(), cfg.pixels, peaks.len());
                 true
             }
             Err(e) => {
@@ -764,7 +791,7 @@ impl Checker {
                     None => continue,
                 }
             };
-            let (measured, slope, s) = m.at(pk.center_px_q16);
+            let (measured, slope, s) = m.at_x(pk.center_px_q16, m.x_of_peak(p.peak as usize, pk));
             let Ok(measured) = measured else {
                 continue;
             };
@@ -822,7 +849,7 @@ impl Checker {
             }
             foreign += area;
             // λ and |slope| (0 where the map cannot say) from one x, as the pixel-taking calls.
-            let x = m.map.x_q30_by(pk.center_px_q16, &m.div);
+            let x = m.x_of_peak(k, pk);
             let Ok(w) = m.map.wavelength_at_x(x) else {
                 continue;
             };
