@@ -204,6 +204,21 @@ impl WavelengthMap {
         i64::try_from(v).map_err(|_| CalibrateError::Overflow)
     }
 
+    /// The smallest |dλ/dp| (fm per px, Q16) [`slope_at_x_by`](Self::slope_at_x_by) gives on the
+    /// sensor (|x| ≤ 1), for maps of degree ≤ 2 on its 64-bit path; `None` for others, or where an
+    /// end's slope fails or the ends' signs differ.
+    ///
+    /// Up to degree 2 that slope is c1 + ⌊2c2 · x / 2^30⌋ divided (truncating) by the half-width:
+    /// non-decreasing or non-increasing in x, so between its values at the ends, which share a sign.
+    pub(crate) fn min_abs_slope_on_sensor(&self, hw: &HalfWidth) -> Option<u64> {
+        if self.degree > 2 || !self.narrow_slope() {
+            return None;
+        }
+        let lo = self.slope_at_x_by(-X_ONE_Q30, hw).ok()?;
+        let hi = self.slope_at_x_by(X_ONE_Q30, hw).ok()?;
+        (lo.signum() == hi.signum()).then(|| lo.unsigned_abs().min(hi.unsigned_abs()))
+    }
+
     /// Degree ≤ 3 and |k · c_k| < 2^31 for k ≥ 1 (every real sensor: c_1 is half the span in fm).
     ///
     /// k · |c_k| < 2^31 is |c_k| ≤ ⌊(2^31 − 1) / k⌋: compared against those constants, as a product
