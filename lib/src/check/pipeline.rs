@@ -579,30 +579,6 @@ impl Checker {
         }
     }
 
-    /// Instrument line σ (px, Q16): median FWHM of matched, unsaturated, unblended peaks, else the
-    /// configured width.
-    fn line_sigma_q16(&self, features: &[Feature], pairs: &[Pair], peaks: &[Peak]) -> i32 {
-        // Single-line features only: a merged isotope pair is wider than the instrument's line.
-        let mut w: Vec<u32, 40> = collect_bounded(
-            pairs
-                .iter()
-                .filter(|p| {
-                    features
-                        .get(p.feature as usize)
-                        .is_some_and(|f| f.members.len() == 1)
-                })
-                .filter_map(|p| peaks.get(p.peak as usize))
-                .filter(|p| !p.saturated && !p.blended)
-                .map(|p| p.fwhm_px_q16),
-        );
-        crate::sort::sort_by_key(&mut w, |x| *x);
-        let fwhm_q16 = match w.get(w.len() / 2) {
-            Some(&v) if !w.is_empty() => v as i64,
-            _ => (self.cfg.line_fwhm_px_q8 as i64) << 8,
-        };
-        ((fwhm_q16 << 16) / FWHM_PER_SIGMA_Q16) as i32
-    }
-
     /// Share of the pair's second nucleus, or `None` when not determinable here.
     fn isotope(
         &self,
@@ -617,7 +593,6 @@ impl Checker {
         // The instrument's configured line width: measured widths of this frame's lines are pulled
         // up by the very pairs being split. The pair fit refines it by ±8 %.
         let sigma = ((((self.cfg.line_fwhm_px_q8 as i64) << 8) << 16) / FWHM_PER_SIGMA_Q16) as i32;
-        let _ = self.line_sigma_q16(features, pairs, peaks);
         let fwhm_q16 = (sigma as i64 * FWHM_PER_SIGMA_Q16) >> 16;
         // The strongest transition with both isotopes predicted and some peak matched to either.
         // (strength, line a, line b, their catalogue indices)
@@ -660,8 +635,12 @@ impl Checker {
                 .filter(|c| same(c, la) || same(c, lb))
                 .count()
                 == 2;
+            // Readings are read in verify mode only; elsewhere they are not taken where taking them
+            // cannot fail (its slope's failure ends the search, so it is still asked elsewhere).
+            let needed =
+                |pk: &Peak| self.cfg.mode == Mode::Verify || !m.map.slope_sure_at(pk.center_px_q16);
             if both {
-                if let Some(pk) = peaks.get(pair.peak as usize) {
+                if let Some(pk) = peaks.get(pair.peak as usize).filter(|pk| needed(pk)) {
                     // λ and slope of the peak's pixel from one x (the same integers as the
                     // pixel-taking calls, one division through the half-width's reciprocal).
                     let x = m.map.x_q30_by(pk.center_px_q16, &m.div);
