@@ -191,6 +191,20 @@ impl SigmaPoly {
         let var = scale_variance(i128::from(acc.max(0)), self.scale_fm2).unwrap_or(i128::MAX);
         Some(isqrt_u128(var.max(0) as u128) as u64)
     }
+
+    /// A bound on [`sigma_fm_at_x`](Self::sigma_fm_at_x) over the sensor (|x| ≤ 1), femtometres;
+    /// `None` where the variance it would need overflows.
+    ///
+    /// Each Horner step's product is at most |acc| + 1 in size (|x| ≤ 1, rounded), so the sum is at
+    /// most Σ |s_k| + `top`; the variance scaling and the root are non-decreasing in it.
+    pub(crate) fn sigma_max_fm(&self) -> Option<u64> {
+        let mut bound: i128 = self.top as i128;
+        for &c in self.coeff_q40.iter().take(self.top + 1) {
+            bound += c.unsigned_abs() as i128;
+        }
+        let var = scale_variance(bound, self.scale_fm2)?;
+        Some(isqrt_u128(var.max(0) as u128) as u64)
+    }
 }
 
 /// [`mul_div_i128`]`(q, scale, 2^40)` for q ≥ 0: the product rounded half up at bit 40. Below

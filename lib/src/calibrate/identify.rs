@@ -542,7 +542,12 @@ fn line_masks(
     let (lo, hi) = (us().min().unwrap_or(0), us().max().unwrap_or(0));
     let reach = if sane {
         let span = (hi as i128 - lo as i128).unsigned_abs();
-        let scale = span * (cfg.max_scale_error_ppm as u128 + 2) / 1_000_000 + 1;
+        let prod = span * (cfg.max_scale_error_ppm as u128 + 2);
+        // ⌊prod / 10⁶⌋: by `per_million` in u64 (exact there), else the wide division.
+        let scale = match u64::try_from(prod) {
+            Ok(p) => per_million(p) as u128,
+            Err(_) => prod / 1_000_000,
+        } + 1;
         Some(cfg.max_offset_fm as i128 + scale.min(1 << 64) as i128)
     } else {
         None
@@ -598,8 +603,13 @@ fn strongest<const N: usize>(values: impl Iterator<Item = u32>, k: usize) -> Vec
             top.pop();
         }
         let _ = top.push((v, i as u8));
-        // Sorted but for the new last entry: the stable insertion sort moves just that one.
-        crate::sort::sort_by_key(&mut top, |&(w, _)| core::cmp::Reverse(w));
+        // Sorted but for the new last entry: it moves up past every weaker one (the stable
+        // insertion sort's moves, without its pass over the sorted rest).
+        let mut j = top.len().saturating_sub(1);
+        while j > 0 && top.get(j - 1).is_some_and(|&(w, _)| w < v) {
+            top.swap(j - 1, j);
+            j -= 1;
+        }
     }
     crate::bounded::collect_bounded(top.iter().map(|&(_, i)| i))
 }

@@ -204,6 +204,31 @@ impl WavelengthMap {
         i64::try_from(v).map_err(|_| CalibrateError::Overflow)
     }
 
+    /// The smallest |dλ/dp| (fm per px, Q16) [`slope_at_x_by`](Self::slope_at_x_by) gives on the
+    /// sensor (|x| ≤ 1), for maps of degree ≤ 2 on its 64-bit path; `None` for others, or where an
+    /// end's slope fails or the ends' signs differ.
+    ///
+    /// Up to degree 2 that slope is c1 + ⌊2c2 · x / 2^30⌋ divided (truncating) by the half-width:
+    /// non-decreasing or non-increasing in x, so between its values at the ends, which share a sign.
+    pub(crate) fn min_abs_slope_on_sensor(&self, hw: &HalfWidth) -> Option<u64> {
+        if self.degree > 2 || !self.narrow_slope() {
+            return None;
+        }
+        let lo = self.slope_at_x_by(-X_ONE_Q30, hw).ok()?;
+        let hi = self.slope_at_x_by(X_ONE_Q30, hw).ok()?;
+        (lo.signum() == hi.signum()).then(|| lo.unsigned_abs().min(hi.unsigned_abs()))
+    }
+
+    /// Whether [`slope_at_x_by`](Self::slope_at_x_by) at the x of pixel `p_px_q16` (px, Q16) is
+    /// sure to succeed: on the sensor frame (|p − centre| ≤ half-width, so |x| ≤ 1), with
+    /// [`narrow_slope`](Self::narrow_slope) coefficients and a half-width of at least 3 (Q16), its
+    /// derivative is below 3 · 2^31 in size and the quotient by the half-width below 2^63.
+    pub(crate) fn slope_sure_at(&self, p_px_q16: i32) -> bool {
+        self.half_width_px_q16 >= 3
+            && (p_px_q16 as i64 - self.center_px_q16 as i64).abs() <= self.half_width_px_q16 as i64
+            && self.narrow_slope()
+    }
+
     /// Degree ≤ 3 and |k · c_k| < 2^31 for k ≥ 1 (every real sensor: c_1 is half the span in fm).
     ///
     /// k · |c_k| < 2^31 is |c_k| ≤ ⌊(2^31 − 1) / k⌋: compared against those constants, as a product
@@ -832,6 +857,58 @@ mod tests {
                 }
             }
         }
+    }
+
+    #[test]
+    fn a_sure_slope_succeeds() {
+        let mut next = crate::test_rng::xorshift(0x1f83_d9ab_fb41_bd6bu64);
+        let edges = [
+            0i64,
+            1,
+            ((1 << 31) - 1) / 3,
+            ((1 << 31) - 1) / 2,
+            (1 << 31) - 1,
+            1 << 40,
+        ];
+        let mut sure = 0;
+        for round in 0..200_000 {
+            let pick = |n: &mut dyn FnMut() -> u64| {
+                let e = edges[(n() % edges.len() as u64) as usize];
+                if n().is_multiple_of(2) {
+                    -e
+                } else {
+                    e
+                }
+            };
+            let m = WavelengthMap {
+                center_px_q16: (next() % (1 << 31)) as i32 - (1 << 30),
+                half_width_px_q16: [0, 1, 3, 4, 1 << 16, 1 << 26, i32::MAX][round % 7],
+                degree: 1 + (next() % 3) as u8,
+                coeff_fm: [
+                    pick(&mut next),
+                    pick(&mut next),
+                    pick(&mut next),
+                    pick(&mut next),
+                ],
+            };
+            let p = m
+                .center_px_q16
+                .saturating_add((next() % (1 << 28)) as i32 - (1 << 27))
+                .saturating_add(if round % 3 == 0 {
+                    m.half_width_px_q16
+                } else {
+                    0
+                });
+            if m.slope_sure_at(p) {
+                let hw = HalfWidth::forward(&m);
+                assert!(
+                    m.slope_at_x_by(m.x_q30_by(p, &hw), &hw).is_ok(),
+                    "{m:?} {p}"
+                );
+                sure += 1;
+            }
+        }
+        assert!(sure > 10_000, "{sure}");
     }
 
     #[test]

@@ -148,6 +148,33 @@ impl MapInUse {
         self.slope_sigma_at_x(p_q16, self.map.x_q30_by(p_q16, &self.div))
     }
 
+    /// Whether every feature on the sensor gets the narrowest line window (1 px) whatever its
+    /// pixel: twice `max_line_error_fm` plus 3 map σ over the smallest |slope| is at most 1 px with
+    /// the largest σ and the smallest |slope| on the sensor (see [`windows_px_q16`]).
+    fn one_px_windows(&self, max_line_error_fm: u32) -> bool {
+        let sigma_max = match &self.fit {
+            None => Some(self.stored_sigma_fm as u64),
+            Some(f)
+                if f.map.center_px_q16 == self.map.center_px_q16
+                    && f.map.half_width_px_q16 == self.map.half_width_px_q16 =>
+            {
+                self.sigma_poly.as_ref().and_then(|s| s.sigma_max_fm())
+            }
+            Some(_) => None,
+        };
+        let (Some(sigma), Some(slope)) = (sigma_max, self.map.min_abs_slope_on_sensor(&self.div))
+        else {
+            return false;
+        };
+        let Some(tol) = (sigma as i64)
+            .checked_mul(3)
+            .and_then(|t| t.checked_add(2 * max_line_error_fm as i64))
+        else {
+            return false;
+        };
+        (1..1 << 62).contains(&slope) && shl32_div(tol, slope as i64) <= 1 << 16
+    }
+
     /// |slope| and σ of [`at_x`](Self::at_x).
     fn slope_sigma_at_x(&self, p_q16: i32, x: i64) -> (u64, u64) {
         let slope = self
@@ -552,30 +579,6 @@ impl Checker {
         }
     }
 
-    /// Instrument line σ (px, Q16): median FWHM of matched, unsaturated, unblended peaks, else the
-    /// configured width.
-    fn line_sigma_q16(&self, features: &[Feature], pairs: &[Pair], peaks: &[Peak]) -> i32 {
-        // Single-line features only: a merged isotope pair is wider than the instrument's line.
-        let mut w: Vec<u32, 40> = collect_bounded(
-            pairs
-                .iter()
-                .filter(|p| {
-                    features
-                        .get(p.feature as usize)
-                        .is_some_and(|f| f.members.len() == 1)
-                })
-                .filter_map(|p| peaks.get(p.peak as usize))
-                .filter(|p| !p.saturated && !p.blended)
-                .map(|p| p.fwhm_px_q16),
-        );
-        crate::sort::sort_by_key(&mut w, |x| *x);
-        let fwhm_q16 = match w.get(w.len() / 2) {
-            Some(&v) if !w.is_empty() => v as i64,
-            _ => (self.cfg.line_fwhm_px_q8 as i64) << 8,
-        };
-        ((fwhm_q16 << 16) / FWHM_PER_SIGMA_Q16) as i32
-    }
-
     /// Share of the pair's second nucleus, or `None` when not determinable here.
     fn isotope(
         &self,
@@ -590,7 +593,6 @@ impl Checker {
         // The instrument's configured line width: measured widths of this frame's lines are pulled
         // up by the very pairs being split. The pair fit refines it by ±8 %.
         let sigma = ((((self.cfg.line_fwhm_px_q8 as i64) << 8) << 16) / FWHM_PER_SIGMA_Q16) as i32;
-        let _ = self.line_sigma_q16(features, pairs, peaks);
         let fwhm_q16 = (sigma as i64 * FWHM_PER_SIGMA_Q16) >> 16;
         // The strongest transition with both isotopes predicted and some peak matched to either.
         // (strength, line a, line b, their catalogue indices)
@@ -633,8 +635,12 @@ impl Checker {
                 .filter(|c| same(c, la) || same(c, lb))
                 .count()
                 == 2;
+            // Readings are read in verify mode only; elsewhere they are not taken where taking them
+            // cannot fail (its slope's failure ends the search, so it is still asked elsewhere).
+            let needed =
+                |pk: &Peak| self.cfg.mode == Mode::Verify || !m.map.slope_sure_at(pk.center_px_q16);
             if both {
-                if let Some(pk) = peaks.get(pair.peak as usize) {
+                if let Some(pk) = peaks.get(pair.peak as usize).filter(|pk| needed(pk)) {
                     // λ and slope of the peak's pixel from one x (the same integers as the
                     // pixel-taking calls, one division through the half-width's reciprocal).
                     let x = m.map.x_q30_by(pk.center_px_q16, &m.div);
@@ -1143,8 +1149,10 @@ fn group_with_windows(
     // Every line's pixel is found once, while grouping, for all the steps after it.
     group_placing(catalogue, &m.map, priors, merge_q16, &mut m.lines, features)?;
     windows.clear();
+    let one_px = m.one_px_windows(cfg.profile.max_line_error_fm);
     for f in features.iter() {
-        let _ = windows.push(windows_px_q16(cfg, catalogue, f, m));
+        let w = windows_px_q16(cfg.profile.max_line_error_fm, catalogue, f, m, one_px);
+        let _ = windows.push(w);
     }
     Ok(())
 }
@@ -1152,16 +1160,16 @@ fn group_with_windows(
 /// Match windows of a feature (px, Q16): its line's (twice the allowed position error plus 3 σ
 /// of the map, ≥ 1 px), and the feature's (the line's plus the reach of a blend's members,
 /// whose centre moves with the unknown mix), from one evaluation of the map at its pixel.
+///
+/// `one_px` ([`MapInUse::one_px_windows`]): the line's window is 1 px on the whole sensor, so a
+/// feature on it needs no σ (nor, when it is a single line, no slope): the same windows.
 fn windows_px_q16(
-    cfg: &Config,
+    max_line_error_fm: u32,
     catalogue: &[CatalogueLine],
     f: &Feature,
     m: &MapInUse,
+    one_px: bool,
 ) -> (i32, i32) {
-    let (slope, sigma) = m.slope_sigma(f.predicted_px_q16);
-    let slope = slope.max(1) as i64;
-    let tol_fm = 2 * cfg.profile.max_line_error_fm as i64 + 3 * sigma as i64;
-    let base = (shl32_div(tol_fm, slope)).clamp(1 << 16, 64 << 16) as i32;
     // The quotient grows with the distance: the farthest member's is the largest.
     let far = f
         .members
@@ -1169,6 +1177,24 @@ fn windows_px_q16(
         .filter_map(|&i| catalogue.get(i as usize))
         .map(|c| (c.wavelength_fm - f.predicted_fm).abs())
         .max();
+    // On the sensor, where `one_px` bounds σ and the slope (|x| ≤ 1).
+    let on_sensor = (f.predicted_px_q16 as i64 - m.map.center_px_q16 as i64).abs()
+        <= m.map.half_width_px_q16 as i64;
+    let (base, slope) = if one_px && on_sensor {
+        if far.is_none_or(|v| v == 0) {
+            // 1 px, and a reach of 0 / slope = 0.
+            return (1 << 16, 1 << 16);
+        }
+        let x = m.map.x_q30_by(f.predicted_px_q16, &m.div);
+        let slope = m.map.slope_at_x_by(x, &m.div).unwrap_or(0).unsigned_abs();
+        (1 << 16, slope.max(1) as i64)
+    } else {
+        let (slope, sigma) = m.slope_sigma(f.predicted_px_q16);
+        let slope = slope.max(1) as i64;
+        let tol_fm = 2 * max_line_error_fm as i64 + 3 * sigma as i64;
+        let base = (shl32_div(tol_fm, slope)).clamp(1 << 16, 64 << 16) as i32;
+        (base, slope)
+    };
     let reach = far.map_or(0, |v| shl32_div(v, slope));
     (base, (base as i128 + reach).clamp(1 << 16, 64 << 16) as i32)
 }
@@ -1530,5 +1556,93 @@ mod tests {
         assert!(compared > 1_000, "{compared}");
         let m = WavelengthMap::new(2048, 2, [500_000_000, 150_000_000, -5_000_000, 0]).unwrap();
         assert!(DriftPoints::new(&m, 2048).points.is_some());
+    }
+
+    #[test]
+    fn one_px_windows_are_the_worked_out_windows() {
+        use crate::calibrate::{fit_map, FitPoint};
+        let mut next = crate::test_rng::xorshift(0x5be0_cd19_137e_2179u64);
+        let (mut compared, mut bounded) = (0, 0);
+        for round in 0..400 {
+            let pixels = [2048u16, 4096, 1024][round % 3];
+            let spread =
+                |n: &mut dyn FnMut() -> u64, top: i64| (n() % (2 * top as u64 + 1)) as i64 - top;
+            let c1 = 150_000_000 + spread(&mut next, 60_000_000);
+            let truth =
+                WavelengthMap::new(pixels, 2, [500_000_000, c1, spread(&mut next, c1 / 20), 0])
+                    .unwrap();
+            // A fit to 6–20 points with centroid σ from 1/512 to 1/4 px, or the stored map alone.
+            let n = 6 + (next() % 15) as usize;
+            let pts: std::vec::Vec<FitPoint> = (0..n)
+                .map(|_| {
+                    let p = ((next() % pixels as u64) << 16) as i32;
+                    FitPoint {
+                        center_px_q16: p,
+                        sigma_px_q16: 128 << (next() % 7),
+                        wavelength_fm: truth.wavelength_fm(p).unwrap() + spread(&mut next, 3_000),
+                    }
+                })
+                .collect();
+            let Ok(fit) = fit_map(&pts, 1 + (round % 2) as u8, pixels) else {
+                continue;
+            };
+            let mut m = MapInUse::EMPTY;
+            if round % 5 == 0 {
+                m.set(truth, None, 1_000 + (next() % 20_000) as u32);
+            } else {
+                m.set(fit.map, Some(&fit), 3_000);
+            }
+            let max_err = [5_000u32, 50_000, 200_000][(next() % 3) as usize];
+            let one_px = m.one_px_windows(max_err);
+            bounded += usize::from(one_px);
+            for _ in 0..30 {
+                // Features on and off the sensor, single lines and blends.
+                let p = (next() % ((pixels as u64 + 200) << 16)) as i64 - (100 << 16);
+                let lam = m.map.wavelength_fm(p as i32).unwrap_or(500_000_000);
+                let cat = [line(lam), line(lam + spread(&mut next, 300_000))];
+                let mut members = Vec::new();
+                members.push(0).unwrap();
+                if next().is_multiple_of(2) {
+                    members.push(1).unwrap();
+                }
+                let f = Feature {
+                    members,
+                    primary: 0,
+                    predicted_fm: lam,
+                    predicted_px_q16: p as i32,
+                    expected: 0,
+                };
+                let plain = windows_px_q16(max_err, &cat, &f, &m, false);
+                assert_eq!(windows_px_q16(max_err, &cat, &f, &m, one_px), plain);
+                compared += 1;
+            }
+            // The bounds hold on the sensor.
+            if let (Some(s), Some(slope)) = (
+                m.sigma_poly.as_ref().map(|s| s.sigma_max_fm()),
+                m.map.min_abs_slope_on_sensor(&m.div),
+            ) {
+                for k in -64..=64i64 {
+                    let x = k << 24;
+                    if let (Some(bound), Some(v)) =
+                        (s, m.sigma_poly.as_ref().and_then(|p| p.sigma_fm_at_x(x)))
+                    {
+                        assert!(v <= bound, "{v} {bound}");
+                    }
+                    let at = m.map.slope_at_x_by(x, &m.div).unwrap().unsigned_abs();
+                    assert!(at >= slope, "{at} {slope}");
+                }
+            }
+        }
+        assert!(compared > 5_000 && bounded > 50, "{compared} {bounded}");
+    }
+
+    fn line(wavelength_fm: i64) -> CatalogueLine {
+        CatalogueLine {
+            nucleus: Nucleus::H1,
+            lower: 2,
+            upper: 3,
+            wavelength_fm,
+            strength: 1,
+        }
     }
 }
