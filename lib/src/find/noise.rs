@@ -46,11 +46,18 @@ impl NoiseModel {
     #[inline]
     pub fn var_q8(&self, level: i64) -> i64 {
         let light = level.saturating_sub(self.zero_light_level).max(0);
+        let k = self.shot_var_per_unit_q16;
         // light < 2^31 keeps the product below 2^63 (the per-pixel case; i128 on M0 is a library call).
-        let shot = if light < 1 << 31 {
-            (super::math::mul_u32_wide(light as u32, self.shot_var_per_unit_q16) >> 8) as i64
+        let shot = if light < 1 << 16 {
+            // l · κ = (l · κ_hi) · 2^16 + l · κ_lo with both products in 32 bits, and the shift by 8
+            // splits the same way: exactly the wide product's, in two multiplies.
+            let l = light as u32;
+            let (hi, lo) = (l * (k >> 16), l * (k & 0xffff));
+            i64::from(hi) * 256 + i64::from(lo >> 8)
+        } else if light < 1 << 31 {
+            (super::math::mul_u32_wide(light as u32, k) >> 8) as i64
         } else {
-            wide_shot(light, self.shot_var_per_unit_q16)
+            wide_shot(light, k)
         };
         self.floor_var_q8.saturating_add(shot).max(1)
     }
@@ -557,6 +564,27 @@ mod tests {
     use super::*;
 
     /// The plain sums of clear blocks are the careful pass's.
+    #[test]
+    fn variance_split_products_are_the_wide_product() {
+        let mut x = 0x6a09_e667u32;
+        for _ in 0..20_000 {
+            x ^= x << 13;
+            x ^= x >> 17;
+            x ^= x << 5;
+            let k = if x & 1 == 0 { x } else { x >> (x % 32) };
+            let level = i64::from(x.rotate_left(7) >> (x % 24)) - 1000;
+            let m = NoiseModel {
+                floor_var_q8: i64::from(x % 5000),
+                zero_light_level: 0,
+                shot_var_per_unit_q16: k,
+                shot_from_data: false,
+            };
+            let light = level.max(0);
+            let want = (m.floor_var_q8 + ((i128::from(light) * i128::from(k)) >> 8) as i64).max(1);
+            assert_eq!(m.var_q8(level), want, "level {level} κ {k}");
+        }
+    }
+
     #[test]
     fn clear_blocks_equal_the_careful_ones() {
         let mut rng = Rng::new(6);
