@@ -51,6 +51,21 @@ pub fn estimate_baseline(
     base: &mut [i32],
     tmp: &mut [i32],
 ) {
+    estimate_baseline_known(frame, flag, noise, half, base, tmp, false);
+}
+
+/// [`estimate_baseline`] when the caller knows that every pixel of `frame` is trusted and within
+/// ±2^23 (`clean`): the block means then take 32-bit sums and no flag pass (the same integers).
+/// `false` is always safe.
+pub(crate) fn estimate_baseline_known(
+    frame: &[i32],
+    flag: &[u8],
+    noise: &NoiseModel,
+    half: usize,
+    base: &mut [i32],
+    tmp: &mut [i32],
+    clean: bool,
+) {
     let n = frame.len().min(base.len());
     let nb = n.div_ceil(COARSE_PX);
     let (means, rest) = tmp.split_at_mut(nb.min(tmp.len()));
@@ -63,7 +78,7 @@ pub fn estimate_baseline(
     }
     let mut cflag = [0u8; crate::condition::MAX_PIXELS.div_ceil(COARSE_PX)];
     let cflag = cflag.get_mut(..nb).unwrap_or(&mut []);
-    block_means(frame, flag, means, cflag);
+    block_means(frame, flag, means, cflag, clean);
     // A block value (the middle two of four 4-px means) scatters with about 1/13 of the pixel
     // variance; the clip level takes 1/16, as for a 16-px mean (a little more clipping, no bias).
     let coarse_noise = NoiseModel {
@@ -97,12 +112,18 @@ pub fn estimate_baseline(
 ///
 /// The middle quarters are what keep the baseline down between lines that stand closer than a block
 /// (near a series limit every 16-px block holds a line, and plain block means all ride on them).
-/// Loop bound: one pass over `frame`.
-fn block_means(frame: &[i32], flag: &[u8], means: &mut [i32], cflag: &mut [u8]) {
+/// With `clean` (every pixel trusted, |values| < 2^23) a full block's sums are 32-bit (< 2^27) and its
+/// flags are not read. Loop bound: one pass over `frame`.
+fn block_means(frame: &[i32], flag: &[u8], means: &mut [i32], cflag: &mut [u8], clean: bool) {
     for (k, (m, cf)) in means.iter_mut().zip(cflag.iter_mut()).enumerate() {
         let lo = k * COARSE_PX;
         let hi = (lo + COARSE_PX).min(frame.len());
         let vals = frame.get(lo..hi).unwrap_or(&[]);
+        if let (true, Ok(v)) = (clean, <&[i32; COARSE_PX]>::try_from(vals)) {
+            *cf = 0;
+            *m = middle_quarters_narrow(v);
+            continue;
+        }
         let fl = flag.get(lo..hi).unwrap_or(&[]);
         // Plain sums first; only a block holding an untrusted pixel is summed again pixel by pixel.
         let mut bad = 0u8;
@@ -161,6 +182,22 @@ fn block_means(frame: &[i32], flag: &[u8], means: &mut [i32], cflag: &mut [u8]) 
             _ => {}
         }
     }
+}
+
+/// A full clean block's level as the careful path computes it (the mean of the middle two of its
+/// four 4-px sums, floor), in 32 bits: |values| < 2^23 keep every sum below 2^27.
+fn middle_quarters_narrow(v: &[i32; COARSE_PX]) -> i32 {
+    let q = |k: usize| -> i32 {
+        v.get(4 * k..4 * k + 4)
+            .unwrap_or(&[])
+            .iter()
+            .fold(0i32, |a, &x| a.wrapping_add(x))
+    };
+    let (a, b, c, d) = (q(0), q(1), q(2), q(3));
+    let total = a.wrapping_add(b).wrapping_add(c).wrapping_add(d);
+    let low = a.min(b).min(c.min(d));
+    let high = a.max(b).max(c.max(d));
+    total.wrapping_sub(low).wrapping_sub(high) >> 3
 }
 
 /// The pixel baseline: straight lines between block centres (block k's centre is pixel 16k + 8, the
@@ -339,6 +376,31 @@ mod tests {
             zero_light_level: 0,
             shot_var_per_unit_q16: 0,
             shot_from_data: false,
+        }
+    }
+
+    #[test]
+    fn clean_block_means_are_the_careful_ones() {
+        // Frames within ±2^23 (the clean path's condition), a partial last block included.
+        let mut x = 0x2545_f491u32;
+        for n in [16usize, 37, 256, 1000] {
+            for bits in [4u32, 12, 23] {
+                let frame: std::vec::Vec<i32> = (0..n)
+                    .map(|_| {
+                        x ^= x << 13;
+                        x ^= x >> 17;
+                        x ^= x << 5;
+                        (x as i32) >> (31 - bits)
+                    })
+                    .collect();
+                let fl = std::vec![0u8; n];
+                let nb = n.div_ceil(COARSE_PX);
+                let (mut m1, mut m2) = (std::vec![0i32; nb], std::vec![0i32; nb]);
+                let (mut c1, mut c2) = (std::vec![9u8; nb], std::vec![9u8; nb]);
+                block_means(&frame, &fl, &mut m1, &mut c1, false);
+                block_means(&frame, &fl, &mut m2, &mut c2, true);
+                assert_eq!((m1, c1), (m2, c2), "n {n} bits {bits}");
+            }
         }
     }
 

@@ -172,12 +172,20 @@ pub fn find_candidates(
     // scanning the list (a comb of equal maxima would scan it at every one).
     let mut weakest: Option<i32> = None;
     let mut i = 0usize;
+    // `v_min` ≥ 0 (a square root); beyond i32 no value passes.
+    let Ok(v_min32) = i32::try_from(v_min.max(0)) else {
+        return false;
+    };
     while i < n {
-        // Most of a frame is below every threshold: one compare per pixel there. (A plateau at or
-        // below `v_min` is skipped value by value; one above it is met at its first pixel.)
-        if smooth.get(i).is_none_or(|&v| i64::from(v) <= v_min) {
-            i += 1;
-            continue;
+        // Most of a frame is below every threshold: one compare per pixel there, in a tight scan.
+        // (A plateau at or below `v_min` is skipped value by value; one above it is met at its
+        // first pixel.)
+        match smooth
+            .get(i..)
+            .and_then(|rest| rest.iter().position(|&v| v > v_min32))
+        {
+            Some(k) => i += k,
+            None => break,
         }
         let v = at(i);
         let left = if i == 0 { i64::MIN } else { at(i - 1) };
@@ -218,7 +226,43 @@ pub fn find_candidates(
 }
 
 /// Lowest smoothed value walking from `from` until a value above `peak` or `reach` px.
+///
+/// The walk runs over the ≤ `reach` values of that side as a slice, in 32 bits when `peak` fits
+/// (it is a value of `smooth`): the same answer as a walk by index.
 fn valley(smooth: &[i32], from: usize, peak: i64, reach: usize, rightward: bool) -> i64 {
+    let Ok(peak32) = i32::try_from(peak) else {
+        return valley_wide(smooth, from, peak, reach, rightward);
+    };
+    if !rightward && from > smooth.len() {
+        // The index walk's first step is already outside.
+        return peak;
+    }
+    let low = if rightward {
+        let side = smooth.get(from.saturating_add(1)..).unwrap_or(&[]);
+        lowest_until_above(side.iter().take(reach), peak32)
+    } else {
+        let side = smooth.get(..from.min(smooth.len())).unwrap_or(&[]);
+        lowest_until_above(side.iter().rev().take(reach), peak32)
+    };
+    i64::from(low)
+}
+
+/// The least of `peak` and the values before the first one above `peak`.
+#[inline(always)]
+fn lowest_until_above<'a>(values: impl Iterator<Item = &'a i32>, peak: i32) -> i32 {
+    let mut low = peak;
+    for &v in values {
+        if v > peak {
+            break;
+        }
+        low = low.min(v);
+    }
+    low
+}
+
+/// [`valley`] by index in 64 bits, for a `peak` beyond `i32` (not a value of `smooth`).
+#[cold]
+fn valley_wide(smooth: &[i32], from: usize, peak: i64, reach: usize, rightward: bool) -> i64 {
     let mut low = peak;
     for step in 1..=reach {
         let j = if rightward {
@@ -276,6 +320,30 @@ mod tests {
     use super::*;
 
     /// The 32-bit smoothing gives the general path's integers.
+    #[test]
+    fn valley_walks_agree_with_the_index_walk() {
+        let mut x = 0x9e37_79b9u32;
+        let smooth: std::vec::Vec<i32> = (0..300)
+            .map(|_| {
+                x ^= x << 13;
+                x ^= x >> 17;
+                x ^= x << 5;
+                (x as i32) >> 20
+            })
+            .collect();
+        for from in [0usize, 1, 5, 150, 298, 299, 300, 302] {
+            for reach in [0usize, 1, 8, 64, 400] {
+                for rightward in [false, true] {
+                    let own = smooth.get(from).map_or(7, |&v| i64::from(v));
+                    for peak in [own, 0, -5000, 5000, 1 << 40] {
+                        let want = valley_wide(&smooth, from, peak, reach, rightward);
+                        assert_eq!(valley(&smooth, from, peak, reach, rightward), want);
+                    }
+                }
+            }
+        }
+    }
+
     #[test]
     fn narrow_smoothing_equals_the_wide_one() {
         let mut x = 0x1234_5678u32;

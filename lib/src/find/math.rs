@@ -113,6 +113,25 @@ pub fn div_round_i64(num: i64, den: i64) -> i64 {
     div_round_i128(i128::from(num), i128::from(den)) as i64
 }
 
+/// The OR of `v ^ (v >> 31)` over `values` (|v| for v ≥ 0, |v| − 1 below): below 2^k exactly when
+/// every value is within −2^k … 2^k − 1, so one pass of loads, shifts and ORs (four values a step)
+/// answers every "is the frame within ±2^k" question a little conservatively (2^k itself counts
+/// as out).
+pub fn magnitude_span(values: &[i32]) -> u32 {
+    let fold = |v: i32| (v ^ (v >> 31)) as u32;
+    let mut chunks = values.chunks_exact(4);
+    let mut acc = 0u32;
+    for c in &mut chunks {
+        if let [a, b, c, d] = *c {
+            acc |= fold(a) | fold(b) | fold(c) | fold(d);
+        }
+    }
+    for &v in chunks.remainder() {
+        acc |= fold(v);
+    }
+    acc
+}
+
 /// `a · b` in full 64 bits from four 16 × 16-bit products: the Cortex-M0 has only a 32-bit multiply,
 /// and a general 64-bit product (`__aeabi_lmul`) costs three times as many instructions.
 #[inline]
@@ -197,6 +216,56 @@ pub fn clamp_i32(v: i64) -> i32 {
     v.clamp(i64::from(i32::MIN), i64::from(i32::MAX)) as i32
 }
 
+/// Seeds of [`recip_u32_max`] by the divisor's top byte `b` ∈ [128, 256): ⌊2^32 / (256·b + 128)⌋ −
+/// 2^16, the reciprocal at the middle of the byte's range (within 2^-8 of every divisor there).
+/// Built at compile time from integers.
+const RECIP_SEED: [u16; 128] = recip_seed_table();
+
+const fn recip_seed_table() -> [u16; 128] {
+    let mut t = [0u16; 128];
+    let mut i = 0;
+    while i < 128 {
+        let v = (1u64 << 32) / (256 * (128 + i as u64) + 128) - (1 << 16);
+        t[i] = v as u16;
+        i += 1;
+    }
+    t
+}
+
+/// `⌊(2^32 − 1) / d⌋` exactly, for `d` ≥ 1 (0 gives `u32::MAX`). For `d` in [2^15, 2^16) — every
+/// [`Recip`] — a table seed, one Newton step and at most four ±1 corrections (~40 instructions)
+/// instead of the Cortex-M0's library division (~170); other divisors divide.
+pub fn recip_u32_max(d: u32) -> u32 {
+    if !(1 << 15..1 << 16).contains(&d) {
+        return u32::MAX.checked_div(d).unwrap_or(u32::MAX);
+    }
+    let seed = RECIP_SEED
+        .get(((d >> 8) as usize).wrapping_sub(128))
+        .copied()
+        .unwrap_or(0);
+    // r0 = 2^32/d · (1 + ε), |ε| ≤ 2^-8: |2^32 − d·r0| < 2^25, exact in wrapping 32-bit arithmetic.
+    let r0 = (1u32 << 16) + u32::from(seed);
+    let e = 0u32.wrapping_sub(d.wrapping_mul(r0)) as i32;
+    // r1 = r0·(2 − d·r0/2^32) = 2^32/d · (1 − ε²): at most 3 below ⌊2^32/d⌋ (ε²·2^17 ≤ 2, plus the
+    // floor), never above 2^32/d.
+    let r1 = (i64::from(r0) + (mul_i32_wide(r0 as i32, e) >> 32)) as u32;
+    // (2^32 − 1) − r·d is within ±2^19 here, exact as a wrapped i32.
+    let (mut r, di) = (r1, d as i32);
+    let mut rem = u32::MAX.wrapping_sub(r.wrapping_mul(d)) as i32;
+    for _ in 0..4 {
+        if rem < 0 {
+            r = r.wrapping_sub(1);
+            rem = rem.wrapping_add(di);
+        } else if rem >= di {
+            r = r.wrapping_add(1);
+            rem = rem.wrapping_sub(di);
+        } else {
+            break;
+        }
+    }
+    r
+}
+
 /// A reciprocal for repeated division by one positive `d < 2^62`: `d ≈ n · 2^-t` with `n` in
 /// \[2^29, 2^30) (`t` < 0 drops the low bits of a wider `d`) and `r ≈ 2^60 / n` in (2^30, 2^31\], so
 /// `v / d ≈ v · r · 2^t / 2^60` (relative error < 2^-28) from 32 × 32-bit products. `r` comes from
@@ -212,26 +281,47 @@ impl Recip {
     /// Division by 1.
     pub const ONE: Self = Self { r: 1 << 31, t: 29 };
 
-    /// `None` unless 0 < `d` < 2^62. A `const fn`: a fixed divisor's reciprocal can be a constant.
-    pub const fn new(d: i64) -> Option<Self> {
+    /// `None` unless 0 < `d` < 2^62.
+    pub fn new(d: i64) -> Option<Self> {
+        let (n, t, n16) = Self::normalise(d)?;
+        Some(Self::refine(n, t, recip_u32_max(n16)))
+    }
+
+    /// [`Recip::new`] for constant contexts (the same value): a fixed divisor's reciprocal can be a
+    /// constant. Its library division is only paid at compile time.
+    pub const fn new_const(d: i64) -> Option<Self> {
+        match Self::normalise(d) {
+            Some((n, t, n16)) => Some(Self::refine(n, t, u32::MAX / n16)),
+            None => None,
+        }
+    }
+
+    /// `d = n · 2^-t` with `n` in [2^29, 2^30), and `n >> 14` (in [2^15, 2^16)); `None` unless
+    /// 0 < `d` < 2^62.
+    const fn normalise(d: i64) -> Option<(i64, i32, u32)> {
         if d <= 0 || d >= 1 << 62 {
             return None;
         }
         let t = d.leading_zeros() as i32 - 34;
         let n = if t >= 0 { d << t } else { d >> -t };
-        // x0 = 2^46 / (n >> 14) · 2^14 ≈ 2^60 / n to 2^-15; one Newton step x += x·(2^60 − n·x) / 2^60
-        // squares the error (n·x0 < 2^61; the correction's factors stay below 2^32 and 2^17).
         let n14 = n >> 14;
         if n14 < 0 || n14 > u32::MAX as i64 {
             return None;
         }
         let n16 = if n14 == 0 { 1 } else { n14 as u32 };
-        let x0 = ((u32::MAX / n16) as u64) << 14; // < 2^32
+        Some((n, t, n16))
+    }
+
+    /// The reciprocal from `q = ⌊(2^32 − 1) / (n >> 14)⌋`: x0 = q · 2^14 ≈ 2^60 / n to 2^-15; one
+    /// Newton step x += x·(2^60 − n·x) / 2^60 squares the error (n·x0 < 2^61; the correction's
+    /// factors stay below 2^32 and 2^17).
+    const fn refine(n: i64, t: i32, q: u32) -> Self {
+        let x0 = (q as u64) << 14; // < 2^32
         let e = (1i64 << 60) - mul_u32_wide(n as u32, x0 as u32) as i64;
         let c = e >> 29; // |c| < 2^17
         let corr = mul_u32_wide(x0 as u32, c.unsigned_abs() as u32) as i64 >> 31;
         let r = x0 as i64 + if c < 0 { -corr } else { corr };
-        Some(Self { r, t })
+        Self { r, t }
     }
 
     /// `v · 2^k / d`, rounded toward zero (within one step), for |v| < 2^62; `None` beyond `i64`.
@@ -322,6 +412,59 @@ mod tests {
                 "{d}: {got} vs {exact}"
             );
         }
+    }
+
+    #[test]
+    fn fast_reciprocal_is_the_exact_quotient() {
+        // Every divisor of the fast range, and the edges around it, against the library division.
+        for d in (1u32..1 << 17).chain([u32::MAX, (1 << 31) + 5, 0]) {
+            let want = u32::MAX.checked_div(d).unwrap_or(u32::MAX);
+            assert_eq!(recip_u32_max(d), want, "d = {d}");
+        }
+    }
+
+    #[test]
+    fn reciprocal_and_its_constant_form_agree() {
+        let mut d = 1i64;
+        while d < 1 << 62 {
+            for v in [d, d + 1, d + d / 3 + 7, d / 2 * 3] {
+                let (a, b) = (Recip::new(v), Recip::new_const(v));
+                assert_eq!(a.map(|r| (r.r, r.t)), b.map(|r| (r.r, r.t)), "d = {v}");
+            }
+            d += d / 2 + 1;
+        }
+        for v in [0i64, -1, 1 << 62, i64::MAX] {
+            assert!(Recip::new(v).is_none() && Recip::new_const(v).is_none());
+        }
+    }
+
+    #[test]
+    fn magnitude_span_answers_range_questions() {
+        let within = |v: &[i32], k: u32| {
+            v.iter()
+                .all(|&x| (-(1i64 << k)..(1i64 << k)).contains(&i64::from(x)))
+        };
+        let mut x = 0x1234_5678u32;
+        for len in [0usize, 1, 3, 4, 5, 17, 64] {
+            for (k, wider) in [0u32, 5, 23, 25, 30]
+                .into_iter()
+                .flat_map(|k| [(k, 0), (k, 1)])
+            {
+                // Values within ±2^k, or within ±2^(k+1) (some out of range).
+                let v: std::vec::Vec<i32> = (0..len)
+                    .map(|_| {
+                        x ^= x << 13;
+                        x ^= x >> 17;
+                        x ^= x << 5;
+                        (x as i32) >> (31 - k - wider)
+                    })
+                    .collect();
+                assert_eq!(magnitude_span(&v) < 1 << k, within(&v, k), "{v:?} k {k}");
+            }
+        }
+        assert_eq!(magnitude_span(&[-(1 << 23)]), (1 << 23) - 1);
+        assert_eq!(magnitude_span(&[1 << 23]), 1 << 23);
+        assert_eq!(magnitude_span(&[i32::MIN, 0]), i32::MAX as u32);
     }
 
     #[test]

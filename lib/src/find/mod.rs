@@ -155,18 +155,21 @@ pub fn find_peaks(
         fit: scratch_fit,
     } = work;
     mask.clear();
-    blocks.measure_in_place(frame, flag, mask);
+    // One range pass for both 32-bit paths: the noise blocks' (±2^23) and the smoothing's (±2^25).
+    let span = math::magnitude_span(frame);
+    blocks.measure_known(frame, flag, mask, span < 1 << 23);
     let mut nm = blocks.model(shot).unwrap_or(noise::fallback(shot));
     let mut truncated = false;
     // Two looks: the first finds the lines, the second re-estimates the noise away from them (dense
     // strong lines inflate every block's second differences) and, when that moved the model by more
     // than 1/8, detects again with the better thresholds.
-    let narrow = frame
-        .iter()
-        .all(|&v| (-detect::NARROW..=detect::NARROW).contains(&v));
+    let narrow = span < detect::NARROW.unsigned_abs();
+    // The first measurement saw every flag; the second (masked) one may not.
+    let all_trusted = blocks.all_trusted();
     // The baseline and the smoothed residual are taken once: the noise model only sets the
     // baseline's clip level, which the lines clear by far, while detection thresholds follow it.
-    baseline::estimate_baseline(frame, flag, &nm, 2 * fwhm_max_px, base, tmp);
+    let clean = all_trusted && span < 1 << 23;
+    baseline::estimate_baseline_known(frame, flag, &nm, 2 * fwhm_max_px, base, tmp, clean);
     // The baseline is made of means of frame values: within the frame's range.
     detect::smooth_residual_known(frame, base, tmp, narrow);
     for look in 0..2 {
@@ -286,7 +289,11 @@ pub fn find_peaks(
     crate::sort::sort_by_key(out, |p| p.center_px_q16);
     mark_blends(out, cfg.blend_fwhm_q8);
 
-    let untrusted = flag.iter().filter(|&&f| flags::is_untrusted(f)).count();
+    let untrusted = if all_trusted {
+        0
+    } else {
+        flag.iter().filter(|&&f| flags::is_untrusted(f)).count()
+    };
     let mid_level = median_of_base(base, tmp);
     Ok(FindReport {
         pixels: u16::try_from(n).unwrap_or(u16::MAX),

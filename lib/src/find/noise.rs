@@ -46,11 +46,18 @@ impl NoiseModel {
     #[inline]
     pub fn var_q8(&self, level: i64) -> i64 {
         let light = level.saturating_sub(self.zero_light_level).max(0);
+        let k = self.shot_var_per_unit_q16;
         // light < 2^31 keeps the product below 2^63 (the per-pixel case; i128 on M0 is a library call).
-        let shot = if light < 1 << 31 {
-            (super::math::mul_u32_wide(light as u32, self.shot_var_per_unit_q16) >> 8) as i64
+        let shot = if light < 1 << 16 {
+            // l · κ = (l · κ_hi) · 2^16 + l · κ_lo with both products in 32 bits, and the shift by 8
+            // splits the same way: exactly the wide product's, in two multiplies.
+            let l = light as u32;
+            let (hi, lo) = (l * (k >> 16), l * (k & 0xffff));
+            i64::from(hi) * 256 + i64::from(lo >> 8)
+        } else if light < 1 << 31 {
+            (super::math::mul_u32_wide(light as u32, k) >> 8) as i64
         } else {
-            wide_shot(light, self.shot_var_per_unit_q16)
+            wide_shot(light, k)
         };
         self.floor_var_q8.saturating_add(shot).max(1)
     }
@@ -113,6 +120,9 @@ pub struct NoiseBlocks {
     n: usize,
     /// Whether the frame is within ±[`NARROW`] (checked once, by [`NoiseBlocks::measure`]).
     narrow: bool,
+    /// Whether the last full measurement took every block's plain sums, which it does only when no
+    /// pixel of the frame is untrusted.
+    all_trusted: bool,
 }
 
 impl Default for NoiseBlocks {
@@ -137,6 +147,7 @@ impl NoiseBlocks {
             blocks: [Block::EMPTY; MAX_BLOCKS],
             n: 0,
             narrow: false,
+            all_trusted: false,
         }
     }
 
@@ -145,10 +156,29 @@ impl NoiseBlocks {
     ///
     /// Loop bound: as for [`measure`](Self::measure).
     pub fn measure_in_place(&mut self, frame: &[i32], flag: &[u8], mask: &LineMask) {
-        self.n = frame.len().min(MAX_PIXELS).div_ceil(BLOCK_PX);
         // ADC frames: sums of 64 values and their second differences stay inside 32 bits.
-        self.narrow = frame.iter().all(|&v| (-NARROW..=NARROW).contains(&v));
-        self.refresh(frame, flag, mask, false);
+        let narrow = frame.iter().all(|&v| (-NARROW..=NARROW).contains(&v));
+        self.measure_known(frame, flag, mask, narrow);
+    }
+
+    /// [`measure_in_place`](Self::measure_in_place) when the caller knows whether `frame` is within
+    /// ±2^23 (`narrow`; `false` is always safe, only slower — both paths give the same blocks).
+    pub(crate) fn measure_known(
+        &mut self,
+        frame: &[i32],
+        flag: &[u8],
+        mask: &LineMask,
+        narrow: bool,
+    ) {
+        self.n = frame.len().min(MAX_PIXELS).div_ceil(BLOCK_PX);
+        self.narrow = narrow;
+        self.all_trusted = self.refresh(frame, flag, mask, false);
+    }
+
+    /// Whether the last measurement found every pixel of the frame trusted (see [`flags`]) on its
+    /// fast path; `false` also when it could not tell (a wide frame, a mask): then count.
+    pub(crate) fn all_trusted(&self) -> bool {
+        self.all_trusted
     }
 
     /// Re-measures the blocks whose pixels (or the pixel on either side) `mask` touches; `frame` must
@@ -159,9 +189,12 @@ impl NoiseBlocks {
         self.refresh(frame, flag, mask, true);
     }
 
-    fn refresh(&mut self, frame: &[i32], flag: &[u8], mask: &LineMask, only_masked: bool) {
+    /// Returns whether every block took the plain sums (then no pixel of blocks, nor the pixel on
+    /// either side, is untrusted).
+    fn refresh(&mut self, frame: &[i32], flag: &[u8], mask: &LineMask, only_masked: bool) -> bool {
         let n = frame.len().min(MAX_PIXELS);
         let narrow = self.narrow;
+        let mut all_fast = self.n > 0 && n == frame.len();
         for (bi, blk) in self.blocks.iter_mut().enumerate().take(self.n) {
             let start = bi * BLOCK_PX;
             let end = (start + BLOCK_PX).min(n);
@@ -186,9 +219,11 @@ impl NoiseBlocks {
             *blk = if let Some(b) = fast {
                 b
             } else {
+                all_fast = false;
                 block_stats(frame, flag, mask, start, end)
             };
         }
+        all_fast
     }
 
     /// The noise model fitted to the blocks; `None` when no block is usable. `known_shot_q16` fixes κ.
@@ -334,7 +369,7 @@ fn block_stats_clear(frame: &[i32], flag: &[u8], start: usize, end: usize) -> Op
 /// Second differences of a full block away from the frame's ends (one per pixel).
 const FULL_ND: u32 = BLOCK_PX as u32;
 /// Their reciprocal, made once.
-const FULL_ND_RECIP: Recip = match Recip::new(FULL_ND as i64) {
+const FULL_ND_RECIP: Recip = match Recip::new_const(FULL_ND as i64) {
     Some(r) => r,
     None => Recip::ONE,
 };
@@ -529,6 +564,27 @@ mod tests {
     use super::*;
 
     /// The plain sums of clear blocks are the careful pass's.
+    #[test]
+    fn variance_split_products_are_the_wide_product() {
+        let mut x = 0x6a09_e667u32;
+        for _ in 0..20_000 {
+            x ^= x << 13;
+            x ^= x >> 17;
+            x ^= x << 5;
+            let k = if x & 1 == 0 { x } else { x >> (x % 32) };
+            let level = i64::from(x.rotate_left(7) >> (x % 24)) - 1000;
+            let m = NoiseModel {
+                floor_var_q8: i64::from(x % 5000),
+                zero_light_level: 0,
+                shot_var_per_unit_q16: k,
+                shot_from_data: false,
+            };
+            let light = level.max(0);
+            let want = (m.floor_var_q8 + ((i128::from(light) * i128::from(k)) >> 8) as i64).max(1);
+            assert_eq!(m.var_q8(level), want, "level {level} κ {k}");
+        }
+    }
+
     #[test]
     fn clear_blocks_equal_the_careful_ones() {
         let mut rng = Rng::new(6);

@@ -267,8 +267,25 @@ impl Reciprocal {
         }
     }
 
+    /// The reciprocal of `den` (clamped to 1 … 2^16): from [`ODD_WIDTHS`] for the box widths
+    /// (odd, ≤ [`RING`]), else [`Reciprocal::compute`] (the same value).
     fn new(den: u32) -> Self {
-        let den = den.clamp(1, 1 << 16);
+        if den % 2 == 1 {
+            if let Some(&r) = ODD_WIDTHS.get((den / 2) as usize) {
+                return r;
+            }
+        }
+        Self::compute(den)
+    }
+
+    const fn compute(den: u32) -> Self {
+        let den = if den < 1 {
+            1
+        } else if den > 1 << 16 {
+            1 << 16
+        } else {
+            den
+        };
         let s = 31 + (32 - (den - 1).leading_zeros());
         if den == 1 {
             // Never used for the quotient (den = 1 divides by returning the value).
@@ -280,14 +297,35 @@ impl Reciprocal {
         let (q1, r1) = (hi / den, hi % den);
         let low = r1 << 16; // r1 < den ≤ 2^16
         let (q0, r0) = (low / den, low % den);
-        let m = (u64::from(q1) << 16) + u64::from(q0) + u64::from(r0 != 0);
+        let m = ((q1 as u64) << 16) + q0 as u64 + (r0 != 0) as u64;
         Self {
             den,
-            m: u32::try_from(m).unwrap_or(u32::MAX),
+            m: if m > u32::MAX as u64 {
+                u32::MAX
+            } else {
+                m as u32
+            },
             s,
         }
     }
+}
 
+/// [`Reciprocal`]s of the odd widths 1, 3, … , [`RING`] − 1, made at compile time: the boxes rebuild
+/// one at every edge step, and two library divisions there cost more than the box itself on
+/// 1/16-size rows.
+const ODD_WIDTHS: [Reciprocal; RING / 2] = odd_widths();
+
+const fn odd_widths() -> [Reciprocal; RING / 2] {
+    let mut t = [Reciprocal { den: 1, m: 0, s: 0 }; RING / 2];
+    let mut i = 0;
+    while i < RING / 2 {
+        t[i] = Reciprocal::compute(2 * i as u32 + 1);
+        i += 1;
+    }
+    t
+}
+
+impl Reciprocal {
     /// `num / den` rounded half away from zero (the same integers as a plain rounding division).
     fn div_round(&self, num: i64) -> i64 {
         let a = num.unsigned_abs().saturating_add(u64::from(self.den / 2));
@@ -315,6 +353,14 @@ mod tests {
     use super::*;
 
     /// The two-digit reciprocal is the 64-bit ceiling division's.
+    #[test]
+    fn tabulated_reciprocals_are_the_computed_ones() {
+        for d in 0..70_000u32 {
+            let (a, b) = (Reciprocal::new(d), Reciprocal::compute(d));
+            assert_eq!((a.den, a.m, a.s), (b.den, b.m, b.s), "den {d}");
+        }
+    }
+
     #[test]
     fn reciprocal_is_the_ceiling_of_two_to_the_s() {
         for den in (2u32..=(1 << 16))
