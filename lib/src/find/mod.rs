@@ -208,7 +208,8 @@ pub fn find_peaks(
         }
     }
     let candidates = u16::try_from(cands.len()).unwrap_or(u16::MAX);
-    detect::thin(cands, cfg.min_separation_px_q8);
+    // The mask is free once the looks are done: it holds the kept candidates' pixels.
+    detect::thin_marked(cands, cfg.min_separation_px_q8, mask);
     if cands.len() > MAX_PEAKS {
         truncated = true;
         cands.truncate(MAX_PEAKS);
