@@ -291,21 +291,69 @@ pub fn push_strongest<const N: usize>(list: &mut Vec<Candidate, N>, c: Candidate
 
 /// Keeps, strongest first, only candidates at least `min_sep_q8` px (Q8) from every stronger one kept.
 ///
-/// Loop bound: candidates² ≤ [`MAX_CANDIDATES`]² (insertion sort, then the pairwise check).
+/// Loop bound: a heap sort (≤ 2 × 128 × 8 sift steps), then candidates² ≤ [`MAX_CANDIDATES`]²
+/// pairwise checks.
 pub fn thin(list: &mut Vec<Candidate, MAX_CANDIDATES>, min_sep_q8: u16) {
-    crate::sort::sort_by_key(list, |c| (core::cmp::Reverse(c.strength), c.pos));
-    // Compacted in place (no second list on the stack): the kept ones are a prefix.
+    sort_strongest_first(list);
+    let far = |kept: &[Candidate], c: &Candidate| {
+        kept.iter()
+            .all(|k| (k.pos.abs_diff(c.pos) << 8) >= usize::from(min_sep_q8))
+    };
+    compact(list, |kept, c| far(kept, c));
+}
+
+/// [`thin`] with the kept positions marked in `marks` (cleared first; left holding them), so each
+/// candidate looks at the ≤ 2·D + 1 pixels around it instead of at every kept one, D < 8 px being
+/// the largest distance that counts as too close (the same list as [`thin`]; wider separations
+/// take its pairwise check).
+///
+/// Loop bound: a heap sort, then ≤ [`MAX_CANDIDATES`] × 15 mask bits.
+pub(crate) fn thin_marked(
+    list: &mut Vec<Candidate, MAX_CANDIDATES>,
+    min_sep_q8: u16,
+    marks: &mut super::mask::LineMask,
+) {
+    // Too close: |Δ| · 256 < min_sep, i.e. |Δ| ≤ D = ⌈min_sep / 256⌉ − 1.
+    let Some(d) = usize::from(min_sep_q8).div_ceil(256).checked_sub(1) else {
+        // No separation: every candidate is kept.
+        sort_strongest_first(list);
+        return;
+    };
+    if d >= 8 || list.iter().any(|c| c.pos >= crate::condition::MAX_PIXELS) {
+        thin(list, min_sep_q8);
+        return;
+    }
+    sort_strongest_first(list);
+    marks.clear();
     let mut kept = 0usize;
     for idx in 0..list.len() {
         let Some(c) = list.get(idx).copied() else {
             break;
         };
-        let far = list
-            .get(..kept)
-            .unwrap_or(&[])
-            .iter()
-            .all(|k| (k.pos.abs_diff(c.pos) << 8) >= usize::from(min_sep_q8));
-        if far {
+        // The marks stand for the kept prefix.
+        if !(c.pos.saturating_sub(d)..=c.pos + d).any(|j| marks.is_set(j)) {
+            if let Some(slot) = list.get_mut(kept) {
+                *slot = c;
+            }
+            kept += 1;
+            marks.mark(c.pos, 0);
+        }
+    }
+    list.truncate(kept);
+}
+
+/// Keeps, in order, the entries `keep(kept so far, entry)` accepts, compacted in place (no second
+/// list on the stack): the kept ones are a prefix. Loop bound: one pass.
+fn compact(
+    list: &mut Vec<Candidate, MAX_CANDIDATES>,
+    keep: impl Fn(&[Candidate], &Candidate) -> bool,
+) {
+    let mut kept = 0usize;
+    for idx in 0..list.len() {
+        let Some(c) = list.get(idx).copied() else {
+            break;
+        };
+        if keep(list.get(..kept).unwrap_or(&[]), &c) {
             if let Some(slot) = list.get_mut(kept) {
                 *slot = c;
             }
@@ -313,6 +361,60 @@ pub fn thin(list: &mut Vec<Candidate, MAX_CANDIDATES>, min_sep_q8: u16) {
         }
     }
     list.truncate(kept);
+}
+
+/// Longest candidate list [`sort_strongest_first`] sorts by insertion.
+const SHORT_SORT: usize = 24;
+
+/// The order [`thin`] walks: strength descending, then position ascending — one total order
+/// (candidates sit at distinct pixels), so this heap sort gives the list an insertion sort would,
+/// in O(n log n) instead of the ~n²/4 swaps that made a full list of 128 cost ~80 k instructions.
+fn sort_strongest_first(v: &mut [Candidate]) {
+    let key = |c: &Candidate| (core::cmp::Reverse(c.strength), c.pos);
+    let n = v.len();
+    if n <= SHORT_SORT {
+        // Short lists (a typical frame's): the insertion sort's few swaps are cheaper.
+        crate::sort::sort_by_key(v, key);
+        return;
+    }
+    // Sifts `root` down the max-heap `v[..end]`; each step at least doubles `root` (≤ 64 steps).
+    let sift = |v: &mut [Candidate], mut root: usize, end: usize| {
+        for _ in 0..usize::BITS {
+            let mut child = 2 * root + 1;
+            if child >= end {
+                break;
+            }
+            let right_larger = child + 1 < end
+                && matches!((v.get(child), v.get(child + 1)), (Some(a), Some(b)) if key(a) < key(b));
+            if right_larger {
+                child += 1;
+            }
+            match (v.get(root), v.get(child)) {
+                (Some(r), Some(c)) if key(r) < key(c) => swap_entries(v, root, child),
+                _ => break,
+            }
+            root = child;
+        }
+    };
+    for start in (0..n / 2).rev() {
+        sift(v, start, n);
+    }
+    for end in (1..n).rev() {
+        swap_entries(v, 0, end);
+        sift(v, 0, end);
+    }
+}
+
+/// Swaps two entries; out-of-range indices leave `v` as it is (`slice::swap` keeps a panic path).
+fn swap_entries(v: &mut [Candidate], a: usize, b: usize) {
+    if let (Some(&x), Some(&y)) = (v.get(a), v.get(b)) {
+        if let Some(s) = v.get_mut(a) {
+            *s = y;
+        }
+        if let Some(s) = v.get_mut(b) {
+            *s = x;
+        }
+    }
 }
 
 #[cfg(test)]
@@ -479,6 +581,51 @@ mod tests {
         let mut s: std::vec::Vec<i32> = v.iter().map(|c| c.strength).collect();
         s.sort();
         assert_eq!(s, [7, 9]);
+    }
+
+    #[test]
+    fn heap_sort_and_marked_thinning_agree_with_the_plain_ones() {
+        let mut x = 0x1234_abcdu32;
+        let mut marks = super::super::mask::LineMask::new();
+        for len in [0usize, 1, 2, 3, 17, 64, 127, 128] {
+            for spread in [8u32, 300, 4096] {
+                let mut v: Vec<Candidate, MAX_CANDIDATES> = Vec::new();
+                for _ in 0..len {
+                    x ^= x << 13;
+                    x ^= x >> 17;
+                    x ^= x << 5;
+                    let pos = (x % spread) as usize;
+                    if v.iter().all(|c| c.pos != pos) {
+                        let strength = ((x >> 12) % 50) as i32 - 10;
+                        v.push(Candidate { pos, strength }).unwrap();
+                    }
+                }
+                let mut want = v.clone();
+                crate::sort::sort_by_key(&mut want, |c| (core::cmp::Reverse(c.strength), c.pos));
+                let mut got = v.clone();
+                sort_strongest_first(&mut got);
+                assert_eq!(got, want, "sort len {len}");
+                for sep in [0u16, 1, 255, 256, 384, 512, 1000, 2047, 2048, 4000] {
+                    let (mut a, mut b) = (v.clone(), v.clone());
+                    // The plain thinning, written out as before: insertion sort, pairwise check.
+                    crate::sort::sort_by_key(&mut a, |c| (core::cmp::Reverse(c.strength), c.pos));
+                    let mut kept: std::vec::Vec<Candidate> = std::vec::Vec::new();
+                    for c in a.iter() {
+                        if kept
+                            .iter()
+                            .all(|k| (k.pos.abs_diff(c.pos) << 8) >= usize::from(sep))
+                        {
+                            kept.push(*c);
+                        }
+                    }
+                    thin_marked(&mut b, sep, &mut marks);
+                    assert_eq!(b.as_slice(), kept.as_slice(), "len {len} sep {sep}");
+                    let mut c = v.clone();
+                    thin(&mut c, sep);
+                    assert_eq!(c.as_slice(), kept.as_slice(), "len {len} sep {sep}");
+                }
+            }
+        }
     }
 
     #[test]

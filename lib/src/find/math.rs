@@ -557,6 +557,21 @@ mod tests {
     }
 
     #[test]
+    fn wide_products_are_exact_on_random_words() {
+        let mut x = 0x243f_6a88_85a3_08d3u64;
+        for _ in 0..200_000 {
+            x ^= x << 13;
+            x ^= x >> 7;
+            x ^= x << 17;
+            // Whole words and words with many top or bottom bits clear.
+            let (a, b) = ((x >> 32) as u32, x as u32);
+            for (a, b) in [(a, b), (a >> (b % 32), b), (a, b << (a % 32))] {
+                assert_eq!(mul_u32_wide(a, b), u64::from(a) * u64::from(b), "{a} {b}");
+            }
+        }
+    }
+
+    #[test]
     fn wide_products_are_exact() {
         let probes = [
             0u32,

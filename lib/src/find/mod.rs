@@ -10,7 +10,7 @@
 //!    its Fisher σ, FWHM, height, area.
 //!
 //! Every per-pixel pass runs in 32-bit arithmetic on ADC frames (values within ±2^23): the
-//! M0 build spends ~650 instructions per pixel on a 2048-px frame of a dozen lines, about a third
+//! M0 build spends ~540 instructions per pixel on a 2048-px frame of a dozen lines, over a third
 //! of them in the per-line fits (`bash boards/measure.sh` prints the pieces as `find_parts`).
 //!
 //! # Scales
@@ -208,7 +208,8 @@ pub fn find_peaks(
         }
     }
     let candidates = u16::try_from(cands.len()).unwrap_or(u16::MAX);
-    detect::thin(cands, cfg.min_separation_px_q8);
+    // The mask is free once the looks are done: it holds the kept candidates' pixels.
+    detect::thin_marked(cands, cfg.min_separation_px_q8, mask);
     if cands.len() > MAX_PEAKS {
         truncated = true;
         cands.truncate(MAX_PEAKS);
