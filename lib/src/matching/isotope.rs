@@ -93,8 +93,10 @@ pub struct PairWindow<'a> {
 /// Share from a two-Gaussian fit with fixed separation. `None` when the frame does not constrain it
 /// (no signal, singular fit).
 ///
-/// Work: ≤ 129 + 3 × 33 + 3 × 129 = 615 pair steps and ≤ 214 + 5 × 33 = 379 single-line steps, each
-/// over ≤ 64 px with ≤ 2 pixel-averaged Gaussians of 3 exponentials, then one 3 × 3 Fisher pass.
+/// Work: ≤ 129 + 3 × 11 + 257 = 419 pair steps and ≤ 214 + 5 × 11 = 269 single-line steps, each
+/// over ≤ 64 px, then one 3 × 3 Fisher pass. On the 1/16- and 1/32-px grids the line shapes come
+/// from ≤ 16 + 32 row pairs and ≤ 16 rows of ≤ 40 values ([`scan_pairs`]); elsewhere a pixel costs
+/// ≤ 2 pixel-averaged Gaussians of 3 exponentials.
 pub fn share_by_profile(w: &PairWindow<'_>) -> Option<ShareEstimate> {
     let sigma = w.sigma_px_q16.max(1 << 12) as i64;
     let lo_c = w.a_px_q16.min(w.b_px_q16) as i64;
@@ -114,41 +116,9 @@ pub fn share_by_profile(w: &PairWindow<'_>) -> Option<ShareEstimate> {
         return None;
     }
     let range = (w.shift_range_px_q16 as i64).clamp(0, 4 << 16);
-    let steps = (2 * range / 4096) as i32;
     // Σ r² is the same for every shift, width and the mirrored pair (same frame and window).
     let srr = rr_sum(w, first, last)?;
-    let mut best: Option<(i128, Sums, i64)> = None;
-    // One line shape per width searched (each takes two reciprocals).
-    let widths = [sigma * 23 / 25, sigma, sigma * 27 / 25].map(|sg| (sg, LineShape::new(sg)));
-    let [_, (_, shape), _] = widths;
-    for s in 0..=steps {
-        let shift = -range + s as i64 * 4096;
-        let sums = sums_at(w, first, last, shift, &shape, srr)?;
-        let chi = sums.chi2();
-        if best.as_ref().is_none_or(|(c, _, _)| chi < *c) {
-            best = Some((chi, sums, shift));
-        }
-    }
-    // Refine the shift on a 1/256-px grid around the best coarse step: an off-grid shift would
-    // otherwise leak into the share (share × separation mimics a shift).
-    // The width is refined too (±8 %): a width off by a few per cent biases the share far more than
-    // the noise does.
-    let (_, _, coarse) = best?;
-    let mut sigma_best = (sigma, shape);
-    for (sg, shape) in widths {
-        let fine = if range > 0 { 16i64 } else { 0 };
-        for s in -fine..=fine {
-            let shift = coarse + s * 256;
-            let sums = sums_at(w, first, last, shift, &shape, srr)?;
-            let chi = sums.chi2();
-            if best.as_ref().is_none_or(|(c, _, _)| chi < *c) {
-                best = Some((chi, sums, shift));
-                sigma_best = (sg, shape);
-            }
-        }
-    }
-    let (sigma, shape) = sigma_best;
-    let (chi2, s, shift) = best?;
+    let (chi2, s, shift, shape) = best_pair(w, first, last, sigma, range, srr)?;
     let (a, b) = s.amplitudes_q8()?;
     let n = last - first + 1;
     let total = a + b;
@@ -162,43 +132,135 @@ pub fn share_by_profile(w: &PairWindow<'_>) -> Option<ShareEstimate> {
     // unknown isotope.
     let sep = (hi_c - lo_c).max(1);
     if 4 * range >= 3 * sep {
-        let mut single: Option<(i128, i64)> = None;
-        let (c0, c1) = (lo_c - range, hi_c + range);
-        let mut c = c0;
-        while c <= c1 {
-            let chi = single_chi2(w, first, last, c, &shape, srr)?;
-            if single.is_none_or(|(x, _)| chi < x) {
-                single = Some((chi, c));
-            }
-            c += 4096;
-        }
-        // The lone line gets its own width freedom (±16 %): a line slightly wider than configured
-        // must not pass for a pair.
-        if let Some((_, at)) = single {
-            for sg in [
-                sigma * 21 / 25,
-                sigma * 23 / 25,
-                sigma,
-                sigma * 27 / 25,
-                sigma * 29 / 25,
-            ] {
-                let shape = LineShape::new(sg);
-                for st in -16..=16i64 {
-                    let chi = single_chi2(w, first, last, at + st * 256, &shape, srr)?;
-                    if single.is_none_or(|(x, _)| chi < x) {
-                        single = Some((chi, at + st * 256));
-                    }
-                }
-            }
-        }
-        if single.is_some_and(|(x, _)| x.saturating_sub(chi2) < 25 * s2) {
+        let single = best_lone_line(w, first, last, (lo_c, hi_c), range, &shape, srr)?;
+        if single.is_some_and(|x| x.saturating_sub(chi2) < 25 * s2) {
             return None;
         }
     }
     // A companion on the wrong side — the minor line reflected about the major one — fitting about as
     // well (Δχ² < 25 s²) means the fit used the companion for line-shape mismatch (wings, width), not
     // for a second isotope. Position-free, that leaves one line of unknown isotope.
-    let mirror = if a.abs() >= b.abs() {
+    let best_mirror = best_mirrored(w, a.abs() >= b.abs(), first, last, range, &shape, srr)?;
+    let companion_is_shape = best_mirror.is_some_and(|m| m.saturating_sub(chi2) < 25 * s2);
+    if companion_is_shape && 4 * range >= 3 * sep {
+        return None;
+    }
+    share_of_fit(w, first, last, shift, &shape, (a, b), range > 0, s2)
+}
+
+/// The pair fit's least χ² over shift and width: its sums, shift (px, Q16) and line shape. Out of
+/// line, like the two tests after it, so the caller's frame and theirs do not stack.
+#[inline(never)]
+fn best_pair(
+    w: &PairWindow<'_>,
+    first: i64,
+    last: i64,
+    sigma: i64,
+    range: i64,
+    srr: i128,
+) -> Option<(i128, Sums, i64, LineShape)> {
+    let steps = 2 * range / 4096;
+    let mut best: Option<(i128, Sums, i64)> = None;
+    // One line shape per width searched (each takes two reciprocals).
+    let widths = [sigma * 23 / 25, sigma, sigma * 27 / 25].map(LineShape::new);
+    let [_, shape, _] = widths;
+    // Visited phase by phase (see [`scan_pairs`]): the first least χ² in ascending shift order is
+    // the least (χ², shift).
+    scan_pairs(
+        w,
+        first,
+        last,
+        &shape,
+        srr,
+        -range,
+        4096,
+        steps,
+        |shift, sums| {
+            let chi = sums.chi2();
+            if best
+                .as_ref()
+                .is_none_or(|(c, _, at)| chi < *c || (chi == *c && shift < *at))
+            {
+                best = Some((chi, *sums, shift));
+            }
+        },
+    )?;
+    // Refine the shift on a 1/256-px grid around the best coarse step: an off-grid shift would
+    // otherwise leak into the share (share × separation mimics a shift).
+    // The width is refined too (±8 %): a width off by a few per cent biases the share far more than
+    // the noise does.
+    let (_, _, coarse) = best?;
+    let mut shape_best = shape;
+    for shape in widths {
+        let fine = if range > 0 { 16i64 } else { 0 };
+        let (chi, sums, s) = least_near(fine, |s| {
+            let sums = sums_at(w, first, last, coarse + s * 256, &shape, srr)?;
+            Some((sums.chi2(), sums))
+        })?;
+        if best.as_ref().is_none_or(|(c, _, _)| chi < *c) {
+            best = Some((chi, sums, coarse + s * 256));
+            shape_best = shape;
+        }
+    }
+    let (chi2, sums, shift) = best?;
+    Some((chi2, sums, shift, shape_best))
+}
+
+/// Least χ² of one free line of either isotope anywhere the pair `lo_c ..= hi_c` (px, Q16) could sit
+/// over the shift `range`, with its own width freedom (±16 % of `shape`'s σ: a line slightly wider
+/// than configured must not pass for a pair).
+#[inline(never)]
+fn best_lone_line(
+    w: &PairWindow<'_>,
+    first: i64,
+    last: i64,
+    (lo_c, hi_c): (i64, i64),
+    range: i64,
+    shape: &LineShape,
+    srr: i128,
+) -> Option<Option<i128>> {
+    let mut single: Option<(i128, i64)> = None;
+    let (c0, c1) = (lo_c - range, hi_c + range);
+    let count = (c1 - c0).max(0) / 4096;
+    scan_singles(w, first, last, shape, srr, c0, 4096, count, |c, chi| {
+        if single.is_none_or(|(x, at)| chi < x || (chi == x && c < at)) {
+            single = Some((chi, c));
+        }
+    })?;
+    if let Some((_, at)) = single {
+        let sigma = shape.sigma_q16;
+        for sg in [
+            sigma * 21 / 25,
+            sigma * 23 / 25,
+            sigma,
+            sigma * 27 / 25,
+            sigma * 29 / 25,
+        ] {
+            let shape = LineShape::new(sg);
+            let (chi, (), st) = least_near(16, |st| {
+                Some((single_chi2(w, first, last, at + st * 256, &shape, srr)?, ()))
+            })?;
+            if single.is_none_or(|(x, _)| chi < x) {
+                single = Some((chi, at + st * 256));
+            }
+        }
+    }
+    Some(single.map(|(x, _)| x))
+}
+
+/// Least χ² over the shift `range` of the pair with its minor line reflected about the major one
+/// (`a_major`: a is the major line), on the 1/32-px grid from −range on (the coarse steps ± 1/32 px).
+#[inline(never)]
+fn best_mirrored(
+    w: &PairWindow<'_>,
+    a_major: bool,
+    first: i64,
+    last: i64,
+    range: i64,
+    shape: &LineShape,
+    srr: i128,
+) -> Option<Option<i128>> {
+    let mirror = if a_major {
         PairWindow {
             b_px_q16: 2 * w.a_px_q16 - w.b_px_q16,
             ..*w
@@ -210,23 +272,42 @@ pub fn share_by_profile(w: &PairWindow<'_>) -> Option<ShareEstimate> {
         }
     };
     let mut best_mirror: Option<i128> = None;
-    for st in 0..=steps {
-        let sh = -range + st as i64 * 4096;
-        for fine in [-2048i64, 0, 2048] {
-            if (sh + fine).abs() > range {
-                continue;
-            }
-            let c = sums_at(&mirror, first, last, sh + fine, &shape, srr)?.chi2();
+    scan_pairs(
+        &mirror,
+        first,
+        last,
+        shape,
+        srr,
+        -range,
+        2048,
+        2 * range / 2048,
+        |_, sums| {
+            let c = sums.chi2();
             best_mirror = Some(best_mirror.map_or(c, |m: i128| m.min(c)));
-        }
-    }
-    let companion_is_shape = best_mirror.is_some_and(|m| m.saturating_sub(chi2) < 25 * s2);
-    if companion_is_shape && 4 * range >= 3 * sep {
-        return None;
-    }
+        },
+    )?;
+    Some(best_mirror)
+}
+
+/// The share and its σ of the best pair fit (amplitudes `a`, `b` in Q8, residual variance `s2`).
+/// Out of line: its 128-bit covariance work keeps a large frame, which the searches above (and
+/// their division chains) then do not stack on.
+#[inline(never)]
+#[allow(clippy::too_many_arguments)]
+fn share_of_fit(
+    w: &PairWindow<'_>,
+    first: i64,
+    last: i64,
+    shift: i64,
+    shape: &LineShape,
+    (a, b): (i128, i128),
+    with_shift: bool,
+    s2: i128,
+) -> Option<ShareEstimate> {
+    let total = a + b;
     // The shift is a third parameter when it is searched: its freedom is what makes an unresolved
     // pair undeterminable, so the covariance comes from the full 3 × 3 Fisher matrix.
-    let f = fisher_at(w, first, last, shift, &shape, a >> 8, b >> 8, range > 0)?;
+    let f = fisher_at(w, first, last, shift, shape, a >> 8, b >> 8, with_shift)?;
     // Variances in Q16 (the square of the amplitudes' Q8).
     let (var_a, var_b, cov_ab) = amplitude_covariance(&f, s2 << 16)?;
     let share = mul_div_i128(b, 1_000_000, total)?;
@@ -330,15 +411,28 @@ fn single_chi2(
     shape: &LineShape,
     srr: i128,
 ) -> Option<i128> {
-    let (mut sgg, mut srg) = (0i128, 0i128);
     // Pixels where the shape is 0 add nothing to Σg² and Σrg.
     let (lo, hi) = shape.support(first, last, c_q16, c_q16);
+    single_from(w, lo, hi, srr, |i| shape.g(i << 16, c_q16))
+}
+
+/// [`single_chi2`] over the pixels `lo ..= hi` with the shape's value at pixel `i` from `g`.
+fn single_from(
+    w: &PairWindow<'_>,
+    lo: i64,
+    hi: i64,
+    srr: i128,
+    g: impl Fn(i64) -> i64,
+) -> Option<i128> {
+    // As in [`sums_from`]: g² ≤ 2^30 and |r·g| < 2^47 a pixel, so i64 sums are exact.
+    let (mut sgg, mut srg) = (0i64, 0i64);
     for i in lo..=hi {
-        let r = (*w.frame.get(i as usize)? as i128) - (*w.base.get(i as usize)? as i128);
-        let g = shape.g(i << 16, c_q16) as i128;
+        let r = i64::from(*w.frame.get(i as usize)?) - i64::from(*w.base.get(i as usize)?);
+        let g = g(i);
         sgg += g * g;
         srg += r * g;
     }
+    let (sgg, srg) = (i128::from(sgg), i128::from(srg));
     if sgg == 0 {
         return Some(srr);
     }
@@ -417,6 +511,8 @@ fn exp_neg_q16_q15(x_q16: i64) -> i64 {
 /// slope factor is a [`Recip`] taken once as well.
 #[derive(Clone, Copy)]
 struct LineShape {
+    /// The σ it was made for (px, Q16), as given: the lone-line test widens it.
+    sigma_q16: i64,
     /// 1/σ in Q14 (σ ≥ 2^12 Q16 px, so ≤ 2^18).
     inv_s_q14: i64,
     inv_s2: Recip,
@@ -450,6 +546,7 @@ impl LineShape {
         let s2 = s.saturating_mul(s).clamp(1, (1 << 62) - 1);
         let inv_s_q14 = inv.clamp(1, 1 << 18);
         Self {
+            sigma_q16,
             inv_s_q14,
             inv_s2: Recip::new(s2).unwrap_or(Recip::ONE),
             reach_q16: reach_q16(inv_s_q14),
@@ -515,32 +612,195 @@ fn sums_over(
     shape: &LineShape,
     srr: i128,
 ) -> Option<Sums> {
-    let mut s = Sums {
-        saa: 0,
-        sab: 0,
-        sbb: 0,
-        sra: 0,
-        srb: 0,
-        srr,
-    };
+    sums_from(w, lo, hi, srr, |i| {
+        (shape.g(i << 16, ca), shape.g(i << 16, cb))
+    })
+}
+
+/// [`sums_over`] with the two shapes' values at pixel `i` from `g`.
+fn sums_from(
+    w: &PairWindow<'_>,
+    lo: i64,
+    hi: i64,
+    srr: i128,
+    g: impl Fn(i64) -> (i64, i64),
+) -> Option<Sums> {
+    // Per pixel g² ≤ 2^30 and |r·g| < 2^47 (r is a difference of two i32): the sums of any window
+    // under 2^16 px fit i64, the same integers as i128 sums, and half the M0 instructions.
+    let (mut saa, mut sab, mut sbb, mut sra, mut srb) = (0i64, 0i64, 0i64, 0i64, 0i64);
     for i in lo..=hi {
         let r = i64::from(*w.frame.get(i as usize)?) - i64::from(*w.base.get(i as usize)?);
-        let p = i << 16;
-        // g ≤ 2^15 (so g·g < 2^31) and |r| < 2^33: every product fits i64, and the residual's
-        // are 32 × 32-bit where r fits 32 bits (all ADC frames).
-        let ga = shape.g(p, ca) as i32;
-        let gb = shape.g(p, cb) as i32;
-        s.saa += i128::from(ga * ga);
-        s.sab += i128::from(ga * gb);
-        s.sbb += i128::from(gb * gb);
+        // g ≤ 2^15 (so g·g < 2^31): the residual's products are 32 × 32-bit where r fits 32 bits
+        // (all ADC frames).
+        let (ga, gb) = g(i);
+        let (ga, gb) = (ga as i32, gb as i32);
+        saa += i64::from(ga * ga);
+        sab += i64::from(ga * gb);
+        sbb += i64::from(gb * gb);
         let (ra, rb) = match i32::try_from(r) {
             Ok(r32) => (mul_i32_wide(r32, ga), mul_i32_wide(r32, gb)),
             Err(_) => (r * i64::from(ga), r * i64::from(gb)),
         };
-        s.sra += i128::from(ra);
-        s.srb += i128::from(rb);
+        sra += ra;
+        srb += rb;
     }
-    Some(s)
+    Some(Sums {
+        saa: saa.into(),
+        sab: sab.into(),
+        sbb: sbb.into(),
+        sra: sra.into(),
+        srb: srb.into(),
+        srr,
+    })
+}
+
+/// The least `f(s)` over s = −`reach` ..= `reach` (a power of two, or 0) with its value and s,
+/// by halving steps: from the best so far, try ± `reach`, then ± `reach`/2, …, ± 1. Where f falls
+/// and then rises over the range (χ² of a shift or width within 1/16 px of a coarse minimum) that is
+/// the least of all 2·reach + 1 values (tested against the full scan), from 2·log2(reach) + 3
+/// evaluations instead of 2·reach + 1; ties keep the first found.
+fn least_near<T>(
+    reach: i64,
+    mut f: impl FnMut(i64) -> Option<(i128, T)>,
+) -> Option<(i128, T, i64)> {
+    let (c, t) = f(0)?;
+    let mut best = (c, t, 0i64);
+    let mut h = reach;
+    while h > 0 {
+        let at = best.2;
+        for s in [at - h, at + h] {
+            if s.abs() <= reach {
+                let (c, t) = f(s)?;
+                if c < best.0 {
+                    best = (c, t, s);
+                }
+            }
+        }
+        h >>= 1;
+    }
+    Some(best)
+}
+
+/// Longest row of shape values a grid scan keeps (px): a line of σ up to about 4 px (FWHM 9.5 px)
+/// over the window and the grid's whole-pixel moves; a wider line's scan falls back to the shape
+/// itself. Two rows are on the stack of the check's deepest path.
+const ROW_PX: usize = 40;
+
+/// A shape's values G(m) = g(m · 2^16, c0) (Q15) at whole pixels m = `lo` …: a centre moved by
+/// j whole pixels sees G(i − j) at pixel i, so every shift of a grid in one phase (the same
+/// fraction of a pixel) reads one row instead of three exponentials a pixel.
+struct Row {
+    lo: i64,
+    len: usize,
+    vals: [u16; ROW_PX],
+}
+
+impl Row {
+    const EMPTY: Row = Row {
+        lo: 0,
+        len: 0,
+        vals: [0; ROW_PX],
+    };
+
+    /// Fills the row for centre `c0` over pixels `m_lo ..= m_hi`, kept only where the shape can be
+    /// non-zero; false (and the row empty) when that is longer than [`ROW_PX`]. In place: a row
+    /// is ~100 B of stack.
+    fn fill(&mut self, shape: &LineShape, c0: i64, m_lo: i64, m_hi: i64) -> bool {
+        let (lo, hi) = shape.support(m_lo, m_hi, c0, c0);
+        let len = usize::try_from(hi - lo + 1).unwrap_or(0);
+        self.lo = lo;
+        if len > ROW_PX {
+            self.len = 0;
+            return false;
+        }
+        self.len = len;
+        for (k, v) in self.vals.iter_mut().take(len).enumerate() {
+            // 0 ≤ g ≤ 2^15.
+            *v = shape.g((lo + k as i64) << 16, c0).clamp(0, 1 << 15) as u16;
+        }
+        true
+    }
+
+    /// G(m); 0 off the row (where the shape is 0).
+    fn at(&self, m: i64) -> i64 {
+        match usize::try_from(m - self.lo) {
+            Ok(k) if k < self.len => i64::from(self.vals.get(k).copied().unwrap_or(0)),
+            _ => 0,
+        }
+    }
+}
+
+/// [`sums_at`] at every shift `lo_shift + s · step`, s = 0 ..= `count`, for `step` dividing 2^16,
+/// each handed to `visit` with its shift. The shifts are visited phase by phase (s ≡ φ mod
+/// 2^16 / step, ascending within a phase): one pair of [`Row`]s per phase gives every shift of it.
+/// The sums are those of [`sums_at`] (tested).
+#[allow(clippy::too_many_arguments)]
+fn scan_pairs(
+    w: &PairWindow<'_>,
+    first: i64,
+    last: i64,
+    shape: &LineShape,
+    srr: i128,
+    lo_shift: i64,
+    step: i64,
+    count: i64,
+    mut visit: impl FnMut(i64, &Sums),
+) -> Option<()> {
+    let phases = (65_536 / step.max(1)).max(1);
+    let (mut ra, mut rb) = (Row::EMPTY, Row::EMPTY);
+    for phase in 0..phases.min(count.saturating_add(1)) {
+        let moves = (count - phase) / phases;
+        let sh0 = lo_shift + phase * step;
+        let (ca0, cb0) = (w.a_px_q16 as i64 + sh0, w.b_px_q16 as i64 + sh0);
+        let rows =
+            ra.fill(shape, ca0, first - moves, last) && rb.fill(shape, cb0, first - moves, last);
+        for j in 0..=moves {
+            let shift = sh0 + j * 65_536;
+            let sums = if rows {
+                let (ca, cb) = (ca0 + j * 65_536, cb0 + j * 65_536);
+                let (lo, hi) = shape.support(first, last, ca.min(cb), ca.max(cb));
+                sums_from(w, lo, hi, srr, |i| (ra.at(i - j), rb.at(i - j)))?
+            } else {
+                sums_at(w, first, last, shift, shape, srr)?
+            };
+            visit(shift, &sums);
+        }
+    }
+    Some(())
+}
+
+/// [`single_chi2`] at every centre `lo_c + s · step`, s = 0 ..= `count`, phase by phase as in
+/// [`scan_pairs`] (tested to be the same values).
+#[allow(clippy::too_many_arguments)]
+fn scan_singles(
+    w: &PairWindow<'_>,
+    first: i64,
+    last: i64,
+    shape: &LineShape,
+    srr: i128,
+    lo_c: i64,
+    step: i64,
+    count: i64,
+    mut visit: impl FnMut(i64, i128),
+) -> Option<()> {
+    let phases = (65_536 / step.max(1)).max(1);
+    let mut row = Row::EMPTY;
+    for phase in 0..phases.min(count.saturating_add(1)) {
+        let moves = (count - phase) / phases;
+        let c0 = lo_c + phase * step;
+        let filled = row.fill(shape, c0, first - moves, last);
+        for j in 0..=moves {
+            let c = c0 + j * 65_536;
+            let chi = if filled {
+                let (lo, hi) = shape.support(first, last, c, c);
+                single_from(w, lo, hi, srr, |i| row.at(i - j))?
+            } else {
+                single_chi2(w, first, last, c, shape, srr)?
+            };
+            visit(c, chi);
+        }
+    }
+    Some(())
 }
 
 /// Σ r² over the window (it does not depend on the shift or width searched).
@@ -772,6 +1032,113 @@ mod tests {
             };
             assert_eq!(single_chi2(&w, first, last, ca, &shape, srr), Some(single));
         }
+    }
+
+    /// Halving steps find the least value of every sequence that falls and then rises (a convex one
+    /// and one with a plateau), as the full scan does, and at most 11 values are asked for.
+    #[test]
+    fn halving_search_finds_the_least_of_a_valley() {
+        let mut next = crate::test_rng::xorshift(0x3c79_ac49_2ba7_b653u64);
+        for _ in 0..2000 {
+            let m = (next() % 33) as i64 - 16;
+            let k = 1 + (next() % 50) as i128;
+            let flat = (next() % 4) as i64;
+            let v = |s: i64| k * i128::from(((s - m).abs() - flat).max(0)).pow(2);
+            let mut asked = 0;
+            let (c, (), s) = least_near(16, |s| {
+                asked += 1;
+                Some((v(s), ()))
+            })
+            .unwrap();
+            let full = (-16..=16).map(v).min().unwrap();
+            assert_eq!(c, full, "m {m} flat {flat}");
+            assert_eq!(v(s), c);
+            assert!(asked <= 11);
+        }
+        // reach 0: the one value.
+        assert_eq!(
+            least_near(0, |s| Some((i128::from(s) + 5, ()))).map(|r| r.0),
+            Some(5)
+        );
+    }
+
+    /// The phase-by-phase grid scans give, at every shift of the grid and in a visit of each, the
+    /// sums and χ² of the shift-by-shift calls (narrow lines through rows, wide ones through the
+    /// shape itself).
+    #[test]
+    fn grid_scans_are_the_shift_by_shift_sums() {
+        let mut bits = crate::test_rng::xorshift(0x6c8e_9cf5_7093_2b1du64);
+        let mut next = move |m: u64| bits() % m;
+        let fields = |s: &Sums| (s.saa, s.sab, s.sbb, s.sra, s.srb, s.srr);
+        let (mut by_rows, mut by_shape) = (0, 0);
+        for _ in 0..200 {
+            let f: std::vec::Vec<i32> = (0..100).map(|_| next(60_000) as i32 - 1_000).collect();
+            let base: std::vec::Vec<i32> = (0..100).map(|_| next(2_000) as i32).collect();
+            let a = (20 << 16) + next(60 << 16) as i32;
+            let w = PairWindow {
+                frame: &f,
+                base: &base,
+                a_px_q16: a,
+                b_px_q16: a + next(6 << 16) as i32 - (3 << 16),
+                sigma_px_q16: 4_096 + next(1_500_000) as i32,
+                shift_range_px_q16: 0,
+            };
+            let shape = LineShape::new(w.sigma_px_q16 as i64);
+            let (first, last) = (next(30) as i64, 40 + next(59) as i64);
+            let srr = rr_sum(&w, first, last).unwrap();
+            let step = [2048i64, 4096][next(2) as usize];
+            let count = next(257) as i64;
+            let lo = next(8 << 16) as i64 - (4 << 16);
+            let mut probe = Row::EMPTY;
+            if probe.fill(&shape, w.a_px_q16 as i64 + lo, first - 8, last) {
+                by_rows += 1;
+            } else {
+                by_shape += 1;
+            }
+            let mut seen = std::vec::Vec::new();
+            scan_pairs(
+                &w,
+                first,
+                last,
+                &shape,
+                srr,
+                lo,
+                step,
+                count,
+                |shift, sums| {
+                    let one = sums_at(&w, first, last, shift, &shape, srr).unwrap();
+                    assert_eq!(fields(sums), fields(&one), "shift {shift}");
+                    seen.push(shift);
+                },
+            )
+            .unwrap();
+            seen.sort_unstable();
+            let want: std::vec::Vec<i64> = (0..=count).map(|s| lo + s * step).collect();
+            assert_eq!(seen, want);
+            let mut seen = std::vec::Vec::new();
+            scan_singles(
+                &w,
+                first,
+                last,
+                &shape,
+                srr,
+                lo + a as i64,
+                step,
+                count,
+                |c, chi| {
+                    assert_eq!(
+                        Some(chi),
+                        single_chi2(&w, first, last, c, &shape, srr),
+                        "c {c}"
+                    );
+                    seen.push(c);
+                },
+            )
+            .unwrap();
+            assert_eq!(seen.len() as i64, count + 1);
+        }
+        // Both ways were taken.
+        assert!(by_rows > 50 && by_shape > 10, "{by_rows} {by_shape}");
     }
 
     /// Two Gaussians of σ = 1.2 px, 2.4 px apart, heights 3000 (a) and 1000 (b), on a flat base.
