@@ -5,8 +5,8 @@ use super::stage::Stage;
 use super::workspace::{MatchWork, Workspace, MAX_READINGS};
 use crate::bounded::collect_bounded;
 use crate::calibrate::{
-    identify_with, CalibrateError, HalfWidth, IdentifyConfig, IdentifyWork, ReferenceLine,
-    WavelengthMap, MAX_REFERENCE_LINES,
+    identify_with, mul_64x64, CalibrateError, HalfWidth, IdentifyConfig, IdentifyWork,
+    ReferenceLine, WavelengthMap, MAX_REFERENCE_LINES,
 };
 use crate::condition::{condition_frame, FrameSum, GainTable};
 use crate::find::{find_peaks, FindReport, Peak, PeakList};
@@ -647,8 +647,8 @@ impl Checker {
                     let Ok(measured) = m.map.wavelength_at_x(x) else {
                         continue;
                     };
-                    let slope = m.map.slope_at_x_by(x, &m.div).ok()?.unsigned_abs() as u128;
-                    let sigma_fm = ((pk.center_sigma_px_q16 as u128 * slope) >> 32) as u64;
+                    let slope = m.map.slope_at_x_by(x, &m.div).ok()?.unsigned_abs();
+                    let sigma_fm = (mul_64x64(pk.center_sigma_px_q16 as u64, slope) >> 32) as u64;
                     let _ = readings.push(BlendReading {
                         measured_fm: measured,
                         sigma_fm,
@@ -801,8 +801,8 @@ impl Checker {
             let Ok(measured) = measured else {
                 continue;
             };
-            let slope = slope as u128;
-            let c = (pk.center_sigma_px_q16 as u128 * slope) >> 32;
+            // σ_px · |slope| in 64 × 64-bit pieces: the u128 product.
+            let c = mul_64x64(pk.center_sigma_px_q16 as u64, slope) >> 32;
             let s = s as u128;
             // A line within 2.5 line widths of another feature (series-limit crowding) or sharing its
             // peak with another transition is identified, but its centre is pulled by the neighbour:
