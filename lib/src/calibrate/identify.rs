@@ -166,6 +166,10 @@ struct FitRoom {
     points: Vec<FitPoint, MAX_REFERENCE_LINES>,
     xs: Vec<i64, MAX_REFERENCE_LINES>,
     normal: [[i128; 9]; 4],
+    /// The last fit's map (λ, slope) at each point, and each peak's point plus one (0: none; zero
+    /// so that a `static` holding the work stays in `.bss`).
+    evals: [(i64, i64); MAX_REFERENCE_LINES],
+    point_of_peak: [u8; 64],
 }
 
 impl IdentifyWork {
@@ -177,6 +181,8 @@ impl IdentifyWork {
                 points: Vec::new(),
                 xs: Vec::new(),
                 normal: [[0; 9]; 4],
+                evals: [(0, 0); MAX_REFERENCE_LINES],
+                point_of_peak: [0; 64],
             },
             found: Identified {
                 fit: MapFit::ZERO,
@@ -943,9 +949,15 @@ fn refine(
                 == (f.center_px_q16, f.half_width_px_q16)
         };
         for (k, p) in peaks.iter().enumerate() {
-            let (lam, slope) = match axis.x.get(k) {
+            // A fitted peak's (λ, slope) on this map came with the fit (the same calls).
+            let fitted = room
+                .point_of_peak
+                .get(k)
+                .and_then(|&j| room.evals.get((j as usize).checked_sub(1)?));
+            let (lam, slope) = match (fitted, axis.x.get(k)) {
+                (Some(&e), _) => e,
                 // wavelength_and_slope_by's steps from its x.
-                Some(&x) if on_frame => {
+                (None, Some(&x)) if on_frame => {
                     (fit.map.wavelength_at_x(x)?, fit.map.slope_at_x_by(x, &hw)?)
                 }
                 _ => fit.map.wavelength_and_slope_by(p.center_px_q16, &hw)?,
@@ -1004,9 +1016,12 @@ fn fit_pairs(
         points: pts,
         xs,
         normal,
+        evals,
+        point_of_peak,
     } = room;
     pts.clear();
     xs.clear();
+    *point_of_peak = [0; 64];
     for &(k, l) in pairs {
         let (Some(p), Some(line)) = (peaks.get(k as usize), lines.get(l as usize)) else {
             continue;
@@ -1022,6 +1037,9 @@ fn fit_pairs(
             wavelength_fm: line.wavelength_fm,
         })
         .map_err(|_| CalibrateError::TooManyPoints)?;
+        if let Some(slot) = point_of_peak.get_mut(k as usize) {
+            *slot = pts.len() as u8;
+        }
         // The axis' x is the fit frame's (a peak without one leaves `xs` short: not used).
         if let Some(&x) = axis.x.get(k as usize) {
             let _ = xs.push(x);
@@ -1030,7 +1048,12 @@ fn fit_pairs(
     // Fewer points than a full fit wants: drop the degree until the points just determine it.
     let max_deg = (pts.len() as i32 - 1).clamp(1, 3) as u8;
     let degree = cfg.degree.min(max_deg);
-    fit_map_at(pts, Some(xs), degree, cfg.pixels, out, normal)
+    let done = fit_map_at(pts, Some(xs), degree, cfg.pixels, out, normal, Some(evals));
+    if done.is_err() {
+        // No fit: no (λ, slope) of it either.
+        *point_of_peak = [0; 64];
+    }
+    done
 }
 
 #[cfg(test)]
