@@ -274,13 +274,15 @@ pub(crate) fn fit_map_into(
     out: &mut MapFit,
     m: &mut [[i128; 9]; 4],
 ) -> Result<(), CalibrateError> {
-    fit_map_at(points, None, degree, pixels, out, m)
+    fit_map_at(points, None, degree, pixels, out, m, None)
 }
 
 /// [`fit_map_into`] with each point's x already known: `xs[k]` is `points[k]`'s x on
 /// [`standard_frame`]`(pixels)` (as [`WavelengthMap::x_q30`] gives it there), so neither the normal
 /// sums nor the residuals divide by the half-width again; the same fit. A slice of another length
-/// is not used.
+/// is not used. After a successful fit `evals[k]` (where there is one) holds the fitted map's
+/// (λ, slope) at `points[k]`, as [`WavelengthMap::wavelength_and_slope_by`] gives them there (the
+/// residuals need them anyway).
 pub(crate) fn fit_map_at(
     points: &[FitPoint],
     xs: Option<&[i64]>,
@@ -288,6 +290,7 @@ pub(crate) fn fit_map_at(
     pixels: u16,
     out: &mut MapFit,
     m: &mut [[i128; 9]; 4],
+    mut evals: Option<&mut [(i64, i64)]>,
 ) -> Result<(), CalibrateError> {
     if !(1..=3).contains(&degree) || points.len() < degree as usize + 1 {
         return Err(CalibrateError::TooFewPoints);
@@ -379,6 +382,9 @@ pub(crate) fn fit_map_at(
         let x = x_of(k, pt);
         let lam = map.wavelength_at_x(x)?;
         let slope = map.slope_at_x_by(x, &hw)?;
+        if let Some(slot) = evals.as_deref_mut().and_then(|e| e.get_mut(k)) {
+            *slot = (lam, slope);
+        }
         let r = (lam - pt.wavelength_fm) as i128;
         let s = pt.sigma_px_q16.max(1) as i128;
         let w = match weights_q20.get(k).copied().flatten() {
@@ -857,14 +863,27 @@ mod tests {
             let (mut a, mut b) = (MapFit::ZERO, MapFit::ZERO);
             let mut m = [[0i128; 9]; 4];
             let plain = fit_map_into(&pts, degree, pixels, &mut a, &mut m);
-            let known = fit_map_at(&pts, Some(&xs), degree, pixels, &mut b, &mut m);
+            let mut evals = [(0i64, 0i64); 24];
+            let known = fit_map_at(
+                &pts,
+                Some(&xs),
+                degree,
+                pixels,
+                &mut b,
+                &mut m,
+                Some(&mut evals),
+            );
             assert_eq!(plain, known);
             if plain.is_ok() {
                 assert_eq!(a, b);
                 fitted += 1;
+                let hw = HalfWidth::forward(&b.map);
+                for (pt, e) in pts.iter().zip(evals) {
+                    assert_eq!(b.map.wavelength_and_slope_by(pt.center_px_q16, &hw), Ok(e));
+                }
             }
             // A slice of another length is ignored.
-            let short = fit_map_at(&pts, Some(&xs[1..]), degree, pixels, &mut b, &mut m);
+            let short = fit_map_at(&pts, Some(&xs[1..]), degree, pixels, &mut b, &mut m, None);
             assert_eq!(plain, short);
         }
         assert!(fitted > 300, "{fitted}");

@@ -155,6 +155,9 @@ pub struct IdentifyWork {
     axis: Axis,
     room: FitRoom,
     found: Identified,
+    /// Tests: every tying hypothesis' full cost (the reference the pruned sum is tested against).
+    #[cfg(test)]
+    full_cost: bool,
 }
 
 /// A map fit's inputs (with each point's x on the fit's frame) and its normal equations
@@ -163,6 +166,10 @@ struct FitRoom {
     points: Vec<FitPoint, MAX_REFERENCE_LINES>,
     xs: Vec<i64, MAX_REFERENCE_LINES>,
     normal: [[i128; 9]; 4],
+    /// The last fit's map (λ, slope) at each point, and each peak's point plus one (0: none; zero
+    /// so that a `static` holding the work stays in `.bss`).
+    evals: [(i64, i64); MAX_REFERENCE_LINES],
+    point_of_peak: [u8; 64],
 }
 
 impl IdentifyWork {
@@ -174,11 +181,15 @@ impl IdentifyWork {
                 points: Vec::new(),
                 xs: Vec::new(),
                 normal: [[0; 9]; 4],
+                evals: [(0, 0); MAX_REFERENCE_LINES],
+                point_of_peak: [0; 64],
             },
             found: Identified {
                 fit: MapFit::ZERO,
                 pairs: Vec::new(),
             },
+            #[cfg(test)]
+            full_cost: false,
         }
     }
 }
@@ -211,7 +222,13 @@ pub fn identify_with<'w>(
     if lines.len() < 3 || peaks.len() < 3 {
         return Err(CalibrateError::NoConsistentPattern);
     }
-    let IdentifyWork { axis, room, found } = work;
+    #[cfg(test)]
+    let prune_cost = !work.full_cost;
+    #[cfg(not(test))]
+    let prune_cost = true;
+    let IdentifyWork {
+        axis, room, found, ..
+    } = work;
     axis.fill(peaks, lines, cfg)?;
     let axis: &Axis = axis;
     let strong_lines: Vec<u8, 20> = strongest(lines.iter().map(|l| l.strength), HYP_LINES);
@@ -246,6 +263,7 @@ pub fn identify_with<'w>(
         cfg,
         ends,
         b_max_ends: i64::MAX as u64 / ends.0.unsigned_abs().max(ends.1.unsigned_abs()).max(1),
+        prune_cost,
     };
     // Wavelengths of the strong lines by position, and whether every strong line and peak lies
     // within ±2^60 (nothing an instrument produces): then the gap test below is exact in `i64`.
@@ -334,6 +352,8 @@ struct Search<'a> {
     ends: (i64, i64),
     /// Largest |b| (Q30) for which b · u stays within `i64` at both ends.
     b_max_ends: u64,
+    /// Stop a tying hypothesis' cost once it reaches the best's (see `score`).
+    prune_cost: bool,
 }
 
 impl Search<'_> {
@@ -689,6 +709,7 @@ fn score(mut h: Hypothesis, search: &Search<'_>, best: Option<&Hypothesis>) -> O
         cfg,
         ends: ends_u,
         b_max_ends,
+        prune_cost,
     } = *search;
     let floor = best.map_or(1, |b| b.net);
     let mut votes = 0i32;
@@ -790,19 +811,30 @@ fn score(mut h: Hypothesis, search: &Search<'_>, best: Option<&Hypothesis>) -> O
     };
     // The cost only breaks a tie of (net, concord) with the best, and is the best's own once this
     // one is taken: below the best it decides nothing and is not summed (0 stands in).
+    // 0 ≤ d ≤ tol: below 2^23 the quotient is the same in u32, at most 256.
+    let term = |&(d, tol): &(i64, i64)| {
+        if tol < 1 << 23 {
+            i64::from(ratio_q8(d as u32, tol.max(1) as u32))
+        } else {
+            d * 256 / tol.max(1)
+        }
+    };
     h.cost = match best {
         Some(b) if (h.net, h.concord) < (b.net, b.concord) => 0,
-        _ => hits
-            .iter()
-            .map(|&(d, tol)| {
-                // 0 ≤ d ≤ tol: below 2^23 the quotient is the same in u32, at most 256.
-                if tol < 1 << 23 {
-                    i64::from(ratio_q8(d as u32, tol.max(1) as u32))
-                } else {
-                    d * 256 / tol.max(1)
+        // A tie on (net, concord) wins only below the best's cost, and the terms are ≥ 0: once
+        // the sum reaches it the hypothesis loses, whatever the rest adds (its cost is then not
+        // the full sum, but a losing hypothesis is dropped).
+        Some(b) if prune_cost && (h.net, h.concord) == (b.net, b.concord) => {
+            let mut sum = 0i64;
+            for hit in hits.iter() {
+                sum += term(hit);
+                if sum >= b.cost {
+                    break;
                 }
-            })
-            .sum(),
+            }
+            sum
+        }
+        _ => hits.iter().map(term).sum(),
     };
     Some(h)
 }
@@ -917,9 +949,15 @@ fn refine(
                 == (f.center_px_q16, f.half_width_px_q16)
         };
         for (k, p) in peaks.iter().enumerate() {
-            let (lam, slope) = match axis.x.get(k) {
+            // A fitted peak's (λ, slope) on this map came with the fit (the same calls).
+            let fitted = room
+                .point_of_peak
+                .get(k)
+                .and_then(|&j| room.evals.get((j as usize).checked_sub(1)?));
+            let (lam, slope) = match (fitted, axis.x.get(k)) {
+                (Some(&e), _) => e,
                 // wavelength_and_slope_by's steps from its x.
-                Some(&x) if on_frame => {
+                (None, Some(&x)) if on_frame => {
                     (fit.map.wavelength_at_x(x)?, fit.map.slope_at_x_by(x, &hw)?)
                 }
                 _ => fit.map.wavelength_and_slope_by(p.center_px_q16, &hw)?,
@@ -978,9 +1016,12 @@ fn fit_pairs(
         points: pts,
         xs,
         normal,
+        evals,
+        point_of_peak,
     } = room;
     pts.clear();
     xs.clear();
+    *point_of_peak = [0; 64];
     for &(k, l) in pairs {
         let (Some(p), Some(line)) = (peaks.get(k as usize), lines.get(l as usize)) else {
             continue;
@@ -996,6 +1037,9 @@ fn fit_pairs(
             wavelength_fm: line.wavelength_fm,
         })
         .map_err(|_| CalibrateError::TooManyPoints)?;
+        if let Some(slot) = point_of_peak.get_mut(k as usize) {
+            *slot = pts.len() as u8;
+        }
         // The axis' x is the fit frame's (a peak without one leaves `xs` short: not used).
         if let Some(&x) = axis.x.get(k as usize) {
             let _ = xs.push(x);
@@ -1004,7 +1048,12 @@ fn fit_pairs(
     // Fewer points than a full fit wants: drop the degree until the points just determine it.
     let max_deg = (pts.len() as i32 - 1).clamp(1, 3) as u8;
     let degree = cfg.degree.min(max_deg);
-    fit_map_at(pts, Some(xs), degree, cfg.pixels, out, normal)
+    let done = fit_map_at(pts, Some(xs), degree, cfg.pixels, out, normal, Some(evals));
+    if done.is_err() {
+        // No fit: no (λ, slope) of it either.
+        *point_of_peak = [0; 64];
+    }
+    done
 }
 
 #[cfg(test)]
@@ -1218,5 +1267,36 @@ mod tests {
                 assert_eq!(axis.u[k], u);
             }
         }
+    }
+
+    #[test]
+    fn pruned_costs_choose_what_full_costs_choose() {
+        let lines = balmer();
+        let mut next = crate::test_rng::xorshift(0x71ab_29c3_0e6d_4f85u64);
+        let mut found = 0;
+        for round in 0..300 {
+            // Random subsets of the lines, foreign peaks, nominal offsets (or blind).
+            let visible: std::vec::Vec<usize> = (0..lines.len())
+                .filter(|_| !next().is_multiple_of(4))
+                .collect();
+            let foreign: std::vec::Vec<i64> = (0..(next() % 4))
+                .map(|_| 380_000_000 + (next() % 280_000_000) as i64)
+                .collect();
+            let peaks = frame(&lines, &visible, &foreign);
+            let nominal = (round % 4 != 0).then(|| {
+                let off = (next() % 12_000_000) as i64 - 6_000_000;
+                let scale = 165_000_000 + (next() % 5_000_000) as i64;
+                WavelengthMap::new(2048, 2, [535_000_000 + off, scale, -1_500_000, 0]).unwrap()
+            });
+            let cfg = IdentifyConfig::new(2048, 2, nominal);
+            let mut pruned = IdentifyWork::new();
+            let mut full = IdentifyWork::new();
+            full.full_cost = true;
+            let a = identify_with(&peaks, &lines, &cfg, &mut pruned).cloned();
+            let b = identify_with(&peaks, &lines, &cfg, &mut full).cloned();
+            assert_eq!(a, b, "round {round}");
+            found += usize::from(a.is_ok());
+        }
+        assert!(found > 100, "{found}");
     }
 }

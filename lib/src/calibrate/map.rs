@@ -387,12 +387,12 @@ impl Reversion {
     fn new(map: &WavelengthMap) -> Option<Reversion> {
         let [_, c1, c2, c3] = map.coeff_fm;
         let ratio = |c: i64| -> Option<i64> {
-            let q = ((c as i128) << 30).checked_div(c1 as i128)?;
+            let q = shl30_div(c, c1)?;
             (q.unsigned_abs() < 1 << 26).then_some(q as i64)
         };
         let (k2, k3) = (ratio(c2)?, ratio(c3)?);
         // Q16 px per fm in Q30, kept below 2^30 (a sensor with over 1 px per fm is no sensor).
-        let dp = ((map.half_width_px_q16 as i128) << 30).checked_div(c1 as i128)?;
+        let dp = shl30_div(map.half_width_px_q16 as i64, c1)?;
         let dp = i64::try_from(dp)
             .ok()
             .filter(|d| d.unsigned_abs() < 1 << 30)?;
@@ -426,6 +426,16 @@ impl Reversion {
             - ((4 * self.t4_q30 * t3) >> 30);
         Some((x, d))
     }
+}
+
+/// `((n as i128) << 30).checked_div(d as i128)`, in `i64` when |n| < 2^32 (n · 2^30 then fits, and
+/// the truncated quotient is the same; the 128-bit division costs twice the 64-bit one on the
+/// Cortex-M0), except for d = −1 with n · 2^30 = −2^62 … (no overflow: |n · 2^30| < 2^62).
+fn shl30_div(n: i64, d: i64) -> Option<i128> {
+    if n.unsigned_abs() < 1 << 32 {
+        return (n << 30).checked_div(d).map(i128::from);
+    }
+    ((n as i128) << 30).checked_div(d as i128)
 }
 
 /// A map's divisors (its half-width, and c1 for the inverse's first guess). Each divides as
@@ -856,6 +866,35 @@ mod tests {
                     }
                 }
             }
+        }
+    }
+
+    #[test]
+    fn shift_division_in_64_bits_is_the_wide_one() {
+        let mut next = crate::test_rng::xorshift(0x428a_2f98_d728_ae22u64);
+        let edges = [
+            0i64,
+            1,
+            -1,
+            2,
+            (1 << 32) - 1,
+            1 << 32,
+            -(1 << 32) + 1,
+            i64::MAX,
+            i64::MIN,
+        ];
+        for round in 0..200_000 {
+            let draw = |n: &mut dyn FnMut() -> u64| {
+                let v = n();
+                if v.is_multiple_of(5) {
+                    edges[(v >> 8) as usize % edges.len()]
+                } else {
+                    (v as i64) >> (v % 63)
+                }
+            };
+            let (n, d) = (draw(&mut next), draw(&mut next));
+            let want = ((n as i128) << 30).checked_div(d as i128);
+            assert_eq!(shl30_div(n, d), want, "{n} {d} {round}");
         }
     }
 

@@ -18,4 +18,4 @@ pub use identify::{
 };
 pub(crate) use map::HalfWidth;
 pub use map::{WavelengthMap, X_ONE_Q30};
-pub(crate) use muldiv::{mul_div_round, Divisor};
+pub(crate) use muldiv::{mul_64x64, mul_div_round, Divisor};

@@ -5,8 +5,8 @@ use super::stage::Stage;
 use super::workspace::{MatchWork, Workspace, MAX_READINGS};
 use crate::bounded::collect_bounded;
 use crate::calibrate::{
-    identify_with, CalibrateError, HalfWidth, IdentifyConfig, IdentifyWork, ReferenceLine,
-    WavelengthMap, MAX_REFERENCE_LINES,
+    identify_with, mul_64x64, CalibrateError, HalfWidth, IdentifyConfig, IdentifyWork,
+    ReferenceLine, WavelengthMap, MAX_REFERENCE_LINES,
 };
 use crate::condition::{condition_frame, FrameSum, GainTable};
 use crate::find::{find_peaks, FindReport, Peak, PeakList};
@@ -647,8 +647,8 @@ impl Checker {
                     let Ok(measured) = m.map.wavelength_at_x(x) else {
                         continue;
                     };
-                    let slope = m.map.slope_at_x_by(x, &m.div).ok()?.unsigned_abs() as u128;
-                    let sigma_fm = ((pk.center_sigma_px_q16 as u128 * slope) >> 32) as u64;
+                    let slope = m.map.slope_at_x_by(x, &m.div).ok()?.unsigned_abs();
+                    let sigma_fm = (mul_64x64(pk.center_sigma_px_q16 as u64, slope) >> 32) as u64;
                     let _ = readings.push(BlendReading {
                         measured_fm: measured,
                         sigma_fm,
@@ -801,8 +801,8 @@ impl Checker {
             let Ok(measured) = measured else {
                 continue;
             };
-            let slope = slope as u128;
-            let c = (pk.center_sigma_px_q16 as u128 * slope) >> 32;
+            // σ_px · |slope| in 64 × 64-bit pieces: the u128 product.
+            let c = mul_64x64(pk.center_sigma_px_q16 as u64, slope) >> 32;
             let s = s as u128;
             // A line within 2.5 line widths of another feature (series-limit crowding) or sharing its
             // peak with another transition is identified, but its centre is pulled by the neighbour:
@@ -872,7 +872,7 @@ impl Checker {
         }
         crate::sort::sort_by_key(&mut report.unexplained, |u| u.wavelength_fm);
         report.scores.unexplained_permille = if total > 0 {
-            (foreign * 1000 / total) as u16
+            div_i128(foreign * 1000, total) as u16
         } else {
             0
         };
@@ -1033,7 +1033,8 @@ impl Checker {
         }
         report.scores.max_abs_error_fm = max_e;
         if n_e > 0 {
-            report.scores.rms_error_fm = crate::fixed::isqrt_u128((sum_e2 / n_e) as u128) as u64;
+            report.scores.rms_error_fm =
+                crate::fixed::isqrt_u128(div_i128(sum_e2, n_e) as u128) as u64;
         }
         if report.drift_fm.is_none() {
             if let Some((_, w)) = worst {
@@ -1256,6 +1257,17 @@ fn root_sum_squares(c: u128, s: u128) -> u64 {
         return crate::fixed::isqrt_u128(u128::from(c * c + s * s)) as u64;
     }
     crate::fixed::isqrt_u128(c * c + s * s) as u64
+}
+
+/// `a / b` (truncated, b ≠ 0), in `i64` when both fit: the same quotient without the 128-bit
+/// library division (a few times the 64-bit one on the Cortex-M0).
+fn div_i128(a: i128, b: i128) -> i128 {
+    match (i64::try_from(a), i64::try_from(b)) {
+        (Ok(x), Ok(y)) => x
+            .checked_div(y)
+            .map_or_else(|| a.checked_div(b).unwrap_or(0), i128::from),
+        _ => a.checked_div(b).unwrap_or(0),
+    }
 }
 
 /// (v · 2^32) / d truncated, for d ≥ 1: in `i64` when |v| < 2^31 (the same quotient), else 128-bit.
@@ -1644,5 +1656,20 @@ mod tests {
             wavelength_fm,
             strength: 1,
         }
+    }
+
+    #[test]
+    fn narrow_division_is_the_wide_one() {
+        let mut next = crate::test_rng::xorshift(0x0bb6_7ae8_584c_aa73u64);
+        for _ in 0..100_000 {
+            let v = next();
+            let a =
+                ((v as i64) >> (v % 64)) as i128 * if v.is_multiple_of(7) { 1 << 40 } else { 1 };
+            let w = next();
+            let b = ((w as i64) >> (w % 64)) as i128;
+            let b = if b == 0 { 1 } else { b };
+            assert_eq!(div_i128(a, b), a / b, "{a} {b}");
+        }
+        assert_eq!(div_i128(i64::MIN as i128, -1), -(i64::MIN as i128));
     }
 }
