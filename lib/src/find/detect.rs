@@ -189,6 +189,13 @@ pub fn find_candidates(
         }
         let v = at(i);
         let left = if i == 0 { i64::MIN } else { at(i - 1) };
+        if v <= left {
+            // Not the start of a maximum, nor is any pixel of a plateau it begins (each equals its
+            // left neighbour): the same candidates as skipping the plateau, with one compare a
+            // pixel where a frame lies above the threshold for long stretches.
+            i += 1;
+            continue;
+        }
         // Plateaus (saturated tops) count once, at their middle.
         let mut end = i;
         while end + 1 < n && at(end + 1) == v && end - i < reach {
@@ -197,7 +204,7 @@ pub fn find_candidates(
         let right = if end + 1 < n { at(end + 1) } else { i64::MIN };
         let pos = i + (end - i) / 2;
         let level = i64::from(base.get(pos).copied().unwrap_or(0));
-        if v > left && v > right && above(v, cfg.threshold_sigma_q8, noise, level) {
+        if v > right && above(v, cfg.threshold_sigma_q8, noise, level) {
             // Past the frame's valley budget the search looks only as far as a line's own wings.
             let r = if valley_steps < VALLEY_BUDGET_PER_REACH * reach {
                 reach

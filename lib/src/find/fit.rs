@@ -263,22 +263,28 @@ impl Window {
         w.raw = [0; W];
         let shapes = d.neighbours.map(|n| n.map(|f| Shape::new(&f)));
         for (k, i) in (lo..=hi).enumerate().take(W) {
-            let y = i64::from(d.frame.get(i).copied().unwrap_or(0));
             let b = d.base.get(i).copied().unwrap_or(0);
             let usable = d.flag.get(i).is_some_and(|&f| !flags::is_untrusted(f));
             if let (Some(r), Some(bb), Some(raw)) =
                 (w.resid.get_mut(k), w.base.get_mut(k), w.raw.get_mut(k))
             {
-                let mut v = y - i64::from(b);
-                for s in shapes.iter().flatten() {
-                    v = v.saturating_sub(s.at(i));
-                }
-                *raw = v.clamp(i64::from(i32::MIN) + 1, i64::from(i32::MAX)) as i32;
+                *raw = Self::raw_value(d, &shapes, i);
                 *r = if usable { *raw } else { UNUSABLE };
                 *bb = b;
             }
             w.len = k + 1;
         }
+    }
+
+    /// Pixel `i`'s residual over the baseline, less the neighbours' `shapes`, as `fill` keeps it.
+    fn raw_value(d: &FitData<'_>, shapes: &[Option<Shape>; 2], i: usize) -> i32 {
+        let y = i64::from(d.frame.get(i).copied().unwrap_or(0));
+        let b = d.base.get(i).copied().unwrap_or(0);
+        let mut v = y - i64::from(b);
+        for s in shapes.iter().flatten() {
+            v = v.saturating_sub(s.at(i));
+        }
+        v.clamp(i64::from(i32::MIN) + 1, i64::from(i32::MAX)) as i32
     }
 
     fn resid_at(&self, k: usize) -> Option<i32> {
@@ -404,6 +410,19 @@ pub fn fit_line_in(
     let half = ((5 * s0) >> 17).saturating_add(2).clamp(2, MAX_HALF as i64) as usize;
     let lo = peak.saturating_sub(half);
     let hi = peak.saturating_add(half).min(n.saturating_sub(1));
+    if max_steps == 0 {
+        // No step to take (a crowded frame past its step budget): the start is the fit, and it
+        // needs only three pixels of the window — the same values `fill` would give them.
+        let len = (lo..=hi).count().min(W);
+        let shapes = d.neighbours.map(|n| n.map(|f| Shape::new(&f)));
+        let at = |i: usize| {
+            i.checked_sub(lo)
+                .filter(|&k| k < len)
+                .map(|_| Window::raw_value(d, &shapes, i))
+        };
+        let start = start_at(peak, s0, at);
+        return run_none(start, lo, lo + len.saturating_sub(1));
+    }
     scratch.win.fill(d, lo, hi);
     let win = &scratch.win;
     let at = |i: usize| {
@@ -411,8 +430,15 @@ pub fn fit_line_in(
             .filter(|&k| k < win.len)
             .and_then(|k| win.raw.get(k).copied())
     };
+    let start = start_at(peak, s0, at);
+    run(d, scratch, start, s_min_q16, s_max_q16, max_steps)
+}
+
+/// The fit's start: the peak pixel's residual as height, the parabola through it and its two
+/// neighbours (`at`: a pixel's residual in the window, `None` outside) for the centre, `s0` as σ.
+fn start_at(peak: usize, s0: i64, at: impl Fn(usize) -> Option<i32>) -> Params {
     let r0 = i64::from(at(peak).unwrap_or(0));
-    let rl = peak.checked_sub(1).and_then(at).map_or(r0, i64::from);
+    let rl = peak.checked_sub(1).and_then(&at).map_or(r0, i64::from);
     let rr = at(peak + 1).map_or(r0, i64::from);
     // Parabola through three pixels: δ = (rl − rr) / (2 (rl − 2 r0 + rr)), within ±0.5 px.
     let den = rl - 2 * r0 + rr;
@@ -424,13 +450,27 @@ pub fn fit_line_in(
     } else {
         0
     };
-    let start = Params {
+    Params {
         a_q8: (r0 << 8).max(256),
         mu_q16: ((peak as i64) << 16) + delta_q16,
         s_q16: s0,
         c_q8: 0,
-    };
-    run(d, scratch, start, s_min_q16, s_max_q16, max_steps)
+    }
+}
+
+/// What [`run`] returns with no step allowed: the start, its σ as the centre's uncertainty, over
+/// the window `lo ..= hi`.
+fn run_none(p: Params, lo: usize, hi: usize) -> Fit {
+    Fit {
+        center_q16: p.mu_q16,
+        center_sigma_q16: p.s_q16,
+        sigma_q16: p.s_q16,
+        height_q8: p.a_q8,
+        lo: u16::try_from(lo).unwrap_or(u16::MAX),
+        hi: u16::try_from(hi).unwrap_or(u16::MAX),
+        converged: false,
+        steps: 0,
+    }
 }
 
 /// Fits a line again from an earlier fit `first` over the same window, e.g. once its neighbours'
@@ -964,6 +1004,69 @@ mod tests {
             neighbours: [None, None],
         };
         fit_line(&d, peak, sigma0, 1 << 15, 8 << 16, ITERATIONS)
+    }
+
+    /// With no step allowed the three-pixel start is the window's: the same fit as gathering the
+    /// whole window and running no step, near the frame's edges and with neighbours taken out too.
+    #[test]
+    fn no_step_fit_is_the_gathered_windows() {
+        let mut rng = Rng::new(0x7ac1_33f0_9e02_d5b1);
+        let nm = noise(10, 0);
+        for _ in 0..400 {
+            let n = 20 + (rng.next_u64() % 200) as usize;
+            let frame: Vec<i32> = (0..n)
+                .map(|_| (rng.next_u64() % 70_000) as i32 - 5_000)
+                .collect();
+            let base: Vec<i32> = (0..n).map(|_| (rng.next_u64() % 3_000) as i32).collect();
+            let fl: Vec<u8> = (0..n)
+                .map(|_| {
+                    if rng.next_u64() % 9 == 0 {
+                        flags::SATURATED
+                    } else {
+                        0
+                    }
+                })
+                .collect();
+            let peak = (rng.next_u64() % n as u64) as usize;
+            let s0 = (1 << 14) + (rng.next_u64() % 600_000) as i64;
+            let neighbour = Fit {
+                center_q16: ((peak as i64) << 16) + (rng.next_u64() % (20 << 16)) as i64
+                    - (10 << 16),
+                center_sigma_q16: 1000,
+                sigma_q16: 40_000 + (rng.next_u64() % 200_000) as i64,
+                height_q8: (rng.next_u64() % (20_000 << 8)) as i64,
+                lo: 0,
+                hi: 0,
+                converged: true,
+                steps: 2,
+            };
+            let with = rng.next_u64() % 2 == 0;
+            let d = FitData {
+                frame: &frame,
+                base: &base,
+                flag: &fl,
+                noise: &nm,
+                neighbours: [with.then_some(neighbour), None],
+            };
+            let mut scratch = FitScratch::new();
+            let fast = fit_line_in(&d, peak, s0, 1 << 15, 8 << 16, 0, &mut scratch);
+            // The gathered way: fill the window, start from its raw values, run no step.
+            let s0c = s0.max(1 << 15).min(8 << 16).max(1 << 14);
+            let half = ((5 * s0c) >> 17)
+                .saturating_add(2)
+                .clamp(2, MAX_HALF as i64) as usize;
+            let (lo, hi) = (peak.saturating_sub(half), (peak + half).min(n - 1));
+            scratch.win.fill(&d, lo, hi);
+            let win = &scratch.win;
+            let at = |i: usize| {
+                i.checked_sub(lo)
+                    .filter(|&k| k < win.len)
+                    .and_then(|k| win.raw.get(k).copied())
+            };
+            let start = start_at(peak, s0c, at);
+            let slow = run(&d, &mut scratch, start, 1 << 15, 8 << 16, 0);
+            assert_eq!(fast, slow);
+        }
     }
 
     #[test]
