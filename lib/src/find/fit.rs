@@ -1020,7 +1020,7 @@ mod tests {
             let base: Vec<i32> = (0..n).map(|_| (rng.next_u64() % 3_000) as i32).collect();
             let fl: Vec<u8> = (0..n)
                 .map(|_| {
-                    if rng.next_u64() % 9 == 0 {
+                    if rng.next_u64().is_multiple_of(9) {
                         flags::SATURATED
                     } else {
                         0
@@ -1040,7 +1040,7 @@ mod tests {
                 converged: true,
                 steps: 2,
             };
-            let with = rng.next_u64() % 2 == 0;
+            let with = rng.next_u64().is_multiple_of(2);
             let d = FitData {
                 frame: &frame,
                 base: &base,
