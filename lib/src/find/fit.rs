@@ -1051,7 +1051,7 @@ mod tests {
             let mut scratch = FitScratch::new();
             let fast = fit_line_in(&d, peak, s0, 1 << 15, 8 << 16, 0, &mut scratch);
             // The gathered way: fill the window, start from its raw values, run no step.
-            let s0c = s0.max(1 << 15).min(8 << 16).max(1 << 14);
+            let s0c = s0.clamp(1 << 15, 8 << 16);
             let half = ((5 * s0c) >> 17)
                 .saturating_add(2)
                 .clamp(2, MAX_HALF as i64) as usize;
