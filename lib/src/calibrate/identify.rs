@@ -626,8 +626,15 @@ fn strongest<const N: usize>(values: impl Iterator<Item = u32>, k: usize) -> Vec
         // Sorted but for the new last entry: it moves up past every weaker one (the stable
         // insertion sort's moves, without its pass over the sorted rest).
         let mut j = top.len().saturating_sub(1);
-        while j > 0 && top.get(j - 1).is_some_and(|&(w, _)| w < v) {
-            top.swap(j - 1, j);
+        while let Some([a, b]) = j
+            .checked_sub(1)
+            .and_then(|i| top.get_mut(i..=j))
+            .and_then(|w| <&mut [(u32, u8); 2]>::try_from(w).ok())
+        {
+            if a.0 >= v {
+                break;
+            }
+            core::mem::swap(a, b);
             j -= 1;
         }
     }
