@@ -519,9 +519,14 @@ fn accumulate_narrow(m: &mut [[i128; 9]; 4], d: usize, w: i64, x: i64, wavelengt
         *slot = xk;
         xk = (xk * x) >> 30;
     }
+    // Cell (r, c) takes w · x^(r+c): the 2d − 1 distinct products once each.
+    let mut wp = [0i64; 7];
+    for (slot, &p) in wp.iter_mut().zip(pw.iter()).take((2 * d).saturating_sub(1)) {
+        *slot = w * p;
+    }
     for (r, row) in m.iter_mut().enumerate().take(d) {
         for (c, cell) in row.iter_mut().enumerate().take(d) {
-            *cell += (w * pw.get(r + c).copied().unwrap_or(0)) as i128;
+            *cell += wp.get(r + c).copied().unwrap_or(0) as i128;
         }
         let wx = w * pw.get(r).copied().unwrap_or(0);
         row[4] += wide_by_narrow(wx, wavelength_fm);
