@@ -248,7 +248,7 @@ fn mul_q30_round(a: i64, v: i64) -> i64 {
 /// 4 × 4 × 9 Gauss–Jordan, and the 66-slope monotonicity check of [`WavelengthMap::with_frame`].
 pub fn fit_map(points: &[FitPoint], degree: u8, pixels: u16) -> Result<MapFit, CalibrateError> {
     let mut fit = MapFit::ZERO;
-    fit_map_into(points, degree, pixels, &mut fit, &mut [[0; 9]; 4])?;
+    fit_map_into(points, degree, pixels, &mut fit, &mut FitScratch::new())?;
     Ok(fit)
 }
 
@@ -264,17 +264,34 @@ pub(crate) fn standard_frame(pixels: u16) -> WavelengthMap {
     }
 }
 
-/// [`fit_map`] written into `out` (its content is unspecified after an error), with the normal
-/// equations in `m` (576 B, overwritten): both in the caller's memory, not on a small core's stack.
+/// A fit's working memory: the normal equations (576 B) and each point's residual weight
+/// (0.5 KiB), overwritten by every fit; in the caller's memory, not on a small core's stack.
+pub(crate) struct FitScratch {
+    normal: [[i128; 9]; 4],
+    weights_q20: heapless::Vec<Option<u32>, MAX_FIT_POINTS>,
+}
+
+impl FitScratch {
+    /// Empty (all zero: a `static` holding one stays in `.bss`).
+    pub(crate) const fn new() -> FitScratch {
+        FitScratch {
+            normal: [[0; 9]; 4],
+            weights_q20: heapless::Vec::new(),
+        }
+    }
+}
+
+/// [`fit_map`] written into `out` (its content is unspecified after an error), with its working
+/// memory in `scratch`: both in the caller's memory, not on a small core's stack.
 /// Work: as [`fit_map`].
 pub(crate) fn fit_map_into(
     points: &[FitPoint],
     degree: u8,
     pixels: u16,
     out: &mut MapFit,
-    m: &mut [[i128; 9]; 4],
+    scratch: &mut FitScratch,
 ) -> Result<(), CalibrateError> {
-    fit_map_at(points, None, degree, pixels, out, m, None)
+    fit_map_at(points, None, degree, pixels, out, scratch, None)
 }
 
 /// [`fit_map_into`] with each point's x already known: `xs[k]` is `points[k]`'s x on
@@ -289,9 +306,13 @@ pub(crate) fn fit_map_at(
     degree: u8,
     pixels: u16,
     out: &mut MapFit,
-    m: &mut [[i128; 9]; 4],
+    scratch: &mut FitScratch,
     mut evals: Option<&mut [(i64, i64)]>,
 ) -> Result<(), CalibrateError> {
+    let FitScratch {
+        normal: m,
+        weights_q20,
+    } = scratch;
     if !(1..=3).contains(&degree) || points.len() < degree as usize + 1 {
         return Err(CalibrateError::TooFewPoints);
     }
@@ -319,7 +340,7 @@ pub(crate) fn fit_map_at(
         None => frame.x_q30_by(pt.center_px_q16, &hw),
     };
     // Each point's residual weight (Q20), found with its fit weight (Q30) from one division.
-    let mut weights_q20: heapless::Vec<Option<u32>, MAX_FIT_POINTS> = heapless::Vec::new();
+    weights_q20.clear();
     for (k, pt) in points.iter().enumerate() {
         let s = pt.sigma_px_q16.max(1) as i128;
         let w = match both_weights(sigma_min as u64, s as u64) {
@@ -498,9 +519,14 @@ fn accumulate_narrow(m: &mut [[i128; 9]; 4], d: usize, w: i64, x: i64, wavelengt
         *slot = xk;
         xk = (xk * x) >> 30;
     }
+    // Cell (r, c) takes w · x^(r+c): the 2d − 1 distinct products once each.
+    let mut wp = [0i64; 7];
+    for (slot, &p) in wp.iter_mut().zip(pw.iter()).take((2 * d).saturating_sub(1)) {
+        *slot = w * p;
+    }
     for (r, row) in m.iter_mut().enumerate().take(d) {
         for (c, cell) in row.iter_mut().enumerate().take(d) {
-            *cell += (w * pw.get(r + c).copied().unwrap_or(0)) as i128;
+            *cell += wp.get(r + c).copied().unwrap_or(0) as i128;
         }
         let wx = w * pw.get(r).copied().unwrap_or(0);
         row[4] += wide_by_narrow(wx, wavelength_fm);
@@ -861,7 +887,7 @@ mod tests {
             let xs: std::vec::Vec<i64> = pts.iter().map(|p| frame.x_q30(p.center_px_q16)).collect();
             let degree = 1 + (next() % 3) as u8;
             let (mut a, mut b) = (MapFit::ZERO, MapFit::ZERO);
-            let mut m = [[0i128; 9]; 4];
+            let mut m = FitScratch::new();
             let plain = fit_map_into(&pts, degree, pixels, &mut a, &mut m);
             let mut evals = [(0i64, 0i64); 24];
             let known = fit_map_at(

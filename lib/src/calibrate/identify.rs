@@ -14,7 +14,7 @@
 //! matched pairs for the strength-order tie-breaker; then a first match and ≤ 4 refit rounds over all
 //! ≤ 64 peaks (≤ 5 map fits).
 use super::error::CalibrateError;
-use super::fit::{fit_map_at, standard_frame, FitPoint, MapFit};
+use super::fit::{fit_map_at, standard_frame, FitPoint, FitScratch, MapFit};
 use super::map::{HalfWidth, WavelengthMap};
 use crate::find::Peak;
 use heapless::Vec;
@@ -148,9 +148,10 @@ pub fn identify(
     identify_with(peaks, lines, cfg, &mut IdentifyWork::new()).cloned()
 }
 
-/// What identification keeps while it runs (the per-peak axis, 1.5 KiB; the map fit's points with their x and
-/// normal equations, 1.8 KiB) and its result (0.4 KiB), owned by the caller so a small core's stack need not hold them;
-/// nothing carries over between calls.
+/// What identification keeps while it runs (the per-peak axis, 1.5 KiB; the map fit's points, their
+/// x and the fitted map there, its normal equations and weights, 3.1 KiB) and its result (0.4 KiB),
+/// owned by the caller so a small core's stack need not hold them; nothing carries over between
+/// calls.
 pub struct IdentifyWork {
     axis: Axis,
     room: FitRoom,
@@ -160,12 +161,12 @@ pub struct IdentifyWork {
     full_cost: bool,
 }
 
-/// A map fit's inputs (with each point's x on the fit's frame) and its normal equations
-/// (0.8 + 0.4 + 0.6 KiB).
+/// A map fit's inputs (with each point's x on the fit's frame), its working memory and the fitted
+/// map's (λ, slope) at the points (0.8 + 0.4 + 1.1 + 0.8 KiB).
 struct FitRoom {
     points: Vec<FitPoint, MAX_REFERENCE_LINES>,
     xs: Vec<i64, MAX_REFERENCE_LINES>,
-    normal: [[i128; 9]; 4],
+    scratch: FitScratch,
     /// The last fit's map (λ, slope) at each point, and each peak's point plus one (0: none; zero
     /// so that a `static` holding the work stays in `.bss`).
     evals: [(i64, i64); MAX_REFERENCE_LINES],
@@ -180,7 +181,7 @@ impl IdentifyWork {
             room: FitRoom {
                 points: Vec::new(),
                 xs: Vec::new(),
-                normal: [[0; 9]; 4],
+                scratch: FitScratch::new(),
                 evals: [(0, 0); MAX_REFERENCE_LINES],
                 point_of_peak: [0; 64],
             },
@@ -626,8 +627,15 @@ fn strongest<const N: usize>(values: impl Iterator<Item = u32>, k: usize) -> Vec
         // Sorted but for the new last entry: it moves up past every weaker one (the stable
         // insertion sort's moves, without its pass over the sorted rest).
         let mut j = top.len().saturating_sub(1);
-        while j > 0 && top.get(j - 1).is_some_and(|&(w, _)| w < v) {
-            top.swap(j - 1, j);
+        while let Some([a, b]) = j
+            .checked_sub(1)
+            .and_then(|i| top.get_mut(i..=j))
+            .and_then(|w| <&mut [(u32, u8); 2]>::try_from(w).ok())
+        {
+            if a.0 >= v {
+                break;
+            }
+            core::mem::swap(a, b);
             j -= 1;
         }
     }
@@ -1015,7 +1023,7 @@ fn fit_pairs(
     let FitRoom {
         points: pts,
         xs,
-        normal,
+        scratch,
         evals,
         point_of_peak,
     } = room;
@@ -1048,7 +1056,7 @@ fn fit_pairs(
     // Fewer points than a full fit wants: drop the degree until the points just determine it.
     let max_deg = (pts.len() as i32 - 1).clamp(1, 3) as u8;
     let degree = cfg.degree.min(max_deg);
-    let done = fit_map_at(pts, Some(xs), degree, cfg.pixels, out, normal, Some(evals));
+    let done = fit_map_at(pts, Some(xs), degree, cfg.pixels, out, scratch, Some(evals));
     if done.is_err() {
         // No fit: no (λ, slope) of it either.
         *point_of_peak = [0; 64];

@@ -67,9 +67,10 @@ pub(super) struct MapInUse {
     div: HalfWidth,
     /// The fit's σ as a polynomial in x (when it is the fit's own map), taken once per check.
     sigma_poly: Option<crate::calibrate::SigmaPoly>,
-    /// Each peak's x (Q30) on `map`, by peak index, where identification worked them out for this
-    /// check's peaks on `map`'s frame (else empty: worked out where needed).
-    peak_x: Vec<i64, 64>,
+    /// Identification's per-peak x ([`IdentifyWork::peak_x_q30`]) are this check's peaks' x on
+    /// `map` (its frame, these peaks); else they are worked out where needed. (A flag, not a copy:
+    /// a `MapInUse` on `configure`'s stack stays small.)
+    peak_x_valid: bool,
 }
 
 impl MapInUse {
@@ -82,10 +83,10 @@ impl MapInUse {
         lines: LinePixels::new(),
         div: HalfWidth::ZERO,
         sigma_poly: None,
-        peak_x: Vec::new(),
+        peak_x_valid: false,
     };
 
-    /// Takes `map` (and its fit) for this check, in place: the ≈ 1.2 KiB value is never built on
+    /// Takes `map` (and its fit) for this check, in place: the ≈ 700-byte value is never built on
     /// the stack and copied.
     fn set(
         &mut self,
@@ -103,23 +104,30 @@ impl MapInUse {
         self.fit = fit.copied();
         self.stored_sigma_fm = stored_sigma_fm;
         self.lines = LinePixels::new();
-        self.peak_x.clear();
+        self.peak_x_valid = false;
     }
 
-    /// Takes the peaks' x from identification (`xs`, on the frame of `pixels`' fitted maps) when
-    /// `map` is on that frame and there is one per peak.
+    /// Marks identification's x (`xs`, on the frame of `pixels`' fitted maps) as the peaks' x on
+    /// `map` when `map` is on that frame and there is one per peak.
     fn take_peak_x(&mut self, xs: &[i64], pixels: u16, peaks: usize) {
-        self.peak_x.clear();
         let f = crate::calibrate::standard_frame(pixels);
         let frame = (self.map.center_px_q16, self.map.half_width_px_q16);
-        if frame == (f.center_px_q16, f.half_width_px_q16) && xs.len() == peaks {
-            let _ = self.peak_x.extend_from_slice(xs);
+        self.peak_x_valid = frame == (f.center_px_q16, f.half_width_px_q16) && xs.len() == peaks;
+    }
+
+    /// The peaks' x on `map` from identification's `xs` when valid, else none.
+    fn peak_xs<'x>(&self, xs: &'x [i64]) -> &'x [i64] {
+        if self.peak_x_valid {
+            xs
+        } else {
+            &[]
         }
     }
 
-    /// Peak `k`'s x on `map` (the recorded one, else divided now: the same integer).
-    fn x_of_peak(&self, k: usize, pk: &Peak) -> i64 {
-        match self.peak_x.get(k) {
+    /// Peak `k`'s x on `map`: `xs[k]` (from [`peak_xs`](Self::peak_xs)) where there is one, else
+    /// divided now (the same integer).
+    fn x_of_peak(&self, xs: &[i64], k: usize, pk: &Peak) -> i64 {
+        match xs.get(k) {
             Some(&x) => x,
             None => self.map.x_q30_by(pk.center_px_q16, &self.div),
         }
@@ -298,7 +306,8 @@ impl Checker {
         build_into(&nuclei, lo, hi, &cfg.air, &mut self.catalogue)?;
         reference_lines(&self.catalogue, &self.priors, &mut self.refs);
         self.same_as = same_classes(&self.catalogue);
-        self.drift_points = DriftPoints::new(&self.cfg.stored.map, self.cfg.pixels);
+        self.drift_points
+            .fill(&self.cfg.stored.map, self.cfg.pixels);
         if let Some((a, b)) = self.pair {
             self.partner = partners(&self.catalogue, a, b);
         }
@@ -426,12 +435,12 @@ impl Checker {
             report.decide();
             return Ok(());
         }
-        // The map in use lives in the caller's workspace (≈ 1.2 KiB), written in place.
+        // The map in use lives in the caller's workspace (≈ 700 B), written in place.
         if !self.map_for(peaks, report, &mut matching.map, &mut matching.identify) {
             // Calibration failed: list every peak on the stored map so the user sees what was there.
             let slot = &mut matching.map;
             slot.set(cfg.stored.map, None, cfg.stored.sigma_fm);
-            self.unexplained(peaks, &[], slot, report);
+            self.unexplained(peaks, &[], slot, &[], report);
             report.decide();
             return Ok(());
         }
@@ -496,7 +505,7 @@ impl Checker {
             pairs: kept,
             readings,
             windows,
-            ..
+            identify,
         } = work;
         if self.placed_valid && cfg.mode == Mode::Verify {
             // Verify mode measures on the stored map: its grouping was made once, in `configure`.
@@ -530,8 +539,16 @@ impl Checker {
                 settle_placed(f, &self.catalogue, &in_use.map, &hw, &shares, &in_use.lines)?;
             }
         }
-        self.fill_lines(features, &pairs, peaks, in_use, estimate.is_some(), report)?;
-        self.unexplained(peaks, &pairs, in_use, report);
+        let xs = in_use.peak_xs(identify.peak_x_q30());
+        self.fill_lines(
+            features,
+            &pairs,
+            peaks,
+            (in_use, xs),
+            estimate.is_some(),
+            report,
+        )?;
+        self.unexplained(peaks, &pairs, in_use, xs, report);
         self.report_shares(estimate, report);
         *kept = pairs;
         Ok(())
@@ -770,12 +787,14 @@ impl Checker {
         best
     }
 
+    /// The matched lines into `report`; `(m, xs)`: the map in use and the peaks' x on it where
+    /// known (see [`MapInUse::peak_xs`]).
     fn fill_lines(
         &self,
         features: &[Feature],
         pairs: &[Pair],
         peaks: &[Peak],
-        m: &MapInUse,
+        (m, xs): (&MapInUse, &[i64]),
         share_known: bool,
         report: &mut Report,
     ) -> Result<(), CheckError> {
@@ -797,7 +816,8 @@ impl Checker {
                     None => continue,
                 }
             };
-            let (measured, slope, s) = m.at_x(pk.center_px_q16, m.x_of_peak(p.peak as usize, pk));
+            let (measured, slope, s) =
+                m.at_x(pk.center_px_q16, m.x_of_peak(xs, p.peak as usize, pk));
             let Ok(measured) = measured else {
                 continue;
             };
@@ -844,7 +864,15 @@ impl Checker {
     }
 
     /// Lists unmatched peaks (the strongest when more than fit) with foreign-line hints.
-    fn unexplained(&self, peaks: &[Peak], pairs: &[Pair], m: &MapInUse, report: &mut Report) {
+    /// `xs`: the peaks' x on `m`'s map where known (see [`MapInUse::peak_xs`]).
+    fn unexplained(
+        &self,
+        peaks: &[Peak],
+        pairs: &[Pair],
+        m: &MapInUse,
+        xs: &[i64],
+        report: &mut Report,
+    ) {
         let mut total: i128 = 0;
         let mut foreign: i128 = 0;
         for (k, pk) in peaks.iter().enumerate() {
@@ -855,7 +883,7 @@ impl Checker {
             }
             foreign += area;
             // λ and |slope| (0 where the map cannot say) from one x, as the pixel-taking calls.
-            let x = m.x_of_peak(k, pk);
+            let x = m.x_of_peak(xs, k, pk);
             let Ok(w) = m.map.wavelength_at_x(x) else {
                 continue;
             };
@@ -1378,21 +1406,28 @@ type PointTable = [(i64, i64); 17];
 impl DriftPoints {
     const NONE: DriftPoints = DriftPoints { points: None };
 
-    fn new(stored: &WavelengthMap, pixels: u16) -> DriftPoints {
+    /// The points of `stored` for a sensor of `pixels` pixels, written in place (no copy of the
+    /// table on `configure`'s stack); none where one does not evaluate.
+    fn fill(&mut self, stored: &WavelengthMap, pixels: u16) {
         let last = ((pixels as i64) - 1) << 16;
         let hw = HalfWidth::forward(stored);
-        let mut out = [(0i64, 0i64); 17];
+        let frame = (stored.center_px_q16, stored.half_width_px_q16);
+        let (_, out) = self.points.insert((frame, [(0i64, 0i64); 17]));
         for (i, slot) in (0..=16i64).zip(out.iter_mut()) {
             let x = stored.x_q30_by(drift_pixel(last, i), &hw);
             let Ok(lam) = stored.wavelength_at_x(x) else {
-                return DriftPoints::NONE;
+                self.points = None;
+                return;
             };
             *slot = (x, lam);
         }
-        let frame = (stored.center_px_q16, stored.half_width_px_q16);
-        DriftPoints {
-            points: Some((frame, out)),
-        }
+    }
+
+    #[cfg(test)]
+    fn new(stored: &WavelengthMap, pixels: u16) -> DriftPoints {
+        let mut d = DriftPoints::NONE;
+        d.fill(stored, pixels);
+        d
     }
 
     /// [`drift_fm`]`(fitted, stored, pixels)`, from the points where they were made for `stored`'s

@@ -25,7 +25,7 @@ pub struct Workspace<'a> {
 }
 
 /// What calibration and matching keep for one check (the features, 1.6 KiB; the map in use with its
-/// fit, the lines' pixels and the peaks' x, ≈ 1.2 KiB; identification's tables, ≈ 3.7 KiB; the pairs and isotope
+/// fit and the lines' pixels, ≈ 700 B; identification's tables, ≈ 5 KiB; the pairs and isotope
 /// readings, ≈ 0.9 KiB); nothing carries over to the next frame.
 pub struct MatchWork {
     pub(super) features: Vec<Feature, MAX_FEATURES>,
