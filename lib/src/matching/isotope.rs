@@ -991,22 +991,39 @@ mod tests {
         }
     }
 
+    /// A 100-px frame and baseline of random values, and a pair: a at `a_px.0 + [0, a_px.1)` px,
+    /// b within ±3 px of it, σ = 4 096 + [0, `sigma_span`) (Q16).
+    #[allow(clippy::type_complexity)]
+    fn random_pair(
+        next: &mut impl FnMut(u64) -> u64,
+        a_px: (i32, u64),
+        sigma_span: u64,
+    ) -> (std::vec::Vec<i32>, std::vec::Vec<i32>, (i32, i32, i32)) {
+        let f = (0..100).map(|_| next(60_000) as i32 - 1_000).collect();
+        let base = (0..100).map(|_| next(2_000) as i32).collect();
+        let a = (a_px.0 << 16) + next(a_px.1 << 16) as i32;
+        let b = a + next(6 << 16) as i32 - (3 << 16);
+        (f, base, (a, b, 4_096 + next(sigma_span) as i32))
+    }
+
+    fn window<'a>(f: &'a [i32], base: &'a [i32], a: i32, b: i32, sigma: i32) -> PairWindow<'a> {
+        PairWindow {
+            frame: f,
+            base,
+            a_px_q16: a,
+            b_px_q16: b,
+            sigma_px_q16: sigma,
+            shift_range_px_q16: 0,
+        }
+    }
+
     #[test]
     fn sums_over_the_support_are_the_whole_window_sums() {
         let mut bits = crate::test_rng::xorshift(0x1f83_d9ab_fb41_bd6bu64);
         let mut next = move |m: u64| bits() % m;
         for _ in 0..300 {
-            let f: std::vec::Vec<i32> = (0..100).map(|_| next(60_000) as i32 - 1_000).collect();
-            let base: std::vec::Vec<i32> = (0..100).map(|_| next(2_000) as i32).collect();
-            let a = (10 << 16) + next(80 << 16) as i32;
-            let w = PairWindow {
-                frame: &f,
-                base: &base,
-                a_px_q16: a,
-                b_px_q16: a + next(6 << 16) as i32 - (3 << 16),
-                sigma_px_q16: 4_096 + next(200_000) as i32,
-                shift_range_px_q16: 0,
-            };
+            let (f, base, (a, b, sigma)) = random_pair(&mut next, (10, 80), 200_000);
+            let w = window(&f, &base, a, b, sigma);
             let shape = LineShape::new(w.sigma_px_q16 as i64);
             let (first, last) = (next(40) as i64, 60 + next(40) as i64);
             let srr = rr_sum(&w, first, last).unwrap();
@@ -1072,17 +1089,8 @@ mod tests {
         let fields = |s: &Sums| (s.saa, s.sab, s.sbb, s.sra, s.srb, s.srr);
         let (mut by_rows, mut by_shape) = (0, 0);
         for _ in 0..200 {
-            let f: std::vec::Vec<i32> = (0..100).map(|_| next(60_000) as i32 - 1_000).collect();
-            let base: std::vec::Vec<i32> = (0..100).map(|_| next(2_000) as i32).collect();
-            let a = (20 << 16) + next(60 << 16) as i32;
-            let w = PairWindow {
-                frame: &f,
-                base: &base,
-                a_px_q16: a,
-                b_px_q16: a + next(6 << 16) as i32 - (3 << 16),
-                sigma_px_q16: 4_096 + next(1_500_000) as i32,
-                shift_range_px_q16: 0,
-            };
+            let (f, base, (a, b, sigma)) = random_pair(&mut next, (20, 60), 1_500_000);
+            let w = window(&f, &base, a, b, sigma);
             let shape = LineShape::new(w.sigma_px_q16 as i64);
             let (first, last) = (next(30) as i64, 40 + next(59) as i64);
             let srr = rr_sum(&w, first, last).unwrap();
