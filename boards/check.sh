@@ -331,15 +331,18 @@ done
 [ -f "$api_elf" ] && sizes glowcheck-nopanic thumbv6m-none-eabi "$api_elf"
 [ -f "$rp_elf" ] && sizes glowcheck-rp2040 thumbv6m-none-eabi "$rp_elf"
 [ -n "$stack_bytes" ] && echo "glowcheck-nopanic stack_bytes (thumbv6m code, painted and scanned): $stack_bytes" | tee -a "$out/sizes.txt"
-# `Buffers::new()` is all zero, so a firmware's `static` of it takes RAM in .bss and no flash (a
-# non-zero default, e.g. an `Option` whose `None` is a niche value, would copy ~45 KiB into .data).
+# `Buffers::new()` and `Report::new()` are all zero, so a firmware's `static` of either takes RAM in
+# .bss and no flash (a non-zero default, e.g. an `Option` whose `None` is a niche value or an enum
+# whose default is not its 0, would copy ~45 KiB and ~3 KiB into .data).
 pelf="$out/glowcheck-pipeline-thumbv6m-none-eabi.elf"
 if [ -f "$pelf" ]; then
-    kind="$("$nm" "$pelf" | awk '$3 ~ /glowcheck_pipeline.*BUFFERS/ { print $2 }')"
-    case "$kind" in
-        b | B) ok "the pipeline firmware's Buffers static sits in .bss (no flash)" ;;
-        *) fail "the pipeline firmware's Buffers static is not in .bss (symbol type '$kind'): Buffers::new() is no longer all zero" ;;
-    esac
+    for s in BUFFERS:Buffers REPORT:Report; do
+        kind="$("$nm" "$pelf" | awk -v s="${s%%:*}" '$3 ~ ("glowcheck_pipeline.*" s) { print $2 }')"
+        case "$kind" in
+            b | B) ok "the pipeline firmware's ${s#*:} static sits in .bss (no flash)" ;;
+            *) fail "the pipeline firmware's ${s#*:} static is not in .bss (symbol type '$kind'): ${s#*:}::new() is no longer all zero" ;;
+        esac
+    done
 fi
 
 # Instruction counts and stack of the whole pipeline on the M0 code (boards/measure.sh): more than 5 %

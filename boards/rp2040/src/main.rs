@@ -79,8 +79,7 @@ static mut STORAGE: Storage = Storage {
     buffers: Buffers::new(),
 };
 
-/// The check's report, apart from [`STORAGE`]: its empty value is not all zeros, so it lives in
-/// `.data` (a copy in flash), and everything else stays in `.bss`.
+/// The check's report (≈ 3 KiB; its empty value is all zeros, so it is in `.bss` too).
 static mut REPORT: Report = Report::new();
 
 /// The bundled check configuration: the demo bench's, with this board's ADC and exposure.

@@ -16,12 +16,15 @@ pub const MAX_UNEXPLAINED: usize = 24;
 #[cfg_attr(feature = "defmt", derive(defmt::Format))]
 pub enum Verdict {
     /// The tube is what the profile says and the instrument agrees with it.
-    Pass,
+    Pass = 1,
     /// Something is wrong with the tube or the instrument; see the reasons.
-    Fail,
+    Fail = 2,
     /// The frame does not allow a decision; see the reasons for what to change.
+    ///
+    /// The zero value, so an empty [`Report`] is all zeros and a firmware's `static` report sits
+    /// in `.bss` (no copy in flash).
     #[default]
-    Inconclusive,
+    Inconclusive = 0,
 }
 
 impl Verdict {
