@@ -437,10 +437,9 @@ pub(crate) fn fit_map_at(
     }
     let n = points.len() as i128;
     let dof = n - d as i128;
-    let rms = isqrt_u128(sum_wr2.checked_div(sum_w).unwrap_or(0).max(0) as u128) as u64;
+    let rms = isqrt_u128(div_nonnegative(sum_wr2, sum_w).unwrap_or(0).max(0) as u128) as u64;
     let chi2_per_dof_q8 = if dof > 0 {
-        chi2_q8
-            .checked_div(dof)
+        div_nonnegative(chi2_q8, dof)
             .unwrap_or(0)
             .clamp(0, u32::MAX as i128) as u32
     } else {
@@ -456,6 +455,16 @@ pub(crate) fn fit_map_at(
     out.chi2_per_dof_q8 = chi2_per_dof_q8;
     out.points = points.len() as u8;
     Ok(())
+}
+
+/// `a.checked_div(b)`, through the 64-bit division when both are in 0 … 2^64 − 1 (the sums of
+/// squares and weights of any real fit): for a ≥ 0 and b > 0 the truncated quotients agree, and
+/// b = 0 is `None` either way. A 128-bit division is a long library routine on the Cortex-M0.
+fn div_nonnegative(a: i128, b: i128) -> Option<i128> {
+    match (u64::try_from(a), u64::try_from(b)) {
+        (Ok(ua), Ok(ub)) => ua.checked_div(ub).map(i128::from),
+        _ => a.checked_div(b),
+    }
 }
 
 /// The fit and residual weights (σ_min / σ)² in Q30 and Q20, rounded half up as [`mul_div_round`]
@@ -606,6 +615,38 @@ fn gauss_jordan(m: &mut [[i128; 9]; 4], d: usize) -> Result<(), CalibrateError> 
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn narrow_division_is_the_wide_one() {
+        let mut next = crate::test_rng::xorshift(0x5be0_cd19_137e_2179u64);
+        let mut narrow = 0;
+        for _ in 0..100_000 {
+            let wide = |v: u64, w: u64, bits: u64| -> i128 {
+                let m = (((v as u128) << 64 | w as u128) >> (128 - bits.clamp(1, 127))) as i128;
+                if v & 1 == 1 && w.is_multiple_of(4) {
+                    -m
+                } else {
+                    m
+                }
+            };
+            let (a, b) = (
+                wide(next(), next(), next() % 100),
+                wide(next(), next(), next() % 70),
+            );
+            narrow += usize::from((0..1 << 64).contains(&a) && (0..1 << 64).contains(&b));
+            assert_eq!(div_nonnegative(a, b), a.checked_div(b), "{a} {b}");
+        }
+        assert!(narrow > 20_000, "{narrow}");
+        for (a, b) in [
+            (0, 0),
+            (5, 0),
+            (u64::MAX as i128, 1),
+            (u64::MAX as i128, 7),
+            (-9, 2),
+        ] {
+            assert_eq!(div_nonnegative(a, b), a.checked_div(b), "{a} {b}");
+        }
+    }
 
     #[test]
     fn both_weights_from_one_division_are_the_rounded_quotients() {

@@ -78,7 +78,11 @@ impl Divisor {
         }
         // n = wide · narrow < 2^192 in three words, low first.
         let lo = mul_64x64(wide as u64, narrow as u64);
-        let hi = mul_64x64((wide >> 64) as u64, narrow as u64);
+        // A wide factor below 2^64 (most of an elimination's cells): the high product is 0.
+        let hi = match (wide >> 64) as u64 {
+            0 => 0,
+            w1 => mul_64x64(w1, narrow as u64),
+        };
         let mid = (lo >> 64) + (hi & u64::MAX as u128);
         let n = [lo as u64, mid as u64, ((hi >> 64) + (mid >> 64)) as u64];
         // Shifted so that d is the divisor: four words (the top one takes the bits shifted out).
@@ -127,10 +131,15 @@ impl Divisor {
 }
 
 /// The full product of two u64 from four 32 × 32-bit ones.
+///
+/// Both below 2^32 (a small weight times a small σ, say): the one low product, the same integer.
 pub(crate) fn mul_64x64(a: u64, b: u64) -> u128 {
     const M: u64 = 0xffff_ffff;
     let (a1, a0) = ((a >> 32) as u32, a as u32);
     let (b1, b0) = ((b >> 32) as u32, b as u32);
+    if a1 == 0 && b1 == 0 {
+        return mul_u32_wide(a0, b0) as u128;
+    }
     let (p00, p01, p10, p11) = (
         mul_u32_wide(a0, b0),
         mul_u32_wide(a0, b1),
@@ -361,6 +370,11 @@ mod tests {
             let seed = next();
             let (a, b) = (seed >> (seed % 64), seed.rotate_left(29));
             assert_eq!(mul_64x64(a, b), a as u128 * b as u128);
+            // One or both factors below 2^32 (the short route), and either above it.
+            let (sa, sb) = (a >> 32, b >> (32 + seed % 32));
+            assert_eq!(mul_64x64(sa, sb), sa as u128 * sb as u128);
+            assert_eq!(mul_64x64(sa, b), sa as u128 * b as u128);
+            assert_eq!(mul_64x64(a, sb), a as u128 * sb as u128);
             assert_eq!(
                 mul_u32_wide(a as u32, b as u32),
                 (a as u32) as u64 * (b as u32) as u64
