@@ -86,24 +86,21 @@ impl Divisor {
         let mid = (lo >> 64) + (hi & u64::MAX as u128);
         let n = [lo as u64, mid as u64, ((hi >> 64) + (mid >> 64)) as u64];
         // Shifted so that d is the divisor: four words (the top one takes the bits shifted out).
+        // A variable 64-bit shift is a library call on the Cortex-M0: a zero word (the top one of
+        // a product below 2^128, most of them) shifts to zero without it.
         let s = self.shift;
-        let word = |k: usize| -> u64 {
-            let cur = n.get(k).copied().unwrap_or(0);
-            let below = k
-                .checked_sub(1)
-                .and_then(|j| n.get(j))
-                .copied()
-                .unwrap_or(0);
-            if s == 0 {
-                cur
-            } else {
-                (cur << s) | (below >> (64 - s))
-            }
+        let [n0, n1, n2] = n;
+        let words = if s == 0 {
+            [n0, n1, n2, 0]
+        } else {
+            let shl = |v: u64| if v == 0 { 0 } else { v << s };
+            let shr = |v: u64| if v == 0 { 0 } else { v >> (64 - s) };
+            [shl(n0), shl(n1) | shr(n0), shl(n2) | shr(n1), shr(n2)]
         };
         let mut rem = 0u64;
         let mut q = [0u64; 4];
         for k in (0..4).rev() {
-            let w = word(k);
+            let w = words.get(k).copied().unwrap_or(0);
             // Leading words below d: a zero quotient digit and the word as remainder, no product.
             let (qk, r) = if rem == 0 && w < self.d {
                 (0, w)
