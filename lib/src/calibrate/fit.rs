@@ -7,7 +7,7 @@
 //! the centroid noise, sets the uncertainty).
 use super::error::CalibrateError;
 use super::map::{HalfWidth, WavelengthMap, X_ONE_Q30};
-use super::muldiv::{mul_64x64, mul_div_round, Divisor};
+use super::muldiv::{mul_64x64, mul_div_round, mul_i32_full, Divisor};
 use crate::find::math::{mul_i32_wide, mul_u32_wide};
 use crate::fixed::{isqrt_u128, mul_div_i128};
 
@@ -518,26 +518,28 @@ fn accumulate(
 /// product of at most 2^123, so the checked product of the general path cannot fail.
 ///
 /// w · x^r · λ splits into two 32 × 32 → 64-bit products (λ below 2^32 in size; a 128-bit
-/// product otherwise): the same integers without the 128-bit library product. (The other
-/// products stay 64-bit: on the Cortex-M0 the library's is no slower than one from 32-bit pieces
-/// behind a range test, measured.)
+/// product otherwise): the same integers without the 128-bit library product. The other products
+/// have both factors in `i32` by the bounds alone, so they take [`mul_i32_full`] without a range
+/// test (cheaper than the library's 64-bit product on the Cortex-M0, measured).
 fn accumulate_narrow(m: &mut [[i128; 9]; 4], d: usize, w: i64, x: i64, wavelength_fm: i64) {
+    // |x^k|, |x|, w ≤ 2^30 all fit `i32`: each product is one from 32-bit pieces.
+    let q30 = |a: i64, b: i64| mul_i32_full(a as i32, b as i32);
     let mut pw = [0i64; 7];
     let mut xk: i64 = 1 << 30;
     for slot in pw.iter_mut() {
         *slot = xk;
-        xk = (xk * x) >> 30;
+        xk = q30(xk, x) >> 30;
     }
     // Cell (r, c) takes w · x^(r+c): the 2d − 1 distinct products once each.
     let mut wp = [0i64; 7];
     for (slot, &p) in wp.iter_mut().zip(pw.iter()).take((2 * d).saturating_sub(1)) {
-        *slot = w * p;
+        *slot = q30(w, p);
     }
     for (r, row) in m.iter_mut().enumerate().take(d) {
         for (c, cell) in row.iter_mut().enumerate().take(d) {
             *cell += wp.get(r + c).copied().unwrap_or(0) as i128;
         }
-        let wx = w * pw.get(r).copied().unwrap_or(0);
+        let wx = q30(w, pw.get(r).copied().unwrap_or(0));
         row[4] += wide_by_narrow(wx, wavelength_fm);
     }
 }
@@ -903,6 +905,17 @@ mod tests {
                 accumulate(&mut b, d, w as i128, x, lam).unwrap();
             }
             assert_eq!(a, b);
+        }
+        // The bounds themselves: x = ±1 and w = 0 or 1 (Q30), every power at ±2^30.
+        for d in 2..=4 {
+            for x in [-(1i64 << 30), 1 << 30, -1, 0, 1] {
+                for w in [0i64, 1, 1 << 30] {
+                    let (mut a, mut b) = ([[0i128; 9]; 4], [[0i128; 9]; 4]);
+                    accumulate_narrow(&mut a, d, w, x, -(1 << 62));
+                    accumulate(&mut b, d, w as i128, x, -(1 << 62)).unwrap();
+                    assert_eq!(a, b, "{d} {x} {w}");
+                }
+            }
         }
     }
 

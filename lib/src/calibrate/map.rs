@@ -4,6 +4,7 @@
 //! [−1, 1] across the sensor: the coefficients are then all of comparable size (fm) and the fit is
 //! well conditioned in fixed point. Reports convert to the plain λ(p) = c0 + c1 p + c2 p² + c3 p³.
 use super::error::CalibrateError;
+use super::muldiv::mul_i32_full;
 use crate::find::math::mul_u32_wide;
 
 /// Q30 scale of the normalised pixel coordinate x.
@@ -181,7 +182,7 @@ impl WavelengthMap {
             };
             let mut d = kc(deg)?;
             for k in (1..deg).rev() {
-                d = ((d * x) >> 30) + kc(k)?;
+                d = (mul_by_x(d, x) >> 30) + kc(k)?;
             }
             d as i128
         } else {
@@ -554,6 +555,16 @@ fn divide_shl(a: i64, k: u32, d: i64, recip: Option<(u64, u64)>) -> Option<i64> 
     })
 }
 
+/// a · x for |x| ≤ 2^30 and a product that fits `i64` (the narrow Horner steps): from 32-bit
+/// pieces ([`mul_i32_full`]) when a fits `i32` too, else the 64-bit product; the same integer.
+#[inline(always)]
+fn mul_by_x(a: i64, x: i64) -> i64 {
+    match (i32::try_from(a), i32::try_from(x)) {
+        (Ok(a), Ok(x)) => mul_i32_full(a, x),
+        _ => a * x,
+    }
+}
+
 /// Σ c_k x^k by Horner, x in Q30, result in the coefficients' unit.
 pub(crate) fn eval_q30(coeff: &[i64; 4], degree: u8, x_q30: i64) -> Result<i64, CalibrateError> {
     let narrow = x_q30.unsigned_abs() <= 1 << 30
@@ -568,7 +579,7 @@ pub(crate) fn eval_q30(coeff: &[i64; 4], degree: u8, x_q30: i64) -> Result<i64, 
         let mut acc: i64 = *coeff.get(degree as usize).ok_or(CalibrateError::Overflow)?;
         for k in (0..degree as usize).rev() {
             let c = *coeff.get(k).ok_or(CalibrateError::Overflow)?;
-            acc = ((acc * x_q30 + (1 << 29)) >> 30) + c;
+            acc = ((mul_by_x(acc, x_q30) + (1 << 29)) >> 30) + c;
         }
         return Ok(acc);
     }
@@ -660,6 +671,21 @@ mod tests {
             }
         }
         i32::try_from(p).ok()
+    }
+
+    #[test]
+    fn horner_step_product_is_the_64_bit_one() {
+        let mut next = crate::test_rng::xorshift(0x9b05_688c_2b3e_6c1fu64);
+        let mut short = 0;
+        for _ in 0..100_000 {
+            let v = next();
+            // |a| up to 2^33 (past i32 as the narrow steps allow), |x| ≤ 2^30.
+            let a = (v as i64) >> (30 + v % 8);
+            let x = ((next() % ((1 << 31) + 1)) as i64) - (1 << 30);
+            short += usize::from(i32::try_from(a).is_ok());
+            assert_eq!(mul_by_x(a, x), a * x, "{a} {x}");
+        }
+        assert!(short > 10_000 && short < 95_000, "{short}");
     }
 
     #[test]
