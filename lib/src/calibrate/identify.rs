@@ -583,6 +583,7 @@ fn line_masks(
     } else {
         None
     };
+    let cap = reach.map(reach_cap);
     for ui in us() {
         let (f, s) = match (&cfg.nominal, reach) {
             (None, _) => (all, all),
@@ -594,7 +595,7 @@ fn line_masks(
                     if w.wrapping_sub(ui).wrapping_abs() <= cfg.max_offset_fm {
                         f |= 1 << bit;
                     }
-                    if reach.is_none_or(|r| (w as i128 - ui as i128).abs() <= r) {
+                    if within_reach(w, ui, cap) {
                         s |= 1 << bit;
                     }
                 }
@@ -605,6 +606,22 @@ fn line_masks(
         let _ = second.push(s);
     }
     (first, second)
+}
+
+/// A `line_masks` reach r as a `u64` cap on |λ − u|: `None` below 0 (nothing passes), `u64::MAX`
+/// past it (everything does: sane values are at most 2^61 apart twice over).
+fn reach_cap(r: i128) -> Option<u64> {
+    u64::try_from(r).ok().or((r > 0).then_some(u64::MAX))
+}
+
+/// |w − u| ≤ r for sane w, u (|·| ≤ 2^61, so the difference is exact in `i64`) and
+/// `cap` = [`reach_cap`]`(r)` (`None`: no reach, every line passes): the 128-bit test in `u64`.
+fn within_reach(w: i64, u: i64, cap: Option<Option<u64>>) -> bool {
+    match cap {
+        Some(Some(c)) => (w - u).unsigned_abs() <= c,
+        Some(None) => false,
+        None => true,
+    }
 }
 
 fn better(h: &Hypothesis, best: &Option<Hypothesis>) -> bool {
@@ -1210,6 +1227,28 @@ mod tests {
             .collect();
         let cfg = IdentifyConfig::new(2048, 2, None);
         assert!(identify(&peaks, &lines, &cfg).is_err());
+    }
+
+    #[test]
+    fn reach_in_u64_is_the_wide_test() {
+        let mut next = crate::test_rng::xorshift(0x1f83_d9ab_fb41_bd6bu64);
+        let sane = |v: u64| ((v as i64) >> (2 + v % 50)).clamp(-(1 << 61), 1 << 61);
+        let (mut pass, mut fail) = (0, 0);
+        for round in 0..200_000 {
+            let (w, u) = (sane(next()), sane(next()));
+            let r: i128 = match round % 5 {
+                0 => (w as i128 - u as i128).abs() + (next() % 3) as i128 - 1,
+                1 => -((next() % 1000) as i128),
+                2 => (1i128 << 64) + (next() % 1000) as i128 - 500,
+                _ => sane(next()) as i128,
+            };
+            let want = (w as i128 - u as i128).abs() <= r;
+            assert_eq!(within_reach(w, u, Some(reach_cap(r))), want, "{w} {u} {r}");
+            pass += usize::from(want);
+            fail += usize::from(!want);
+        }
+        assert!(pass > 40_000 && fail > 40_000, "{pass} {fail}");
+        assert!(within_reach(1 << 61, -(1 << 61), None));
     }
 
     #[test]
