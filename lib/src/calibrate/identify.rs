@@ -587,7 +587,7 @@ fn line_masks(
     for ui in us() {
         let (f, s) = match (&cfg.nominal, reach) {
             (None, _) => (all, all),
-            (Some(_), reach) => {
+            (Some(_), _) => {
                 let mut f = 0u32;
                 let mut s = 0u32;
                 for (bit, w) in ws().enumerate() {
