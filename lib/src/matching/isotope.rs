@@ -95,8 +95,8 @@ pub struct PairWindow<'a> {
 ///
 /// Work: ≤ 129 + 3 × 11 + 257 = 419 pair steps and ≤ 214 + 5 × 11 = 269 single-line steps, each
 /// over ≤ 64 px, then one 3 × 3 Fisher pass. On the 1/16- and 1/32-px grids the line shapes come
-/// from ≤ 16 + 32 row pairs and ≤ 16 rows of ≤ 40 values (one row of shape values per phase of a grid, moved by whole pixels); elsewhere a pixel costs
-/// ≤ 2 pixel-averaged Gaussians of 3 exponentials.
+/// from ≤ 16 + 32 row pairs and ≤ 16 rows of ≤ 40 values (one row per phase of a grid, moved by
+/// whole pixels); elsewhere a pixel costs ≤ 2 pixel-averaged Gaussians of 3 exponentials.
 pub fn share_by_profile(w: &PairWindow<'_>) -> Option<ShareEstimate> {
     let sigma = w.sigma_px_q16.max(1 << 12) as i64;
     let lo_c = w.a_px_q16.min(w.b_px_q16) as i64;
