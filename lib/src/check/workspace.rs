@@ -18,9 +18,9 @@ pub struct Workspace<'a> {
     pub scratch: &'a mut [i32],
     /// The frame's peaks (2 KiB), kept here rather than on the stack of a small core.
     pub peaks: &'a mut PeakList,
-    /// Peak finding's tables (≈ 6 KiB), for the same reason.
+    /// Peak finding's tables (≈ 8 KiB), for the same reason.
     pub find: &'a mut FindWork,
-    /// Calibration and matching's tables (≈ 6 KiB), for the same reason.
+    /// Calibration and matching's tables (≈ 8 KiB), for the same reason.
     pub matching: &'a mut MatchWork,
 }
 
@@ -64,7 +64,7 @@ impl Default for MatchWork {
     }
 }
 
-/// Owned buffers for frames up to `N` pixels (13 N bytes + 2 KiB of peaks + ≈ 13 KiB of tables):
+/// Owned buffers for frames up to `N` pixels (13 N bytes + 2 KiB of peaks + ≈ 15 KiB of tables):
 /// put one in a `static` on a microcontroller.
 pub struct Buffers<const N: usize> {
     frame: [i32; N],

@@ -31,7 +31,7 @@
 //! }
 //! let flags = [0u8; 128];
 //! let mut scratch = [0i32; SCRATCH_PER_PIXEL * 128];
-//! let mut work = FindWork::new(); // ≈ 6 KiB: a `static` on a microcontroller
+//! let mut work = FindWork::new(); // ≈ 8 KiB: a `static` on a microcontroller
 //! let mut peaks = PeakList::new();
 //! let report =
 //!     find_peaks(&FindConfig::DEFAULT, &frame, &flags, &mut scratch, &mut work, &mut peaks).unwrap();
