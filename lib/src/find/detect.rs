@@ -554,6 +554,28 @@ mod tests {
         assert_eq!(pos, [10, 22, 33]);
     }
 
+    /// `find_peaks` puts a candidate's strength back as the smoothed row's value at its pixel.
+    #[test]
+    fn strength_is_the_smoothed_value_at_the_pixel() {
+        let nm = flat_noise(1);
+        let mut x = 0x2545_f491u32;
+        let mut s = [0i32; 600];
+        for (i, v) in s.iter_mut().enumerate() {
+            x ^= x << 13;
+            x ^= x >> 17;
+            x ^= x << 5;
+            // Noise, plateaus (values rounded to 64) and a few tall lines.
+            *v = (((x >> 22) as i32) & !63) + if i % 97 == 40 { 5000 } else { 0 };
+        }
+        let base = [0i32; 600];
+        let mut out = Vec::new();
+        let _ = find_candidates(&s, &base, &nm, &FindConfig::DEFAULT, 10, &mut out);
+        assert!(out.len() > 5);
+        for c in out.iter() {
+            assert_eq!(Some(c.strength), s.get(c.pos).copied());
+        }
+    }
+
     #[test]
     fn full_list_keeps_strongest() {
         let mut v: Vec<Candidate, 2> = Vec::new();

@@ -172,6 +172,9 @@ pub fn find_peaks(
     baseline::estimate_baseline_known(frame, flag, &nm, 2 * fwhm_max_px, base, tmp, clean);
     // The baseline is made of means of frame values: within the frame's range.
     detect::smooth_residual_known(frame, base, tmp, narrow);
+    // When the looks end after the first, the fits start from the mask's half-width σ (Q16 px,
+    // before clamping), kept in `tmp` at each candidate's pixel: the same width search, not repeated.
+    let mut sigma_in_tmp = false;
     for look in 0..2 {
         cands.clear();
         truncated = detect::find_candidates(tmp, base, &nm, cfg, 4 * fwhm_max_px, cands);
@@ -186,12 +189,17 @@ pub fn find_peaks(
             noise: &nm,
             neighbours: [None, None],
         };
+        let mut all_kept = true;
         for c in cands.iter() {
-            let s0 = half_width_sigma(&data, c.pos, fwhm_max_px)
-                .max(s_min)
-                .min(s_max);
+            let raw = half_width_sigma(&data, c.pos, fwhm_max_px);
+            let s0 = raw.max(s_min).min(s_max);
             let half = usize::try_from((3 * s0) >> 16).unwrap_or(0) + 2;
             mask.mark(c.pos, half.min(3 * fwhm_max_px));
+            // The cell held `c.strength` (put back below if a second look reads the row).
+            match (i32::try_from(raw), tmp.get_mut(c.pos)) {
+                (Ok(v), Some(cell)) => *cell = v,
+                _ => all_kept = false,
+            }
         }
         // Only the blocks the lines touch change.
         blocks.remeasure_masked(frame, flag, mask);
@@ -201,10 +209,20 @@ pub fn find_peaks(
                 let close = noise::within_eighth(&nm, &better);
                 nm = better;
                 if close {
+                    sigma_in_tmp = all_kept;
                     break;
                 }
             }
-            None => break,
+            None => {
+                sigma_in_tmp = all_kept;
+                break;
+            }
+        }
+        // The second look reads the smoothed row: a candidate's value there is its strength.
+        for c in cands.iter() {
+            if let Some(cell) = tmp.get_mut(c.pos) {
+                *cell = c.strength;
+            }
         }
     }
     let candidates = u16::try_from(cands.len()).unwrap_or(u16::MAX);
@@ -226,9 +244,15 @@ pub fn find_peaks(
     fits.clear();
     let mut budget = STEP_BUDGET;
     for c in cands.iter() {
-        let s0 = half_width_sigma(&data, c.pos, fwhm_max_px)
-            .max(s_min)
-            .min(s_max);
+        let fresh = || half_width_sigma(&data, c.pos, fwhm_max_px);
+        let raw = match tmp.get(c.pos) {
+            Some(&v) if sigma_in_tmp => i64::from(v),
+            _ => fresh(),
+        };
+        // Tests hold the kept σ to the search it stands for.
+        #[cfg(test)]
+        assert_eq!(raw, fresh(), "kept half-width σ at {}", c.pos);
+        let s0 = raw.max(s_min).min(s_max);
         // Past the budget a line gets MIN_STEPS = 0 steps: the budget alone is the allowance.
         let f = fit::fit_line_in(&data, c.pos, s0, s_min, s_max, budget, scratch_fit);
         budget = budget.saturating_sub(usize::from(f.steps));
