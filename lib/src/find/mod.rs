@@ -10,7 +10,7 @@
 //!    its Fisher σ, FWHM, height, area.
 //!
 //! Every per-pixel pass runs in 32-bit arithmetic on ADC frames (values within ±2^23): the
-//! M0 build spends ~540 instructions per pixel on a 2048-px frame of a dozen lines, over a third
+//! M0 build spends ~530 instructions per pixel on a 2048-px frame of a dozen lines, over a third
 //! of them in the per-line fits (`bash boards/measure.sh` prints the pieces as `find_parts`).
 //!
 //! # Scales
