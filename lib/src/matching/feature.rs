@@ -301,6 +301,31 @@ mod tests {
         }
     }
 
+    /// Lines at `wa` and `wa + gap` (fm) with their pixels on `map`, and the feature of the two
+    /// predicted at `wa + at` (fm).
+    fn pair_at(
+        map: &WavelengthMap,
+        wa: i64,
+        gap: i64,
+        at: i64,
+    ) -> ([CatalogueLine; 2], LinePixels, Feature) {
+        let cat = [line(wa), line(wa + gap)];
+        let mut lines = LinePixels::new();
+        lines.put(0, map.pixel_q16(wa).ok());
+        lines.put(1, map.pixel_q16(wa + gap).ok());
+        let mut members = Vec::new();
+        members.push(0).unwrap();
+        members.push(1).unwrap();
+        let f = Feature {
+            members,
+            primary: 0,
+            predicted_fm: wa + at,
+            predicted_px_q16: 0,
+            expected: 0,
+        };
+        (cat, lines, f)
+    }
+
     #[test]
     fn close_pair_interpolation_is_the_inversion_within_its_bound() {
         let mut next = crate::test_rng::xorshift(0x9b05_688c_2b3e_6c1fu64);
@@ -329,20 +354,7 @@ mod tests {
             let wa = map.wavelength_fm((p0 << 16) as i32).unwrap();
             let slope = map.slope_fm_per_px_q16((p0 << 16) as i32).unwrap();
             let gap = (slope >> 16) * (next() % 1_600) as i64 / 1_000;
-            let cat = [line(wa), line(wa + gap)];
-            let mut lines = LinePixels::new();
-            lines.put(0, map.pixel_q16(cat[0].wavelength_fm).ok());
-            lines.put(1, map.pixel_q16(cat[1].wavelength_fm).ok());
-            let mut members = Vec::new();
-            members.push(0).unwrap();
-            members.push(1).unwrap();
-            let f = Feature {
-                members,
-                primary: 0,
-                predicted_fm: wa + gap * (next() % 1_001) as i64 / 1_000,
-                predicted_px_q16: 0,
-                expected: 0,
-            };
+            let (cat, lines, f) = pair_at(&map, wa, gap, gap * (next() % 1_001) as i64 / 1_000);
             let Some(px) = between_members(&f, &cat, &map, &lines) else {
                 continue;
             };
@@ -366,20 +378,7 @@ mod tests {
         for (m, gap_px_q8, at_px) in [(&map, 400, 1000), (&map, 200, 2047), (&small, 200, 100)] {
             let wa = m.wavelength_fm(at_px << 16).unwrap();
             let gap = (m.slope_fm_per_px_q16(at_px << 16).unwrap() >> 16) * gap_px_q8 / 256;
-            let cat = [line(wa), line(wa + gap)];
-            let mut lines = LinePixels::new();
-            lines.put(0, m.pixel_q16(wa).ok());
-            lines.put(1, m.pixel_q16(wa + gap).ok());
-            let mut members = Vec::new();
-            members.push(0).unwrap();
-            members.push(1).unwrap();
-            let f = Feature {
-                members,
-                primary: 0,
-                predicted_fm: wa + gap / 2,
-                predicted_px_q16: 0,
-                expected: 0,
-            };
+            let (cat, lines, f) = pair_at(m, wa, gap, gap / 2);
             assert_eq!(
                 between_members(&f, &cat, m, &lines),
                 None,
