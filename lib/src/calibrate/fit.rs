@@ -7,7 +7,7 @@
 //! the centroid noise, sets the uncertainty).
 use super::error::CalibrateError;
 use super::map::{HalfWidth, WavelengthMap, X_ONE_Q30};
-use super::muldiv::{mul_64x64, mul_div_round, mul_i32_full, Divisor};
+use super::muldiv::{mul_64x64, mul_div_round, Divisor};
 use crate::find::math::{mul_i32_wide, mul_u32_wide};
 use crate::fixed::{isqrt_u128, mul_div_i128};
 
@@ -519,11 +519,11 @@ fn accumulate(
 ///
 /// w · x^r · λ splits into two 32 × 32 → 64-bit products (λ below 2^32 in size; a 128-bit
 /// product otherwise): the same integers without the 128-bit library product. The other products
-/// have both factors in `i32` by the bounds alone, so they take [`mul_i32_full`] without a range
+/// have both factors in `i32` by the bounds alone, so they take [`mul_i32_wide`] without a range
 /// test (cheaper than the library's 64-bit product on the Cortex-M0, measured).
 fn accumulate_narrow(m: &mut [[i128; 9]; 4], d: usize, w: i64, x: i64, wavelength_fm: i64) {
     // |x^k|, |x|, w ≤ 2^30 all fit `i32`: each product is one from 32-bit pieces.
-    let q30 = |a: i64, b: i64| mul_i32_full(a as i32, b as i32);
+    let q30 = |a: i64, b: i64| mul_i32_wide(a as i32, b as i32);
     let mut pw = [0i64; 7];
     let mut xk: i64 = 1 << 30;
     for slot in pw.iter_mut() {

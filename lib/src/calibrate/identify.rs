@@ -16,7 +16,7 @@
 use super::error::CalibrateError;
 use super::fit::{fit_map_at, standard_frame, FitPoint, FitScratch, MapFit};
 use super::map::{HalfWidth, WavelengthMap};
-use super::muldiv::mul_i32_full;
+use crate::find::math::mul_i32_wide;
 use crate::find::Peak;
 use heapless::Vec;
 
@@ -485,7 +485,7 @@ impl Axis {
         // Both in `i32` (b near 1 in Q30, λ below 2.1 mm in fm): the same exact product from
         // 32-bit pieces, cheaper than the library's 64-bit one on the Cortex-M0.
         if let (Ok(b), Ok(u)) = (i32::try_from(h.b_q30), i32::try_from(uk)) {
-            return h.a_fm + (mul_i32_full(b, u) >> 30);
+            return h.a_fm + (mul_i32_wide(b, u) >> 30);
         }
         if h.b_q30.unsigned_abs() <= self.b_max_u {
             h.a_fm + ((h.b_q30 * uk) >> 30)
@@ -499,7 +499,7 @@ impl Axis {
         let d = self.du_dp.get(k).copied().unwrap_or(0);
         // As in `lam`: both in `i32`, the same exact product from 32-bit pieces.
         if let (Ok(b), Ok(d)) = (i32::try_from(h.b_q30), i32::try_from(d)) {
-            return (mul_i32_full(b, d) >> 30).unsigned_abs() as i64;
+            return (mul_i32_wide(b, d) >> 30).unsigned_abs() as i64;
         }
         if h.b_q30.unsigned_abs() <= self.b_max_du {
             ((h.b_q30 * d) >> 30).unsigned_abs() as i64

@@ -4,8 +4,7 @@
 //! [−1, 1] across the sensor: the coefficients are then all of comparable size (fm) and the fit is
 //! well conditioned in fixed point. Reports convert to the plain λ(p) = c0 + c1 p + c2 p² + c3 p³.
 use super::error::CalibrateError;
-use super::muldiv::mul_i32_full;
-use crate::find::math::mul_u32_wide;
+use crate::find::math::{mul_i32_wide, mul_u32_wide};
 
 /// Q30 scale of the normalised pixel coordinate x.
 pub const X_ONE_Q30: i64 = 1 << 30;
@@ -556,11 +555,11 @@ fn divide_shl(a: i64, k: u32, d: i64, recip: Option<(u64, u64)>) -> Option<i64> 
 }
 
 /// a · x for |x| ≤ 2^30 and a product that fits `i64` (the narrow Horner steps): from 32-bit
-/// pieces ([`mul_i32_full`]) when a fits `i32` too, else the 64-bit product; the same integer.
+/// pieces ([`mul_i32_wide`]) when a fits `i32` too, else the 64-bit product; the same integer.
 #[inline(always)]
 fn mul_by_x(a: i64, x: i64) -> i64 {
     match (i32::try_from(a), i32::try_from(x)) {
-        (Ok(a), Ok(x)) => mul_i32_full(a, x),
+        (Ok(a), Ok(x)) => mul_i32_wide(a, x),
         _ => a * x,
     }
 }

@@ -127,18 +127,6 @@ impl Divisor {
     }
 }
 
-/// a · b in full, from four 16 × 16-bit products of signed high and unsigned low halves
-/// (a = a_h · 2^16 + a_l with a_h = a >> 16): |a_h · b_h| ≤ 2^30 and |a_h · b_l| < 2^31 fit `i32`,
-/// a_l · b_l < 2^32 fits `u32`, and the sum is exact in `i64`. The Cortex-M0 has only the 32-bit
-/// multiply: this is about half the library's 64 × 64-bit product, the same integer.
-#[inline(always)]
-pub(crate) fn mul_i32_full(a: i32, b: i32) -> i64 {
-    let (ah, al) = (a >> 16, (a & 0xffff) as u32);
-    let (bh, bl) = (b >> 16, (b & 0xffff) as u32);
-    let mid = i64::from(ah * bl as i32) + i64::from(al as i32 * bh);
-    (i64::from(ah * bh) << 32) + (mid << 16) + i64::from(al * bl)
-}
-
 /// The full product of two u64 from four 32 × 32-bit ones.
 ///
 /// Both below 2^32 (a small weight times a small σ, say): the one low product, the same integer.
@@ -369,35 +357,6 @@ mod tests {
             seed ^= seed >> 7;
             seed ^= seed << 17;
             check(seed | 1 << 63);
-        }
-    }
-
-    #[test]
-    fn signed_halves_give_the_full_product() {
-        let mut next = crate::test_rng::xorshift(0x510e_527f_ade6_82d1u64);
-        for _ in 0..200_000 {
-            let v = next();
-            let (a, b) = (
-                (v as i32) >> (v % 32),
-                ((v >> 32) as i32) >> ((v >> 8) % 32),
-            );
-            assert_eq!(mul_i32_full(a, b), a as i64 * b as i64, "{a} {b}");
-        }
-        for a in [
-            i32::MIN,
-            i32::MIN + 1,
-            -65_536,
-            -65_535,
-            -1,
-            0,
-            1,
-            65_535,
-            65_536,
-            i32::MAX,
-        ] {
-            for b in [i32::MIN, -32_769, -1, 0, 1, 0xffff, i32::MAX] {
-                assert_eq!(mul_i32_full(a, b), a as i64 * b as i64, "{a} {b}");
-            }
         }
     }
 
