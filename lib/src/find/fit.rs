@@ -287,6 +287,13 @@ impl Window {
         v.clamp(i64::from(i32::MIN) + 1, i64::from(i32::MAX)) as i32
     }
 
+    /// Pixel `i`'s raw residual (the unusable ones too); `None` outside the window.
+    fn raw_at(&self, i: usize) -> Option<i32> {
+        i.checked_sub(self.lo)
+            .filter(|&k| k < self.len)
+            .and_then(|k| self.raw.get(k).copied())
+    }
+
     fn resid_at(&self, k: usize) -> Option<i32> {
         self.resid.get(k).copied().filter(|&r| r != UNUSABLE)
     }
@@ -425,12 +432,7 @@ pub fn fit_line_in(
     }
     scratch.win.fill(d, lo, hi);
     let win = &scratch.win;
-    let at = |i: usize| {
-        i.checked_sub(lo)
-            .filter(|&k| k < win.len)
-            .and_then(|k| win.raw.get(k).copied())
-    };
-    let start = start_at(peak, s0, at);
+    let start = start_at(peak, s0, |i| win.raw_at(i));
     run(d, scratch, start, s_min_q16, s_max_q16, max_steps)
 }
 
@@ -1058,12 +1060,7 @@ mod tests {
             let (lo, hi) = (peak.saturating_sub(half), (peak + half).min(n - 1));
             scratch.win.fill(&d, lo, hi);
             let win = &scratch.win;
-            let at = |i: usize| {
-                i.checked_sub(lo)
-                    .filter(|&k| k < win.len)
-                    .and_then(|k| win.raw.get(k).copied())
-            };
-            let start = start_at(peak, s0c, at);
+            let start = start_at(peak, s0c, |i| win.raw_at(i));
             let slow = run(&d, &mut scratch, start, 1 << 15, 8 << 16, 0);
             assert_eq!(fast, slow);
         }
