@@ -695,12 +695,8 @@ mod tests {
         for round in 0..3000 {
             let big = round % 7 == 0;
             let c1 = 1 + next(if big { 1 << 40 } else { 400_000_000 }) as i64;
-            let coeff = [
-                next(2_000_000_000) as i64,
-                c1,
-                next(2 * c1 as u64 / 40 + 1) as i64 - c1 / 40,
-                next(c1 as u64 / 200 + 1) as i64 - c1 / 400,
-            ];
+            let c0 = next(2_000_000_000) as i64;
+            let coeff = curved(&mut next, c0, c1);
             let degree = 1 + next(3) as u8;
             let pixels = 16 + next(4000) as u16;
             let Ok(m) = WavelengthMap::new(pixels, degree, coeff) else {
@@ -725,6 +721,14 @@ mod tests {
         assert!(checked > 10_000, "{checked}");
     }
 
+    /// Coefficients c0 + c1·x + c2·x² + c3·x³ with a random curvature up to 1/40 of the slope term
+    /// and a cubic up to 1/400 (drawn in that order).
+    fn curved(next: &mut impl FnMut(u64) -> u64, c0: i64, c1: i64) -> [i64; 4] {
+        let c2 = next(2 * c1 as u64 / 40 + 1) as i64 - c1 / 40;
+        let c3 = next(c1 as u64 / 200 + 1) as i64 - c1 / 400;
+        [c0, c1, c2, c3]
+    }
+
     #[test]
     fn reversion_guess_gives_the_full_newton_pixel_to_the_rounding_of_lambda() {
         let mut bits = crate::test_rng::xorshift(0x2545_f491_4f6c_dd1du64);
@@ -733,12 +737,8 @@ mod tests {
         for _ in 0..3000 {
             // Sensors of 100–400 nm span: curvature up to 1/40 of the slope term, cubic 1/400.
             let c1 = 50_000_000 + next(150_000_000) as i64;
-            let coeff = [
-                300_000_000 + next(500_000_000) as i64,
-                c1,
-                next(2 * c1 as u64 / 40 + 1) as i64 - c1 / 40,
-                next(c1 as u64 / 200 + 1) as i64 - c1 / 400,
-            ];
+            let c0 = 300_000_000 + next(500_000_000) as i64;
+            let coeff = curved(&mut next, c0, c1);
             let degree = 1 + next(3) as u8;
             let pixels = 256 + next(3840) as u16;
             let Ok(m) = WavelengthMap::new(pixels, degree, coeff) else {
