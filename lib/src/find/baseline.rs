@@ -115,15 +115,24 @@ pub(crate) fn estimate_baseline_known(
 /// With `clean` (every pixel trusted, |values| < 2^23) a full block's sums are 32-bit (< 2^27) and its
 /// flags are not read. Loop bound: one pass over `frame`.
 fn block_means(frame: &[i32], flag: &[u8], means: &mut [i32], cflag: &mut [u8], clean: bool) {
-    for (k, (m, cf)) in means.iter_mut().zip(cflag.iter_mut()).enumerate() {
-        let lo = k * COARSE_PX;
+    // Clean frames: the full blocks in one walk of 16-px chunks, their flags unread.
+    let mut done = 0usize;
+    if clean {
+        let blocks = frame.chunks_exact(COARSE_PX);
+        for ((m, cf), v) in means.iter_mut().zip(cflag.iter_mut()).zip(blocks) {
+            if let Ok(v) = <&[i32; COARSE_PX]>::try_from(v) {
+                *cf = 0;
+                *m = middle_quarters_narrow(v);
+                done += 1;
+            }
+        }
+    }
+    let means_rest = means.get_mut(done..).unwrap_or(&mut []);
+    let cflag_rest = cflag.get_mut(done..).unwrap_or(&mut []);
+    for (k, (m, cf)) in means_rest.iter_mut().zip(cflag_rest.iter_mut()).enumerate() {
+        let lo = (done + k) * COARSE_PX;
         let hi = (lo + COARSE_PX).min(frame.len());
         let vals = frame.get(lo..hi).unwrap_or(&[]);
-        if let (true, Ok(v)) = (clean, <&[i32; COARSE_PX]>::try_from(vals)) {
-            *cf = 0;
-            *m = middle_quarters_narrow(v);
-            continue;
-        }
         let fl = flag.get(lo..hi).unwrap_or(&[]);
         // Plain sums first; only a block holding an untrusted pixel is summed again pixel by pixel.
         let mut bad = 0u8;
@@ -187,14 +196,15 @@ fn block_means(frame: &[i32], flag: &[u8], means: &mut [i32], cflag: &mut [u8], 
 /// A full clean block's level as the careful path computes it (the mean of the middle two of its
 /// four 4-px sums, floor), in 32 bits: |values| < 2^23 keep every sum below 2^27.
 fn middle_quarters_narrow(v: &[i32; COARSE_PX]) -> i32 {
-    let q = |k: usize| -> i32 {
-        v.get(4 * k..4 * k + 4)
-            .unwrap_or(&[])
-            .iter()
-            .fold(0i32, |a, &x| a.wrapping_add(x))
-    };
-    let (a, b, c, d) = (q(0), q(1), q(2), q(3));
-    let total = a.wrapping_add(b).wrapping_add(c).wrapping_add(d);
+    let [x0, x1, x2, x3, x4, x5, x6, x7, x8, x9, x10, x11, x12, x13, x14, x15] = *v;
+    let q = |a: i32, b: i32, c: i32, d: i32| a.wrapping_add(b).wrapping_add(c).wrapping_add(d);
+    let (a, b, c, d) = (
+        q(x0, x1, x2, x3),
+        q(x4, x5, x6, x7),
+        q(x8, x9, x10, x11),
+        q(x12, x13, x14, x15),
+    );
+    let total = q(a, b, c, d);
     let low = a.min(b).min(c.min(d));
     let high = a.max(b).max(c.max(d));
     total.wrapping_sub(low).wrapping_sub(high) >> 3

@@ -69,44 +69,50 @@ pub(crate) fn smooth_residual_known(frame: &[i32], base: &[i32], out: &mut [i32]
     }
 }
 
-/// [`smooth_residual`] in 32 bits for `n ≥ 5` values within ±[`NARROW`] (the same integers): the
-/// five residuals in reach ride along in registers, the interior read through zipped slices (no
-/// bounds checks), the last two pixels replicating the edge.
+/// [`smooth_residual`] in 32 bits for `n ≥ 5` values within ±[`NARROW`] (the same integers), as two
+/// three-tap boxes, `[1, 2, 3, 2, 1] = [1, 1, 1] ∗ [1, 1, 1]`: each pixel's residual enters one
+/// running box sum and each box sum one output, four adds a pixel with the residuals and box sums
+/// in reach held in registers. The output runs two pixels behind the residual it reads, so `out`
+/// needs no second row; edge pixels are replicated, as in the five-tap form.
 fn smooth_narrow(frame: &[i32], base: &[i32], out: &mut [i32]) {
     let n = frame.len().min(base.len()).min(out.len());
+    // Equal lengths, so the loop's index needs no bounds checks in any of the three rows.
+    let (Some(frame), Some(base), Some(out)) = (frame.get(..n), base.get(..n), out.get_mut(..n))
+    else {
+        return;
+    };
+    let r = |j: usize| match (frame.get(j), base.get(j)) {
+        (Some(&y), Some(&b)) => y.wrapping_sub(b),
+        _ => 0,
+    };
     if n < 5 {
         return;
     }
-    let r = |j: usize| {
-        frame
-            .get(j)
-            .copied()
-            .unwrap_or(0)
-            .wrapping_sub(base.get(j).copied().unwrap_or(0))
-    };
-    let tap = |a: i32, b: i32, c: i32, d: i32, e: i32| {
+    // Residuals r[j − 2], r[j − 1] and box sums p[j − 3], p[j − 2] (p[k] = r[k − 1] + r[k] + r[k + 1],
+    // indices clamped into the frame) for j = 2: r[−1] = r[0].
+    let (r0, r1) = (r(0), r(1));
+    let (mut ra, mut rb) = (r0, r1);
+    let (mut pa, mut pb) = (r0.wrapping_mul(3), r0.wrapping_add(r0).wrapping_add(r1));
+    for j in 2..n {
+        let (Some(&y), Some(&b)) = (frame.get(j), base.get(j)) else {
+            break;
+        };
+        let rj = y.wrapping_sub(b);
         // Wrapping: exact within ±NARROW, and no overflow check left behind otherwise.
-        a.wrapping_add(b.wrapping_mul(2))
-            .wrapping_add(c.wrapping_mul(3))
-            .wrapping_add(d.wrapping_mul(2))
-            .wrapping_add(e)
-    };
-    // Window r[i−2 … i+2] for i = 0, edges replicated.
-    let (mut a, mut b, mut c, mut d, mut e) = (r(0), r(0), r(0), r(1), r(2));
-    let ahead = frame
-        .get(3..n)
-        .unwrap_or(&[])
-        .iter()
-        .zip(base.get(3..n).unwrap_or(&[]));
-    let (body, tail) = out.split_at_mut(n - 3);
-    for (o, (&y, &bb)) in body.iter_mut().zip(ahead) {
-        *o = tap(a, b, c, d, e);
-        (a, b, c, d, e) = (b, c, d, e, y.wrapping_sub(bb));
+        let pc = ra.wrapping_add(rb).wrapping_add(rj);
+        if let Some(o) = out.get_mut(j - 2) {
+            *o = pa.wrapping_add(pb).wrapping_add(pc);
+        }
+        (ra, rb, pa, pb) = (rb, rj, pb, pc);
     }
-    let last = r(n - 1);
-    for o in tail.iter_mut().take(3) {
-        *o = tap(a, b, c, d, e);
-        (a, b, c, d, e) = (b, c, d, e, last);
+    // The last two outputs, with r[n] = r[n + 1] = r[n − 1].
+    let last = rb;
+    for k in n - 2..n {
+        let pc = ra.wrapping_add(rb).wrapping_add(last);
+        if let Some(o) = out.get_mut(k) {
+            *o = pa.wrapping_add(pb).wrapping_add(pc);
+        }
+        (ra, rb, pa, pb) = (rb, last, pb, pc);
     }
 }
 

@@ -54,6 +54,14 @@ impl NoiseModel {
             let l = light as u32;
             let (hi, lo) = (l * (k >> 16), l * (k & 0xffff));
             i64::from(hi) * 256 + i64::from(lo >> 8)
+        } else if light < 1 << 24 && k < 1 << 24 {
+            // Levels of Q4 frames with κ below 256: with l = 2^8·l_hi + l_lo the low product splits
+            // again, l · κ_lo = (l_hi · κ_lo) · 2^8 + l_lo · κ_lo, so three 32-bit products give the
+            // wide product's bits (each below 2^32).
+            let l = light as u32;
+            let (kh, kl) = (k >> 16, k & 0xffff);
+            let (lh, ll) = (l >> 8, l & 0xff);
+            i64::from(l * kh) * 256 + i64::from(lh * kl) + i64::from((ll * kl) >> 8)
         } else if light < 1 << 31 {
             (super::math::mul_u32_wide(light as u32, k) >> 8) as i64
         } else {
@@ -398,29 +406,43 @@ fn block_stats_clear(frame: &[i32], flag: &[u8], start: usize, end: usize) -> Op
     let hi = (end + 1).min(frame.len());
     let vals = frame.get(lo..hi)?;
     let fl = flag.get(lo..hi)?;
-    let mut bad = 0u8;
-    for &f in fl {
-        bad |= f;
+    // Flags four at a time: one OR of the whole word per four pixels.
+    let mut chunks = fl.chunks_exact(4);
+    let mut bad = 0u32;
+    for c in &mut chunks {
+        if let [a, b, c, d] = *c {
+            bad |= u32::from_le_bytes([a, b, c, d]);
+        }
     }
-    if flags::is_untrusted(bad) {
+    for &f in chunks.remainder() {
+        bad |= u32::from(f);
+    }
+    let bad = (bad | bad >> 16) as u16;
+    if flags::is_untrusted((bad | bad >> 8) as u8) {
         return None;
     }
     let (&first, &last) = (vals.first()?, vals.last()?);
-    let (mut sum, mut sad) = (0i32, 0u32);
-    let (mut p2, mut p1) = (0i32, 0i32);
-    for (j, &y) in vals.iter().enumerate() {
-        sum += y;
-        if j >= 2 {
-            sad += (p2 - 2 * p1 + y).unsigned_abs();
-        }
-        (p2, p1) = (p1, y);
+    // First differences carried along: d2 = (y − p1) − (p1 − p2), one subtraction a pixel less.
+    let (mut sum, mut sad) = (first, 0u32);
+    let (mut p1, mut d1) = (first, 0i32);
+    let mut rest = vals.get(1..).unwrap_or(&[]).iter();
+    if let Some(&y) = rest.next() {
+        sum = sum.wrapping_add(y);
+        d1 = y.wrapping_sub(p1);
+        p1 = y;
+    }
+    for &y in rest {
+        sum = sum.wrapping_add(y);
+        let d = y.wrapping_sub(p1);
+        sad = sad.wrapping_add(d.wrapping_sub(d1).unsigned_abs());
+        (p1, d1) = (y, d);
     }
     // The outside pixels took part in the differences only.
     if lo < start {
-        sum -= first;
+        sum = sum.wrapping_sub(first);
     }
     if hi > end {
-        sum -= last;
+        sum = sum.wrapping_sub(last);
     }
     let cnt = u32::try_from(end - start).ok()?;
     let nd = u32::try_from(vals.len().saturating_sub(2)).ok()?;
@@ -491,15 +513,18 @@ fn fit(blocks: &mut [Block], known: Option<u32>) -> NoiseModel {
         .min()
         .unwrap_or(0)
         .clamp(-(1 << 40), 1 << 40);
+    // With κ given the floor is the median left after the shot noise; else the median variance
+    // (one selection either way).
+    let floor_var_q8 = match known {
+        Some(k) => floor_given_shot(blocks, k, zero),
+        None => median_var(blocks),
+    };
     let mut model = NoiseModel {
-        floor_var_q8: median_var(blocks),
+        floor_var_q8,
         zero_light_level: zero,
         shot_var_per_unit_q16: known.unwrap_or(0),
         shot_from_data: known.is_none(),
     };
-    if let Some(k) = known {
-        model.floor_var_q8 = floor_given_shot(blocks, k, zero);
-    }
     for _ in 0..FIT_ROUNDS {
         // Reject blocks that lines inflate, judged against the current model.
         let mut rejected = false;
@@ -636,7 +661,13 @@ mod tests {
             x ^= x >> 17;
             x ^= x << 5;
             let k = if x & 1 == 0 { x } else { x >> (x % 32) };
-            let level = i64::from(x.rotate_left(7) >> (x % 24)) - 1000;
+            let level = if x & 2 == 0 {
+                i64::from(x.rotate_left(7) >> (x % 24)) - 1000
+            } else {
+                // The three-product range: levels below 2^24 (and at its edges).
+                i64::from(x.rotate_left(11) >> (8 + x % 9))
+                    + [0, 1 << 16, (1 << 24) - 1][(x % 3) as usize]
+            };
             let m = NoiseModel {
                 floor_var_q8: i64::from(x % 5000),
                 zero_light_level: 0,

@@ -255,6 +255,8 @@ impl Reciprocal {
         let a = sum.unsigned_abs().wrapping_add(self.den / 2);
         let q = if self.den == 1 {
             sum.unsigned_abs()
+        } else if self.den == 3 {
+            div3(a)
         } else {
             let hi = (super::math::mul_u32_wide(a, self.m) >> 32) as u32;
             hi >> (self.s - 32)
@@ -308,6 +310,17 @@ impl Reciprocal {
             s,
         }
     }
+}
+
+/// `⌊a / 3⌋` for `a < 2^31` (the default baseline's three-block boxes) in two 32-bit products, where
+/// the reciprocal takes a four-product wide multiply: with `a = 2^16·h + l` and `2^16 = 3·21 845 + 1`,
+/// `⌊a/3⌋ = 21 845·h + ⌊(h + l)/3⌋`, and `x = h + l < 98 304 < 2^17` divides exactly as
+/// `⌊x · 43 691 / 2^17⌋` (`3 · 43 691 − 2^17 = 1`, error `x / (3·2^17) < 1/3`; `x · 43 691 < 2^32`).
+#[inline(always)]
+fn div3(a: u32) -> u32 {
+    let (h, l) = (a >> 16, a & 0xffff);
+    // Wrapping: exact below 2^31 (above, a wrong quotient but no overflow check left behind).
+    (21_845 * h).wrapping_add(h.wrapping_add(l).wrapping_mul(43_691) >> 17)
 }
 
 /// [`Reciprocal`]s of the odd widths 1, 3, … , [`RING`] − 1, made at compile time: the boxes rebuild
@@ -465,6 +478,34 @@ mod tests {
 
     /// The multiply path gives exactly the rounding division, around every rounding edge and both
     /// signs, for every width a box can have.
+    /// The two-product division by 3 is the plain one over the narrow boxes' range.
+    #[test]
+    fn division_by_three_is_exact() {
+        let mut x = 0x9e37_79b9u32;
+        let edges = [
+            0u32,
+            1,
+            2,
+            3,
+            65_535,
+            65_536,
+            98_303,
+            (1 << 31) - 2,
+            (1 << 31) - 1,
+        ];
+        for a in edges.into_iter().chain((0..200_000).map(|_| {
+            x ^= x << 13;
+            x ^= x >> 17;
+            x ^= x << 5;
+            x >> (1 + x % 16)
+        })) {
+            assert_eq!(div3(a), a / 3, "{a}");
+        }
+        for a in (0..1 << 20).chain((1 << 31) - (1 << 20)..1 << 31) {
+            assert_eq!(div3(a), a / 3, "{a}");
+        }
+    }
+
     #[test]
     fn reciprocal_division_is_exact() {
         fn plain(num: i64, den: i64) -> i64 {
