@@ -143,9 +143,20 @@ fn above(v: i64, k_q8: u16, noise: &NoiseModel, level: i64) -> bool {
 
 /// Largest `v` that [`above`] refuses at every level: `isqrt(k² · 19 · var_min / 2^24)`.
 fn least_above(k_q8: u16, noise: &NoiseModel) -> i64 {
-    let var_min = noise.floor_var_q8.max(1);
+    least_above_var(k_q8, noise.floor_var_q8.max(1))
+}
+
+/// Largest `v` that [`above`] refuses at a level of variance `var_q8`: `isqrt(⌊k² · 19 · var / 2^24⌋)`
+/// (the test is `v² > ⌊k² · 19 · var / 2^24⌋`), so `above(v) ⟺ v > least_above_var(k, var)`.
+fn least_above_var(k_q8: u16, var_q8: i64) -> i64 {
+    let c19 = u64::from(u32::from(k_q8) * u32::from(k_q8)) * KERNEL_SQ_SUM as u64; // < 2^37
+    if let (Ok(c32), Ok(var32)) = (u32::try_from(c19), u32::try_from(var_q8)) {
+        // One 32 × 32-bit product, as in `above`: no 128-bit one on the M0.
+        let lim = super::math::mul_u32_wide(c32, var32) >> 24;
+        return i64::try_from(super::math::isqrt_u128(u128::from(lim))).unwrap_or(i64::MAX);
+    }
     let k = i128::from(k_q8);
-    let lim = (k * k * KERNEL_SQ_SUM).saturating_mul(i128::from(var_min)) >> 24;
+    let lim = (k * k * KERNEL_SQ_SUM).saturating_mul(i128::from(var_q8)) >> 24;
     let lim = u128::try_from(lim).unwrap_or(0);
     i64::try_from(super::math::isqrt_u128(lim)).unwrap_or(i64::MAX)
 }
@@ -168,7 +179,6 @@ pub fn find_candidates(
     out: &mut Vec<Candidate, MAX_CANDIDATES>,
 ) -> bool {
     let n = smooth.len();
-    let at = |j: usize| i64::from(smooth.get(j).copied().unwrap_or(i32::MIN));
     // No level has less variance than the floor: maxima at or below this cannot pass the threshold,
     // and most maxima of a noise stretch are turned away here without a variance.
     let v_min = least_above(cfg.threshold_sigma_q8, noise);
@@ -177,65 +187,103 @@ pub fn find_candidates(
     // Strength of the weakest entry once the list is full: a candidate no stronger is dropped without
     // scanning the list (a comb of equal maxima would scan it at every one).
     let mut weakest: Option<i32> = None;
-    let mut i = 0usize;
     // `v_min` ≥ 0 (a square root); beyond i32 no value passes.
     let Ok(v_min32) = i32::try_from(v_min.max(0)) else {
         return false;
     };
+    // The value left of `i` (below every value at the first pixel: v > v_min32 ≥ 0 there).
+    let mut left = i32::MIN;
+    let mut i = 0usize;
     while i < n {
-        // Most of a frame is below every threshold: one compare per pixel there, in a tight scan.
-        // (A plateau at or below `v_min` is skipped value by value; one above it is met at its
-        // first pixel.)
-        match smooth
-            .get(i..)
-            .and_then(|rest| rest.iter().position(|&v| v > v_min32))
-        {
-            Some(k) => i += k,
-            None => break,
-        }
-        let v = at(i);
-        let left = if i == 0 { i64::MIN } else { at(i - 1) };
-        if v <= left {
-            // Not the start of a maximum, nor is any pixel of a plateau it begins (each equals its
-            // left neighbour): the same candidates as skipping the plateau, with one compare a
-            // pixel where a frame lies above the threshold for long stretches.
-            i += 1;
-            continue;
-        }
-        // Plateaus (saturated tops) count once, at their middle.
+        // Most of a frame is below every threshold or not rising: two compares per pixel there, in
+        // a tight scan for the next pixel above both the threshold and its left neighbour — the
+        // start of a maximum or of a plateau (saturated tops; every later pixel of a plateau equals
+        // its left neighbour and starts nothing).
+        let rest = smooth.get(i..).unwrap_or(&[]);
+        let hit = rest.iter().position(|&v| {
+            let rises = v > v_min32 && v > left;
+            left = v;
+            rises
+        });
+        let Some(k) = hit else {
+            break;
+        };
+        i += k;
+        let Some(&v32) = smooth.get(i) else {
+            break;
+        };
+        let v = i64::from(v32);
+        // Plateaus count once, at their middle.
         let mut end = i;
-        while end + 1 < n && at(end + 1) == v && end - i < reach {
+        while end + 1 < n && smooth.get(end + 1) == Some(&v32) && end - i < reach {
             end += 1;
         }
-        let right = if end + 1 < n { at(end + 1) } else { i64::MIN };
+        let right = smooth.get(end + 1).map_or(i64::MIN, |&x| i64::from(x));
         let pos = i + (end - i) / 2;
         let level = i64::from(base.get(pos).copied().unwrap_or(0));
         if v > right && above(v, cfg.threshold_sigma_q8, noise, level) {
             // Past the frame's valley budget the search looks only as far as a line's own wings.
-            let r = if valley_steps < VALLEY_BUDGET_PER_REACH * reach {
-                reach
-            } else {
-                reach.min(SHORT_REACH)
-            };
+            let full = valley_steps < VALLEY_BUDGET_PER_REACH * reach;
+            let r = if full { reach } else { reach.min(SHORT_REACH) };
             valley_steps += 2 * r;
-            let floor_l = valley(smooth, i, v, r, false);
-            let floor_r = valley(smooth, end, v, r, true);
-            let prominence = v - floor_l.max(floor_r);
-            if above(prominence, cfg.prominence_sigma_q8, noise, level) {
-                let strength = v.clamp(i64::from(i32::MIN), i64::from(i32::MAX)) as i32;
-                if weakest.is_some_and(|w| strength <= w) {
+            let prominent = if full && r > SHORT_REACH {
+                // Long walks stop once the prominence is certain: it passes exactly when both
+                // sides dip to `v − t − 1` or lower before rising above `v` (`t` the largest
+                // prominence refused at this level), so each walk ends at the first such value, and
+                // the right one is not taken when the left fails.
+                let t = least_above_var(cfg.prominence_sigma_q8, noise.var_q8(level));
+                let goal = v.saturating_sub(t).saturating_sub(1);
+                dips_to(smooth, i, v32, goal, r, false) && dips_to(smooth, end, v32, goal, r, true)
+            } else {
+                let floor_l = valley(smooth, i, v, r, false);
+                let floor_r = valley(smooth, end, v, r, true);
+                above(
+                    v - floor_l.max(floor_r),
+                    cfg.prominence_sigma_q8,
+                    noise,
+                    level,
+                )
+            };
+            if prominent {
+                if weakest.is_some_and(|w| v32 <= w) {
                     dropped = true;
                 } else {
-                    dropped |= push_strongest(out, Candidate { pos, strength });
+                    let c = Candidate { pos, strength: v32 };
+                    dropped |= push_strongest(out, c);
                     if out.is_full() {
                         weakest = out.iter().map(|c| c.strength).min();
                     }
                 }
             }
         }
+        left = v32;
         i = end + 1;
     }
     dropped
+}
+
+/// Whether walking from `from` (≤ `reach` px) reaches a value ≤ `goal` before one above `peak`:
+/// whether [`valley`]'s lowest value is ≤ `goal` (for `goal` < `peak`), without walking further.
+fn dips_to(
+    smooth: &[i32],
+    from: usize,
+    peak: i32,
+    goal: i64,
+    reach: usize,
+    rightward: bool,
+) -> bool {
+    let hit = |v: &i32| i64::from(*v) <= goal;
+    if rightward {
+        let side = smooth.get(from.saturating_add(1)..).unwrap_or(&[]);
+        side.iter().take(reach).take_while(|&&v| v <= peak).any(hit)
+    } else {
+        let side = smooth.get(..from.min(smooth.len())).unwrap_or(&[]);
+        side.iter()
+            .rev()
+            .take(reach)
+            .take_while(|&&v| v <= peak)
+            .any(hit)
+    }
 }
 
 /// Lowest smoothed value walking from `from` until a value above `peak` or `reach` px.
@@ -525,6 +573,144 @@ mod tests {
                 }
             }
         }
+    }
+
+    /// The threshold as a value is the largest one [`above`] refuses, at every level.
+    #[test]
+    fn least_above_is_the_edge_of_the_test() {
+        let mut x = 0x0dd1_5eedu32;
+        for _ in 0..3000 {
+            x ^= x << 13;
+            x ^= x >> 17;
+            x ^= x << 5;
+            let nm = NoiseModel {
+                floor_var_q8: i64::from(x >> (x % 28)),
+                zero_light_level: 0,
+                shot_var_per_unit_q16: x.rotate_left(9) >> (x % 32),
+                shot_from_data: false,
+            };
+            let level = i64::from(x.rotate_left(3) >> (x % 32)) << (x % 9);
+            for k in [1u16, 3 << 8, 5 << 8, 20_000, u16::MAX] {
+                let t = least_above_var(k, nm.var_q8(level));
+                assert!(!above(t, k, &nm, level), "k {k} t {t} {nm:?}");
+                assert!(above(t + 1, k, &nm, level), "k {k} t {t} {nm:?}");
+            }
+        }
+    }
+
+    /// The early-ending walks decide as the full ones.
+    #[test]
+    fn dips_agree_with_the_valley_walks() {
+        let mut x = 0x5eed_1234u32;
+        let smooth: std::vec::Vec<i32> = (0..400)
+            .map(|i| {
+                x ^= x << 13;
+                x ^= x >> 17;
+                x ^= x << 5;
+                ((x as i32) >> 22) + 300 * ((i / 37) % 3)
+            })
+            .collect();
+        for from in (0..400).step_by(7) {
+            let peak = smooth[from];
+            for reach in [0usize, 1, 9, 48, 500] {
+                for rightward in [false, true] {
+                    let low = valley(&smooth, from, i64::from(peak), reach, rightward);
+                    for drop in [1i64, 5, 40, 300, 2000] {
+                        let goal = i64::from(peak) - drop;
+                        assert_eq!(
+                            dips_to(&smooth, from, peak, goal, reach, rightward),
+                            low <= goal,
+                            "from {from} reach {reach} drop {drop}"
+                        );
+                    }
+                }
+            }
+        }
+    }
+
+    /// The scan with its long walks ending early finds the candidates of the plain scan.
+    #[test]
+    fn candidates_match_the_plain_scan() {
+        let nm = flat_noise(3);
+        let cfg = FindConfig::DEFAULT;
+        let mut x = 0x7777_1111u32;
+        for len in [1usize, 2, 5, 64, 700] {
+            for style in 0..4 {
+                let s: std::vec::Vec<i32> = (0..len)
+                    .map(|i| {
+                        x ^= x << 13;
+                        x ^= x >> 17;
+                        x ^= x << 5;
+                        let noise = (x as i32) >> [26, 22, 20, 24][style];
+                        // Lines, plateaus and a random walk's drift.
+                        let line = if i % 53 < 5 {
+                            [40, 400, 90, 160, 30][i % 53] * 9
+                        } else {
+                            0
+                        };
+                        (noise + line) & if style == 3 { !31 } else { !0 }
+                    })
+                    .collect();
+                let base = std::vec![0i32; len];
+                for reach in [8usize, 48] {
+                    let mut got = Vec::new();
+                    let d1 = find_candidates(&s, &base, &nm, &cfg, reach, &mut got);
+                    let mut want = Vec::new();
+                    let d2 = plain_candidates(&s, &nm, &cfg, reach, &mut want);
+                    assert_eq!((got, d1), (want, d2), "len {len} style {style}");
+                }
+            }
+        }
+    }
+
+    /// The candidate scan written plainly: every local maximum (plateaus at their middle) above
+    /// the threshold, with full valley walks.
+    fn plain_candidates(
+        s: &[i32],
+        nm: &NoiseModel,
+        cfg: &FindConfig,
+        reach: usize,
+        out: &mut Vec<Candidate, MAX_CANDIDATES>,
+    ) -> bool {
+        let n = s.len();
+        let at = |j: usize| i64::from(s[j]);
+        let (mut dropped, mut steps, mut i) = (false, 0usize, 0usize);
+        while i < n {
+            let v = at(i);
+            let left = if i == 0 { i64::MIN } else { at(i - 1) };
+            if !above(v, cfg.threshold_sigma_q8, nm, 0) || v <= left {
+                i += 1;
+                continue;
+            }
+            let mut end = i;
+            while end + 1 < n && at(end + 1) == v && end - i < reach {
+                end += 1;
+            }
+            let right = if end + 1 < n { at(end + 1) } else { i64::MIN };
+            if v > right {
+                let r = if steps < VALLEY_BUDGET_PER_REACH * reach {
+                    reach
+                } else {
+                    reach.min(SHORT_REACH)
+                };
+                steps += 2 * r;
+                let fl = valley_wide(s, i, v, r, false);
+                let fr = valley_wide(s, end, v, r, true);
+                if above(v - fl.max(fr), cfg.prominence_sigma_q8, nm, 0) {
+                    let c = Candidate {
+                        pos: i + (end - i) / 2,
+                        strength: v as i32,
+                    };
+                    if out.is_full() && out.iter().all(|k| k.strength >= c.strength) {
+                        dropped = true;
+                    } else {
+                        dropped |= push_strongest(out, c);
+                    }
+                }
+            }
+            i = end + 1;
+        }
+        dropped
     }
 
     #[test]
