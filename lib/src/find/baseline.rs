@@ -238,9 +238,12 @@ fn interpolate(coarse: &[i32], base: &mut [i32]) {
         let d = i64::from(yb) - i64::from(ya);
         if span == COARSE_PX && d.unsigned_abs() < 1 << 26 && from == a {
             // |d·t| < 2^30 for t < 16: 32-bit products, a shift for the division.
+            // d·t carried along by adds: no product per pixel.
             let d32 = d as i32;
-            for (t, v) in seg.iter_mut().enumerate() {
-                *v = ya.wrapping_add((d32 * t as i32) >> COARSE_SHIFT);
+            let mut dt = 0i32;
+            for v in seg.iter_mut() {
+                *v = ya.wrapping_add(dt >> COARSE_SHIFT);
+                dt = dt.wrapping_add(d32);
             }
         } else {
             ramp(seg, ya, d, span as i64, from as i64 - a as i64);
@@ -410,6 +413,46 @@ mod tests {
                 block_means(&frame, &fl, &mut m1, &mut c1, false);
                 block_means(&frame, &fl, &mut m2, &mut c2, true);
                 assert_eq!((m1, c1), (m2, c2), "n {n} bits {bits}");
+            }
+        }
+    }
+
+    /// The stepped interpolation is the straight line between block centres, floored.
+    #[test]
+    fn interpolation_is_the_plain_line() {
+        let mut x = 0x1357_9bdfu32;
+        for n in [16usize, 17, 40, 256, 1000] {
+            for bits in [3u32, 20, 25] {
+                let nb = n.div_ceil(COARSE_PX);
+                let coarse: std::vec::Vec<i32> = (0..nb)
+                    .map(|_| {
+                        x ^= x << 13;
+                        x ^= x >> 17;
+                        x ^= x << 5;
+                        (x as i32) >> (31 - bits)
+                    })
+                    .collect();
+                let mut got = std::vec![0i32; n];
+                interpolate(&coarse, &mut got);
+                let centre = |k: usize| {
+                    k * COARSE_PX + (n.min(k * COARSE_PX + COARSE_PX) - k * COARSE_PX) / 2
+                };
+                for (p, &g) in got.iter().enumerate() {
+                    let want = if nb < 2 {
+                        i64::from(coarse[0])
+                    } else {
+                        // The segment whose centres bracket p (the end ones extended).
+                        let k = (0..nb - 1).rev().find(|&k| centre(k) <= p).unwrap_or(0);
+                        let (a, b) = (centre(k) as i64, centre(k + 1) as i64);
+                        let (ya, yb) = (i64::from(coarse[k]), i64::from(coarse[k + 1]));
+                        ya + ((yb - ya) * (p as i64 - a)).div_euclid((b - a).max(1))
+                    };
+                    assert_eq!(
+                        i64::from(g),
+                        want.clamp(i64::from(i32::MIN), i64::from(i32::MAX)),
+                        "n {n} p {p}"
+                    );
+                }
             }
         }
     }

@@ -513,39 +513,17 @@ fn fit(blocks: &mut [Block], known: Option<u32>) -> NoiseModel {
         .min()
         .unwrap_or(0)
         .clamp(-(1 << 40), 1 << 40);
-    // With κ given the floor is the median left after the shot noise; else the median variance
-    // (one selection either way).
-    let floor_var_q8 = match known {
-        Some(k) => floor_given_shot(blocks, k, zero),
-        None => median_var(blocks),
-    };
+    if let Some(k) = known {
+        return fit_known_shot(blocks, k, zero);
+    }
     let mut model = NoiseModel {
-        floor_var_q8,
+        floor_var_q8: median_var(blocks),
         zero_light_level: zero,
-        shot_var_per_unit_q16: known.unwrap_or(0),
-        shot_from_data: known.is_none(),
+        shot_var_per_unit_q16: 0,
+        shot_from_data: true,
     };
     for _ in 0..FIT_ROUNDS {
-        // Reject blocks that lines inflate, judged against the current model.
-        let mut rejected = false;
-        for b in blocks.iter_mut().filter(|b| b.kept) {
-            // var ≤ 2^50 keeps the left side in i64; a prediction too large to scale rejects nothing.
-            let pred = model.var_q8(b.level);
-            if let Some(limit) = pred.checked_mul(REJECT_ABOVE_Q8 as i64) {
-                if b.var_q8 * 256 > limit {
-                    b.kept = false;
-                    rejected = true;
-                }
-            }
-        }
-        if known.is_some() {
-            // With κ fixed the floor is a median of the blocks kept: no block rejected, no change.
-            if !rejected {
-                break;
-            }
-            model.floor_var_q8 = floor_given_shot(blocks, model.shot_var_per_unit_q16, zero);
-            continue;
-        }
+        reject_inflated(blocks, &model);
         // Weighted least squares of var on level; weight ∝ 1 / pred² (the spread of a variance estimate
         // grows with the variance). Weights are normalised to the median so the sums stay small.
         let vref = i128::from(model.floor_var_q8.max(1));
@@ -626,25 +604,75 @@ fn median_var(blocks: &[Block]) -> i64 {
     median(v.get_mut(..n).unwrap_or(&mut []))
 }
 
-/// Median over blocks of the variance left after the shot noise above `zero`.
-fn floor_given_shot(blocks: &[Block], k_q16: u32, zero: i64) -> i64 {
-    let mut v = [0i64; MAX_BLOCKS];
+/// Drops from the fit (`kept`) the blocks whose variance exceeds the model's by
+/// [`REJECT_ABOVE_Q8`]; returns whether any went.
+fn reject_inflated(blocks: &mut [Block], model: &NoiseModel) -> bool {
+    let mut rejected = false;
+    for b in blocks.iter_mut().filter(|b| b.kept) {
+        // var ≤ 2^50 keeps the left side in i64; a prediction too large to scale rejects nothing.
+        let pred = model.var_q8(b.level);
+        if let Some(limit) = pred.checked_mul(REJECT_ABOVE_Q8 as i64) {
+            if b.var_q8 * 256 > limit {
+                b.kept = false;
+                rejected = true;
+            }
+        }
+    }
+    rejected
+}
+
+/// The model with κ given: the floor is the median, over the blocks kept, of the variance left after
+/// each block's shot noise above `zero`; after each rejection round that drops a block it is taken
+/// again over the rest (≤ [`FIT_ROUNDS`] rounds). The leftover variances are sorted once, with each
+/// block's index in the low 6 bits (values ≤ 2^50), so every median after the first is a walk over
+/// that order, not a new selection. Loop bound: one insertion sort of ≤ 64 entries, ≤ FIT_ROUNDS + 1
+/// walks and rejection passes over ≤ 64 blocks.
+fn fit_known_shot(blocks: &mut [Block], k_q16: u32, zero: i64) -> NoiseModel {
+    let mut order = [0u64; MAX_BLOCKS];
     let mut n = 0usize;
-    for b in blocks.iter().filter(|b| b.kept) {
-        if let Some(s) = v.get_mut(n) {
-            let light = b.level.saturating_sub(zero).max(0);
-            // One 32 × 32-bit product for the levels of ADC frames; i128 beyond.
-            let shot = match u32::try_from(light) {
-                Ok(l) => (super::math::mul_u32_wide(l, k_q16) >> 8) as i64,
-                Err(_) => {
-                    ((i128::from(light) * i128::from(k_q16)) >> 8).min(i128::from(i64::MAX)) as i64
-                }
-            };
-            *s = b.var_q8.saturating_sub(shot).max(0);
+    for (i, b) in blocks.iter().enumerate().filter(|(_, b)| b.kept) {
+        if let Some(slot) = order.get_mut(n) {
+            *slot = (left_after_shot(b, k_q16, zero) << 6) | (i as u64 & 63);
             n += 1;
         }
     }
-    median(v.get_mut(..n).unwrap_or(&mut []))
+    let order = order.get_mut(..n).unwrap_or(&mut []);
+    crate::sort::sort_by_key(order, |&x| x);
+    // The upper median of the kept blocks' leftovers (as a selection of them would give).
+    let median = |blocks: &[Block], order: &[u64]| -> i64 {
+        let kept = |x: &&u64| blocks.get((**x & 63) as usize).is_some_and(|b| b.kept);
+        let count = order.iter().filter(kept).count();
+        order
+            .iter()
+            .filter(kept)
+            .nth(count / 2)
+            .map_or(0, |&x| (x >> 6) as i64)
+    };
+    let mut model = NoiseModel {
+        floor_var_q8: median(blocks, order),
+        zero_light_level: zero,
+        shot_var_per_unit_q16: k_q16,
+        shot_from_data: false,
+    };
+    for _ in 0..FIT_ROUNDS {
+        // No block rejected, no change.
+        if !reject_inflated(blocks, &model) {
+            break;
+        }
+        model.floor_var_q8 = median(blocks, order);
+    }
+    model
+}
+
+/// A block's variance less its shot noise above `zero` (≥ 0, ≤ 2^50 as the variance is).
+fn left_after_shot(b: &Block, k_q16: u32, zero: i64) -> u64 {
+    let light = b.level.saturating_sub(zero).max(0);
+    // One 32 × 32-bit product for the levels of ADC frames; i128 beyond.
+    let shot = match u32::try_from(light) {
+        Ok(l) => (super::math::mul_u32_wide(l, k_q16) >> 8) as i64,
+        Err(_) => ((i128::from(light) * i128::from(k_q16)) >> 8).min(i128::from(i64::MAX)) as i64,
+    };
+    b.var_q8.saturating_sub(shot).max(0).unsigned_abs()
 }
 
 #[cfg(test)]
@@ -747,6 +775,68 @@ mod tests {
             bad[n / 2] = flags::SATURATED;
             let start = (n / 2) / BLOCK_PX * BLOCK_PX;
             assert!(block_stats_clear(&frame, &bad, start, (start + BLOCK_PX).min(n)).is_none());
+        }
+    }
+
+    /// The sorted-once medians give the model of a fresh selection every round.
+    #[test]
+    fn known_shot_fit_equals_selection_per_round() {
+        let mut rng = Rng::new(62);
+        for case in 0..400 {
+            let nb = 1 + case % MAX_BLOCKS;
+            let k = (rng.u16() as u32) << (case % 9);
+            let mut blocks: Vec<Block> = (0..nb)
+                .map(|j| {
+                    let level = 500 + 40 * j as i64 + rng.gauss(300 << 16).abs();
+                    let spike = if rng.u16() % 5 == 0 { 20 } else { 1 };
+                    let var = (3000 + (level * i64::from(k) >> 8)) * spike + rng.gauss(500 << 16);
+                    Block {
+                        var_q8: var.clamp(0, 1 << 50),
+                        level,
+                        used: rng.u16() % 11 != 0,
+                        kept: false,
+                    }
+                })
+                .collect();
+            for b in blocks.iter_mut() {
+                b.kept = b.used;
+            }
+            let mut plain = blocks.clone();
+            let zero = blocks
+                .iter()
+                .filter(|b| b.kept)
+                .map(|b| b.level)
+                .min()
+                .unwrap_or(0);
+            // The selection per round, written out.
+            let floor = |bl: &[Block]| {
+                let mut v: Vec<i64> = bl
+                    .iter()
+                    .filter(|b| b.kept)
+                    .map(|b| {
+                        let shot =
+                            ((i128::from((b.level - zero).max(0)) * i128::from(k)) >> 8) as i64;
+                        (b.var_q8 - shot).max(0)
+                    })
+                    .collect();
+                v.sort();
+                v.get(v.len() / 2).copied().unwrap_or(0)
+            };
+            let mut want = NoiseModel {
+                floor_var_q8: floor(&plain),
+                zero_light_level: zero,
+                shot_var_per_unit_q16: k,
+                shot_from_data: false,
+            };
+            for _ in 0..FIT_ROUNDS {
+                if !reject_inflated(&mut plain, &want) {
+                    break;
+                }
+                want.floor_var_q8 = floor(&plain);
+            }
+            let got = fit_known_shot(&mut blocks, k, zero);
+            assert_eq!(got, want, "case {case}");
+            assert!(blocks.iter().zip(&plain).all(|(a, b)| a.kept == b.kept));
         }
     }
 

@@ -94,6 +94,10 @@ pub fn box_narrow(half: usize, src: &[i32], dst: &mut [i32]) {
     if n == 0 {
         return;
     }
+    if half == 1 {
+        box3(src, dst);
+        return;
+    }
     let at = |j: usize| src.get(j).copied().unwrap_or(0);
     let mut w = Window::new(at(0));
     // Edges with shrinking windows step by step; the interior (constant width) in a tight loop.
@@ -125,6 +129,10 @@ pub fn box_narrow(half: usize, src: &[i32], dst: &mut [i32]) {
 pub fn box_narrow_in_place(half: usize, buf: &mut [i32]) {
     let n = buf.len();
     if n == 0 {
+        return;
+    }
+    if half == 1 {
+        box3_in_place(buf);
         return;
     }
     let half = half.min(RING / 2 - 1);
@@ -173,6 +181,69 @@ pub fn box_narrow_in_place(half: usize, buf: &mut [i32]) {
             continue;
         }
         i += 1;
+    }
+}
+
+/// [`box_narrow`] for `half` = 1 (the default baseline's boxes on its block means): the first and
+/// last value stay, every other one is the rounded mean of itself and its two neighbours, the three
+/// values riding along in registers. Loop bound: `dst.len()`.
+fn box3(src: &[i32], dst: &mut [i32]) {
+    let n = dst.len().min(src.len());
+    let (Some(src), Some(dst)) = (src.get(..n), dst.get_mut(..n)) else {
+        return;
+    };
+    let (Some(&first), Some(&last)) = (src.first(), src.last()) else {
+        return;
+    };
+    if let Some(d) = dst.first_mut() {
+        *d = first;
+    }
+    if n < 2 {
+        return;
+    }
+    let (mut a, mut b) = (first, src.get(1).copied().unwrap_or(0));
+    for i in 2..n {
+        let Some(&c) = src.get(i) else {
+            break;
+        };
+        if let Some(d) = dst.get_mut(i - 1) {
+            *d = mean3(a, b, c);
+        }
+        (a, b) = (b, c);
+    }
+    if let Some(d) = dst.last_mut() {
+        *d = last;
+    }
+}
+
+/// [`box3`] of `buf` onto itself: the original of the value before is kept in a register.
+fn box3_in_place(buf: &mut [i32]) {
+    let n = buf.len();
+    if n < 3 {
+        // One or two values: every window is the value itself.
+        return;
+    }
+    let mut a = buf.first().copied().unwrap_or(0);
+    for i in 1..n - 1 {
+        let (Some(&b), Some(&c)) = (buf.get(i), buf.get(i + 1)) else {
+            break;
+        };
+        if let Some(d) = buf.get_mut(i) {
+            *d = mean3(a, b, c);
+        }
+        a = b;
+    }
+}
+
+/// `(a + b + c) / 3` rounded half away from zero, for sums within ±(2^31 − 2) ([`narrow_limit`]).
+#[inline(always)]
+fn mean3(a: i32, b: i32, c: i32) -> i32 {
+    let sum = a.wrapping_add(b).wrapping_add(c);
+    let q = div3(sum.unsigned_abs().wrapping_add(1)) as i32;
+    if sum < 0 {
+        -q
+    } else {
+        q
     }
 }
 
@@ -425,6 +496,8 @@ mod tests {
         let mut x = 0x2545_f491u32;
         for (half, amp) in [
             (0usize, 1000i64),
+            (1, narrow_limit(1)),
+            (1, 1 << 20),
             (3, 1 << 20),
             (10, 1 << 24),
             (32, narrow_limit(32)),
@@ -476,8 +549,6 @@ mod tests {
         }
     }
 
-    /// The multiply path gives exactly the rounding division, around every rounding edge and both
-    /// signs, for every width a box can have.
     /// The two-product division by 3 is the plain one over the narrow boxes' range.
     #[test]
     fn division_by_three_is_exact() {
@@ -506,6 +577,8 @@ mod tests {
         }
     }
 
+    /// The multiply path gives exactly the rounding division, around every rounding edge and both
+    /// signs, for every width a box can have.
     #[test]
     fn reciprocal_division_is_exact() {
         fn plain(num: i64, den: i64) -> i64 {
