@@ -789,7 +789,7 @@ mod tests {
                 .map(|j| {
                     let level = 500 + 40 * j as i64 + rng.gauss(300 << 16).abs();
                     let spike = if rng.u16() % 5 == 0 { 20 } else { 1 };
-                    let var = (3000 + (level * i64::from(k) >> 8)) * spike + rng.gauss(500 << 16);
+                    let var = (3000 + ((level * i64::from(k)) >> 8)) * spike + rng.gauss(500 << 16);
                     Block {
                         var_q8: var.clamp(0, 1 << 50),
                         level,
