@@ -324,9 +324,12 @@ fn rounds(
                 }
                 continue;
             }
-            let from_k = last_kept.map_or(0, |(k, _)| k + 1);
-            let start = last_kept.map_or(y, |(_, v)| v);
-            bridge(tmp.get_mut(from_k..i).unwrap_or(&mut []), start, y);
+            // Most kept values follow a kept one: no gap, no bridge. A leading gap takes this value.
+            match last_kept {
+                Some((k, v)) if k + 1 < i => bridge(tmp.get_mut(k + 1..i).unwrap_or(&mut []), v, y),
+                None if i > 0 => tmp.get_mut(..i).unwrap_or(&mut []).fill(y),
+                _ => {}
+            }
             if let Some(t) = tmp.get_mut(i) {
                 *t = y;
             }

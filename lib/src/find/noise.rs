@@ -353,38 +353,49 @@ fn block_stats_narrow(
         |i: usize| !mask.is_set(i) && flag.get(i).is_some_and(|&f| !flags::is_untrusted(f));
     let vals = frame.get(start..end).unwrap_or(&[]);
     let fl = flag.get(start..end).unwrap_or(&[]);
-    // The block's own mask bits, lowest first (blocks are 64-px aligned).
-    let mut bits = mask.word(start / BLOCK_PX);
+    // The block's own mask bits, lowest first (blocks are 64-px aligned), in two 32-bit halves (a
+    // 64-bit shift per pixel is a few instructions more on the M0).
+    let word = mask.word(start / BLOCK_PX);
+    let (mut bits, high_bits) = (word as u32, (word >> 32) as u32);
     let (mut sum, mut cnt) = (0i32, 0u32);
     let (mut sad, mut nd) = (0u32, 0u32);
-    // Trust and value of the pixel before the current one (outside the block for the first one).
-    let mut prev_ok = start.checked_sub(1).is_some_and(trusted);
+    // Trusted pixels in a row ending at the current one, counting the one before the block: a
+    // second difference centred on the previous pixel needs three (the first pixel's is centred
+    // outside the block and never has them).
+    let mut run = u32::from(start.checked_sub(1).is_some_and(trusted));
     let mut prev = start
         .checked_sub(1)
         .and_then(|j| frame.get(j))
         .copied()
         .unwrap_or(0);
-    let (mut prev2_ok, mut prev2) = (false, 0i32);
+    // First difference into the previous pixel (d2 = d − d_prev whatever the trust: the values are
+    // the frame's).
+    let mut d_prev = 0i32;
     for (k, (&y, &f)) in vals.iter().zip(fl).enumerate() {
+        if k == 32 {
+            bits = high_bits;
+        }
         let ok = bits & 1 == 0 && !flags::is_untrusted(f);
         bits >>= 1;
+        let d = y.wrapping_sub(prev);
         if ok {
             sum = sum.wrapping_add(y);
             cnt += 1;
+            run += 1;
+            if run >= 3 {
+                sad = sad.wrapping_add(d.wrapping_sub(d_prev).unsigned_abs());
+                nd += 1;
+            }
+        } else {
+            run = 0;
         }
-        // The second difference centred on the previous pixel, when it lies in the block.
-        if ok && prev_ok && prev2_ok && k > 0 {
-            let d2 = prev2.wrapping_sub(prev.wrapping_mul(2)).wrapping_add(y);
-            sad = sad.wrapping_add(d2.unsigned_abs());
-            nd += 1;
-        }
-        (prev2, prev2_ok, prev, prev_ok) = (prev, prev_ok, y, ok);
+        (prev, d_prev) = (y, d);
     }
     // The last pixel's difference needs the pixel after the block.
-    if let (Some(&y), true, true, true) = (frame.get(end), end > start, prev_ok, prev2_ok) {
+    if let (Some(&y), true, true) = (frame.get(end), end > start, run >= 2) {
         if trusted(end) {
-            let d2 = prev2.wrapping_sub(prev.wrapping_mul(2)).wrapping_add(y);
-            sad = sad.wrapping_add(d2.unsigned_abs());
+            let d = y.wrapping_sub(prev);
+            sad = sad.wrapping_add(d.wrapping_sub(d_prev).unsigned_abs());
             nd += 1;
         }
     }
@@ -611,8 +622,19 @@ fn reject_inflated(blocks: &mut [Block], model: &NoiseModel) -> bool {
     for b in blocks.iter_mut().filter(|b| b.kept) {
         // var ≤ 2^50 keeps the left side in i64; a prediction too large to scale rejects nothing.
         let pred = model.var_q8(b.level);
-        if let Some(limit) = pred.checked_mul(REJECT_ABOVE_Q8 as i64) {
-            if b.var_q8 * 256 > limit {
+        // pred · 461 from two 16 × 16-bit products where pred fits 32 bits (a 64-bit product with
+        // its overflow check is a library call on the M0).
+        let limit = match u32::try_from(pred) {
+            Ok(p) => Some(
+                (u64::from((p >> 16) * REJECT_ABOVE_Q8 as u32) << 16)
+                    + u64::from((p & 0xffff) * REJECT_ABOVE_Q8 as u32),
+            ),
+            Err(_) => pred
+                .checked_mul(REJECT_ABOVE_Q8 as i64)
+                .map(|l| l.unsigned_abs()),
+        };
+        if let Some(limit) = limit {
+            if b.var_q8.unsigned_abs() * 256 > limit {
                 b.kept = false;
                 rejected = true;
             }
@@ -775,6 +797,38 @@ mod tests {
             bad[n / 2] = flags::SATURATED;
             let start = (n / 2) / BLOCK_PX * BLOCK_PX;
             assert!(block_stats_clear(&frame, &bad, start, (start + BLOCK_PX).min(n)).is_none());
+        }
+    }
+
+    /// The split product rejects exactly the blocks of the plain 128-bit comparison.
+    #[test]
+    fn rejection_is_the_plain_comparison() {
+        let mut x = 0x2468_ace1u32;
+        let mut next = || {
+            x ^= x << 13;
+            x ^= x >> 17;
+            x ^= x << 5;
+            x
+        };
+        for _ in 0..20_000 {
+            let r = next();
+            let m = NoiseModel {
+                floor_var_q8: i64::from(next() >> (r % 32)) << (r % 20),
+                zero_light_level: 0,
+                shot_var_per_unit_q16: next() >> (r % 31),
+                shot_from_data: false,
+            };
+            let level = i64::from(next() >> (r % 29));
+            let var_q8 = (i64::from(next()) << (r % 19)).min(1 << 50);
+            let mut b = [Block {
+                var_q8,
+                level,
+                used: true,
+                kept: true,
+            }];
+            let want = i128::from(var_q8) * 256 > i128::from(m.var_q8(level)) * REJECT_ABOVE_Q8;
+            assert_eq!(reject_inflated(&mut b, &m), want, "{m:?} {level} {var_q8}");
+            assert_eq!(b[0].kept, !want);
         }
     }
 
