@@ -455,7 +455,7 @@ mod tests {
     fn crossing_fraction_is_the_quotient() {
         let mut rng = Rng::new(31);
         for k in 0..50_000u32 {
-            let drop = (i64::from(rng.u16()) << (k % 40)) + i64::from(k % 3);
+            let drop = (rng.u16() << (k % 40)) + i64::from(k % 3);
             let num = if k % 7 == 0 {
                 drop
             } else {
