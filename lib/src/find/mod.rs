@@ -376,26 +376,32 @@ fn half_width_sigma(d: &fit::FitData<'_>, pos: usize, max_px: usize) -> i64 {
         d.frame.get(from..n).unwrap_or(&[]),
         d.base.get(from..n).unwrap_or(&[]),
     );
-    let left = left_f.iter().rev().zip(left_b.iter().rev());
-    let right = right_f.iter().zip(right_b);
-    let fwhm_q16 =
-        half_crossing_q16(left, top, half, max_px) + half_crossing_q16(right, top, half, max_px);
+    let fwhm_q16 = half_crossing_q16(left_f, left_b, true, top, half, max_px)
+        + half_crossing_q16(right_f, right_b, false, top, half, max_px);
     // σ = FWHM / 2.3548 as a multiply: 2^32 / FWHM_PER_SIGMA_Q16 = 27 830.6 (relative error < 2·10⁻⁵).
     (fwhm_q16.clamp(0, 1 << 30) * SIGMA_PER_FWHM_Q16) >> 16
 }
 
-/// Distance (Q16 px) from the top to the half-maximum crossing along one side's (frame, baseline)
-/// pairs, nearest first; half of `max_px` when the residual stays above `half` that far (or the
-/// frame ends first).
-#[inline(always)]
-fn half_crossing_q16<'a>(
-    side: impl Iterator<Item = (&'a i32, &'a i32)>,
+/// Distance (Q16 px) from the top to the half-maximum crossing along one side's frame and baseline
+/// values (`from_end`: nearest last, the left side), half of `max_px` when the residual stays above
+/// `half` that far (or the frame ends first). A plain index loop bounded by both slices: iterator
+/// adapters (reversed, zipped, taken, counted) cost ~18 instructions a step on the M0.
+fn half_crossing_q16(
+    frame: &[i32],
+    base: &[i32],
+    from_end: bool,
     top: i64,
     half: i64,
     max_px: usize,
 ) -> i64 {
+    let len = frame.len().min(base.len());
+    let steps = max_px.min(len);
     let mut prev = top;
-    for (step, (&f, &b)) in side.take(max_px).enumerate() {
+    for step in 0..steps {
+        let j = if from_end { len - 1 - step } else { step };
+        let (Some(&f), Some(&b)) = (frame.get(j), base.get(j)) else {
+            break;
+        };
         let v = i64::from(f) - i64::from(b);
         if v <= half {
             return ((step as i64) << 16) + crossing_q16(prev - half, prev - v);
