@@ -45,8 +45,30 @@ impl NoiseModel {
     /// Variance at a signal level (frame units), Q8.
     #[inline]
     pub fn var_q8(&self, level: i64) -> i64 {
-        let light = level.saturating_sub(self.zero_light_level).max(0);
-        let k = self.shot_var_per_unit_q16;
+        let (z, k, floor) = (
+            self.zero_light_level,
+            self.shot_var_per_unit_q16,
+            self.floor_var_q8,
+        );
+        // The per-pixel case (ADC frames, κ < 256): level and zero of one sign, so `level − zero`
+        // cannot overflow; light below 2^24 and a floor below 2^62, so nothing saturates — three
+        // 32-bit products and no 64-bit saturating arithmetic (each a dozen instructions on the M0).
+        if (level ^ z) >= 0 && k < 1 << 24 && floor < 1 << 62 {
+            let d = level.wrapping_sub(z);
+            if d <= 0 {
+                return floor.max(1);
+            }
+            if d < 1 << 24 {
+                // With l = 2^8·l_hi + l_lo: l · κ = (l · κ_hi) · 2^16 + (l_hi · κ_lo) · 2^8 + l_lo · κ_lo,
+                // each product below 2^32, so the shift by 8 splits exactly.
+                let l = d as u32;
+                let (kh, kl) = (k >> 16, k & 0xffff);
+                let (lh, ll) = (l >> 8, l & 0xff);
+                let shot = i64::from(l * kh) * 256 + i64::from(lh * kl) + i64::from((ll * kl) >> 8);
+                return (floor + shot).max(1);
+            }
+        }
+        let light = level.saturating_sub(z).max(0);
         // light < 2^31 keeps the product below 2^63 (the per-pixel case; i128 on M0 is a library call).
         let shot = if light < 1 << 16 {
             // l · κ = (l · κ_hi) · 2^16 + l · κ_lo with both products in 32 bits, and the shift by 8
@@ -54,14 +76,6 @@ impl NoiseModel {
             let l = light as u32;
             let (hi, lo) = (l * (k >> 16), l * (k & 0xffff));
             i64::from(hi) * 256 + i64::from(lo >> 8)
-        } else if light < 1 << 24 && k < 1 << 24 {
-            // Levels of Q4 frames with κ below 256: with l = 2^8·l_hi + l_lo the low product splits
-            // again, l · κ_lo = (l_hi · κ_lo) · 2^8 + l_lo · κ_lo, so three 32-bit products give the
-            // wide product's bits (each below 2^32).
-            let l = light as u32;
-            let (kh, kl) = (k >> 16, k & 0xffff);
-            let (lh, ll) = (l >> 8, l & 0xff);
-            i64::from(l * kh) * 256 + i64::from(lh * kl) + i64::from((ll * kl) >> 8)
         } else if light < 1 << 31 {
             (super::math::mul_u32_wide(light as u32, k) >> 8) as i64
         } else {
@@ -718,15 +732,32 @@ mod tests {
                 i64::from(x.rotate_left(11) >> (8 + x % 9))
                     + [0, 1 << 16, (1 << 24) - 1][(x % 3) as usize]
             };
+            let zero = match x % 5 {
+                0 => 0,
+                1 => i64::from(x >> 12),
+                2 => -i64::from(x >> 9),
+                3 => [i64::MIN, i64::MAX, 1 << 62, -(1 << 62)][(x >> 3) as usize % 4],
+                _ => level - i64::from(x % 7),
+            };
+            let floor = match x % 3 {
+                0 => i64::from(x % 5000),
+                1 => (1 << 62) - i64::from(x % 3),
+                _ => i64::MAX - i64::from(x % 2) - [0, 1 << 40][(x >> 5) as usize % 2],
+            };
             let m = NoiseModel {
-                floor_var_q8: i64::from(x % 5000),
-                zero_light_level: 0,
+                floor_var_q8: floor,
+                zero_light_level: zero,
                 shot_var_per_unit_q16: k,
                 shot_from_data: false,
             };
-            let light = level.max(0);
-            let want = (m.floor_var_q8 + ((i128::from(light) * i128::from(k)) >> 8) as i64).max(1);
-            assert_eq!(m.var_q8(level), want, "level {level} κ {k}");
+            let light = (i128::from(level) - i128::from(zero)).max(0);
+            let shot = (light * i128::from(k)) >> 8;
+            let want = (i128::from(floor) + shot).clamp(1, i128::from(i64::MAX)) as i64;
+            assert_eq!(
+                m.var_q8(level),
+                want,
+                "level {level} zero {zero} κ {k} floor {floor}"
+            );
         }
     }
 
