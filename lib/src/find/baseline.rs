@@ -54,9 +54,10 @@ pub fn estimate_baseline(
     estimate_baseline_known(frame, flag, noise, half, base, tmp, false);
 }
 
-/// [`estimate_baseline`] when the caller knows that every pixel of `frame` is trusted and within
-/// ±2^23 (`clean`): the block means then take 32-bit sums and no flag pass (the same integers).
-/// `false` is always safe.
+/// [`estimate_baseline`] when `tmp` already holds the level of every full block of `frame`
+/// (`levels_ready`: block k's at `tmp[k]`, k < N / 16, from a clean frame's noise pass,
+/// [`NoiseBlocks::measure_clean`](super::noise::NoiseBlocks)); the block pass then only does the
+/// partial last block. `false` is always right.
 pub(crate) fn estimate_baseline_known(
     frame: &[i32],
     flag: &[u8],
@@ -64,7 +65,7 @@ pub(crate) fn estimate_baseline_known(
     half: usize,
     base: &mut [i32],
     tmp: &mut [i32],
-    clean: bool,
+    levels_ready: bool,
 ) {
     let n = frame.len().min(base.len());
     let nb = n.div_ceil(COARSE_PX);
@@ -78,7 +79,7 @@ pub(crate) fn estimate_baseline_known(
     }
     let mut cflag = [0u8; crate::condition::MAX_PIXELS.div_ceil(COARSE_PX)];
     let cflag = cflag.get_mut(..nb).unwrap_or(&mut []);
-    block_means(frame, flag, means, cflag, clean);
+    block_means(frame, flag, means, cflag, levels_ready);
     // A block value (the middle two of four 4-px means) scatters with about 1/13 of the pixel
     // variance; the clip level takes 1/16, as for a 16-px mean (a little more clipping, no bias).
     let coarse_noise = NoiseModel {
@@ -112,20 +113,20 @@ pub(crate) fn estimate_baseline_known(
 ///
 /// The middle quarters are what keep the baseline down between lines that stand closer than a block
 /// (near a series limit every 16-px block holds a line, and plain block means all ride on them).
-/// With `clean` (every pixel trusted, |values| < 2^23) a full block's sums are 32-bit (< 2^27) and its
-/// flags are not read. Loop bound: one pass over `frame`.
-fn block_means(frame: &[i32], flag: &[u8], means: &mut [i32], cflag: &mut [u8], clean: bool) {
-    // Clean frames: the full blocks in one walk of 16-px chunks, their flags unread.
+/// With `levels_ready` the full blocks' levels are in `means` already (trusted): only the partial
+/// last block is summed. Loop bound: one pass over `frame`.
+fn block_means(
+    frame: &[i32],
+    flag: &[u8],
+    means: &mut [i32],
+    cflag: &mut [u8],
+    levels_ready: bool,
+) {
+    // Levels already there (a clean frame's noise pass took them): the full blocks are trusted.
     let mut done = 0usize;
-    if clean {
-        let blocks = frame.chunks_exact(COARSE_PX);
-        for ((m, cf), v) in means.iter_mut().zip(cflag.iter_mut()).zip(blocks) {
-            if let Ok(v) = <&[i32; COARSE_PX]>::try_from(v) {
-                *cf = 0;
-                *m = middle_quarters_narrow(v);
-                done += 1;
-            }
-        }
+    if levels_ready {
+        done = (frame.len() / COARSE_PX).min(means.len()).min(cflag.len());
+        cflag.get_mut(..done).unwrap_or(&mut []).fill(0);
     }
     let means_rest = means.get_mut(done..).unwrap_or(&mut []);
     let cflag_rest = cflag.get_mut(done..).unwrap_or(&mut []);
@@ -193,18 +194,11 @@ fn block_means(frame: &[i32], flag: &[u8], means: &mut [i32], cflag: &mut [u8], 
     }
 }
 
-/// A full clean block's level as the careful path computes it (the mean of the middle two of its
-/// four 4-px sums, floor), in 32 bits: |values| < 2^23 keep every sum below 2^27.
-fn middle_quarters_narrow(v: &[i32; COARSE_PX]) -> i32 {
-    let [x0, x1, x2, x3, x4, x5, x6, x7, x8, x9, x10, x11, x12, x13, x14, x15] = *v;
-    let q = |a: i32, b: i32, c: i32, d: i32| a.wrapping_add(b).wrapping_add(c).wrapping_add(d);
-    let (a, b, c, d) = (
-        q(x0, x1, x2, x3),
-        q(x4, x5, x6, x7),
-        q(x8, x9, x10, x11),
-        q(x12, x13, x14, x15),
-    );
-    let total = q(a, b, c, d);
+/// A full block's level from its four 4-px sums `a … d`: the mean of the middle two (floor), in 32
+/// bits (sums of values within ±2^23 stay below 2^27). The noise pass of a clean frame
+/// ([`NoiseBlocks::measure_clean`](super::noise::NoiseBlocks)) takes it for every full block.
+pub(crate) fn middle_of_quarters(a: i32, b: i32, c: i32, d: i32) -> i32 {
+    let total = a.wrapping_add(b).wrapping_add(c).wrapping_add(d);
     let low = a.min(b).min(c.min(d));
     let high = a.max(b).max(c.max(d));
     total.wrapping_sub(low).wrapping_sub(high) >> 3
@@ -420,31 +414,31 @@ mod tests {
     }
 
     #[test]
-    fn clean_block_means_are_the_careful_ones() {
-        // Frames within ±2^23 (the clean path's condition), a partial last block included.
+    fn ready_levels_are_kept_and_the_partial_block_summed() {
         let mut x = 0x2545_f491u32;
         for n in [16usize, 37, 256, 1000] {
-            for bits in [4u32, 12, 23] {
-                let frame: std::vec::Vec<i32> = (0..n)
-                    .map(|_| {
-                        x ^= x << 13;
-                        x ^= x >> 17;
-                        x ^= x << 5;
-                        (x as i32) >> (31 - bits)
-                    })
-                    .collect();
-                let fl = std::vec![0u8; n];
-                let nb = n.div_ceil(COARSE_PX);
-                let (mut m1, mut m2) = (std::vec![0i32; nb], std::vec![0i32; nb]);
-                let (mut c1, mut c2) = (std::vec![9u8; nb], std::vec![9u8; nb]);
-                block_means(&frame, &fl, &mut m1, &mut c1, false);
-                block_means(&frame, &fl, &mut m2, &mut c2, true);
-                assert_eq!((m1, c1), (m2, c2), "n {n} bits {bits}");
-            }
+            let frame: std::vec::Vec<i32> = (0..n)
+                .map(|_| {
+                    x ^= x << 13;
+                    x ^= x >> 17;
+                    x ^= x << 5;
+                    (x as i32) >> 12
+                })
+                .collect();
+            let fl = std::vec![0u8; n];
+            let nb = n.div_ceil(COARSE_PX);
+            let (mut m1, mut c1) = (std::vec![0i32; nb], std::vec![9u8; nb]);
+            block_means(&frame, &fl, &mut m1, &mut c1, false);
+            // The full blocks' levels as the noise pass leaves them, the rest unknown.
+            let mut m2: std::vec::Vec<i32> = (0..nb)
+                .map(|k| if k < n / COARSE_PX { m1[k] } else { 12_345 })
+                .collect();
+            let mut c2 = std::vec![9u8; nb];
+            block_means(&frame, &fl, &mut m2, &mut c2, true);
+            assert_eq!((m1, c1), (m2, c2), "n {n}");
         }
     }
 
-    /// The stepped interpolation is the straight line between block centres, floored.
     #[test]
     fn interpolation_is_the_plain_line() {
         let mut x = 0x1357_9bdfu32;

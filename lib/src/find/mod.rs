@@ -156,9 +156,18 @@ pub fn find_peaks(
         fit: scratch_fit,
     } = work;
     mask.clear();
-    // One range pass for both 32-bit paths: the noise blocks' (±2^23) and the smoothing's (±2^25).
-    let span = math::magnitude_span(frame);
-    blocks.measure_known(frame, flag, mask, span < 1 << 23);
+    // A clean frame (no untrusted pixel, values within ±2^23) is read once for the noise blocks,
+    // the baseline's block levels (into `tmp`) and its range; any other takes a range pass and the
+    // careful block passes. The range serves both 32-bit paths: the noise blocks' (±2^23) and the
+    // smoothing's (±2^25).
+    let (span, levels_ready) = match blocks.measure_clean(frame, flag, tmp) {
+        Some(span) => (span, true),
+        None => {
+            let span = math::magnitude_span(frame);
+            blocks.measure_known(frame, flag, mask, span < 1 << 23);
+            (span, false)
+        }
+    };
     let mut nm = blocks.model(shot).unwrap_or(noise::fallback(shot));
     let mut truncated = false;
     // Two looks: the first finds the lines, the second re-estimates the noise away from them (dense
@@ -169,8 +178,7 @@ pub fn find_peaks(
     let all_trusted = blocks.all_trusted();
     // The baseline and the smoothed residual are taken once: the noise model only sets the
     // baseline's clip level, which the lines clear by far, while detection thresholds follow it.
-    let clean = all_trusted && span < 1 << 23;
-    baseline::estimate_baseline_known(frame, flag, &nm, 2 * fwhm_max_px, base, tmp, clean);
+    baseline::estimate_baseline_known(frame, flag, &nm, 2 * fwhm_max_px, base, tmp, levels_ready);
     // The baseline is made of means of frame values: within the frame's range.
     detect::smooth_residual_known(frame, base, tmp, narrow);
     // When the looks end after the first, the fits start from the mask's half-width σ (Q16 px,

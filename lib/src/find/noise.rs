@@ -43,7 +43,7 @@ pub struct NoiseModel {
 
 impl NoiseModel {
     /// Variance at a signal level (frame units), Q8.
-    #[inline]
+    #[inline(always)]
     pub fn var_q8(&self, level: i64) -> i64 {
         let (z, k, floor) = (
             self.zero_light_level,
@@ -68,6 +68,14 @@ impl NoiseModel {
                 return (floor + shot).max(1);
             }
         }
+        self.var_q8_general(level)
+    }
+
+    /// [`var_q8`](Self::var_q8) for any level and model, out of line (the per-pixel case stays
+    /// inline at every caller).
+    #[inline(never)]
+    fn var_q8_general(&self, level: i64) -> i64 {
+        let (z, k) = (self.zero_light_level, self.shot_var_per_unit_q16);
         let light = level.saturating_sub(z).max(0);
         // light < 2^31 keeps the product below 2^63 (the per-pixel case; i128 on M0 is a library call).
         let shot = if light < 1 << 16 {
@@ -195,6 +203,137 @@ impl NoiseBlocks {
         self.n = frame.len().min(MAX_PIXELS).div_ceil(BLOCK_PX);
         self.narrow = narrow;
         self.all_trusted = self.refresh(frame, flag, mask, false);
+    }
+
+    /// [`measure_known`](Self::measure_known) with no mask, for a frame with no untrusted pixel,
+    /// together with the baseline's level of every full 16-px block
+    /// ([`middle_of_quarters`](super::baseline::middle_of_quarters)) into `levels`: one read of the
+    /// frame for both, and its magnitude span (as [`magnitude_span`](super::math::magnitude_span))
+    /// on the way, where three passes read it before. Returns that span when every pixel is trusted
+    /// and within ±2^23: then the blocks are exactly `measure_known`'s (all trusted) and
+    /// `levels[k]` holds block k's level for k < N / 16. `None` otherwise (also for `levels` shorter
+    /// than N / 16): then `self` and `levels` hold nothing of use; measure again.
+    ///
+    /// Each 64-px block sums |second differences| over its own pixels' terms (pixel j gives the one
+    /// centred on j − 1); a block's true sum drops its first term (centred in the block before) and
+    /// takes the next block's first. The start values make the first two terms of the frame 0.
+    /// Loop bound: one flag pass and one value pass over N pixels, one pass over the ≤ 64 blocks.
+    pub(crate) fn measure_clean(
+        &mut self,
+        frame: &[i32],
+        flag: &[u8],
+        levels: &mut [i32],
+    ) -> Option<u32> {
+        let n = frame.len();
+        if n > MAX_PIXELS || flag.len() != n || levels.len() < n / 16 {
+            return None;
+        }
+        let mut bad = 0u8;
+        let mut quads = flag.chunks_exact(4);
+        for q in &mut quads {
+            if let [a, b, c, d] = *q {
+                bad |= a | b | c | d;
+            }
+        }
+        for &f in quads.remainder() {
+            bad |= f;
+        }
+        if flags::is_untrusted(bad) {
+            return None;
+        }
+        let (Some(&x0), Some(&x1)) = (frame.first(), frame.get(1)) else {
+            return None;
+        };
+        // Pixel 0 and 1 then give terms of 0: d = x1 − x0 both times.
+        let (mut p1, mut d1) = (x0.wrapping_mul(2).wrapping_sub(x1), x1.wrapping_sub(x0));
+        let mut span = 0u32;
+        // Wrapping throughout: exact within ±2^23, and the span says when it was not.
+        let mut step = |y: i32| -> u32 {
+            span |= (y ^ (y >> 31)) as u32;
+            let d = y.wrapping_sub(p1);
+            let t = d.wrapping_sub(d1).unsigned_abs();
+            (p1, d1) = (y, d);
+            t
+        };
+        self.n = n.div_ceil(BLOCK_PX);
+        // Per block: its sum, its own pixels' terms and its first pixel's term, in the blocks' fields
+        // until the last pass (var_q8 ← terms, level ← sum, used/kept ← first term in `kept`'s
+        // stead below).
+        let mut firsts = [0u32; MAX_BLOCKS];
+        let mut level_k = 0usize;
+        for ((blk, first), px) in self
+            .blocks
+            .iter_mut()
+            .zip(firsts.iter_mut())
+            .zip(frame.chunks(BLOCK_PX))
+        {
+            let (mut sum, mut terms) = (0i32, 0u32);
+            let mut sixteens = px.chunks_exact(16);
+            let mut at_start = true;
+            for c in &mut sixteens {
+                let mut q = [0i32; 4];
+                for (qs, four) in q.iter_mut().zip(c.chunks_exact(4)) {
+                    if let [a, b, c, d] = *four {
+                        let ta = step(a);
+                        if at_start {
+                            *first = ta;
+                            at_start = false;
+                        }
+                        terms = terms
+                            .wrapping_add(ta)
+                            .wrapping_add(step(b))
+                            .wrapping_add(step(c))
+                            .wrapping_add(step(d));
+                        *qs = a.wrapping_add(b).wrapping_add(c).wrapping_add(d);
+                    }
+                }
+                let [a, b, c, d] = q;
+                sum = sum.wrapping_add(a.wrapping_add(b).wrapping_add(c).wrapping_add(d));
+                if let Some(l) = levels.get_mut(level_k) {
+                    *l = super::baseline::middle_of_quarters(a, b, c, d);
+                }
+                level_k += 1;
+            }
+            for &y in sixteens.remainder() {
+                let t = step(y);
+                if at_start {
+                    *first = t;
+                    at_start = false;
+                }
+                terms = terms.wrapping_add(t);
+                sum = sum.wrapping_add(y);
+            }
+            blk.var_q8 = i64::from(terms);
+            blk.level = i64::from(sum);
+        }
+        if span >= NARROW as u32 {
+            return None;
+        }
+        let nb = self.n;
+        for (m, blk) in self.blocks.iter_mut().enumerate().take(nb) {
+            let start = m * BLOCK_PX;
+            let end = (start + BLOCK_PX).min(n);
+            let next_first = firsts
+                .get(m + 1)
+                .copied()
+                .filter(|_| m + 1 < nb)
+                .unwrap_or(0);
+            let own_first = firsts.get(m).copied().unwrap_or(0);
+            let sad = (blk.var_q8 as u32)
+                .wrapping_sub(own_first)
+                .wrapping_add(next_first);
+            let sum = blk.level as i32;
+            let cnt = (end - start) as u32;
+            let nd = cnt - u32::from(start == 0) - u32::from(end == n);
+            *blk = if (nd as usize) < MIN_BLOCK_SAMPLES || cnt == 0 {
+                Block::default()
+            } else {
+                variance_block(i64::from(sum), cnt, u64::from(sad), nd)
+            };
+        }
+        self.narrow = true;
+        self.all_trusted = true;
+        Some(span)
     }
 
     /// Whether the last measurement found every pixel of the frame trusted (see [`flags`]) on its
@@ -828,6 +967,74 @@ mod tests {
             bad[n / 2] = flags::SATURATED;
             let start = (n / 2) / BLOCK_PX * BLOCK_PX;
             assert!(block_stats_clear(&frame, &bad, start, (start + BLOCK_PX).min(n)).is_none());
+        }
+    }
+
+    /// The one-read pass of a clean frame gives the careful blocks and the baseline's block levels.
+    #[test]
+    fn clean_pass_equals_the_block_passes() {
+        let mut rng = Rng::new(63);
+        for n in [
+            2usize, 16, 17, 63, 64, 65, 76, 128, 130, 300, 1000, 2048, 4096,
+        ] {
+            for amp in [30i64 << 16, 3 << 38, (1 << 23) << 16] {
+                let frame: Vec<i32> = (0..n as i64)
+                    .map(|i| {
+                        (900 + 5 * i + rng.gauss(amp)).clamp(-(1 << 23) + 1, (1 << 23) - 1) as i32
+                    })
+                    .collect();
+                let fl = vec![0u8; n];
+                let mut want = NoiseBlocks::new();
+                want.measure_known(&frame, &fl, &LineMask::new(), true);
+                let mut got = NoiseBlocks::new();
+                let mut levels = vec![0i32; n / 16];
+                let span = got.measure_clean(&frame, &fl, &mut levels);
+                assert_eq!(
+                    span,
+                    Some(super::super::math::magnitude_span(&frame)),
+                    "n {n}"
+                );
+                assert_eq!((got.n, got.all_trusted), (want.n, want.all_trusted));
+                for (a, b) in got.blocks.iter().zip(&want.blocks).take(want.n) {
+                    assert_eq!(
+                        (a.var_q8, a.level, a.used),
+                        (b.var_q8, b.level, b.used),
+                        "n {n}"
+                    );
+                }
+                // The levels the baseline's block pass would take.
+                for (k, &l) in levels.iter().enumerate() {
+                    let q: Vec<i64> = (0..4)
+                        .map(|j| {
+                            frame[16 * k + 4 * j..16 * k + 4 * j + 4]
+                                .iter()
+                                .map(|&v| i64::from(v))
+                                .sum()
+                        })
+                        .collect();
+                    let (lo, hi) = (*q.iter().min().unwrap(), *q.iter().max().unwrap());
+                    assert_eq!(
+                        i64::from(l),
+                        (q.iter().sum::<i64>() - lo - hi) >> 3,
+                        "n {n} block {k}"
+                    );
+                }
+            }
+            // An untrusted pixel or a value beyond ±2^23: no pass (the careful ones decide).
+            let frame: Vec<i32> = (0..n as i32).collect();
+            let mut fl = vec![0u8; n];
+            fl[n / 2] = flags::REPAIRED;
+            let mut levels = vec![0i32; n / 16];
+            assert_eq!(
+                NoiseBlocks::new().measure_clean(&frame, &fl, &mut levels),
+                None
+            );
+            let mut wide = frame.clone();
+            wide[n - 1] = 1 << 23;
+            assert_eq!(
+                NoiseBlocks::new().measure_clean(&wide, &vec![0u8; n], &mut levels),
+                None
+            );
         }
     }
 
