@@ -235,8 +235,8 @@ pub fn find_candidates(
                 let goal = v.saturating_sub(t).saturating_sub(1);
                 dips_to(smooth, i, v32, goal, r, false) && dips_to(smooth, end, v32, goal, r, true)
             } else {
-                let floor_l = valley(smooth, i, v, r, false);
-                let floor_r = valley(smooth, end, v, r, true);
+                let floor_l = valley(smooth, i, v32, r, false);
+                let floor_r = valley(smooth, end, v32, r, true);
                 above(
                     v - floor_l.max(floor_r),
                     cfg.prominence_sigma_q8,
@@ -288,22 +288,19 @@ fn dips_to(
 
 /// Lowest smoothed value walking from `from` until a value above `peak` or `reach` px.
 ///
-/// The walk runs over the ≤ `reach` values of that side as a slice, in 32 bits when `peak` fits
-/// (it is a value of `smooth`): the same answer as a walk by index.
-fn valley(smooth: &[i32], from: usize, peak: i64, reach: usize, rightward: bool) -> i64 {
-    let Ok(peak32) = i32::try_from(peak) else {
-        return valley_wide(smooth, from, peak, reach, rightward);
-    };
+/// The walk runs over the ≤ `reach` values of that side as a slice, in 32 bits (`peak` is a value of
+/// `smooth`): the same answer as a walk by index (tested).
+fn valley(smooth: &[i32], from: usize, peak: i32, reach: usize, rightward: bool) -> i64 {
     if !rightward && from > smooth.len() {
         // The index walk's first step is already outside.
-        return peak;
+        return i64::from(peak);
     }
     let low = if rightward {
         let side = smooth.get(from.saturating_add(1)..).unwrap_or(&[]);
-        lowest_until_above(side.iter().take(reach), peak32)
+        lowest_until_above(side.iter().take(reach), peak)
     } else {
         let side = smooth.get(..from.min(smooth.len())).unwrap_or(&[]);
-        lowest_until_above(side.iter().rev().take(reach), peak32)
+        lowest_until_above(side.iter().rev().take(reach), peak)
     };
     i64::from(low)
 }
@@ -313,28 +310,6 @@ fn valley(smooth: &[i32], from: usize, peak: i64, reach: usize, rightward: bool)
 fn lowest_until_above<'a>(values: impl Iterator<Item = &'a i32>, peak: i32) -> i32 {
     let mut low = peak;
     for &v in values {
-        if v > peak {
-            break;
-        }
-        low = low.min(v);
-    }
-    low
-}
-
-/// [`valley`] by index in 64 bits, for a `peak` beyond `i32` (not a value of `smooth`).
-#[cold]
-fn valley_wide(smooth: &[i32], from: usize, peak: i64, reach: usize, rightward: bool) -> i64 {
-    let mut low = peak;
-    for step in 1..=reach {
-        let j = if rightward {
-            from.checked_add(step)
-        } else {
-            from.checked_sub(step)
-        };
-        let Some(v) = j.and_then(|j| smooth.get(j)) else {
-            break;
-        };
-        let v = i64::from(*v);
         if v > peak {
             break;
         }
@@ -482,6 +457,27 @@ fn swap_entries(v: &mut [Candidate], a: usize, b: usize) {
 mod tests {
     use super::*;
 
+    /// [`valley`] written as a walk by index in 64 bits.
+    fn valley_wide(smooth: &[i32], from: usize, peak: i64, reach: usize, rightward: bool) -> i64 {
+        let mut low = peak;
+        for step in 1..=reach {
+            let j = if rightward {
+                from.checked_add(step)
+            } else {
+                from.checked_sub(step)
+            };
+            let Some(v) = j.and_then(|j| smooth.get(j)) else {
+                break;
+            };
+            let v = i64::from(*v);
+            if v > peak {
+                break;
+            }
+            low = low.min(v);
+        }
+        low
+    }
+
     /// The 32-bit smoothing gives the general path's integers.
     #[test]
     fn valley_walks_agree_with_the_index_walk() {
@@ -497,9 +493,9 @@ mod tests {
         for from in [0usize, 1, 5, 150, 298, 299, 300, 302] {
             for reach in [0usize, 1, 8, 64, 400] {
                 for rightward in [false, true] {
-                    let own = smooth.get(from).map_or(7, |&v| i64::from(v));
-                    for peak in [own, 0, -5000, 5000, 1 << 40] {
-                        let want = valley_wide(&smooth, from, peak, reach, rightward);
+                    let own = smooth.get(from).map_or(7, |&v| v);
+                    for peak in [own, 0, -5000, 5000, i32::MAX, i32::MIN] {
+                        let want = valley_wide(&smooth, from, i64::from(peak), reach, rightward);
                         assert_eq!(valley(&smooth, from, peak, reach, rightward), want);
                     }
                 }
@@ -614,7 +610,7 @@ mod tests {
             let peak = smooth[from];
             for reach in [0usize, 1, 9, 48, 500] {
                 for rightward in [false, true] {
-                    let low = valley(&smooth, from, i64::from(peak), reach, rightward);
+                    let low = valley(&smooth, from, peak, reach, rightward);
                     for drop in [1i64, 5, 40, 300, 2000] {
                         let goal = i64::from(peak) - drop;
                         assert_eq!(
