@@ -9,9 +9,10 @@
 //! 4. [`fit`]: a noise-weighted (whitened) Gaussian fit per line in 32-bit fixed point, giving centre,
 //!    its Fisher σ, FWHM, height, area.
 //!
-//! Every per-pixel pass runs in 32-bit arithmetic on ADC frames (values within ±2^23): the
-//! M0 build spends ~530 instructions per pixel on a 2048-px frame of a dozen lines, over a third
-//! of them in the per-line fits (`bash boards/measure.sh` prints the pieces as `find_parts`).
+//! Every per-pixel pass runs in 32-bit arithmetic on ADC frames (values within ±2^23), and a clean
+//! frame is read once for its noise blocks, the baseline's block levels and its range: the M0 build
+//! spends ~430 instructions per pixel on a 2048-px frame of a dozen lines, nearly half of them in
+//! the per-line fits (`bash boards/measure.sh` prints the pieces as `find_parts`).
 //!
 //! # Scales
 //! Centres and widths are px in Q16 (pixel 0 = first value, pixel i spans i − 0.5 … i + 0.5); heights and
@@ -105,9 +106,11 @@ pub const SPIKE_FWHM_Q8: u32 = 160;
 /// On return (also `Ok` with no peaks) the first `frame.len()` cells of `scratch` hold the baseline the
 /// peaks stand on (frame units), for callers that need the continuum; the rest is work space.
 ///
-/// Loop bounds, with N = `frame.len()` ≤ [`MAX_PIXELS`] and W = FWHMmax ≤ 16 px: one range check
-/// O(N); one noise measurement O(N) and a second over the blocks the line mask touches (≤ O(N)),
-/// each followed by a block fit (see [`noise::NoiseBlocks`]); one baseline (one O(N) block pass,
+/// Loop bounds, with N = `frame.len()` ≤ [`MAX_PIXELS`] and W = FWHMmax ≤ 16 px: one O(N) flag pass
+/// and one O(N) read of a clean frame for the noise blocks, block levels and range, or else one range
+/// check O(N) and one noise measurement O(N); a second noise measurement over the blocks the line
+/// mask touches (≤ O(N)), each followed by a block fit (see [`noise::NoiseBlocks`]); one baseline
+/// (one O(N) block pass, or only the partial last block when the levels are in,
 /// ≤ [`baseline::ROUNDS`] + 1 rounds over ⌈N/16⌉ block means, one O(N) interpolation); one O(N)
 /// smoothing and ≤ 2 detections of O(N) plus ≤ 2 × 4W px of prominence search per local maximum
 /// above threshold and ≤ 128 steps per candidate arriving at a full list; masking ≤ 128 candidates
