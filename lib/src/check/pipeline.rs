@@ -1,6 +1,7 @@
 //! The whole job for one frame: condition → find → calibrate → match → judge, into one [`Report`].
 use super::config::Config;
 use super::error::CheckError;
+use super::line_shift::LineShift;
 use super::stage::Stage;
 use super::workspace::{MatchWork, Workspace, MAX_READINGS};
 use crate::bounded::collect_bounded;
@@ -47,6 +48,9 @@ pub struct Checker {
     partner: [u8; MAX_CATALOGUE],
     /// The stored map's x and wavelength at the drift points (see [`DriftPoints`]), made once.
     drift_points: DriftPoints,
+    /// Calibrate mode: the lines' stored pixels and interpolation weights, so a fitted map places
+    /// them from five inversions (see [`LineShift`]). Made once.
+    line_shift: LineShift,
 }
 
 /// Grouping's output on one map: see [`Checker::placed`](Checker).
@@ -242,6 +246,7 @@ impl Checker {
             same_as: [u8::MAX; MAX_CATALOGUE],
             partner: [u8::MAX; MAX_CATALOGUE],
             drift_points: DriftPoints::NONE,
+            line_shift: LineShift::NONE,
         }
     }
 
@@ -270,6 +275,7 @@ impl Checker {
         self.same_as = [u8::MAX; MAX_CATALOGUE];
         self.partner = [u8::MAX; MAX_CATALOGUE];
         self.drift_points = DriftPoints::NONE;
+        self.line_shift = LineShift::NONE;
     }
 
     /// The prediction behind [`configure`](Self::configure), on cleared tables. Out of line: one
@@ -311,8 +317,18 @@ impl Checker {
         if let Some((a, b)) = self.pair {
             self.partner = partners(&self.catalogue, a, b);
         }
-        if self.cfg.mode == Mode::Verify {
+        let mode = self.cfg.mode;
+        if mode == Mode::Verify {
             self.placed_valid = self.place_on_stored();
+        }
+        // Calibrate mode: the stored map's line pixels, where a calibration moves the lines from.
+        if mode == Mode::Calibrate && self.place_on_stored() {
+            self.line_shift.fill(
+                &self.cfg.stored.map,
+                &self.catalogue,
+                &self.placed.lines,
+                self.cfg.pixels,
+            );
         }
         Ok(())
     }
@@ -516,6 +532,10 @@ impl Checker {
             windows.clear();
             let _ = windows.extend_from_slice(&p.windows);
         } else {
+            if cfg.mode == Mode::Calibrate {
+                // The fitted map's line pixels from the stored ones (grouping inverts the rest).
+                self.line_shift.place(&in_use.map, &mut in_use.lines);
+            }
             group_with_windows(
                 cfg,
                 &self.catalogue,

@@ -84,8 +84,16 @@ pub(crate) fn group_placing(
     // One reciprocal of the map's half-width for all the inversions below.
     let hw = HalfWidth::reciprocal(map);
     for (i, line) in catalogue.iter().enumerate().take(MAX_CATALOGUE) {
-        let at = map.pixel_q16_by(line.wavelength_fm, &hw).ok();
-        lines.put(i as u8, at);
+        // A pixel recorded already (calibrate mode places lines from their stored pixels) is
+        // taken; else the map is inverted here.
+        let at = match lines.recorded(i as u8) {
+            Some(at) => at,
+            None => {
+                let at = map.pixel_q16_by(line.wavelength_fm, &hw).ok();
+                lines.put(i as u8, at);
+                at
+            }
+        };
         // A line the map cannot place (a fitted map extrapolated far off the sensor) is not on it.
         let Some(px) = at else {
             continue;
