@@ -92,6 +92,12 @@ impl LineShift {
         self.nodes = Some(nodes);
     }
 
+    /// Whether [`fill`](Self::fill) made the nodes.
+    #[cfg(test)]
+    pub(super) fn is_made(&self) -> bool {
+        self.nodes.is_some()
+    }
+
     /// Records in `lines` the pixel on `fitted` of every usable catalogue line (the rest stay
     /// unrecorded: grouping inverts the map for them). Nothing is recorded when a node does not
     /// invert, a shift is past [`MAX_SHIFT_PX_Q16`], or the centre check fails.
@@ -111,7 +117,7 @@ impl LineShift {
     }
 
     /// Δ at the four nodes (px, Q16), checked at the centre; `None` where that fails.
-    fn node_shifts(&self, fitted: &WavelengthMap) -> Option<[i32; 4]> {
+    pub(super) fn node_shifts(&self, fitted: &WavelengthMap) -> Option<[i32; 4]> {
         let nodes = self.nodes.as_ref()?;
         let hw = HalfWidth::reciprocal(fitted);
         let mut d = [0i64; 5];

@@ -366,6 +366,21 @@ impl Checker {
         core::mem::replace(&mut self.placed_valid, false)
     }
 
+    /// Drops calibrate mode's line shift made in `configure`, so each frame inverts the fitted map
+    /// for every line (tests compare the two); whether there was one.
+    #[cfg(test)]
+    pub(super) fn forget_line_shift(&mut self) -> bool {
+        let had = self.line_shift.is_made();
+        self.line_shift = LineShift::NONE;
+        had
+    }
+
+    /// Calibrate mode's line shift (tests ask whether a fitted map takes it).
+    #[cfg(test)]
+    pub(super) fn line_shift(&self) -> &LineShift {
+        &self.line_shift
+    }
+
     /// The configuration.
     pub fn config(&self) -> &Config {
         &self.cfg
