@@ -14,7 +14,7 @@ use crate::find::{find_peaks, FindReport, Peak, PeakList};
 use crate::judge::{MatchedLine, Mode, Reason, Report, SpeciesShare, UnexplainedPeak};
 use crate::matching::assign::{assign, Pair};
 use crate::matching::catalogue::{build_into, CatalogueLine, MAX_NUCLEI};
-use crate::matching::feature::{group_placing, prior_share, settle_placed, Feature, MAX_FEATURES};
+use crate::matching::feature::{group_members, prior_share, settle_placed, Feature, MAX_FEATURES};
 use crate::matching::isotope::{
     share_by_position, share_by_profile, BlendReading, PairWindow, ShareEstimate,
 };
@@ -326,7 +326,7 @@ impl Checker {
             self.line_shift.fill(
                 &self.cfg.stored.map,
                 &self.catalogue,
-                &self.placed.lines,
+                (&self.placed.lines, &self.placed.features),
                 self.cfg.pixels,
             );
         }
@@ -352,7 +352,7 @@ impl Checker {
             lines,
             windows,
         } = placed;
-        if group_with_windows(cfg, catalogue, priors, &mut m, features, windows).is_err() {
+        if group_with_windows(cfg, catalogue, priors, &mut m, features, windows, None).is_err() {
             return false;
         }
         *lines = m.lines;
@@ -547,10 +547,13 @@ impl Checker {
             windows.clear();
             let _ = windows.extend_from_slice(&p.windows);
         } else {
-            if cfg.mode == Mode::Calibrate {
-                // The fitted map's line pixels from the stored ones (grouping inverts the rest).
-                self.line_shift.place(&in_use.map, &mut in_use.lines);
-            }
+            // Calibrate mode: the fitted map's line pixels moved from the stored ones (grouping
+            // inverts the rest), and the stored grouping's settling where the members agree.
+            let shift = match cfg.mode {
+                Mode::Calibrate => self.line_shift.place(&in_use.map, &mut in_use.lines),
+                _ => None,
+            };
+            let from_stored = shift.map(|s| (&self.line_shift, self.placed.features.as_slice(), s));
             group_with_windows(
                 cfg,
                 &self.catalogue,
@@ -558,6 +561,7 @@ impl Checker {
                 in_use,
                 features,
                 windows,
+                from_stored,
             )?;
         }
         let in_use: &MapInUse = in_use;
@@ -1199,6 +1203,8 @@ impl Checker {
 /// Groups the catalogue on `m`'s map into `features` (recording the lines' pixels in `m`) and each
 /// feature's match windows into `windows` (kept because assignment and blend splitting both ask):
 /// what matching needs from a map, per frame or, in verify mode, once in `configure`.
+/// `from_stored` (calibrate mode, when [`LineShift::place`] placed the lines): the shift, the
+/// stored map's grouping and the node shifts, which settle the features when the members agree.
 fn group_with_windows(
     cfg: &Config,
     catalogue: &[CatalogueLine],
@@ -1206,12 +1212,21 @@ fn group_with_windows(
     m: &mut MapInUse,
     features: &mut Vec<Feature, MAX_FEATURES>,
     windows: &mut Vec<(i32, i32), MAX_FEATURES>,
+    from_stored: Option<(&LineShift, &[Feature], [i32; 4])>,
 ) -> Result<(), MatchError> {
     // Closer than 1.5 line widths, two lines may show as one peak (peak finding's own blend limit);
     // a pair that does show as two is split again after matching.
     let merge_q16 = ((cfg.line_fwhm_px_q8 as i32) << 8) * 3 / 2;
     // Every line's pixel is found once, while grouping, for all the steps after it.
-    group_placing(catalogue, &m.map, priors, merge_q16, &mut m.lines, features)?;
+    let hw = HalfWidth::reciprocal(&m.map);
+    group_members(catalogue, &m.map, &hw, merge_q16, &mut m.lines, features);
+    let settled =
+        from_stored.is_some_and(|(shift, stored, s)| shift.settle_from(stored, &s, features));
+    if !settled {
+        for f in features.iter_mut() {
+            settle_placed(f, catalogue, &m.map, &hw, priors, &m.lines)?;
+        }
+    }
     windows.clear();
     let one_px = m.one_px_windows(cfg.profile.max_line_error_fm);
     for f in features.iter() {
