@@ -196,11 +196,9 @@ impl LineShift {
 
 /// Σ w_j · Δ_j (Q30 · Q16 → Q16, rounded): |w| < 2^31 and |Δ| < 2^28 keep each term below 2^59.
 fn interpolate(w: &[i32; 4], shift: &[i32; 4]) -> i64 {
-    let sum: i64 = w
-        .iter()
-        .zip(shift.iter())
-        .map(|(&w, &d)| mul_i32_wide(w, d))
-        .sum();
+    let ([w0, w1, w2, w3], [d0, d1, d2, d3]) = (*w, *shift);
+    let sum =
+        mul_i32_wide(w0, d0) + mul_i32_wide(w1, d1) + mul_i32_wide(w2, d2) + mul_i32_wide(w3, d3);
     (sum + (1 << 29)) >> 30
 }
 

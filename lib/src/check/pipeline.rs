@@ -194,7 +194,18 @@ impl MapInUse {
             .slope_at_x_by(x, &self.div)
             .unwrap_or(0)
             .unsigned_abs();
-        let sigma = match &self.fit {
+        (slope, self.sigma_at_x(p_q16, x))
+    }
+
+    /// The identification's fit where it is this map and the peaks' x (see
+    /// [`peak_xs`](Self::peak_xs)): its own (λ, slope) at its points serve the matched lines.
+    fn fitted<'w>(&self, work: &'w IdentifyWork) -> Option<&'w IdentifyWork> {
+        self.peak_x_valid.then_some(work)
+    }
+
+    /// σ of [`at_x`](Self::at_x).
+    fn sigma_at_x(&self, p_q16: i32, x: i64) -> u64 {
+        match &self.fit {
             // The fit's own map (as `map_for` builds it), so its x is this one: the same pixel and
             // frame (centre, half-width) give the same x.
             Some(f)
@@ -208,8 +219,7 @@ impl MapInUse {
             }
             Some(f) => f.sigma_fm_at(p_q16),
             None => self.stored_sigma_fm as u64,
-        };
-        (slope, sigma)
+        }
     }
 }
 
@@ -583,7 +593,7 @@ impl Checker {
             features,
             &pairs,
             peaks,
-            (in_use, xs),
+            (in_use, xs, in_use.fitted(identify)),
             estimate.is_some(),
             report,
         )?;
@@ -826,14 +836,15 @@ impl Checker {
         best
     }
 
-    /// The matched lines into `report`; `(m, xs)`: the map in use and the peaks' x on it where
-    /// known (see [`MapInUse::peak_xs`]).
+    /// The matched lines into `report`; `(m, xs, fitted)`: the map in use, the peaks' x on it where
+    /// known (see [`MapInUse::peak_xs`]) and the identification whose fit it is (its λ and slope at
+    /// the fitted peaks; see [`MapInUse::fitted`]).
     fn fill_lines(
         &self,
         features: &[Feature],
         pairs: &[Pair],
         peaks: &[Peak],
-        (m, xs): (&MapInUse, &[i64]),
+        (m, xs, fitted): (&MapInUse, &[i64], Option<&IdentifyWork>),
         share_known: bool,
         report: &mut Report,
     ) -> Result<(), CheckError> {
@@ -855,8 +866,16 @@ impl Checker {
                     None => continue,
                 }
             };
-            let (measured, slope, s) =
-                m.at_x(pk.center_px_q16, m.x_of_peak(xs, p.peak as usize, pk));
+            let x = m.x_of_peak(xs, p.peak as usize, pk);
+            let (measured, slope, s) = match fitted.and_then(|w| w.peak_eval(p.peak as usize)) {
+                // The fit's own (λ, slope) at this peak: what `at_x` works out from the same x.
+                Some((lam, slope)) => (
+                    Ok(lam),
+                    slope.unsigned_abs(),
+                    m.sigma_at_x(pk.center_px_q16, x),
+                ),
+                None => m.at_x(pk.center_px_q16, x),
+            };
             let Ok(measured) = measured else {
                 continue;
             };
