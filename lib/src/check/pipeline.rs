@@ -11,7 +11,9 @@ use crate::calibrate::{
 };
 use crate::condition::{condition_frame, FrameSum, GainTable};
 use crate::find::{find_peaks, FindReport, Peak, PeakList};
-use crate::judge::{MatchedLine, Mode, Reason, Report, SpeciesShare, UnexplainedPeak};
+use crate::judge::{
+    MatchedLine, Mode, Reason, Report, SpeciesShare, UnexplainedPeak, MAX_UNEXPLAINED,
+};
 use crate::matching::assign::{assign, Pair};
 use crate::matching::catalogue::{build_into, CatalogueLine, MAX_NUCLEI};
 use crate::matching::feature::{group_members, prior_share, settle_placed, Feature, MAX_FEATURES};
@@ -940,6 +942,11 @@ impl Checker {
                 continue;
             }
             foreign += area;
+            // Full, and no brighter than the faintest listed: the push below would drop it, so it
+            // is not placed (64 noise peaks cost 24 placements, not 64).
+            if dropped_when_full(&report.unexplained, pk.snr_q8) {
+                continue;
+            }
             // λ and |slope| (0 where the map cannot say) from one x, as the pixel-taking calls.
             let x = m.x_of_peak(xs, k, pk);
             let Ok(w) = m.map.wavelength_at_x(x) else {
@@ -1224,6 +1231,12 @@ impl Checker {
 /// what matching needs from a map, per frame or, in verify mode, once in `configure`.
 /// `from_stored` (calibrate mode, when [`LineShift::place`] placed the lines): the shift, the
 /// stored map's grouping and the node shifts, which settle the features when the members agree.
+/// Whether [`push_keep_strongest`](crate::bounded::push_keep_strongest) by SNR would leave the
+/// unexplained list as it is for a peak of `snr_q8`: the list is full and no entry is fainter.
+fn dropped_when_full(list: &Vec<UnexplainedPeak, MAX_UNEXPLAINED>, snr_q8: u32) -> bool {
+    list.is_full() && list.iter().all(|u| snr_q8 <= u.snr_q8)
+}
+
 fn group_with_windows(
     cfg: &Config,
     catalogue: &[CatalogueLine],
@@ -1565,6 +1578,45 @@ mod tests {
                 strength: 1,
             })
             .collect()
+    }
+
+    /// A peak the list would drop is exactly one whose push leaves the list unchanged.
+    #[test]
+    fn skipped_unexplained_peaks_are_the_dropped_ones() {
+        let mut next = crate::test_rng::xorshift(0x7f4a_7c15_9e37_79b9u64);
+        let (mut skipped, mut kept) = (0, 0);
+        for round in 0..20_000 {
+            let mut list: Vec<UnexplainedPeak, MAX_UNEXPLAINED> = Vec::new();
+            let n = if round % 2 == 0 {
+                MAX_UNEXPLAINED as u64
+            } else {
+                next() % (MAX_UNEXPLAINED as u64 + 1)
+            };
+            for _ in 0..n {
+                let _ = list.push(UnexplainedPeak {
+                    wavelength_fm: (next() % 1000) as i64,
+                    center_px_q16: 0,
+                    snr_q8: (next() % 50) as u32,
+                    hint: None,
+                });
+            }
+            let item = UnexplainedPeak {
+                wavelength_fm: -1,
+                center_px_q16: 1,
+                snr_q8: (next() % 50) as u32,
+                hint: None,
+            };
+            let before = list.clone();
+            let skip = dropped_when_full(&list, item.snr_q8);
+            crate::bounded::push_keep_strongest(&mut list, item, |u| u.snr_q8);
+            assert_eq!(skip, list == before);
+            if skip {
+                skipped += 1;
+            } else {
+                kept += 1;
+            }
+        }
+        assert!(skipped > 500 && kept > 500, "{skipped} {kept}");
     }
 
     #[test]
