@@ -16,9 +16,7 @@ use crate::judge::{
 };
 use crate::matching::assign::{assign, Pair};
 use crate::matching::catalogue::{build_into, CatalogueLine, MAX_NUCLEI};
-use crate::matching::feature::{
-    group_members, prior_share, settle_as, settle_placed, Feature, MAX_FEATURES,
-};
+use crate::matching::feature::{group_members, prior_share, settle_placed, Feature, MAX_FEATURES};
 use crate::matching::isotope::{
     share_by_position, share_by_profile, BlendReading, PairWindow, ShareEstimate,
 };
@@ -340,7 +338,7 @@ impl Checker {
             self.line_shift.fill(
                 &self.cfg.stored.map,
                 &self.catalogue,
-                &self.placed.lines,
+                (&self.placed.lines, &self.placed.features),
                 self.cfg.pixels,
             );
         }
@@ -563,9 +561,11 @@ impl Checker {
         } else {
             // Calibrate mode: the fitted map's line pixels moved from the stored ones (grouping
             // inverts the rest), and the stored grouping's settling where the members agree.
-            let placed = cfg.mode == Mode::Calibrate
-                && self.line_shift.place(&in_use.map, &mut in_use.lines);
-            let from_stored = placed.then_some(self.placed.features.as_slice());
+            let shift = match cfg.mode {
+                Mode::Calibrate => self.line_shift.place(&in_use.map, &mut in_use.lines),
+                _ => None,
+            };
+            let from_stored = shift.map(|s| (&self.line_shift, self.placed.features.as_slice(), s));
             group_with_windows(
                 cfg,
                 &self.catalogue,
@@ -1224,17 +1224,19 @@ impl Checker {
     }
 }
 
+/// Predicted lines for identification: isotopes of one transition merged at the prior shares
+/// (a calibration cannot tell them apart anyway), species with no prior left out.
+/// Groups the catalogue on `m`'s map into `features` (recording the lines' pixels in `m`) and each
+/// feature's match windows into `windows` (kept because assignment and blend splitting both ask):
+/// what matching needs from a map, per frame or, in verify mode, once in `configure`.
+/// `from_stored` (calibrate mode, when [`LineShift::place`] placed the lines): the shift, the
+/// stored map's grouping and the node shifts, which settle the features when the members agree.
 /// Whether [`push_keep_strongest`](crate::bounded::push_keep_strongest) by SNR would leave the
 /// unexplained list as it is for a peak of `snr_q8`: the list is full and no entry is fainter.
 fn dropped_when_full(list: &Vec<UnexplainedPeak, MAX_UNEXPLAINED>, snr_q8: u32) -> bool {
     list.is_full() && list.iter().all(|u| snr_q8 <= u.snr_q8)
 }
 
-/// Groups the catalogue on `m`'s map into `features` (recording the lines' pixels in `m`) and each
-/// feature's match windows into `windows` (kept because assignment and blend splitting both ask):
-/// what matching needs from a map, per frame or, in verify mode, once in `configure`.
-/// `from_stored` (calibrate mode, when [`LineShift::place`] placed the lines): the stored map's
-/// grouping, which settles the features when the members agree ([`settle_as`]).
 fn group_with_windows(
     cfg: &Config,
     catalogue: &[CatalogueLine],
@@ -1242,7 +1244,7 @@ fn group_with_windows(
     m: &mut MapInUse,
     features: &mut Vec<Feature, MAX_FEATURES>,
     windows: &mut Vec<(i32, i32), MAX_FEATURES>,
-    from_stored: Option<&[Feature]>,
+    from_stored: Option<(&LineShift, &[Feature], [i32; 4])>,
 ) -> Result<(), MatchError> {
     // Closer than 1.5 line widths, two lines may show as one peak (peak finding's own blend limit);
     // a pair that does show as two is split again after matching.
@@ -1250,8 +1252,8 @@ fn group_with_windows(
     // Every line's pixel is found once, while grouping, for all the steps after it.
     let hw = HalfWidth::reciprocal(&m.map);
     group_members(catalogue, &m.map, &hw, merge_q16, &mut m.lines, features);
-    let settled = from_stored
-        .is_some_and(|stored| settle_as(features, stored, catalogue, &m.map, &hw, &m.lines));
+    let settled =
+        from_stored.is_some_and(|(shift, stored, s)| shift.settle_from(stored, &s, features));
     if !settled {
         for f in features.iter_mut() {
             settle_placed(f, catalogue, &m.map, &hw, priors, &m.lines)?;
@@ -1308,8 +1310,6 @@ fn windows_px_q16(
     (base, (base as i128 + reach).clamp(1 << 16, 64 << 16) as i32)
 }
 
-/// Predicted lines for identification: isotopes of one transition merged at the prior shares
-/// (a calibration cannot tell them apart anyway), species with no prior left out.
 fn reference_lines(
     catalogue: &[CatalogueLine],
     priors: &[(Nucleus, u16)],

@@ -181,72 +181,17 @@ pub(crate) fn settle_placed(
     let before = f.predicted_fm;
     let sole = settle_with(f, catalogue, shares);
     if f.predicted_fm != before {
-        place_settled(f, sole, catalogue, map, hw, lines);
+        // pixel_q16 is a function of the wavelength: the member's own pixel is the same integer.
+        f.predicted_px_q16 = match sole.and_then(|m| lines.recorded(m)) {
+            Some(px) => px,
+            None => match between_members(f, catalogue, map, lines) {
+                Some(px) => Some(px),
+                None => map.pixel_q16_by(f.predicted_fm, hw).ok(),
+            },
+        }
+        .unwrap_or(f.predicted_px_q16);
     }
     Ok(())
-}
-
-/// A settled feature's pixel from its new expected position: `sole`'s recorded pixel where the
-/// position is that member's wavelength, else between a close pair's members, else the map
-/// inverted (see [`settle_placed`]).
-fn place_settled(
-    f: &mut Feature,
-    sole: Option<u8>,
-    catalogue: &[CatalogueLine],
-    map: &WavelengthMap,
-    hw: &HalfWidth,
-    lines: &LinePixels,
-) {
-    // pixel_q16 is a function of the wavelength: the member's own pixel is the same integer.
-    f.predicted_px_q16 = match sole.and_then(|m| lines.recorded(m)) {
-        Some(px) => px,
-        None => match between_members(f, catalogue, map, lines) {
-            Some(px) => Some(px),
-            None => map.pixel_q16_by(f.predicted_fm, hw).ok(),
-        },
-    }
-    .unwrap_or(f.predicted_px_q16);
-}
-
-/// Settles `features` (as [`group_members`] made them on `map`) by copying a grouping settled on
-/// the same shares on another map, `settled`, when both have the same members: expected position,
-/// primary and rate depend on the members and shares only, and each feature's pixel follows as
-/// [`settle_placed`] places it (the member whose wavelength the position is standing for the one
-/// weighted member). `false`, changing nothing, when the members differ.
-///
-/// Work: ≤ 40 member comparisons, and per blend whose position moved ≤ 4 look-ups, or an
-/// interpolation or one map inversion.
-pub(crate) fn settle_as(
-    features: &mut [Feature],
-    settled: &[Feature],
-    catalogue: &[CatalogueLine],
-    map: &WavelengthMap,
-    hw: &HalfWidth,
-    lines: &LinePixels,
-) -> bool {
-    if settled.len() != features.len()
-        || settled
-            .iter()
-            .zip(features.iter())
-            .any(|(s, f)| s.members != f.members)
-    {
-        return false;
-    }
-    for (f, s) in features.iter_mut().zip(settled.iter()) {
-        let before = f.predicted_fm;
-        f.predicted_fm = s.predicted_fm;
-        f.primary = s.primary;
-        f.expected = s.expected;
-        if f.predicted_fm != before {
-            let sole = f.members.iter().copied().find(|&m| {
-                catalogue
-                    .get(m as usize)
-                    .is_some_and(|c| c.wavelength_fm == s.predicted_fm)
-            });
-            place_settled(f, sole, catalogue, map, hw, lines);
-        }
-    }
-    true
 }
 
 /// Closest pair members [`between_members`] interpolates between: 1.5 px (Q16).
@@ -465,74 +410,5 @@ mod tests {
                 "{gap_px_q8} {at_px}"
             );
         }
-    }
-
-    /// Copying a grouping settled on another map gives what settling on this one gives, for the
-    /// same members and shares: H/D pairs with one or both isotopes weighted, single lines, and
-    /// a grouping whose members differ (refused).
-    #[test]
-    fn settling_as_a_settled_grouping_is_settling() {
-        let mut next = crate::test_rng::xorshift(0x3c6e_f372_fe94_f82bu64);
-        let (mut copied, mut refused) = (0, 0);
-        for round in 0..300 {
-            let stored =
-                WavelengthMap::new(2048, 2, [545_000_000, 175_000_000, -1_200_000, 0]).unwrap();
-            let off = (next() % 12_000_000) as i64 - 6_000_000;
-            let scale = (next() % 7_000_000) as i64 - 3_500_000;
-            let fitted = WavelengthMap::new(
-                2048,
-                2,
-                [545_000_000 + off, 175_000_000 + scale, -1_150_000, 0],
-            )
-            .unwrap();
-            // Pairs 0.1–0.2 nm apart (H and D), and some single lines.
-            let mut cat: std::vec::Vec<CatalogueLine> = std::vec::Vec::new();
-            let mut lam = 380_000_000i64;
-            while cat.len() < 40 && lam < 700_000_000 {
-                lam += 3_000_000 + (next() % 20_000_000) as i64;
-                cat.push(CatalogueLine {
-                    nucleus: Nucleus::H2,
-                    lower: 2,
-                    upper: 3,
-                    wavelength_fm: lam - 100_000 - (next() % 100_000) as i64,
-                    strength: 1 + (next() % 1000) as u32,
-                });
-                if !next().is_multiple_of(4) {
-                    cat.push(CatalogueLine {
-                        nucleus: Nucleus::H1,
-                        lower: 2,
-                        upper: 3,
-                        wavelength_fm: lam,
-                        strength: 1 + (next() % 1000) as u32,
-                    });
-                }
-            }
-            let d_share = [0u16, 0, 150, 500][round % 4];
-            let priors = [(Nucleus::H1, 1000 - d_share), (Nucleus::H2, d_share)];
-            let merge = if round % 7 == 0 { 40 << 16 } else { 3 << 16 };
-            let settled = group(&cat, &stored, &priors, merge).unwrap();
-            let hw = HalfWidth::reciprocal(&fitted);
-            let mut lines = LinePixels::new();
-            let mut want = Vec::new();
-            group_members(&cat, &fitted, &hw, 3 << 16, &mut lines, &mut want);
-            let mut got = want.clone();
-            for f in want.iter_mut() {
-                settle_placed(f, &cat, &fitted, &hw, &priors, &lines).unwrap();
-            }
-            if settle_as(&mut got, &settled, &cat, &fitted, &hw, &lines) {
-                assert_eq!(got, want, "round {round}");
-                copied += 1;
-            } else {
-                assert!(
-                    settled
-                        .iter()
-                        .zip(want.iter())
-                        .any(|(s, w)| s.members != w.members)
-                        || settled.len() != want.len()
-                );
-                refused += 1;
-            }
-        }
-        assert!(copied > 150 && refused > 20, "{copied} {refused}");
     }
 }
