@@ -321,4 +321,82 @@ mod tests {
             }
         }
     }
+
+    /// Features settled from the stored grouping are the features settling on the fitted map gives
+    /// (the same members, position, primary and rate; the pixel within 1/256 px), H/D pairs with one
+    /// or both isotopes weighted; a grouping whose members differ is refused.
+    #[test]
+    fn settled_from_the_stored_grouping_is_settled() {
+        use crate::matching::feature::{group, group_members, settle_placed};
+        let mut next = crate::test_rng::xorshift(0x3c6e_f372_fe94_f82bu64);
+        let (mut copied, mut refused) = (0, 0);
+        let stored =
+            WavelengthMap::new(2048, 2, [545_000_000, 175_000_000, -1_200_000, 0]).unwrap();
+        for round in 0..300 {
+            let off = (next() % 12_000_000) as i64 - 6_000_000;
+            let scale = (next() % 7_000_000) as i64 - 3_500_000;
+            let fitted = WavelengthMap::new(
+                2048,
+                2,
+                [545_000_000 + off, 175_000_000 + scale, -1_150_000, 0],
+            )
+            .unwrap();
+            let mut cat: std::vec::Vec<CatalogueLine> = std::vec::Vec::new();
+            let mut lam = 380_000_000i64;
+            while cat.len() < 40 && lam < 690_000_000 {
+                lam += 3_000_000 + (next() % 20_000_000) as i64;
+                cat.push(CatalogueLine {
+                    nucleus: Nucleus::H2,
+                    lower: 2,
+                    upper: 3,
+                    wavelength_fm: lam - 100_000 - (next() % 100_000) as i64,
+                    strength: 1 + (next() % 1000) as u32,
+                });
+                if !next().is_multiple_of(4) {
+                    cat.push(CatalogueLine {
+                        nucleus: Nucleus::H1,
+                        lower: 2,
+                        upper: 3,
+                        wavelength_fm: lam,
+                        strength: 1 + (next() % 1000) as u32,
+                    });
+                }
+            }
+            let d_share = [0u16, 0, 150, 500][round % 4];
+            let priors = [(Nucleus::H1, 1000 - d_share), (Nucleus::H2, d_share)];
+            // A wide merge on the stored map now and then: other members, refused.
+            let merge = if round % 7 == 0 { 40 << 16 } else { 3 << 16 };
+            let settled = group(&cat, &stored, &priors, merge).unwrap();
+            let mut on_stored = LinePixels::new();
+            for (i, c) in cat.iter().enumerate() {
+                on_stored.put(i as u8, stored.pixel_q16(c.wavelength_fm).ok());
+            }
+            let mut shift = LineShift::NONE;
+            shift.fill(&stored, &cat, (&on_stored, &settled), 2048);
+            let hw = HalfWidth::reciprocal(&fitted);
+            let mut lines = LinePixels::new();
+            let nodes = shift.place(&fitted, &mut lines).unwrap();
+            let mut want = heapless::Vec::<Feature, MAX_FEATURES>::new();
+            group_members(&cat, &fitted, &hw, 3 << 16, &mut lines, &mut want);
+            let mut got = want.clone();
+            for f in want.iter_mut() {
+                settle_placed(f, &cat, &fitted, &hw, &priors, &lines).unwrap();
+            }
+            if shift.settle_from(&settled, &nodes, &mut got) {
+                for (g, w) in got.iter().zip(want.iter()) {
+                    assert_eq!(
+                        (&g.members, g.primary, g.predicted_fm, g.expected),
+                        (&w.members, w.primary, w.predicted_fm, w.expected),
+                        "round {round}"
+                    );
+                    let d = (g.predicted_px_q16 - w.predicted_px_q16).abs();
+                    assert!(d <= 256, "round {round}: {d}");
+                }
+                copied += 1;
+            } else {
+                refused += 1;
+            }
+        }
+        assert!(copied > 150 && refused > 20, "{copied} {refused}");
+    }
 }

@@ -1224,19 +1224,17 @@ impl Checker {
     }
 }
 
-/// Predicted lines for identification: isotopes of one transition merged at the prior shares
-/// (a calibration cannot tell them apart anyway), species with no prior left out.
-/// Groups the catalogue on `m`'s map into `features` (recording the lines' pixels in `m`) and each
-/// feature's match windows into `windows` (kept because assignment and blend splitting both ask):
-/// what matching needs from a map, per frame or, in verify mode, once in `configure`.
-/// `from_stored` (calibrate mode, when [`LineShift::place`] placed the lines): the shift, the
-/// stored map's grouping and the node shifts, which settle the features when the members agree.
 /// Whether [`push_keep_strongest`](crate::bounded::push_keep_strongest) by SNR would leave the
 /// unexplained list as it is for a peak of `snr_q8`: the list is full and no entry is fainter.
 fn dropped_when_full(list: &Vec<UnexplainedPeak, MAX_UNEXPLAINED>, snr_q8: u32) -> bool {
     list.is_full() && list.iter().all(|u| snr_q8 <= u.snr_q8)
 }
 
+/// Groups the catalogue on `m`'s map into `features` (recording the lines' pixels in `m`) and each
+/// feature's match windows into `windows` (kept because assignment and blend splitting both ask):
+/// what matching needs from a map, per frame or, in verify mode, once in `configure`.
+/// `from_stored` (calibrate mode, when [`LineShift::place`] placed the lines): the shift, the
+/// stored map's grouping and the node shifts, which settle the features when the members agree.
 fn group_with_windows(
     cfg: &Config,
     catalogue: &[CatalogueLine],
@@ -1310,6 +1308,8 @@ fn windows_px_q16(
     (base, (base as i128 + reach).clamp(1 << 16, 64 << 16) as i32)
 }
 
+/// Predicted lines for identification: isotopes of one transition merged at the prior shares
+/// (a calibration cannot tell them apart anyway), species with no prior left out.
 fn reference_lines(
     catalogue: &[CatalogueLine],
     priors: &[(Nucleus, u16)],
