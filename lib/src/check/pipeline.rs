@@ -561,11 +561,8 @@ impl Checker {
         } else {
             // Calibrate mode: the fitted map's line pixels moved from the stored ones (grouping
             // inverts the rest), and the stored grouping's settling where the members agree.
-            let shift = match cfg.mode {
-                Mode::Calibrate => self.line_shift.place(&in_use.map, &mut in_use.lines),
-                _ => None,
-            };
-            let from_stored = shift.map(|s| (&self.line_shift, self.placed.features.as_slice(), s));
+            let from_stored = (cfg.mode == Mode::Calibrate)
+                .then_some((&self.line_shift, self.placed.features.as_slice()));
             group_with_windows(
                 cfg,
                 &self.catalogue,
@@ -1233,8 +1230,9 @@ fn dropped_when_full(list: &Vec<UnexplainedPeak, MAX_UNEXPLAINED>, snr_q8: u32) 
 /// Groups the catalogue on `m`'s map into `features` (recording the lines' pixels in `m`) and each
 /// feature's match windows into `windows` (kept because assignment and blend splitting both ask):
 /// what matching needs from a map, per frame or, in verify mode, once in `configure`.
-/// `from_stored` (calibrate mode, when [`LineShift::place`] placed the lines): the shift, the
-/// stored map's grouping and the node shifts, which settle the features when the members agree.
+/// `from_stored` (calibrate mode): the line shift, which places the lines on `m`'s map from the
+/// stored ones ([`LineShift::place`]), and the stored map's grouping, which then settles the
+/// features when the members agree.
 fn group_with_windows(
     cfg: &Config,
     catalogue: &[CatalogueLine],
@@ -1242,11 +1240,17 @@ fn group_with_windows(
     m: &mut MapInUse,
     features: &mut Vec<Feature, MAX_FEATURES>,
     windows: &mut Vec<(i32, i32), MAX_FEATURES>,
-    from_stored: Option<(&LineShift, &[Feature], [i32; 4])>,
+    from_stored: Option<(&LineShift, &[Feature])>,
 ) -> Result<(), MatchError> {
     // Closer than 1.5 line widths, two lines may show as one peak (peak finding's own blend limit);
     // a pair that does show as two is split again after matching.
     let merge_q16 = ((cfg.line_fwhm_px_q8 as i32) << 8) * 3 / 2;
+    // Calibrate mode: the lines' pixels moved from the stored ones (grouping inverts the rest).
+    let from_stored = from_stored.and_then(|(shift, stored)| {
+        shift
+            .place(&m.map, &mut m.lines)
+            .map(|nodes| (shift, stored, nodes))
+    });
     // Every line's pixel is found once, while grouping, for all the steps after it.
     let hw = HalfWidth::reciprocal(&m.map);
     group_members(catalogue, &m.map, &hw, merge_q16, &mut m.lines, features);
