@@ -203,6 +203,14 @@ impl IdentifyWork {
     pub(crate) fn peak_x_q30(&self) -> &[i64] {
         &self.axis.x
     }
+
+    /// The last call's fitted map at peak `k` when that peak was one of the fit's points: (λ fm,
+    /// slope fm per px Q16), as [`WavelengthMap::wavelength_at_x`] and the slope give them at its
+    /// [`peak_x_q30`](Self::peak_x_q30) (the fit's residuals took them); `None` otherwise.
+    pub(crate) fn peak_eval(&self, k: usize) -> Option<(i64, i64)> {
+        let j = *self.room.point_of_peak.get(k)?;
+        self.room.evals.get((j as usize).checked_sub(1)?).copied()
+    }
 }
 
 impl Default for IdentifyWork {

@@ -9,6 +9,7 @@
 //! ```
 mod config;
 mod error;
+mod line_shift;
 mod pipeline;
 mod stage;
 mod workspace;

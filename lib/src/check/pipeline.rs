@@ -1,6 +1,7 @@
 //! The whole job for one frame: condition → find → calibrate → match → judge, into one [`Report`].
 use super::config::Config;
 use super::error::CheckError;
+use super::line_shift::LineShift;
 use super::stage::Stage;
 use super::workspace::{MatchWork, Workspace, MAX_READINGS};
 use crate::bounded::collect_bounded;
@@ -10,10 +11,12 @@ use crate::calibrate::{
 };
 use crate::condition::{condition_frame, FrameSum, GainTable};
 use crate::find::{find_peaks, FindReport, Peak, PeakList};
-use crate::judge::{MatchedLine, Mode, Reason, Report, SpeciesShare, UnexplainedPeak};
+use crate::judge::{
+    MatchedLine, Mode, Reason, Report, SpeciesShare, UnexplainedPeak, MAX_UNEXPLAINED,
+};
 use crate::matching::assign::{assign, Pair};
 use crate::matching::catalogue::{build_into, CatalogueLine, MAX_NUCLEI};
-use crate::matching::feature::{group_placing, prior_share, settle_placed, Feature, MAX_FEATURES};
+use crate::matching::feature::{group_members, prior_share, settle_placed, Feature, MAX_FEATURES};
 use crate::matching::isotope::{
     share_by_position, share_by_profile, BlendReading, PairWindow, ShareEstimate,
 };
@@ -47,6 +50,9 @@ pub struct Checker {
     partner: [u8; MAX_CATALOGUE],
     /// The stored map's x and wavelength at the drift points (see [`DriftPoints`]), made once.
     drift_points: DriftPoints,
+    /// Calibrate mode: the lines' stored pixels and interpolation weights, so a fitted map places
+    /// them from five inversions (see [`LineShift`]). Made once.
+    line_shift: LineShift,
 }
 
 /// Grouping's output on one map: see [`Checker::placed`](Checker).
@@ -190,7 +196,18 @@ impl MapInUse {
             .slope_at_x_by(x, &self.div)
             .unwrap_or(0)
             .unsigned_abs();
-        let sigma = match &self.fit {
+        (slope, self.sigma_at_x(p_q16, x))
+    }
+
+    /// The identification's fit where it is this map and the peaks' x (see
+    /// [`peak_xs`](Self::peak_xs)): its own (λ, slope) at its points serve the matched lines.
+    fn fitted<'w>(&self, work: &'w IdentifyWork) -> Option<&'w IdentifyWork> {
+        self.peak_x_valid.then_some(work)
+    }
+
+    /// σ of [`at_x`](Self::at_x).
+    fn sigma_at_x(&self, p_q16: i32, x: i64) -> u64 {
+        match &self.fit {
             // The fit's own map (as `map_for` builds it), so its x is this one: the same pixel and
             // frame (centre, half-width) give the same x.
             Some(f)
@@ -204,8 +221,7 @@ impl MapInUse {
             }
             Some(f) => f.sigma_fm_at(p_q16),
             None => self.stored_sigma_fm as u64,
-        };
-        (slope, sigma)
+        }
     }
 }
 
@@ -242,6 +258,7 @@ impl Checker {
             same_as: [u8::MAX; MAX_CATALOGUE],
             partner: [u8::MAX; MAX_CATALOGUE],
             drift_points: DriftPoints::NONE,
+            line_shift: LineShift::NONE,
         }
     }
 
@@ -270,6 +287,7 @@ impl Checker {
         self.same_as = [u8::MAX; MAX_CATALOGUE];
         self.partner = [u8::MAX; MAX_CATALOGUE];
         self.drift_points = DriftPoints::NONE;
+        self.line_shift = LineShift::NONE;
     }
 
     /// The prediction behind [`configure`](Self::configure), on cleared tables. Out of line: one
@@ -311,8 +329,18 @@ impl Checker {
         if let Some((a, b)) = self.pair {
             self.partner = partners(&self.catalogue, a, b);
         }
-        if self.cfg.mode == Mode::Verify {
+        let mode = self.cfg.mode;
+        if mode == Mode::Verify {
             self.placed_valid = self.place_on_stored();
+        }
+        // Calibrate mode: the stored map's line pixels, where a calibration moves the lines from.
+        if mode == Mode::Calibrate && self.place_on_stored() {
+            self.line_shift.fill(
+                &self.cfg.stored.map,
+                &self.catalogue,
+                (&self.placed.lines, &self.placed.features),
+                self.cfg.pixels,
+            );
         }
         Ok(())
     }
@@ -336,7 +364,7 @@ impl Checker {
             lines,
             windows,
         } = placed;
-        if group_with_windows(cfg, catalogue, priors, &mut m, features, windows).is_err() {
+        if group_with_windows(cfg, catalogue, priors, &mut m, features, windows, None).is_err() {
             return false;
         }
         *lines = m.lines;
@@ -348,6 +376,21 @@ impl Checker {
     #[cfg(test)]
     pub(super) fn forget_placement(&mut self) -> bool {
         core::mem::replace(&mut self.placed_valid, false)
+    }
+
+    /// Drops calibrate mode's line shift made in `configure`, so each frame inverts the fitted map
+    /// for every line (tests compare the two); whether there was one.
+    #[cfg(test)]
+    pub(super) fn forget_line_shift(&mut self) -> bool {
+        let had = self.line_shift.is_made();
+        self.line_shift = LineShift::NONE;
+        had
+    }
+
+    /// Calibrate mode's line shift (tests ask whether a fitted map takes it).
+    #[cfg(test)]
+    pub(super) fn line_shift(&self) -> &LineShift {
+        &self.line_shift
     }
 
     /// The configuration.
@@ -516,6 +559,10 @@ impl Checker {
             windows.clear();
             let _ = windows.extend_from_slice(&p.windows);
         } else {
+            // Calibrate mode: the fitted map's line pixels moved from the stored ones (grouping
+            // inverts the rest), and the stored grouping's settling where the members agree.
+            let from_stored = (cfg.mode == Mode::Calibrate)
+                .then_some((&self.line_shift, self.placed.features.as_slice()));
             group_with_windows(
                 cfg,
                 &self.catalogue,
@@ -523,6 +570,7 @@ impl Checker {
                 in_use,
                 features,
                 windows,
+                from_stored,
             )?;
         }
         let in_use: &MapInUse = in_use;
@@ -544,7 +592,7 @@ impl Checker {
             features,
             &pairs,
             peaks,
-            (in_use, xs),
+            (in_use, xs, in_use.fitted(identify)),
             estimate.is_some(),
             report,
         )?;
@@ -787,14 +835,15 @@ impl Checker {
         best
     }
 
-    /// The matched lines into `report`; `(m, xs)`: the map in use and the peaks' x on it where
-    /// known (see [`MapInUse::peak_xs`]).
+    /// The matched lines into `report`; `(m, xs, fitted)`: the map in use, the peaks' x on it where
+    /// known (see [`MapInUse::peak_xs`]) and the identification whose fit it is (its λ and slope at
+    /// the fitted peaks; see [`MapInUse::fitted`]).
     fn fill_lines(
         &self,
         features: &[Feature],
         pairs: &[Pair],
         peaks: &[Peak],
-        (m, xs): (&MapInUse, &[i64]),
+        (m, xs, fitted): (&MapInUse, &[i64], Option<&IdentifyWork>),
         share_known: bool,
         report: &mut Report,
     ) -> Result<(), CheckError> {
@@ -816,8 +865,16 @@ impl Checker {
                     None => continue,
                 }
             };
-            let (measured, slope, s) =
-                m.at_x(pk.center_px_q16, m.x_of_peak(xs, p.peak as usize, pk));
+            let x = m.x_of_peak(xs, p.peak as usize, pk);
+            let (measured, slope, s) = match fitted.and_then(|w| w.peak_eval(p.peak as usize)) {
+                // The fit's own (λ, slope) at this peak: what `at_x` works out from the same x.
+                Some((lam, slope)) => (
+                    Ok(lam),
+                    slope.unsigned_abs(),
+                    m.sigma_at_x(pk.center_px_q16, x),
+                ),
+                None => m.at_x(pk.center_px_q16, x),
+            };
             let Ok(measured) = measured else {
                 continue;
             };
@@ -882,6 +939,11 @@ impl Checker {
                 continue;
             }
             foreign += area;
+            // Full, and no brighter than the faintest listed: the push below would drop it, so it
+            // is not placed (64 noise peaks cost 24 placements, not 64).
+            if dropped_when_full(&report.unexplained, pk.snr_q8) {
+                continue;
+            }
             // λ and |slope| (0 where the map cannot say) from one x, as the pixel-taking calls.
             let x = m.x_of_peak(xs, k, pk);
             let Ok(w) = m.map.wavelength_at_x(x) else {
@@ -1159,11 +1221,18 @@ impl Checker {
     }
 }
 
-/// Predicted lines for identification: isotopes of one transition merged at the prior shares
-/// (a calibration cannot tell them apart anyway), species with no prior left out.
+/// Whether [`push_keep_strongest`](crate::bounded::push_keep_strongest) by SNR would leave the
+/// unexplained list as it is for a peak of `snr_q8`: the list is full and no entry is fainter.
+fn dropped_when_full(list: &Vec<UnexplainedPeak, MAX_UNEXPLAINED>, snr_q8: u32) -> bool {
+    list.is_full() && list.iter().all(|u| snr_q8 <= u.snr_q8)
+}
+
 /// Groups the catalogue on `m`'s map into `features` (recording the lines' pixels in `m`) and each
 /// feature's match windows into `windows` (kept because assignment and blend splitting both ask):
 /// what matching needs from a map, per frame or, in verify mode, once in `configure`.
+/// `from_stored` (calibrate mode): the line shift, which places the lines on `m`'s map from the
+/// stored ones ([`LineShift::place`]), and the stored map's grouping, which then settles the
+/// features when the members agree.
 fn group_with_windows(
     cfg: &Config,
     catalogue: &[CatalogueLine],
@@ -1171,12 +1240,27 @@ fn group_with_windows(
     m: &mut MapInUse,
     features: &mut Vec<Feature, MAX_FEATURES>,
     windows: &mut Vec<(i32, i32), MAX_FEATURES>,
+    from_stored: Option<(&LineShift, &[Feature])>,
 ) -> Result<(), MatchError> {
     // Closer than 1.5 line widths, two lines may show as one peak (peak finding's own blend limit);
     // a pair that does show as two is split again after matching.
     let merge_q16 = ((cfg.line_fwhm_px_q8 as i32) << 8) * 3 / 2;
+    // Calibrate mode: the lines' pixels moved from the stored ones (grouping inverts the rest).
+    let from_stored = from_stored.and_then(|(shift, stored)| {
+        shift
+            .place(&m.map, &mut m.lines)
+            .map(|nodes| (shift, stored, nodes))
+    });
     // Every line's pixel is found once, while grouping, for all the steps after it.
-    group_placing(catalogue, &m.map, priors, merge_q16, &mut m.lines, features)?;
+    let hw = HalfWidth::reciprocal(&m.map);
+    group_members(catalogue, &m.map, &hw, merge_q16, &mut m.lines, features);
+    let settled =
+        from_stored.is_some_and(|(shift, stored, s)| shift.settle_from(stored, &s, features));
+    if !settled {
+        for f in features.iter_mut() {
+            settle_placed(f, catalogue, &m.map, &hw, priors, &m.lines)?;
+        }
+    }
     windows.clear();
     let one_px = m.one_px_windows(cfg.profile.max_line_error_fm);
     for f in features.iter() {
@@ -1228,6 +1312,8 @@ fn windows_px_q16(
     (base, (base as i128 + reach).clamp(1 << 16, 64 << 16) as i32)
 }
 
+/// Predicted lines for identification: isotopes of one transition merged at the prior shares
+/// (a calibration cannot tell them apart anyway), species with no prior left out.
 fn reference_lines(
     catalogue: &[CatalogueLine],
     priors: &[(Nucleus, u16)],
@@ -1496,6 +1582,45 @@ mod tests {
                 strength: 1,
             })
             .collect()
+    }
+
+    /// A peak the list would drop is exactly one whose push leaves the list unchanged.
+    #[test]
+    fn skipped_unexplained_peaks_are_the_dropped_ones() {
+        let mut next = crate::test_rng::xorshift(0x7f4a_7c15_9e37_79b9u64);
+        let (mut skipped, mut kept) = (0, 0);
+        for round in 0..20_000 {
+            let mut list: Vec<UnexplainedPeak, MAX_UNEXPLAINED> = Vec::new();
+            let n = if round % 2 == 0 {
+                MAX_UNEXPLAINED as u64
+            } else {
+                next() % (MAX_UNEXPLAINED as u64 + 1)
+            };
+            for _ in 0..n {
+                let _ = list.push(UnexplainedPeak {
+                    wavelength_fm: (next() % 1000) as i64,
+                    center_px_q16: 0,
+                    snr_q8: (next() % 50) as u32,
+                    hint: None,
+                });
+            }
+            let item = UnexplainedPeak {
+                wavelength_fm: -1,
+                center_px_q16: 1,
+                snr_q8: (next() % 50) as u32,
+                hint: None,
+            };
+            let before = list.clone();
+            let skip = dropped_when_full(&list, item.snr_q8);
+            crate::bounded::push_keep_strongest(&mut list, item, |u| u.snr_q8);
+            assert_eq!(skip, list == before);
+            if skip {
+                skipped += 1;
+            } else {
+                kept += 1;
+            }
+        }
+        assert!(skipped > 500 && kept > 500, "{skipped} {kept}");
     }
 
     #[test]

@@ -68,7 +68,8 @@ pub fn group(
 /// [`group`] into `out` (cleared first; a returned list of 40 features would be copied, some
 /// 3 000 instructions on the Cortex-M0), recording each line's pixel on `map` in `lines` as it is
 /// found (where the map cannot place it, that too), so neither settling nor a caller that needs
-/// the lines' pixels later inverts the map for them again.
+/// the lines' pixels later inverts the map for them again. A line whose pixel `lines` holds
+/// already is not inverted again.
 ///
 /// Work: as [`group`].
 pub(crate) fn group_placing(
@@ -79,13 +80,41 @@ pub(crate) fn group_placing(
     lines: &mut LinePixels,
     out: &mut Vec<Feature, MAX_FEATURES>,
 ) -> Result<(), MatchError> {
-    out.clear();
-    let mut last_px: Option<i32> = None;
     // One reciprocal of the map's half-width for all the inversions below.
     let hw = HalfWidth::reciprocal(map);
+    group_members(catalogue, map, &hw, merge_px_q16, lines, out);
+    for f in out.iter_mut() {
+        settle_placed(f, catalogue, map, &hw, priors, lines)?;
+    }
+    Ok(())
+}
+
+/// The grouping step of [`group_placing`] alone: the features' members, each feature placed at
+/// its first member's wavelength and pixel (not settled on the shares).
+///
+/// Work: one pass over ≤ [`MAX_CATALOGUE`] lines, one map inversion for each line `lines` does not
+/// hold yet.
+pub(crate) fn group_members(
+    catalogue: &[CatalogueLine],
+    map: &WavelengthMap,
+    hw: &HalfWidth,
+    merge_px_q16: i32,
+    lines: &mut LinePixels,
+    out: &mut Vec<Feature, MAX_FEATURES>,
+) {
+    out.clear();
+    let mut last_px: Option<i32> = None;
     for (i, line) in catalogue.iter().enumerate().take(MAX_CATALOGUE) {
-        let at = map.pixel_q16_by(line.wavelength_fm, &hw).ok();
-        lines.put(i as u8, at);
+        // A pixel recorded already (calibrate mode places lines from their stored pixels) is
+        // taken; else the map is inverted here.
+        let at = match lines.recorded(i as u8) {
+            Some(at) => at,
+            None => {
+                let at = map.pixel_q16_by(line.wavelength_fm, hw).ok();
+                lines.put(i as u8, at);
+                at
+            }
+        };
         // A line the map cannot place (a fitted map extrapolated far off the sensor) is not on it.
         let Some(px) = at else {
             continue;
@@ -113,10 +142,6 @@ pub(crate) fn group_placing(
             break;
         }
     }
-    for f in out.iter_mut() {
-        settle_placed(f, catalogue, map, &hw, priors, lines)?;
-    }
-    Ok(())
 }
 
 /// Recomputes a feature's expected position, primary and rate from per-nucleus shares (‰).
