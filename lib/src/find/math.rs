@@ -217,6 +217,48 @@ pub fn clamp_i32(v: i64) -> i32 {
     v.clamp(i64::from(i32::MIN), i64::from(i32::MAX)) as i32
 }
 
+/// `v.leading_zeros()` by five compare-and-shift steps (~20 instructions): the Cortex-M0 has no
+/// count-leading-zeros instruction, and the library routine it calls takes ~35.
+/// Out of line: it is called from many places, and a call costs four instructions.
+#[inline(never)]
+pub const fn leading_zeros_u32(v: u32) -> u32 {
+    if v == 0 {
+        return 32;
+    }
+    let (mut n, mut x) = (0, v);
+    if x < 1 << 16 {
+        n += 16;
+        x <<= 16;
+    }
+    if x < 1 << 24 {
+        n += 8;
+        x <<= 8;
+    }
+    if x < 1 << 28 {
+        n += 4;
+        x <<= 4;
+    }
+    if x < 1 << 30 {
+        n += 2;
+        x <<= 2;
+    }
+    if x < 1 << 31 {
+        n += 1;
+    }
+    n
+}
+
+/// `v.leading_zeros()` for `u64` from [`leading_zeros_u32`] of its halves.
+#[inline]
+pub const fn leading_zeros_u64(v: u64) -> u32 {
+    let hi = (v >> 32) as u32;
+    if hi != 0 {
+        leading_zeros_u32(hi)
+    } else {
+        32 + leading_zeros_u32(v as u32)
+    }
+}
+
 /// Seeds of [`recip_u32_max`] by the divisor's top byte `b` ∈ [128, 256): ⌊2^32 / (256·b + 128)⌋ −
 /// 2^16, the reciprocal at the middle of the byte's range (within 2^-8 of every divisor there).
 /// Built at compile time from integers.
@@ -303,7 +345,7 @@ impl Recip {
         if d <= 0 || d >= 1 << 62 {
             return None;
         }
-        let t = d.leading_zeros() as i32 - 34;
+        let t = leading_zeros_u64(d as u64) as i32 - 34;
         let n = if t >= 0 { d << t } else { d >> -t };
         let n14 = n >> 14;
         if n14 < 0 || n14 > u32::MAX as i64 {
@@ -362,6 +404,19 @@ impl Recip {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn leading_zeros_match_the_instruction() {
+        let mut x = 0x9e37_79b9_7f4a_7c15u64;
+        for k in 0..64 {
+            for v in [1u64 << k, (1u64 << k) - 1, (1u64 << k) | 1, x >> k, 0] {
+                assert_eq!(leading_zeros_u64(v), v.leading_zeros(), "{v:#x}");
+                let v32 = v as u32;
+                assert_eq!(leading_zeros_u32(v32), v32.leading_zeros(), "{v32:#x}");
+            }
+            x = x.wrapping_mul(0x2545_f491_4f6c_dd1d).rotate_left(7);
+        }
+    }
 
     #[test]
     fn reciprocal_scaling_matches_division() {
