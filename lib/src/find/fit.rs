@@ -67,6 +67,11 @@ pub struct FitData<'a> {
     pub neighbours: [Option<Fit>; 2],
 }
 
+/// Largest |residual| (reduced units, < 2^16 for the data) a pixel's gradient term takes: 3 · 2^13.
+/// Near a fitted line the residual is noise, far below it; only a wild step or a neighbour's
+/// unmodelled wing reaches it, and there the pull is capped rather than the sums overflowing.
+const E_LIMIT: i32 = 3 << 13;
+
 /// Marks a pixel of the [`Window`] that gets no weight (saturated or repaired).
 const UNUSABLE: i32 = i32::MIN;
 
@@ -770,7 +775,7 @@ fn shape_at(u: i32) -> (i32, i32, i32) {
 /// The whitened normal equations at `p`. Each pixel's whitening factor τ is read from `tau`, or,
 /// with `weigh` (the noise model and the reference exponent `h_ref`), computed from the model there
 /// ([`tau_at`]) and written to `tau`. Bounds: |J| ≤ 2^14 (Q14), τ ≤ 2^12 · 1.01, so |J_w| ≤ 2^12.01
-/// and each product < 2^24.03 (sums over ≤ 33 px < 2^30); |ε| = |e·τ| < 2^17 · 2^12.01.
+/// and each product < 2^24.03 (sums over ≤ 33 px < 2^30); |ε| = |e·τ| ≤ [`E_LIMIT`] · 2^12.01.
 ///
 /// Loop bound: one pass over the window.
 fn normal(
@@ -783,12 +788,13 @@ fn normal(
 ) -> Normal {
     let (mut u, du) = model.u_along(p, win.lo);
     let sh = reduce.min(31);
-    // The ten upper-triangle sums and the gradient, written out so they stay in 32-bit adds.
-    // ε = ε_h · 2^13 + ε_l splits each gradient product into two 32-bit ones: the high sums
-    // (< 2^28 per pixel) add into i64, the low ones (< 2^25) into i32.
+    // The ten upper-triangle sums and the gradient, written out, all in 32-bit adds. The residual is
+    // held to ±E_LIMIT so that ε = ε_h · 2^13 + ε_l splits each gradient product into two 32-bit
+    // ones whose sums over ≤ 33 px stay below 2^31: |ε_h| < 2^13.6 and ε_l < 2^13, times |J_w| <
+    // 2^12.01, times 2^5.05 px.
     let (mut n00, mut n01, mut n02, mut n03, mut n11) = (0i32, 0i32, 0i32, 0i32, 0i32);
     let (mut n12, mut n13, mut n22, mut n23, mut n33) = (0i32, 0i32, 0i32, 0i32, 0i32);
-    let (mut b0h, mut b1h, mut b2h, mut b3h) = (0i64, 0i64, 0i64, 0i64);
+    let (mut b0h, mut b1h, mut b2h, mut b3h) = (0i32, 0i32, 0i32, 0i32);
     let (mut b0l, mut b1l, mut b2l, mut b3l) = (0i32, 0i32, 0i32, 0i32);
     let mut used = 0usize;
     let cells = win.resid.iter().zip(win.base.iter()).zip(tau.iter_mut());
@@ -810,7 +816,7 @@ fn normal(
         }
         let r_red = (r >> sh).clamp(-(1 << 17), 1 << 17);
         let m = ((model.a_red * g) >> 14) + model.c_red;
-        let e = (r_red - m).clamp(-(1 << 17), 1 << 17);
+        let e = (r_red - m).clamp(-E_LIMIT, E_LIMIT);
         let eps = e * tau;
         let (eh, el) = (eps >> 13, eps & 0x1fff);
         let j0 = (g * tau) >> 14;
@@ -827,17 +833,17 @@ fn normal(
         n22 += j2 * j2;
         n23 += j2 * j3;
         n33 += j3 * j3;
-        b0h += i64::from(j0 * eh);
-        b1h += i64::from(j1 * eh);
-        b2h += i64::from(j2 * eh);
-        b3h += i64::from(j3 * eh);
+        b0h += j0 * eh;
+        b1h += j1 * eh;
+        b2h += j2 * eh;
+        b3h += j3 * eh;
         b0l += j0 * el;
         b1l += j1 * el;
         b2l += j2 * el;
         b3l += j3 * el;
         used += 1;
     }
-    let b = |h: i64, l: i32| (h << 13) + i64::from(l);
+    let b = |h: i32, l: i32| (i64::from(h) << 13) + i64::from(l);
     Normal {
         n: [
             [n00, n01, n02, n03],

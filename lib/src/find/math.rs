@@ -86,25 +86,19 @@ pub fn isqrt_i64(v: i64) -> i64 {
     }
 }
 
-/// `num / den` rounded half away from zero; 0 when `den` is 0. `den` may be negative. Out of line:
-/// a 128-bit division with its rounding is large code and never runs per pixel.
+/// `num / den` rounded half away from zero; 0 when `den` is 0. `den` may be negative. Out of line,
+/// and one unsigned 128-bit division on the magnitudes (a division written twice, once per sign,
+/// is twice the code); never runs per pixel.
 #[inline(never)]
 pub fn div_round_i128(num: i128, den: i128) -> i128 {
-    if den == 0 {
-        return 0;
-    }
-    let (num, den) = if den < 0 {
-        (num.saturating_neg(), den.wrapping_neg())
+    let (n, d) = (num.unsigned_abs(), den.unsigned_abs());
+    // d / 2 is a shift; d = 0 gives None.
+    let q = n.saturating_add(d / 2).checked_div(d).unwrap_or(0);
+    let q = i128::try_from(q).unwrap_or(i128::MAX);
+    if (num < 0) != (den < 0) {
+        -q
     } else {
-        (num, den)
-    };
-    // `checked_div` rather than `/`: the compiler cannot see that `den` is now > 0 (−i128::MIN wraps),
-    // and a plain division would keep a panic path.
-    let q = |n: i128| n.saturating_add(den / 2).checked_div(den).unwrap_or(0);
-    if num >= 0 {
-        q(num)
-    } else {
-        q(num.saturating_neg()).saturating_neg()
+        q
     }
 }
 
@@ -688,6 +682,51 @@ mod tests {
             for &b in &b_probes {
                 assert_eq!(mul_i32_i64(a, b), i128::from(a) * i128::from(b), "{a} {b}");
             }
+        }
+    }
+
+    #[test]
+    fn rounding_division_matches_the_signed_form() {
+        // The form it replaced: the sign moved to the numerator, a signed division per sign.
+        let signed = |num: i128, den: i128| -> i128 {
+            if den == 0 {
+                return 0;
+            }
+            let (num, den) = if den < 0 { (-num, -den) } else { (num, den) };
+            let q = |n: i128| (n + den / 2) / den;
+            if num >= 0 {
+                q(num)
+            } else {
+                -q(-num)
+            }
+        };
+        let mut x = 0x9e37_79b9_7f4a_7c15u64;
+        let mut next = |bits: u32| {
+            x ^= x << 13;
+            x ^= x >> 7;
+            x ^= x << 17;
+            let v = (i128::from(x) << 64 | i128::from(x.rotate_left(29))) >> (128 - bits);
+            if x & 1 == 0 {
+                -v
+            } else {
+                v
+            }
+        };
+        for k in 0..4000u32 {
+            let (num, den) = (next(1 + k % 120), next(1 + (k / 7) % 100));
+            assert_eq!(div_round_i128(num, den), signed(num, den), "{num} / {den}");
+        }
+        for (n, d) in [
+            (7, 2),
+            (-7, 2),
+            (7, -2),
+            (-7, -2),
+            (6, 4),
+            (-6, 4),
+            (0, 5),
+            (5, 0),
+        ] {
+            assert_eq!(div_round_i128(n, d), signed(n, d), "{n} / {d}");
         }
     }
 
