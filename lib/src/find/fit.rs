@@ -1,14 +1,22 @@
 //! Sub-pixel centre of one line: a noise-weighted least-squares Gaussian fit in 32-bit fixed point.
 //!
 //! Model `m(x) = A·exp(−(x−μ)²/2s²) + c` over a window of ±(2.5 s + 2) px. Each Gauss–Newton step
-//! whitens every pixel — its residual and Jacobian row multiplied by `τ = σ_min/σ_i`, σ_i from the noise
-//! model at baseline + line (read floor plus shot noise) — which makes the fit the maximum-likelihood
-//! estimate for Gaussian noise and brings the centre scatter to the Cramér–Rao bound. Whitening also
-//! keeps the arithmetic small: the whitened Jacobian has |J| ≤ 1 whatever the range of the weights
-//! (shot noise makes the core's 10⁻⁴ of the wings'), so every normal-matrix product is one 32-bit
-//! multiply and no parameter loses its digits to another. The centre uncertainty comes from the same
-//! normal matrix: the centre is eliminated last, so its final pivot is 1 / [M⁻¹]μμ. Saturated and
+//! whitens every pixel — its residual and Jacobian row multiplied by `τ = σ_ref/σ_i`, σ_i from the
+//! noise model at baseline + line (read floor plus shot noise), σ_ref the noise at the window's lowest
+//! model level (at or below every pixel's) — which makes the fit the maximum-likelihood estimate for
+//! Gaussian noise and brings the centre scatter to the Cramér–Rao bound. Whitening also keeps the
+//! arithmetic small: the whitened Jacobian has |J| ≤ 1 whatever the range of the weights (shot noise
+//! makes the core's 10⁻⁴ of the wings'), so every normal-matrix product is one 32-bit multiply and no
+//! parameter loses its digits to another; and the whitened noise is the same power of two at every
+//! pixel, so the centre's σ needs no square root of a variance. The centre uncertainty comes from the
+//! same normal matrix: the centre is eliminated last, so its final pivot is 1 / [M⁻¹]μμ. Saturated and
 //! repaired pixels get no weight.
+//!
+//! Cost on a small core is mostly steps, so the fit is built to need one: it starts at the vertex of
+//! the parabola through the logarithms of the three top pixels (exact for a sampled Gaussian), takes
+//! the weights from that start in the same pass as the first step's sums, and stops once a step moved
+//! each parameter by at most four noise scatters (a step leaves ~5–10 % of its move).
+//! The 4 × 4 step is eliminated written out, with exact table reciprocals instead of divisions.
 //!
 //! Parameters are updated in relative form (ΔA/A, Δμ/s, Δs/s, Δc/A). Values are taken in *reduced
 //! units*, the frame units shifted right until the window's largest residual is below 2^16 (a shift
