@@ -382,13 +382,23 @@ impl Recip {
             let s = s as u32;
             (wide(hi) >> (s - 31)) + wide(lo).checked_shr(s).unwrap_or(0)
         } else {
-            let p = (u128::from(wide(hi)) << 31) + u128::from(wide(lo));
-            let q = if s >= 0 {
-                p >> s
+            // (a · 2^31 + b) · 2^-s with a = wide(hi), b = wide(lo), in u64 halves (no 128-bit
+            // arithmetic): for 0 ≤ s < 31 exactly a · 2^(31−s) + ⌊b / 2^s⌋, for s < 0 both parts
+            // shifted up; `None` exactly when the result reaches 2^64.
+            let (a, b) = (wide(hi), wide(lo));
+            let (up_a, b) = if s >= 0 {
+                ((31 - s) as u32, b >> s)
             } else {
-                p.checked_shl((-s) as u32)?
+                let up = (-s) as u32;
+                if leading_zeros_u64(b) < up {
+                    return None;
+                }
+                (31 + up, b << up)
             };
-            u64::try_from(q).ok()?
+            if leading_zeros_u64(a) < up_a {
+                return None;
+            }
+            (a << up_a).checked_add(b)?
         };
         let q = i64::try_from(q).ok()?;
         Some(if v < 0 { -q } else { q })
