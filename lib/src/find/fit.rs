@@ -629,12 +629,14 @@ fn run(
     // lowest value, at one of its ends — at or below every pixel's level, so at or below every
     // pixel's noise (the noise grows with the level), and close to the least of them, so the largest
     // τ is near 2^12 and keeps its digits. Its σ (× 16, frame units) is v · 1/sqrt(v), a product.
+    // The start's model, for the reference and the first step.
+    let model0 = Model::new(&start, reduce);
     let var_ref = {
-        let model = Model::new(&start, reduce);
+        let model = &model0;
         let (u0, du) = model.u_along(&start, lo);
         let last = (win.len.saturating_sub(1) as i32).wrapping_mul(du);
         let g_end = height_q14(u0).min(height_q14(u0.wrapping_add(last)));
-        let level = i64::from(win.base_min).saturating_add(line_units(&model, reduce, g_end));
+        let level = i64::from(win.base_min).saturating_add(line_units(model, reduce, g_end));
         d.noise.var_q8(level).max(1)
     };
     let (m_ref, h_ref) = rsqrt_parts(var_ref.unsigned_abs());
@@ -652,9 +654,12 @@ fn run(
     let mut steps = 0u8;
     // The last step's solution: its centre pivot gives the centre's σ.
     let mut last: Option<Solved> = None;
+    let mut model = model0;
     for _ in 0..max_steps.min(ITERATIONS) {
         steps += 1;
-        let model = Model::new(&p, reduce);
+        if steps > 1 {
+            model = Model::new(&p, reduce);
+        }
         // The first step weighs the pixels from the start model in the same pass as its sums.
         let weigh = (steps == 1).then_some((d.noise, h_ref));
         let nm = normal(win, &p, &model, reduce, &mut weights.tau, weigh);
