@@ -394,7 +394,7 @@ struct Normal {
 ///
 /// Loop bounds: one gathering pass over ≤ 2 × [`MAX_HALF`] + 1 pixels (taking ≤ 2 neighbour profiles
 /// out of each), then ≤ min(`max_steps`, [`ITERATIONS`]) Gauss–Newton steps, each one pass over the
-/// window (the first with a weight pass) and a 4 × 4 elimination.
+/// window (the first also weighing its pixels) and a 4 × 4 elimination.
 pub fn fit_line(
     d: &FitData<'_>,
     peak: usize,
@@ -897,8 +897,8 @@ fn shift_i64(v: i64, k: i32) -> i64 {
 
 /// Solves the step `N x = b / A` by symmetric Gaussian elimination on `S N S`, S = diag 2^-e putting
 /// every diagonal in [2^13, 2^15): a positive-definite matrix's entries and Schur complements then
-/// stay below 2^15, so every update is one 32-bit multiply, and each pivot's reciprocal (Q30) is one
-/// 32-bit division. 15 significant bits are ample for a Gauss–Newton step (the fixed point is set by
+/// stay below 2^15, so every update is one 32-bit multiply, and each pivot's reciprocal (Q30) is
+/// exact without a division ([`pivot_recip_q30`]). 15 significant bits are ample for a Gauss–Newton step (the fixed point is set by
 /// the gradient, which is exact), and for the centre's σ: the centre is eliminated last, and its pivot
 /// differs from its own diagonal only by its small coupling to the even parameters. `None` when `N`
 /// is not positive definite to that precision or a value leaves its range (the fit then ends).
