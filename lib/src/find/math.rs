@@ -86,25 +86,19 @@ pub fn isqrt_i64(v: i64) -> i64 {
     }
 }
 
-/// `num / den` rounded half away from zero; 0 when `den` is 0. `den` may be negative. Out of line:
-/// a 128-bit division with its rounding is large code and never runs per pixel.
+/// `num / den` rounded half away from zero; 0 when `den` is 0. `den` may be negative. Out of line,
+/// and one unsigned 128-bit division on the magnitudes (a division written twice, once per sign,
+/// is twice the code); never runs per pixel.
 #[inline(never)]
 pub fn div_round_i128(num: i128, den: i128) -> i128 {
-    if den == 0 {
-        return 0;
-    }
-    let (num, den) = if den < 0 {
-        (num.saturating_neg(), den.wrapping_neg())
+    let (n, d) = (num.unsigned_abs(), den.unsigned_abs());
+    // d / 2 is a shift; d = 0 gives None.
+    let q = n.saturating_add(d / 2).checked_div(d).unwrap_or(0);
+    let q = i128::try_from(q).unwrap_or(i128::MAX);
+    if (num < 0) != (den < 0) {
+        -q
     } else {
-        (num, den)
-    };
-    // `checked_div` rather than `/`: the compiler cannot see that `den` is now > 0 (−i128::MIN wraps),
-    // and a plain division would keep a panic path.
-    let q = |n: i128| n.saturating_add(den / 2).checked_div(den).unwrap_or(0);
-    if num >= 0 {
-        q(num)
-    } else {
-        q(num.saturating_neg()).saturating_neg()
+        q
     }
 }
 
@@ -217,6 +211,48 @@ pub fn clamp_i32(v: i64) -> i32 {
     v.clamp(i64::from(i32::MIN), i64::from(i32::MAX)) as i32
 }
 
+/// `v.leading_zeros()` by five compare-and-shift steps (~20 instructions): the Cortex-M0 has no
+/// count-leading-zeros instruction, and the library routine it calls takes ~35.
+/// Out of line: it is called from many places, and a call costs four instructions.
+#[inline(never)]
+pub const fn leading_zeros_u32(v: u32) -> u32 {
+    if v == 0 {
+        return 32;
+    }
+    let (mut n, mut x) = (0, v);
+    if x < 1 << 16 {
+        n += 16;
+        x <<= 16;
+    }
+    if x < 1 << 24 {
+        n += 8;
+        x <<= 8;
+    }
+    if x < 1 << 28 {
+        n += 4;
+        x <<= 4;
+    }
+    if x < 1 << 30 {
+        n += 2;
+        x <<= 2;
+    }
+    if x < 1 << 31 {
+        n += 1;
+    }
+    n
+}
+
+/// `v.leading_zeros()` for `u64` from [`leading_zeros_u32`] of its halves.
+#[inline]
+pub const fn leading_zeros_u64(v: u64) -> u32 {
+    let hi = (v >> 32) as u32;
+    if hi != 0 {
+        leading_zeros_u32(hi)
+    } else {
+        32 + leading_zeros_u32(v as u32)
+    }
+}
+
 /// Seeds of [`recip_u32_max`] by the divisor's top byte `b` ∈ [128, 256): ⌊2^32 / (256·b + 128)⌋ −
 /// 2^16, the reciprocal at the middle of the byte's range (within 2^-8 of every divisor there).
 /// Built at compile time from integers.
@@ -303,7 +339,7 @@ impl Recip {
         if d <= 0 || d >= 1 << 62 {
             return None;
         }
-        let t = d.leading_zeros() as i32 - 34;
+        let t = leading_zeros_u64(d as u64) as i32 - 34;
         let n = if t >= 0 { d << t } else { d >> -t };
         let n14 = n >> 14;
         if n14 < 0 || n14 > u32::MAX as i64 {
@@ -346,13 +382,23 @@ impl Recip {
             let s = s as u32;
             (wide(hi) >> (s - 31)) + wide(lo).checked_shr(s).unwrap_or(0)
         } else {
-            let p = (u128::from(wide(hi)) << 31) + u128::from(wide(lo));
-            let q = if s >= 0 {
-                p >> s
+            // (a · 2^31 + b) · 2^-s with a = wide(hi), b = wide(lo), in u64 halves (no 128-bit
+            // arithmetic): for 0 ≤ s < 31 exactly a · 2^(31−s) + ⌊b / 2^s⌋, for s < 0 both parts
+            // shifted up; `None` exactly when the result reaches 2^64.
+            let (a, b) = (wide(hi), wide(lo));
+            let (up_a, b) = if s >= 0 {
+                ((31 - s) as u32, b >> s)
             } else {
-                p.checked_shl((-s) as u32)?
+                let up = (-s) as u32;
+                if leading_zeros_u64(b) < up {
+                    return None;
+                }
+                (31 + up, b << up)
             };
-            u64::try_from(q).ok()?
+            if leading_zeros_u64(a) < up_a {
+                return None;
+            }
+            (a << up_a).checked_add(b)?
         };
         let q = i64::try_from(q).ok()?;
         Some(if v < 0 { -q } else { q })
@@ -362,6 +408,19 @@ impl Recip {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn leading_zeros_match_the_instruction() {
+        let mut x = 0x9e37_79b9_7f4a_7c15u64;
+        for k in 0..64 {
+            for v in [1u64 << k, (1u64 << k) - 1, (1u64 << k) | 1, x >> k, 0] {
+                assert_eq!(leading_zeros_u64(v), v.leading_zeros(), "{v:#x}");
+                let v32 = v as u32;
+                assert_eq!(leading_zeros_u32(v32), v32.leading_zeros(), "{v32:#x}");
+            }
+            x = x.wrapping_mul(0x2545_f491_4f6c_dd1d).rotate_left(7);
+        }
+    }
 
     #[test]
     fn reciprocal_scaling_matches_division() {
@@ -633,6 +692,51 @@ mod tests {
             for &b in &b_probes {
                 assert_eq!(mul_i32_i64(a, b), i128::from(a) * i128::from(b), "{a} {b}");
             }
+        }
+    }
+
+    #[test]
+    fn rounding_division_matches_the_signed_form() {
+        // The form it replaced: the sign moved to the numerator, a signed division per sign.
+        let signed = |num: i128, den: i128| -> i128 {
+            if den == 0 {
+                return 0;
+            }
+            let (num, den) = if den < 0 { (-num, -den) } else { (num, den) };
+            let q = |n: i128| (n + den / 2) / den;
+            if num >= 0 {
+                q(num)
+            } else {
+                -q(-num)
+            }
+        };
+        let mut x = 0x9e37_79b9_7f4a_7c15u64;
+        let mut next = |bits: u32| {
+            x ^= x << 13;
+            x ^= x >> 7;
+            x ^= x << 17;
+            let v = (i128::from(x) << 64 | i128::from(x.rotate_left(29))) >> (128 - bits);
+            if x & 1 == 0 {
+                -v
+            } else {
+                v
+            }
+        };
+        for k in 0..4000u32 {
+            let (num, den) = (next(1 + k % 120), next(1 + (k / 7) % 100));
+            assert_eq!(div_round_i128(num, den), signed(num, den), "{num} / {den}");
+        }
+        for (n, d) in [
+            (7, 2),
+            (-7, 2),
+            (7, -2),
+            (-7, -2),
+            (6, 4),
+            (-6, 4),
+            (0, 5),
+            (5, 0),
+        ] {
+            assert_eq!(div_round_i128(n, d), signed(n, d), "{n} / {d}");
         }
     }
 
