@@ -72,16 +72,17 @@ use math::{isqrt_i64, FWHM_PER_SIGMA_Q16};
 
 /// Shortest frame peak finding accepts (pixels): the noise estimate needs a dozen second differences.
 pub const MIN_PIXELS: usize = 16;
-/// Gauss–Newton steps per frame at full allowance (16 lines × 4 steps): the strongest lines are fitted
+/// Gauss–Newton steps per frame at full allowance (16 lines × 3 steps): the strongest lines are fitted
 /// first; once the budget is spent every further first fit gets [`MIN_STEPS`] and no neighbour refit.
-/// A typical frame of a dozen lines takes ~35 steps (about 2 a line) and never reaches it; a frame of 64
-/// noise bumps would take ~300 (many fits run to the step limit), which kept its work at 3 × a
-/// typical frame's.
-pub const STEP_BUDGET: usize = 64;
+/// A typical frame of a dozen lines takes one or two steps a line and stays under it (the boards'
+/// three typical frames give the same results at 40 as at 64). Crowded frames (204 narrow lines, a
+/// random walk) spend it all; at 64 they cost 2.0 × a typical frame, at 48 1.85 × (the bound for such
+/// frames is 2 ×; `bash boards/measure.sh` prints the ratios).
+pub const STEP_BUDGET: usize = 48;
 /// Gauss–Newton steps a line gets once the budget is spent: none — it keeps its three-pixel parabola
 /// centre and half-width σ, and reports its σ as its centre uncertainty, so the checks downstream
-/// weigh it accordingly. Only crowded frames (more than ~25 lines) get there; a frame of 64 noise
-/// bumps costs ~1.7 × a typical frame this way instead of ~2.2 × with one step each.
+/// weigh it accordingly. Only crowded frames (more than ~25 lines) get there; one step each would cost
+/// them several times the budget's work.
 pub const MIN_STEPS: usize = 0;
 // `find_peaks` passes the remaining budget as each fit's allowance, which is MIN_STEPS past it.
 const _: () = assert!(MIN_STEPS == 0);
