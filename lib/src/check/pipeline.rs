@@ -778,7 +778,9 @@ impl Checker {
     }
 
     /// A blend that the sensor resolves after all shows as two peaks: the peak left over next to a
-    /// matched multi-line feature is that feature's other member, not a foreign line.
+    /// matched multi-line feature is that feature's other member, not a foreign line. Out of line:
+    /// its member spans stay off `match_lines`' frame, which the isotope fit's deep calls sit under.
+    #[inline(never)]
     fn split_resolved(
         &self,
         features: &[Feature],
@@ -788,19 +790,32 @@ impl Checker {
         line_window_px_q16: impl Fn(usize) -> i32,
     ) -> Vec<Pair, 40> {
         let matched: Vec<Pair, 40> = pairs.clone();
+        // Each matched multi-line feature's member pixels, lowest and highest (whole px, widened by
+        // one), once: a peak more than 64 px outside them is nearer no member than that, whatever the
+        // window (a crowded frame has dozens of left-over peaks, each otherwise placed against every
+        // member). Empty spans (lo > hi) mark single-line features.
+        let spans: Vec<(i16, i16), 40> = collect_bounded(matched.iter().map(|p| {
+            features
+                .get(p.feature as usize)
+                .and_then(|f| self.member_span_px(f, m))
+                .unwrap_or((1, 0))
+        }));
         for (k, pk) in peaks.iter().enumerate() {
             if matched.iter().any(|p| p.peak as usize == k) {
                 continue;
             }
-            let hit = matched.iter().find(|p| {
+            let hit = matched.iter().zip(spans.iter()).find(|(p, &span)| {
+                if beyond_span(pk.center_px_q16, span) {
+                    return false;
+                }
                 features.get(p.feature as usize).is_some_and(|f| {
                     // The window is at most 64 px: beyond that it need not be worked out.
-                    f.members.len() > 1
-                        && self.nearest_member(f, pk, m).is_some_and(|(_, d)| {
-                            d <= 64 << 16 && d <= line_window_px_q16(p.feature as usize)
-                        })
+                    self.nearest_member(f, pk, m).is_some_and(|(_, d)| {
+                        d <= 64 << 16 && d <= line_window_px_q16(p.feature as usize)
+                    })
                 })
             });
+            let hit = hit.map(|(p, _)| p);
             if let Some(p) = hit {
                 let _ = pairs.push(Pair {
                     feature: p.feature,
@@ -810,6 +825,19 @@ impl Checker {
         }
         crate::sort::sort_by_key(&mut pairs, |p| p.peak);
         pairs
+    }
+
+    /// [`span_px`] of a multi-line feature's placed members; `None` for a single-line feature or
+    /// one with no member placed.
+    #[inline(never)]
+    fn member_span_px(&self, f: &Feature, m: &MapInUse) -> Option<(i16, i16)> {
+        if f.members.len() < 2 {
+            return None;
+        }
+        span_px(f.members.iter().filter_map(|&i| {
+            let c = self.catalogue.get(i as usize)?;
+            m.lines.get(i, c, &m.map)
+        }))
     }
 
     /// The member line of a feature nearest to a peak, with the distance (px, Q16).
@@ -1566,6 +1594,24 @@ fn drift_fm(fitted: &WavelengthMap, stored: &WavelengthMap, pixels: u16) -> Opti
 const _: () = assert!(MAX_FEATURES <= 64);
 const _: () = assert!(MAX_CATALOGUE <= 64);
 
+/// Lowest and highest whole pixel of Q16 pixels, widened by one px each way and clamped to i16
+/// (sensors are ≤ 4096 px); `None` for no pixels. See [`beyond_span`].
+fn span_px(px: impl Iterator<Item = i32>) -> Option<(i16, i16)> {
+    let (lo, hi) = px.fold(None, |acc: Option<(i32, i32)>, p| match acc {
+        None => Some((p, p)),
+        Some((lo, hi)) => Some((lo.min(p), hi.max(p))),
+    })?;
+    let whole = |v: i32| ((v >> 16) as i16).clamp(i16::MIN + 1, i16::MAX - 1);
+    Some((whole(lo) - 1, whole(hi) + 1))
+}
+
+/// Whether a peak at `c_q16` (px, Q16) is more than 64 px from every pixel that [`span_px`] made
+/// `span` of (an empty span, lo > hi, holds none): then no member is within a 64-px window of it.
+fn beyond_span(c_q16: i32, (lo, hi): (i16, i16)) -> bool {
+    let c = c_q16 >> 16;
+    lo > hi || c < i32::from(lo) - 64 || c > i32::from(hi) + 64
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -1621,6 +1667,47 @@ mod tests {
             }
         }
         assert!(skipped > 500 && kept > 500, "{skipped} {kept}");
+    }
+
+    /// A peak `beyond_span` of some pixels is more than 64 px from each of them, so the member
+    /// search it skips would have found none within its ≤ 64-px window; near the span it is
+    /// never skipped.
+    #[test]
+    fn peaks_beyond_a_member_span_are_beyond_every_member() {
+        let mut next = crate::test_rng::xorshift(0x5b1e_03d7_c2a9_6f41u64);
+        let (mut skipped, mut near) = (0, 0);
+        assert!(span_px(core::iter::empty()).is_none());
+        assert!(beyond_span(0, (1, 0)));
+        for round in 0..200_000 {
+            // Sensor pixels, and now and then the whole Q16 range.
+            let draw = |next: &mut dyn FnMut() -> u64| -> i32 {
+                if round % 50 == 0 {
+                    next() as i32
+                } else {
+                    (next() % (4200 << 16)) as i32 - (50 << 16)
+                }
+            };
+            let members: std::vec::Vec<i32> =
+                (0..1 + next() % 4).map(|_| draw(&mut next)).collect();
+            let c = if round % 2 == 0 {
+                members[0].saturating_add((next() % (140 << 16)) as i32 - (70 << 16))
+            } else {
+                draw(&mut next)
+            };
+            let span = span_px(members.iter().copied()).unwrap();
+            let nearest = members
+                .iter()
+                .map(|&p| (i64::from(p) - i64::from(c)).abs())
+                .min();
+            let within = nearest.unwrap() <= 64 << 16;
+            if beyond_span(c, span) {
+                assert!(!within, "{c} {members:?} {span:?}");
+                skipped += 1;
+            } else if within {
+                near += 1;
+            }
+        }
+        assert!(skipped > 10_000 && near > 10_000, "{skipped} {near}");
     }
 
     #[test]
