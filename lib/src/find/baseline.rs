@@ -208,31 +208,27 @@ pub(crate) fn middle_of_quarters(a: i32, b: i32, c: i32, d: i32) -> i32 {
 /// last block's the middle of its pixels), the end segments extended beyond the first and last centre.
 /// Loop bound: one pass over `base`.
 fn interpolate(coarse: &[i32], base: &mut [i32]) {
-    let n = base.len();
     let nb = coarse.len();
-    let centre = |k: usize| {
-        let lo = k * COARSE_PX;
-        lo + (n.min(lo + COARSE_PX) - lo) / 2
-    };
     if nb < 2 {
         base.fill(coarse.first().copied().unwrap_or(0));
         return;
     }
     // Segment k runs from centre k to centre k + 1; the first also covers the pixels before centre 0
-    // and the last those after the last centre.
-    for k in 0..nb - 1 {
-        let (Some(&ya), Some(&yb)) = (coarse.get(k), coarse.get(k + 1)) else {
+    // and the last those after the last centre. Segments 1 … nb − 3 join the centres of two full
+    // blocks (only the last block can be partial): pixels 16k + 8 … 16k + 23, sixteen a segment from
+    // pixel 24 on, a loop of their own with no per-segment bounds or centres.
+    segment(coarse, base, 0);
+    let inner = base.get_mut(COARSE_PX + COARSE_PX / 2..).unwrap_or(&mut []);
+    let rows = inner
+        .chunks_exact_mut(COARSE_PX)
+        .zip(coarse.windows(2).skip(1));
+    for (seg, w) in rows.take(nb.saturating_sub(3)) {
+        let [ya, yb] = *w else {
             break;
         };
-        let (a, b) = (centre(k), centre(k + 1));
-        let from = if k == 0 { 0 } else { a };
-        let to = if k + 2 == nb { n } else { b };
-        let seg = base.get_mut(from..to).unwrap_or(&mut []);
-        let span = b.saturating_sub(a).max(1);
         let d = i64::from(yb) - i64::from(ya);
-        if span == COARSE_PX && d.unsigned_abs() < 1 << 26 && from == a {
-            // |d·t| < 2^30 for t < 16: 32-bit products, a shift for the division.
-            // d·t carried along by adds: no product per pixel.
+        if d.unsigned_abs() < 1 << 26 {
+            // |d·t| < 2^30 for t < 16: d·t carried along by adds, a shift for the division.
             let d32 = d as i32;
             let mut dt = 0i32;
             for v in seg.iter_mut() {
@@ -240,8 +236,42 @@ fn interpolate(coarse: &[i32], base: &mut [i32]) {
                 dt = dt.wrapping_add(d32);
             }
         } else {
-            ramp(seg, ya, d, span as i64, from as i64 - a as i64);
+            ramp(seg, ya, d, COARSE_PX as i64, 0);
         }
+    }
+    if nb > 2 {
+        segment(coarse, base, nb - 2);
+    }
+}
+
+/// Segment `k` of [`interpolate`] (`coarse.len()` ≥ 2), with its centres and ends worked out: the
+/// first and the last segment, whose ends are the frame's.
+fn segment(coarse: &[i32], base: &mut [i32], k: usize) {
+    let n = base.len();
+    let nb = coarse.len();
+    let centre = |k: usize| {
+        let lo = k * COARSE_PX;
+        lo + (n.min(lo + COARSE_PX).saturating_sub(lo)) / 2
+    };
+    let (Some(&ya), Some(&yb)) = (coarse.get(k), coarse.get(k + 1)) else {
+        return;
+    };
+    let (a, b) = (centre(k), centre(k + 1));
+    let from = if k == 0 { 0 } else { a };
+    let to = if k + 2 == nb { n } else { b };
+    let seg = base.get_mut(from..to).unwrap_or(&mut []);
+    let span = b.saturating_sub(a).max(1);
+    let d = i64::from(yb) - i64::from(ya);
+    if span == COARSE_PX && d.unsigned_abs() < 1 << 26 && from == a {
+        // |d·t| < 2^31 for t < 24 (the last segment runs 8 px past its centre).
+        let d32 = d as i32;
+        let mut dt = 0i32;
+        for v in seg.iter_mut() {
+            *v = ya.wrapping_add(dt >> COARSE_SHIFT);
+            dt = dt.wrapping_add(d32);
+        }
+    } else {
+        ramp(seg, ya, d, span as i64, from as i64 - a as i64);
     }
 }
 
