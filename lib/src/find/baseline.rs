@@ -363,6 +363,8 @@ fn clip_and_bridge(
     clipped: &mut [u32; 8],
 ) -> bool {
     let n = frame.len().min(base.len()).min(flag.len());
+    // No level's variance is below this (the shot term is ≥ 0, the variance ≥ 1).
+    let least_var = noise.floor_var_q8.max(1);
     // The last kept value's index + 1 (0: none yet) and the value.
     let (mut after_kept, mut last_v) = (0usize, 0i32);
     for i in 0..n {
@@ -370,8 +372,11 @@ fn clip_and_bridge(
             break;
         };
         let r = i64::from(y) - i64::from(b);
-        // The variance only where the residual is positive (half the values of a flat stretch).
-        if flags::is_untrusted(f) || (r > 0 && above_clip(r, noise.var_q8(i64::from(b)))) {
+        // The variance only where the residual is positive (half the values of a flat stretch) and
+        // clears the floor's clip level (the variance is never below it: most noise values there).
+        if flags::is_untrusted(f)
+            || (r > 0 && above_clip(r, least_var) && above_clip(r, noise.var_q8(i64::from(b))))
+        {
             if let Some(w) = clipped.get_mut(i / 32) {
                 *w |= 1 << (i % 32);
             }
