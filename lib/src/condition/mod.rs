@@ -166,11 +166,13 @@ fn raw_readout(
 ) -> (u16, u16) {
     // ≤ i32::MAX by construction of `mad`: no clamping. One readout at the actual exposure is a
     // plain multiply (add = shift = 0), worth a loop of its own on a core with 8 low registers.
+    // Wrapping: the first pass takes a saturated pixel's unclipped reading, which may overflow (its
+    // value is written again, clipped).
     let saturated = if add == 0 && shift == 0 {
-        raw_loop(raw, full_scale_counts, out, flags, |s| s * mul)
+        raw_loop(raw, full_scale_counts, out, flags, |s| s.wrapping_mul(mul))
     } else {
         raw_loop(raw, full_scale_counts, out, flags, |s| {
-            (s * mul + add) >> shift
+            s.wrapping_mul(mul).wrapping_add(add) >> shift
         })
     };
     (u16::try_from(saturated).unwrap_or(u16::MAX), 0)
