@@ -395,8 +395,8 @@ fn half_width_sigma(d: &fit::FitData<'_>, pos: usize, max_px: usize) -> i64 {
 
 /// Distance (Q16 px) from the top to the half-maximum crossing along one side's frame and baseline
 /// values (`from_end`: nearest last, the left side), half of `max_px` when the residual stays above
-/// `half` that far (or the frame ends first). Each side its own plain index loop over rows of one
-/// length, no 64-bit step (iterator adapters cost ~18 instructions a step on the M0, 64-bit residuals
+/// `half` that far (or the frame ends first). A plain index loop over rows of one length, no
+/// 64-bit step (iterator adapters cost ~18 instructions a step on the M0, 64-bit residuals
 /// ~10 more; a random walk's full candidate list walks 128 × 2 × 16 px). Loop bound: ≤ `max_px` steps.
 fn half_crossing_q16(
     frame: &[i32],
@@ -411,37 +411,27 @@ fn half_crossing_q16(
         return (max_px as i64) << 15;
     };
     let steps = max_px.min(len);
-    let cross = |step: usize, prev: i32, v: i32| {
-        ((step as i64) << 16)
-            + crossing_q16(
-                i64::from(prev) - i64::from(half),
-                i64::from(prev) - i64::from(v),
-            )
+    // The index walks down from the end (the left side) or up from 0, one wrapping add a step.
+    let (mut j, dir) = if from_end {
+        (len.wrapping_sub(1), usize::MAX)
+    } else {
+        (0, 1)
     };
     let mut prev = top;
-    if from_end {
-        for step in 0..steps {
-            let j = len.wrapping_sub(1).wrapping_sub(step);
-            let (Some(&f), Some(&b)) = (frame.get(j), base.get(j)) else {
-                break;
-            };
-            let v = f.saturating_sub(b);
-            if v <= half {
-                return cross(step, prev, v);
-            }
-            prev = v;
+    for step in 0..steps {
+        let (Some(&f), Some(&b)) = (frame.get(j), base.get(j)) else {
+            break;
+        };
+        let v = f.saturating_sub(b);
+        if v <= half {
+            let (num, drop) = (
+                i64::from(prev) - i64::from(half),
+                i64::from(prev) - i64::from(v),
+            );
+            return ((step as i64) << 16) + crossing_q16(num, drop);
         }
-    } else {
-        for step in 0..steps {
-            let (Some(&f), Some(&b)) = (frame.get(step), base.get(step)) else {
-                break;
-            };
-            let v = f.saturating_sub(b);
-            if v <= half {
-                return cross(step, prev, v);
-            }
-            prev = v;
-        }
+        prev = v;
+        j = j.wrapping_add(dir);
     }
     (max_px as i64) << 15
 }
