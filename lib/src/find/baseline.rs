@@ -14,9 +14,7 @@
 //! first and the last).
 
 use super::noise::NoiseModel;
-use super::smooth::{
-    box_narrow, box_narrow_in_place, box_symmetric, box_symmetric_in_place, narrow_limit,
-};
+use super::smooth::{box_narrow, box_narrow_in_place, narrow_limit};
 use crate::condition::flags;
 
 /// Clipping level above the baseline, in noise σ.
@@ -39,7 +37,9 @@ pub const fn coarse_cells(n: usize) -> usize {
 /// [`coarse_cells`]`(frame.len())` cells; a frame-length row always suffices).
 ///
 /// `half` is the smoothing half-width (px): the box on the block means spans about 2 × `half` + 1 px.
-/// Untrusted pixels (saturated, repaired) are left out of the block means. Loop bound: one O(N) pass
+/// Untrusted pixels (saturated, repaired) are left out of the block means. Block levels beyond the
+/// 32-bit boxes' reach (far past any ADC frame) are smoothed divided by a power of two, so such a
+/// baseline loses its low bits. Loop bound: one O(N) pass
 /// for the block means, ≤ [`ROUNDS`] + 1 rounds of a clip pass and 2 box passes over ⌈N/16⌉ blocks,
 /// one O(N) interpolation, N = `base.len()` (not capped here; [`find_peaks`](super::find_peaks) keeps
 /// it ≤ MAX_PIXELS).
@@ -91,18 +91,34 @@ pub(crate) fn estimate_baseline_known(
     // Box half-width in blocks for a width of ≈ 2·half + 1 px.
     let hc = ((2 * half + 1) / (2 * COARSE_PX)).max(1);
     let limit = narrow_limit(hc);
-    if means.iter().all(|&v| i64::from(v).abs() <= limit) {
-        let from = |src: &[i32], dst: &mut [i32]| box_narrow(hc, src, dst);
-        rounds(means, cflag, &coarse_noise, cbase, ctmp, from, |b| {
-            box_narrow_in_place(hc, b)
-        });
-    } else {
-        let from = |src: &[i32], dst: &mut [i32]| {
-            box_symmetric(hc, |j| i64::from(src.get(j).copied().unwrap_or(0)), dst)
-        };
-        rounds(means, cflag, &coarse_noise, cbase, ctmp, from, |b| {
-            box_symmetric_in_place(hc, b)
-        });
+    // Block levels beyond the 32-bit boxes' reach (frames far past any ADC's range) are taken down
+    // by a power of two that brings them within it, with the noise model to match (variance by its
+    // square), and the baseline is taken back up: the low bits of such a baseline are lost, and one
+    // box path serves every frame.
+    let top = means.iter().fold(0u32, |m, &v| m.max(v.unsigned_abs()));
+    let mut shift = 0u32;
+    while shift < 31 && i64::from(top >> shift) > limit {
+        shift += 1;
+    }
+    if shift > 0 {
+        for m in means.iter_mut() {
+            *m >>= shift;
+        }
+    }
+    let coarse_noise = NoiseModel {
+        floor_var_q8: coarse_noise.floor_var_q8 >> (2 * shift),
+        zero_light_level: coarse_noise.zero_light_level >> shift,
+        shot_var_per_unit_q16: coarse_noise.shot_var_per_unit_q16 >> shift,
+        ..coarse_noise
+    };
+    let from = |src: &[i32], dst: &mut [i32]| box_narrow(hc, src, dst);
+    rounds(means, cflag, &coarse_noise, cbase, ctmp, from, |b| {
+        box_narrow_in_place(hc, b)
+    });
+    if shift > 0 {
+        for b in cbase.iter_mut() {
+            *b = b.wrapping_shl(shift);
+        }
     }
     interpolate(cbase, base.get_mut(..n).unwrap_or(&mut []));
 }
@@ -435,6 +451,7 @@ const _: () = assert!(CLIP_SIGMA == 2);
 
 #[cfg(test)]
 mod tests {
+    use super::super::smooth::{box_symmetric, box_symmetric_in_place};
     use super::super::testkit::{pixel_gauss, Rng};
     use super::*;
     use crate::condition::flags;
@@ -610,6 +627,54 @@ mod tests {
                 let (k2, c2) = clip_plain(&frame, &fl, &nm, &base, &mut t2);
                 assert_eq!((k1, c1, t1), (k2, c2, t2), "n {n} style {style}");
             }
+        }
+    }
+
+    /// Block levels beyond the 32-bit boxes' reach are taken down and the baseline back up: a frame
+    /// scaled by 2^11 (levels to ~2^30) gets the scaled frame's baseline, to within a tenth of the
+    /// scaled noise σ (the low bits and the odd clip decision differ).
+    #[test]
+    fn wide_frames_get_the_scaled_baseline() {
+        let mut rng = Rng::new(12);
+        let n = 1000;
+        let sd = 60i64;
+        let frame: Vec<i32> = (0..n as i64)
+            .map(|i| {
+                (200_000
+                    + 150 * i
+                    + pixel_gauss(i, 150_000, 300 << 16, 150_000)
+                    + pixel_gauss(i, 40_000, 610 << 16, 90_000)
+                    + rng.gauss(sd << 16)) as i32
+            })
+            .collect();
+        let fl = vec![0u8; n];
+        let nm = NoiseModel {
+            floor_var_q8: sd * sd * 256,
+            zero_light_level: 100,
+            shot_var_per_unit_q16: 0,
+            shot_from_data: false,
+        };
+        let up = 11u32;
+        let wide: Vec<i32> = frame.iter().map(|&v| v << up).collect();
+        assert!(wide.iter().any(|&v| i64::from(v) > narrow_limit(2)));
+        let wide_nm = NoiseModel {
+            floor_var_q8: nm.floor_var_q8 << (2 * up),
+            zero_light_level: nm.zero_light_level << up,
+            ..nm
+        };
+        let (mut b1, mut t1) = (vec![0i32; n], vec![0i32; n]);
+        let (mut b2, mut t2) = (vec![0i32; n], vec![0i32; n]);
+        estimate_baseline(&frame, &fl, &nm, 40, &mut b1, &mut t1);
+        estimate_baseline(&wide, &fl, &wide_nm, 40, &mut b2, &mut t2);
+        let tol = (sd << up) / 10;
+        for i in 0..n {
+            let d = i64::from(b2[i]) - (i64::from(b1[i]) << up);
+            assert!(
+                d.abs() <= tol,
+                "px {i}: {} vs {}",
+                b2[i],
+                i64::from(b1[i]) << up
+            );
         }
     }
 
