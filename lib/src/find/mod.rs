@@ -11,7 +11,7 @@
 //!
 //! Every per-pixel pass runs in 32-bit arithmetic on ADC frames (values within ±2^23), and a clean
 //! frame is read once for its noise blocks, the baseline's block levels and its range: the M0 build
-//! spends ~430 instructions per pixel on a 2048-px frame of a dozen lines, nearly half of them in
+//! spends ~420 instructions per pixel on a 2048-px frame of a dozen lines, nearly half of them in
 //! the per-line fits (`bash boards/measure.sh` prints the pieces as `find_parts`).
 //!
 //! # Scales
