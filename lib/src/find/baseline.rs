@@ -379,8 +379,13 @@ fn clip_and_bridge(
     clipped: &mut [u32; 8],
 ) -> bool {
     let n = frame.len().min(base.len()).min(flag.len());
-    // No level's variance is below this (the shot term is ≥ 0, the variance ≥ 1).
-    let least_var = noise.floor_var_q8.max(1);
+    let (Some(frame), Some(base), Some(flag)) = (frame.get(..n), base.get(..n), flag.get(..n))
+    else {
+        return false;
+    };
+    // No level's variance is below the floor's (the shot term is ≥ 0, the variance ≥ 1), so no
+    // residual up to its clip level's is clipped: `64·r² > L ⟺ r > isqrt(⌊L / 64⌋)` for r ≥ 0.
+    let least_r = super::math::isqrt_i64(noise.floor_var_q8.max(1) >> 6);
     // The last kept value's index + 1 (0: none yet) and the value.
     let (mut after_kept, mut last_v) = (0usize, 0i32);
     for i in 0..n {
@@ -388,11 +393,9 @@ fn clip_and_bridge(
             break;
         };
         let r = i64::from(y) - i64::from(b);
-        // The variance only where the residual is positive (half the values of a flat stretch) and
-        // clears the floor's clip level (the variance is never below it: most noise values there).
-        if flags::is_untrusted(f)
-            || (r > 0 && above_clip(r, least_var) && above_clip(r, noise.var_q8(i64::from(b))))
-        {
+        // The variance only where the residual clears the floor's clip level (most noise values
+        // do not; negative ones never do).
+        if flags::is_untrusted(f) || (r > least_r && above_clip(r, noise.var_q8(i64::from(b)))) {
             if let Some(w) = clipped.get_mut(i / 32) {
                 *w |= 1 << (i % 32);
             }
@@ -620,12 +623,34 @@ mod tests {
                         }
                     })
                     .collect();
-                let nm = model(40);
-                let (mut t1, mut t2) = (vec![7i32; n], vec![7i32; n]);
-                let mut c1 = [0u32; 8];
-                let k1 = clip_and_bridge(&frame, &fl, &nm, &base, &mut t1, &mut c1);
-                let (k2, c2) = clip_plain(&frame, &fl, &nm, &base, &mut t2);
-                assert_eq!((k1, c1, t1), (k2, c2, t2), "n {n} style {style}");
+                // Read noise; shot noise above a zero level; no floor at all; a floor whose clip
+                // level is an exact square (64 · 30² · 4).
+                let models = [
+                    model(40),
+                    NoiseModel {
+                        floor_var_q8: 20 * 20 * 256,
+                        zero_light_level: 2500,
+                        shot_var_per_unit_q16: 3 << 16,
+                        shot_from_data: true,
+                    },
+                    NoiseModel {
+                        floor_var_q8: 0,
+                        zero_light_level: 0,
+                        shot_var_per_unit_q16: 1 << 16,
+                        shot_from_data: true,
+                    },
+                    NoiseModel {
+                        floor_var_q8: 64 * 900 * 4,
+                        ..model(0)
+                    },
+                ];
+                for (m, nm) in models.iter().enumerate() {
+                    let (mut t1, mut t2) = (vec![7i32; n], vec![7i32; n]);
+                    let mut c1 = [0u32; 8];
+                    let k1 = clip_and_bridge(&frame, &fl, nm, &base, &mut t1, &mut c1);
+                    let (k2, c2) = clip_plain(&frame, &fl, nm, &base, &mut t2);
+                    assert_eq!((k1, c1, t1), (k2, c2, t2), "n {n} style {style} model {m}");
+                }
             }
         }
     }
