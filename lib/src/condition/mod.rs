@@ -166,11 +166,13 @@ fn raw_readout(
 ) -> (u16, u16) {
     // ≤ i32::MAX by construction of `mad`: no clamping. One readout at the actual exposure is a
     // plain multiply (add = shift = 0), worth a loop of its own on a core with 8 low registers.
+    // Wrapping: the first pass takes a saturated pixel's unclipped reading, which may overflow (its
+    // value is written again, clipped).
     let saturated = if add == 0 && shift == 0 {
-        raw_loop(raw, full_scale_counts, out, flags, |s| s * mul)
+        raw_loop(raw, full_scale_counts, out, flags, |s| s.wrapping_mul(mul))
     } else {
         raw_loop(raw, full_scale_counts, out, flags, |s| {
-            (s * mul + add) >> shift
+            s.wrapping_mul(mul).wrapping_add(add) >> shift
         })
     };
     (u16::try_from(saturated).unwrap_or(u16::MAX), 0)
@@ -185,9 +187,27 @@ fn raw_loop(
     flags: &mut [u8],
     value: impl Fn(u32) -> u32,
 ) -> u32 {
+    let fs = u32::from(full_scale_counts);
+    // Most readouts hold no saturated pixel: one pass of values alone, the flags cleared in one fill.
+    // `r + (2^16 − fs)` reaches bit 16 exactly when r ≥ fs (r < 2^16, fs ≤ 2^16 − 1): or-ing them
+    // tells whether any pixel saturated, for two instructions a pixel. Where one did, the flagged
+    // loop below writes every value again (the same value for every unsaturated pixel).
+    let n = out.len().min(raw.len()).min(flags.len());
+    let lift = (1u32 << 16) - fs;
+    let mut any = 0u32;
+    for (o, &r) in out.iter_mut().zip(raw) {
+        let r = u32::from(r);
+        any |= r + lift;
+        *o = value(r) as i32;
+    }
+    if any & (1 << 16) == 0 {
+        if let Some(f) = flags.get_mut(..n) {
+            f.fill(0);
+        }
+        return 0;
+    }
     // At most MAX_PIXELS saturated pixels: no overflow.
     let mut saturated: u32 = 0;
-    let fs = u32::from(full_scale_counts);
     for ((o, f), &r) in out.iter_mut().zip(flags.iter_mut()).zip(raw) {
         // A saturated pixel (r ≥ full scale) keeps its clipped level (full scale × 1 readout),
         // flagged. Branch-free: `sat` is the sign of fs − 1 − r (both below 2^16), `mask` all ones
@@ -331,6 +351,46 @@ mod tests {
         let mut fl = vec![0u8; n];
         let info = condition_frame(cfg, sig, dark, gain, &mut out, &mut fl).unwrap();
         (out, fl, info)
+    }
+
+    /// The clean-frame pass and the flagged loop of `raw_loop` against the plain per-pixel rule
+    /// (clip at full scale, flag, scale), with stale flags, no saturated pixel, one at either end,
+    /// and full scales up to 2^16 − 1.
+    #[test]
+    fn raw_loop_matches_the_per_pixel_rule() {
+        let mut bits = crate::test_rng::xorshift(0x9e37_79b9_7f4a_7c15u64);
+        let mut next = move |m: u64| bits() % m;
+        for round in 0..600 {
+            let n = 1 + next(50) as usize;
+            let fs = [1u16, 255, 4095, 40_000, u16::MAX][next(5) as usize];
+            let below = u64::from(fs);
+            let mut raw: Vec<u16> = (0..n).map(|_| next(below) as u16).collect();
+            match round % 4 {
+                0 => {}
+                1 => raw[0] = fs,
+                2 => raw[n - 1] = u16::MAX,
+                _ => raw[next(n as u64) as usize] = fs.saturating_add(next(3) as u16),
+            }
+            let mul = 1 + next(1 << 15) as u32;
+            let value = |s: u32| s.wrapping_mul(mul);
+            let mut out = vec![-1i32; n];
+            let mut fl = vec![0xffu8; n];
+            let sat = raw_loop(&raw, fs, &mut out, &mut fl, value);
+            let mut want_sat = 0;
+            for i in 0..n {
+                let r = u32::from(raw[i]);
+                let s = r >= u32::from(fs);
+                want_sat += u32::from(s);
+                let clipped = if s { u32::from(fs) } else { r };
+                assert_eq!(out[i], value(clipped) as i32, "round {round} px {i}");
+                assert_eq!(
+                    fl[i],
+                    if s { flags::SATURATED } else { 0 },
+                    "round {round} px {i}"
+                );
+            }
+            assert_eq!(sat, want_sat, "round {round}");
+        }
     }
 
     #[test]

@@ -14,9 +14,7 @@
 //! first and the last).
 
 use super::noise::NoiseModel;
-use super::smooth::{
-    box_narrow, box_narrow_in_place, box_symmetric, box_symmetric_in_place, narrow_limit,
-};
+use super::smooth::{box_narrow, box_narrow_in_place, narrow_limit};
 use crate::condition::flags;
 
 /// Clipping level above the baseline, in noise σ.
@@ -39,7 +37,9 @@ pub const fn coarse_cells(n: usize) -> usize {
 /// [`coarse_cells`]`(frame.len())` cells; a frame-length row always suffices).
 ///
 /// `half` is the smoothing half-width (px): the box on the block means spans about 2 × `half` + 1 px.
-/// Untrusted pixels (saturated, repaired) are left out of the block means. Loop bound: one O(N) pass
+/// Untrusted pixels (saturated, repaired) are left out of the block means. Block levels beyond the
+/// 32-bit boxes' reach (far past any ADC frame) are smoothed divided by a power of two, so such a
+/// baseline loses its low bits. Loop bound: one O(N) pass
 /// for the block means, ≤ [`ROUNDS`] + 1 rounds of a clip pass and 2 box passes over ⌈N/16⌉ blocks,
 /// one O(N) interpolation, N = `base.len()` (not capped here; [`find_peaks`](super::find_peaks) keeps
 /// it ≤ MAX_PIXELS).
@@ -91,18 +91,34 @@ pub(crate) fn estimate_baseline_known(
     // Box half-width in blocks for a width of ≈ 2·half + 1 px.
     let hc = ((2 * half + 1) / (2 * COARSE_PX)).max(1);
     let limit = narrow_limit(hc);
-    if means.iter().all(|&v| i64::from(v).abs() <= limit) {
-        let from = |src: &[i32], dst: &mut [i32]| box_narrow(hc, src, dst);
-        rounds(means, cflag, &coarse_noise, cbase, ctmp, from, |b| {
-            box_narrow_in_place(hc, b)
-        });
-    } else {
-        let from = |src: &[i32], dst: &mut [i32]| {
-            box_symmetric(hc, |j| i64::from(src.get(j).copied().unwrap_or(0)), dst)
-        };
-        rounds(means, cflag, &coarse_noise, cbase, ctmp, from, |b| {
-            box_symmetric_in_place(hc, b)
-        });
+    // Block levels beyond the 32-bit boxes' reach (frames far past any ADC's range) are taken down
+    // by a power of two that brings them within it, with the noise model to match (variance by its
+    // square), and the baseline is taken back up: the low bits of such a baseline are lost, and one
+    // box path serves every frame.
+    let top = means.iter().fold(0u32, |m, &v| m.max(v.unsigned_abs()));
+    let mut shift = 0u32;
+    while shift < 31 && i64::from(top >> shift) > limit {
+        shift += 1;
+    }
+    if shift > 0 {
+        for m in means.iter_mut() {
+            *m >>= shift;
+        }
+    }
+    let coarse_noise = NoiseModel {
+        floor_var_q8: coarse_noise.floor_var_q8 >> (2 * shift),
+        zero_light_level: coarse_noise.zero_light_level >> shift,
+        shot_var_per_unit_q16: coarse_noise.shot_var_per_unit_q16 >> shift,
+        ..coarse_noise
+    };
+    let from = |src: &[i32], dst: &mut [i32]| box_narrow(hc, src, dst);
+    rounds(means, cflag, &coarse_noise, cbase, ctmp, from, |b| {
+        box_narrow_in_place(hc, b)
+    });
+    if shift > 0 {
+        for b in cbase.iter_mut() {
+            *b = b.wrapping_shl(shift);
+        }
     }
     interpolate(cbase, base.get_mut(..n).unwrap_or(&mut []));
 }
@@ -208,31 +224,27 @@ pub(crate) fn middle_of_quarters(a: i32, b: i32, c: i32, d: i32) -> i32 {
 /// last block's the middle of its pixels), the end segments extended beyond the first and last centre.
 /// Loop bound: one pass over `base`.
 fn interpolate(coarse: &[i32], base: &mut [i32]) {
-    let n = base.len();
     let nb = coarse.len();
-    let centre = |k: usize| {
-        let lo = k * COARSE_PX;
-        lo + (n.min(lo + COARSE_PX) - lo) / 2
-    };
     if nb < 2 {
         base.fill(coarse.first().copied().unwrap_or(0));
         return;
     }
     // Segment k runs from centre k to centre k + 1; the first also covers the pixels before centre 0
-    // and the last those after the last centre.
-    for k in 0..nb - 1 {
-        let (Some(&ya), Some(&yb)) = (coarse.get(k), coarse.get(k + 1)) else {
+    // and the last those after the last centre. Segments 1 … nb − 3 join the centres of two full
+    // blocks (only the last block can be partial): pixels 16k + 8 … 16k + 23, sixteen a segment from
+    // pixel 24 on, a loop of their own with no per-segment bounds or centres.
+    segment(coarse, base, 0);
+    let inner = base.get_mut(COARSE_PX + COARSE_PX / 2..).unwrap_or(&mut []);
+    let rows = inner
+        .chunks_exact_mut(COARSE_PX)
+        .zip(coarse.windows(2).skip(1));
+    for (seg, w) in rows.take(nb.saturating_sub(3)) {
+        let [ya, yb] = *w else {
             break;
         };
-        let (a, b) = (centre(k), centre(k + 1));
-        let from = if k == 0 { 0 } else { a };
-        let to = if k + 2 == nb { n } else { b };
-        let seg = base.get_mut(from..to).unwrap_or(&mut []);
-        let span = b.saturating_sub(a).max(1);
         let d = i64::from(yb) - i64::from(ya);
-        if span == COARSE_PX && d.unsigned_abs() < 1 << 26 && from == a {
-            // |d·t| < 2^30 for t < 16: 32-bit products, a shift for the division.
-            // d·t carried along by adds: no product per pixel.
+        if d.unsigned_abs() < 1 << 26 {
+            // |d·t| < 2^30 for t < 16: d·t carried along by adds, a shift for the division.
             let d32 = d as i32;
             let mut dt = 0i32;
             for v in seg.iter_mut() {
@@ -240,8 +252,42 @@ fn interpolate(coarse: &[i32], base: &mut [i32]) {
                 dt = dt.wrapping_add(d32);
             }
         } else {
-            ramp(seg, ya, d, span as i64, from as i64 - a as i64);
+            ramp(seg, ya, d, COARSE_PX as i64, 0);
         }
+    }
+    if nb > 2 {
+        segment(coarse, base, nb - 2);
+    }
+}
+
+/// Segment `k` of [`interpolate`] (`coarse.len()` ≥ 2), with its centres and ends worked out: the
+/// first and the last segment, whose ends are the frame's.
+fn segment(coarse: &[i32], base: &mut [i32], k: usize) {
+    let n = base.len();
+    let nb = coarse.len();
+    let centre = |k: usize| {
+        let lo = k * COARSE_PX;
+        lo + (n.min(lo + COARSE_PX).saturating_sub(lo)) / 2
+    };
+    let (Some(&ya), Some(&yb)) = (coarse.get(k), coarse.get(k + 1)) else {
+        return;
+    };
+    let (a, b) = (centre(k), centre(k + 1));
+    let from = if k == 0 { 0 } else { a };
+    let to = if k + 2 == nb { n } else { b };
+    let seg = base.get_mut(from..to).unwrap_or(&mut []);
+    let span = b.saturating_sub(a).max(1);
+    let d = i64::from(yb) - i64::from(ya);
+    if span == COARSE_PX && d.unsigned_abs() < 1 << 26 && from == a {
+        // |d·t| < 2^31 for t < 24 (the last segment runs 8 px past its centre).
+        let d32 = d as i32;
+        let mut dt = 0i32;
+        for v in seg.iter_mut() {
+            *v = ya.wrapping_add(dt >> COARSE_SHIFT);
+            dt = dt.wrapping_add(d32);
+        }
+    } else {
+        ramp(seg, ya, d, span as i64, from as i64 - a as i64);
     }
 }
 
@@ -333,6 +379,13 @@ fn clip_and_bridge(
     clipped: &mut [u32; 8],
 ) -> bool {
     let n = frame.len().min(base.len()).min(flag.len());
+    let (Some(frame), Some(base), Some(flag)) = (frame.get(..n), base.get(..n), flag.get(..n))
+    else {
+        return false;
+    };
+    // No level's variance is below the floor's (the shot term is ≥ 0, the variance ≥ 1), so no
+    // residual up to its clip level's is clipped: `64·r² > L ⟺ r > isqrt(⌊L / 64⌋)` for r ≥ 0.
+    let least_r = super::math::isqrt_i64(noise.floor_var_q8.max(1) >> 6);
     // The last kept value's index + 1 (0: none yet) and the value.
     let (mut after_kept, mut last_v) = (0usize, 0i32);
     for i in 0..n {
@@ -340,8 +393,9 @@ fn clip_and_bridge(
             break;
         };
         let r = i64::from(y) - i64::from(b);
-        // The variance only where the residual is positive (half the values of a flat stretch).
-        if flags::is_untrusted(f) || (r > 0 && above_clip(r, noise.var_q8(i64::from(b)))) {
+        // The variance only where the residual clears the floor's clip level (most noise values
+        // do not; negative ones never do).
+        if flags::is_untrusted(f) || (r > least_r && above_clip(r, noise.var_q8(i64::from(b)))) {
             if let Some(w) = clipped.get_mut(i / 32) {
                 *w |= 1 << (i % 32);
             }
@@ -400,6 +454,7 @@ const _: () = assert!(CLIP_SIGMA == 2);
 
 #[cfg(test)]
 mod tests {
+    use super::super::smooth::{box_symmetric, box_symmetric_in_place};
     use super::super::testkit::{pixel_gauss, Rng};
     use super::*;
     use crate::condition::flags;
@@ -568,13 +623,83 @@ mod tests {
                         }
                     })
                     .collect();
-                let nm = model(40);
-                let (mut t1, mut t2) = (vec![7i32; n], vec![7i32; n]);
-                let mut c1 = [0u32; 8];
-                let k1 = clip_and_bridge(&frame, &fl, &nm, &base, &mut t1, &mut c1);
-                let (k2, c2) = clip_plain(&frame, &fl, &nm, &base, &mut t2);
-                assert_eq!((k1, c1, t1), (k2, c2, t2), "n {n} style {style}");
+                // Read noise; shot noise above a zero level; no floor at all; a floor whose clip
+                // level is an exact square (64 · 30² · 4).
+                let models = [
+                    model(40),
+                    NoiseModel {
+                        floor_var_q8: 20 * 20 * 256,
+                        zero_light_level: 2500,
+                        shot_var_per_unit_q16: 3 << 16,
+                        shot_from_data: true,
+                    },
+                    NoiseModel {
+                        floor_var_q8: 0,
+                        zero_light_level: 0,
+                        shot_var_per_unit_q16: 1 << 16,
+                        shot_from_data: true,
+                    },
+                    NoiseModel {
+                        floor_var_q8: 64 * 900 * 4,
+                        ..model(0)
+                    },
+                ];
+                for (m, nm) in models.iter().enumerate() {
+                    let (mut t1, mut t2) = (vec![7i32; n], vec![7i32; n]);
+                    let mut c1 = [0u32; 8];
+                    let k1 = clip_and_bridge(&frame, &fl, nm, &base, &mut t1, &mut c1);
+                    let (k2, c2) = clip_plain(&frame, &fl, nm, &base, &mut t2);
+                    assert_eq!((k1, c1, t1), (k2, c2, t2), "n {n} style {style} model {m}");
+                }
             }
+        }
+    }
+
+    /// Block levels beyond the 32-bit boxes' reach are taken down and the baseline back up: a frame
+    /// scaled by 2^11 (levels to ~2^30) gets the scaled frame's baseline, to within a tenth of the
+    /// scaled noise σ (the low bits and the odd clip decision differ).
+    #[test]
+    fn wide_frames_get_the_scaled_baseline() {
+        let mut rng = Rng::new(12);
+        let n = 1000;
+        let sd = 60i64;
+        let frame: Vec<i32> = (0..n as i64)
+            .map(|i| {
+                (200_000
+                    + 150 * i
+                    + pixel_gauss(i, 150_000, 300 << 16, 150_000)
+                    + pixel_gauss(i, 40_000, 610 << 16, 90_000)
+                    + rng.gauss(sd << 16)) as i32
+            })
+            .collect();
+        let fl = vec![0u8; n];
+        let nm = NoiseModel {
+            floor_var_q8: sd * sd * 256,
+            zero_light_level: 100,
+            shot_var_per_unit_q16: 0,
+            shot_from_data: false,
+        };
+        let up = 11u32;
+        let wide: Vec<i32> = frame.iter().map(|&v| v << up).collect();
+        assert!(wide.iter().any(|&v| i64::from(v) > narrow_limit(2)));
+        let wide_nm = NoiseModel {
+            floor_var_q8: nm.floor_var_q8 << (2 * up),
+            zero_light_level: nm.zero_light_level << up,
+            ..nm
+        };
+        let (mut b1, mut t1) = (vec![0i32; n], vec![0i32; n]);
+        let (mut b2, mut t2) = (vec![0i32; n], vec![0i32; n]);
+        estimate_baseline(&frame, &fl, &nm, 40, &mut b1, &mut t1);
+        estimate_baseline(&wide, &fl, &wide_nm, 40, &mut b2, &mut t2);
+        let tol = (sd << up) / 10;
+        for i in 0..n {
+            let d = i64::from(b2[i]) - (i64::from(b1[i]) << up);
+            assert!(
+                d.abs() <= tol,
+                "px {i}: {} vs {}",
+                b2[i],
+                i64::from(b1[i]) << up
+            );
         }
     }
 

@@ -187,6 +187,8 @@ pub fn find_candidates(
     // Strength of the weakest entry once the list is full: a candidate no stronger is dropped without
     // scanning the list (a comb of equal maxima would scan it at every one).
     let mut weakest: Option<i32> = None;
+    // The last variance the prominence limit was taken for, and the limit.
+    let mut last_root: Option<(i64, i64)> = None;
     // `v_min` ≥ 0 (a square root); beyond i32 no value passes.
     let Ok(v_min32) = i32::try_from(v_min.max(0)) else {
         return false;
@@ -231,7 +233,13 @@ pub fn find_candidates(
                 // sides dip to `v − t − 1` or lower before rising above `v` (`t` the largest
                 // prominence refused at this level), so each walk ends at the first such value, and
                 // the right one is not taken when the left fails.
-                let t = least_above_var(cfg.prominence_sigma_q8, noise.var_q8(level));
+                // Neighbouring lines on a flat stretch share a level: one square root for them.
+                let var = noise.var_q8(level);
+                let t = match last_root {
+                    Some((v0, t0)) if v0 == var => t0,
+                    _ => least_above_var(cfg.prominence_sigma_q8, var),
+                };
+                last_root = Some((var, t));
                 let goal = v.saturating_sub(t).saturating_sub(1);
                 dips_to(smooth, i, v32, goal, r, false) && dips_to(smooth, end, v32, goal, r, true)
             } else {

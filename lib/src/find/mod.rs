@@ -11,7 +11,7 @@
 //!
 //! Every per-pixel pass runs in 32-bit arithmetic on ADC frames (values within ±2^23), and a clean
 //! frame is read once for its noise blocks, the baseline's block levels and its range: the M0 build
-//! spends ~430 instructions per pixel on a 2048-px frame of a dozen lines, nearly half of them in
+//! spends ~420 instructions per pixel on a 2048-px frame of a dozen lines, nearly half of them in
 //! the per-line fits (`bash boards/measure.sh` prints the pieces as `find_parts`).
 //!
 //! # Scales
@@ -370,12 +370,12 @@ fn median_of_base(base: &[i32], work: &mut [i32]) -> i64 {
 
 /// σ (Q16 px) from the half-maximum width of the residual around `pos`, searched ≤ `max_px` each way.
 ///
-/// Each side walks the frame and baseline rows as zipped slices (no index arithmetic or range checks
-/// per step: a crowded frame walks ~190 candidates × 24 px).
+/// Residuals are 32-bit saturating differences: exact for every frame within ±2^30 (ADC frames by
+/// far), clipped at ±2^31 beyond, where only the fits' starting width can move.
 fn half_width_sigma(d: &fit::FitData<'_>, pos: usize, max_px: usize) -> i64 {
     let r = |i: usize| {
-        i64::from(d.frame.get(i).copied().unwrap_or(0))
-            - i64::from(d.base.get(i).copied().unwrap_or(0))
+        let f = d.frame.get(i).copied().unwrap_or(0);
+        f.saturating_sub(d.base.get(i).copied().unwrap_or(0))
     };
     let top = r(pos);
     let half = top / 2;
@@ -397,29 +397,43 @@ fn half_width_sigma(d: &fit::FitData<'_>, pos: usize, max_px: usize) -> i64 {
 
 /// Distance (Q16 px) from the top to the half-maximum crossing along one side's frame and baseline
 /// values (`from_end`: nearest last, the left side), half of `max_px` when the residual stays above
-/// `half` that far (or the frame ends first). A plain index loop bounded by both slices: iterator
-/// adapters (reversed, zipped, taken, counted) cost ~18 instructions a step on the M0.
+/// `half` that far (or the frame ends first). A plain index loop over rows of one length, no
+/// 64-bit step (iterator adapters cost ~18 instructions a step on the M0, 64-bit residuals
+/// ~10 more; a random walk's full candidate list walks 128 × 2 × 16 px). Loop bound: ≤ `max_px` steps.
 fn half_crossing_q16(
     frame: &[i32],
     base: &[i32],
     from_end: bool,
-    top: i64,
-    half: i64,
+    top: i32,
+    half: i32,
     max_px: usize,
 ) -> i64 {
     let len = frame.len().min(base.len());
+    let (Some(frame), Some(base)) = (frame.get(..len), base.get(..len)) else {
+        return (max_px as i64) << 15;
+    };
     let steps = max_px.min(len);
+    // The index walks down from the end (the left side) or up from 0, one wrapping add a step.
+    let (mut j, dir) = if from_end {
+        (len.wrapping_sub(1), usize::MAX)
+    } else {
+        (0, 1)
+    };
     let mut prev = top;
     for step in 0..steps {
-        let j = if from_end { len - 1 - step } else { step };
         let (Some(&f), Some(&b)) = (frame.get(j), base.get(j)) else {
             break;
         };
-        let v = i64::from(f) - i64::from(b);
+        let v = f.saturating_sub(b);
         if v <= half {
-            return ((step as i64) << 16) + crossing_q16(prev - half, prev - v);
+            let (num, drop) = (
+                i64::from(prev) - i64::from(half),
+                i64::from(prev) - i64::from(v),
+            );
+            return ((step as i64) << 16) + crossing_q16(num, drop);
         }
         prev = v;
+        j = j.wrapping_add(dir);
     }
     (max_px as i64) << 15
 }
@@ -468,6 +482,74 @@ mod tests {
 
     /// A synthetic line: centre (px, Q16), peak height (frame units), Gaussian σ (px, Q16).
     type Line = (i64, i64, i64);
+
+    /// The half-width walk as it was, in 64-bit residuals.
+    fn half_crossing_wide(
+        frame: &[i32],
+        base: &[i32],
+        from_end: bool,
+        top: i64,
+        half: i64,
+        max_px: usize,
+    ) -> i64 {
+        let len = frame.len().min(base.len());
+        let mut prev = top;
+        for step in 0..max_px.min(len) {
+            let j = if from_end { len - 1 - step } else { step };
+            let v = i64::from(frame[j]) - i64::from(base[j]);
+            if v <= half {
+                return ((step as i64) << 16) + crossing_q16(prev - half, prev - v);
+            }
+            prev = v;
+        }
+        (max_px as i64) << 15
+    }
+
+    /// The 32-bit half-width walk gives the 64-bit one's integers on rows within ±2^30 (lines,
+    /// plateaus that never fall to half so the walk runs out, both directions), and a bounded
+    /// width, no panic, on rows at the i32 limits.
+    #[test]
+    fn half_crossing_is_the_wide_one() {
+        let mut rng = Rng::new(77);
+        for k in 0..5000usize {
+            let len = rng.u16() as usize % 40;
+            let wide = k % 10 == 9;
+            let lim = if wide {
+                i64::from(i32::MAX)
+            } else {
+                (1 << 30) - 1
+            };
+            let scale = [3i64, 1000, 1 << 20, lim][k % 4];
+            let pick =
+                |rng: &mut Rng| ((rng.u16() - 32768) * scale / 32768).clamp(-lim, lim) as i32;
+            let mut frame: std::vec::Vec<i32> = (0..len).map(|_| pick(&mut rng)).collect();
+            let base: std::vec::Vec<i32> = (0..len).map(|_| pick(&mut rng) / 2).collect();
+            let mut top = pick(&mut rng) / 2 * 2;
+            if k % 5 == 0 {
+                // A plateau above half the top everywhere: the walk runs out.
+                let up = (scale / 4 + 1) as i32;
+                frame = base.iter().map(|&b| b.saturating_add(up)).collect();
+                top = (scale / 2) as i32;
+            }
+            let max_px = rng.u16() as usize % 24;
+            for from_end in [false, true] {
+                let got = half_crossing_q16(&frame, &base, from_end, top, top / 2, max_px);
+                if wide {
+                    assert!((0..=(max_px as i64) << 16).contains(&got), "case {k}");
+                    continue;
+                }
+                let want = half_crossing_wide(
+                    &frame,
+                    &base,
+                    from_end,
+                    i64::from(top),
+                    i64::from(top / 2),
+                    max_px,
+                );
+                assert_eq!(got, want, "case {k} from_end {from_end}");
+            }
+        }
+    }
 
     /// The step fraction is the exact floor below 2^16 frame units a step, within 2^-15 beyond.
     #[test]

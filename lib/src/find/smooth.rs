@@ -7,6 +7,9 @@
 /// within `half` px of an edge is partly followed by the baseline. Means are rounded half away from zero.
 ///
 /// `src` is called twice per pixel (once entering, once leaving the window). Loop bound: 2 × `dst.len()`.
+/// The 64-bit reference the 32-bit boxes are tested against (the baseline scales wider frames into
+/// their reach).
+#[cfg(test)]
 pub fn box_symmetric<F: Fn(usize) -> i64>(half: usize, src: F, dst: &mut [i32]) {
     let n = dst.len();
     if n == 0 {
@@ -42,6 +45,7 @@ pub fn box_symmetric<F: Fn(usize) -> i64>(half: usize, src: F, dst: &mut [i32]) 
 /// [`box_symmetric`] of `buf` onto itself (the same integers): the values the window leaves behind were
 /// already overwritten, so the last [`RING`] originals are kept in a ring. `half` is capped at
 /// `RING / 2 − 1` (a line finder's windows are far smaller). Loop bound: 2 × `buf.len()`.
+#[cfg(test)]
 pub fn box_symmetric_in_place(half: usize, buf: &mut [i32]) {
     let n = buf.len();
     if n == 0 {
@@ -81,14 +85,14 @@ pub fn box_symmetric_in_place(half: usize, buf: &mut [i32]) {
 
 /// Largest `max |v|` for which [`box_narrow`] and [`box_narrow_in_place`] may be used with `half`:
 /// every window sum plus the rounding half-width stays below 2^31, so `i32` sums and the reciprocal's
-/// 32-bit path serve (the integers are the same as [`box_symmetric`]'s).
+/// 32-bit path serve (the integers are the same as `box_symmetric`'s).
 pub fn narrow_limit(half: usize) -> i64 {
     let width = i64::try_from(2 * half + 1).unwrap_or(i64::MAX).max(1);
     ((1i64 << 31) - 1 - width) / width
 }
 
-/// [`box_symmetric`] over a slice whose values are within ±[`narrow_limit`]: `i32` sums, one 32 × 32-bit
-/// product per pixel. Loop bound: 2 × `dst.len()`.
+/// `box_symmetric` (the tests' 64-bit reference) over a slice whose values are within
+/// ±[`narrow_limit`]: `i32` sums, one 32 × 32-bit product per pixel. Loop bound: 2 × `dst.len()`.
 pub fn box_narrow(half: usize, src: &[i32], dst: &mut [i32]) {
     let n = dst.len();
     if n == 0 {
@@ -125,7 +129,7 @@ pub fn box_narrow(half: usize, src: &[i32], dst: &mut [i32]) {
     }
 }
 
-/// [`box_symmetric_in_place`] under the same condition as [`box_narrow`]. Loop bound: 2 × `buf.len()`.
+/// `box_symmetric_in_place` under the same condition as [`box_narrow`]. Loop bound: 2 × `buf.len()`.
 pub fn box_narrow_in_place(half: usize, buf: &mut [i32]) {
     let n = buf.len();
     if n == 0 {
@@ -304,7 +308,7 @@ impl Window {
     }
 }
 
-/// Originals [`box_symmetric_in_place`] keeps (a power of two).
+/// Originals `box_symmetric_in_place` keeps (a power of two).
 const RING: usize = 128;
 
 /// Division by a fixed small width through a multiply (the Cortex-M0 has no divide instruction and a
@@ -409,6 +413,7 @@ const fn odd_widths() -> [Reciprocal; RING / 2] {
     t
 }
 
+#[cfg(test)]
 impl Reciprocal {
     /// `num / den` rounded half away from zero (the same integers as a plain rounding division).
     fn div_round(&self, num: i64) -> i64 {
