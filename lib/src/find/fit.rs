@@ -35,7 +35,9 @@ const MIN_PIXELS: usize = 6;
 /// Centre movement (Q16 px) below which a step counts as settled.
 const SETTLED_Q16: i64 = 16;
 /// Window cells.
-const W: usize = 2 * MAX_HALF + 1;
+const W: usize = W_MAX;
+/// Widest window (px): 2 × [`MAX_HALF`] + 1.
+pub const W_MAX: usize = 2 * MAX_HALF + 1;
 /// Noise scatters a step may move each parameter by and still count as the last (see [`run`]).
 const SETTLE_SCATTERS: i64 = 4;
 
@@ -415,6 +417,14 @@ pub fn fit_line(
     )
 }
 
+/// Half-width (px) of a first fit's window for a start σ `s0_q16` (Q16, already within the fit's
+/// limits): 2.5 σ + 2, within 2 … [`MAX_HALF`].
+pub fn window_half(s0_q16: i64) -> usize {
+    ((5 * s0_q16.max(1 << 14)) >> 17)
+        .saturating_add(2)
+        .clamp(2, MAX_HALF as i64) as usize
+}
+
 /// [`fit_line`] with its window and weights in `scratch`. Loop bounds: as [`fit_line`].
 pub fn fit_line_in(
     d: &FitData<'_>,
@@ -429,7 +439,7 @@ pub fn fit_line_in(
     // max/min, not clamp: clamp panics on crossed bounds, and these come from the caller.
     let s_max_q16 = s_max_q16.max(s_min_q16);
     let s0 = s0_q16.max(s_min_q16).min(s_max_q16).max(1 << 14);
-    let half = ((5 * s0) >> 17).saturating_add(2).clamp(2, MAX_HALF as i64) as usize;
+    let half = window_half(s0);
     let lo = peak.saturating_sub(half);
     let hi = peak.saturating_add(half).min(n.saturating_sub(1));
     if max_steps == 0 {
