@@ -103,6 +103,16 @@ pub const SCRATCH_PER_PIXEL: usize = 2;
 /// (measured on `glowsim synth` traces).
 pub const SPIKE_FWHM_Q8: u32 = 160;
 
+/// FWHM (px, Q16, saturating) of a fitted σ (px, Q16): ⌊σ · 2.3548⌋ from a split 32-bit product
+/// where σ fits `u32` (every fit: σ is bounded by the search), the 64-bit one otherwise.
+fn fwhm_of_sigma_q16(sigma_q16: i64) -> u32 {
+    let wide = match u32::try_from(sigma_q16) {
+        Ok(s) => (math::mul_u32_wide(s, FWHM_PER_SIGMA_Q16 as u32) >> 16) as i64,
+        Err(_) => sigma_q16.saturating_mul(FWHM_PER_SIGMA_Q16) >> 16,
+    };
+    u32::try_from(wide).unwrap_or(u32::MAX)
+}
+
 /// Pixels in a fit's window (the pixels each of its steps passes over).
 fn fit_width(f: &fit::Fit) -> usize {
     usize::from(f.hi.saturating_sub(f.lo)) + 1
@@ -333,8 +343,7 @@ pub fn find_peaks(
     let spike_limit_q16 = u32::from(cfg.fwhm_min_px_q8) * 256 * SPIKE_FWHM_Q8 / 256;
     for (f, pos) in fits.iter() {
         let pos = &usize::from(*pos);
-        let fwhm_px_q16 =
-            u32::try_from((f.sigma_q16 * FWHM_PER_SIGMA_Q16) >> 16).unwrap_or(u32::MAX);
+        let fwhm_px_q16 = fwhm_of_sigma_q16(f.sigma_q16);
         if fwhm_px_q16 < spike_limit_q16 {
             continue;
         }
@@ -423,7 +432,9 @@ fn half_width_sigma(d: &fit::FitData<'_>, pos: usize, max_px: usize) -> i64 {
     let fwhm_q16 = half_crossing_q16(left_f, left_b, true, top, half, max_px)
         + half_crossing_q16(right_f, right_b, false, top, half, max_px);
     // σ = FWHM / 2.3548 as a multiply: 2^32 / FWHM_PER_SIGMA_Q16 = 27 830.6 (relative error < 2·10⁻⁵).
-    (fwhm_q16.clamp(0, 1 << 30) * SIGMA_PER_FWHM_Q16) >> 16
+    // 0 ≤ FWHM ≤ 2^30 after the clamp: a split 32-bit product (no 64-bit library multiply).
+    let f = fwhm_q16.clamp(0, 1 << 30) as u32;
+    (math::mul_u32_wide(f, SIGMA_PER_FWHM_Q16 as u32) >> 16) as i64
 }
 
 /// Distance (Q16 px) from the top to the half-maximum crossing along one side's frame and baseline
@@ -510,6 +521,35 @@ mod tests {
     use super::math::isqrt_u128;
     use super::testkit::{pixel_gauss, Rng};
     use super::*;
+
+    /// The split FWHM and σ products are the 64-bit ones.
+    #[test]
+    fn split_width_products_are_the_wide_ones() {
+        let mut x = 0x1234_5678_9abc_def1u64;
+        let mut vals = std::vec![
+            0i64,
+            1,
+            -1,
+            1 << 30,
+            (1 << 30) + 1,
+            u32::MAX.into(),
+            1 << 32
+        ];
+        for _ in 0..20_000 {
+            x ^= x << 13;
+            x ^= x >> 7;
+            x ^= x << 17;
+            vals.push(((x as i64) >> 20) >> (x % 44));
+        }
+        for v in vals {
+            let plain = u32::try_from((v * FWHM_PER_SIGMA_Q16) >> 16).unwrap_or(u32::MAX);
+            assert_eq!(fwhm_of_sigma_q16(v), plain, "σ {v}");
+            let f = v.clamp(0, 1 << 30);
+            let plain = (f * SIGMA_PER_FWHM_Q16) >> 16;
+            let split = (math::mul_u32_wide(f as u32, SIGMA_PER_FWHM_Q16 as u32) >> 16) as i64;
+            assert_eq!(split, plain, "FWHM {v}");
+        }
+    }
 
     /// The shortcut allowance takes as many steps as the plain one (both capped at a fit's most).
     #[test]
