@@ -59,6 +59,8 @@ pub use info::ConditionedInfo;
 pub use repair::MAX_REPAIR_REACH;
 pub use stack::{FrameSum, Stack, SATURATED_SUM};
 
+use crate::find::math::mul_u32_wide;
+
 /// Longest frame any stage accepts (pixels); sizes every caller buffer and fixed-capacity table.
 pub const MAX_PIXELS: usize = 4096;
 /// Most readouts one [`Stack`] co-adds; keeps the sum of 16-bit readouts below 2²⁴.
@@ -132,15 +134,15 @@ pub fn condition_frame(
     let plan = scale::Reduced::new((scale as u128) << unit_bits, den as u128)
         .and_then(|r| r.narrow(x_max));
 
-    let (saturated, clamped) = match (plan, signal.raw()) {
-        (Some(plan), Some(raw)) if dark.is_none() && gain.is_none() && linear => {
-            match plan.unsigned_u16() {
-                Some(mad) => raw_readout(raw, cfg.full_scale_counts, mad, out, flags),
-                None => px.narrow(&plan, out, flags),
+    let (saturated, clamped) = match plan {
+        Some(plan) if gain.is_none() && linear => match (signal.raw(), dark, plan.unsigned_u16()) {
+            (Some(raw), None, Some(mad)) => {
+                raw_readout(raw, cfg.full_scale_counts, mad, out, flags)
             }
-        }
-        (Some(plan), _) => px.narrow(&plan, out, flags),
-        (None, _) => px.wide(scale, den, out, flags),
+            _ => px.narrow_plain(&plan, out, flags),
+        },
+        Some(plan) => px.narrow(&plan, out, flags),
+        None => px.wide(scale, den, out, flags),
     };
     let repaired = repair::repair_bad_pixels(&cfg.bad_pixels, out, flags);
 
@@ -274,6 +276,38 @@ impl Pixels<'_, '_> {
                 * i64::from(g);
             i128::from(plan.apply(x))
         })
+    }
+
+    /// [`Self::narrow`] with no linearity curve and no gain table (a dark subtracted, or a stack):
+    /// x = s · nd − d · ns, each product 32 × 32 → 64 bits in halves and x · K likewise where both fit
+    /// 32 bits ([`scale::Narrow::apply_split`]), no 64-bit library multiply and no call per pixel — the
+    /// same integers. Returns (saturated, clamped) pixel counts.
+    fn narrow_plain(&self, plan: &scale::Narrow, out: &mut [i32], flags: &mut [u8]) -> (u16, u16) {
+        // Readout counts are u16 frame counts (≥ 1).
+        let ns = u32::try_from(self.ns).unwrap_or(u32::MAX);
+        let nd = u32::try_from(self.nd).unwrap_or(u32::MAX);
+        let mut saturated: u16 = 0;
+        let mut clamped: u16 = 0;
+        for (i, (o, f)) in out.iter_mut().zip(flags.iter_mut()).enumerate() {
+            let (s, d, sat) = self.counts(i);
+            // Each product < 2^64 and, by the plan's bound, below 2^62: exact in i64.
+            let x = mul_u32_wide(s, nd) as i64 - mul_u32_wide(d, ns) as i64;
+            let v = plan.apply_split(x);
+            let mut mark = if sat { flags::SATURATED } else { 0 };
+            if sat {
+                saturated = saturated.saturating_add(1);
+            }
+            *o = match i32::try_from(v) {
+                Ok(x) => x,
+                Err(_) => {
+                    mark |= flags::CLAMPED;
+                    clamped = clamped.saturating_add(1);
+                    v.clamp(i64::from(i32::MIN), i64::from(i32::MAX)) as i32
+                }
+            };
+            *f = mark;
+        }
+        (saturated, clamped)
     }
 
     /// Every pixel through the full 128-bit numerator and `den`. Returns (saturated, clamped).

@@ -80,7 +80,30 @@ pub(crate) struct Narrow {
 impl Narrow {
     /// The value for pixel integer `x` (|x| within the bound given to [`Reduced::narrow`]).
     pub(crate) fn apply(&self, x: i64) -> i64 {
-        let y = x * self.k;
+        self.round(x * self.k)
+    }
+
+    /// [`Self::apply`] for x that mostly fit 32 bits (dark-subtracted readouts, K a small exposure
+    /// ratio): x · K from four 16 × 16-bit products where both factors fit `u32` instead of a 64-bit
+    /// library multiply (|x · K| < 2^62 by the bound either way), the same value.
+    pub(crate) fn apply_split(&self, x: i64) -> i64 {
+        let y = match (u32::try_from(x.unsigned_abs()), u32::try_from(self.k)) {
+            (Ok(a), Ok(k)) => {
+                let m = crate::find::math::mul_u32_wide(a, k) as i64;
+                if x < 0 {
+                    -m
+                } else {
+                    m
+                }
+            }
+            _ => x * self.k,
+        };
+        self.round(y)
+    }
+
+    /// y / D rounded half away from zero.
+    #[inline(always)]
+    fn round(&self, y: i64) -> i64 {
         match self.divide {
             Divide::Shift(k) => {
                 let half = (1i64 << k) >> 1;
@@ -177,6 +200,7 @@ mod tests {
                     reference(x.into(), num as i128, den as i128),
                     "{x}·{num}/{den}"
                 );
+                assert_eq!(n.apply_split(x), n.apply(x), "{x}·{num}/{den}");
             }
             if let Some((m, add, sh)) = n.unsigned_u16() {
                 for x in [0u32, 1, 2, 3, 4095, 65_535] {
@@ -188,6 +212,43 @@ mod tests {
         let r = Reduced::new((16 * 100_000) << 28, 100_000 << 28).unwrap();
         assert_eq!((r.num, r.den), (16, 1));
         assert_eq!(r.narrow(65_535).unwrap().unsigned_u16(), Some((16, 0, 0)));
+    }
+
+    /// The split product (both factors within 32 bits) and the plain one, either side of 2^32.
+    #[test]
+    fn products_either_side_of_32_bits_round_alike() {
+        let fracs: [(u128, u128, u128); 5] = [
+            (16, 1, 1 << 40),
+            (16 * 7, 15, 1 << 40),
+            ((1 << 32) - 1, 1 << 3, 1 << 29),
+            ((1 << 32) + 3, 1 << 5, 1 << 29),
+            ((1 << 33) + 1, 1_000_003, 1 << 28),
+        ];
+        for (num, den, x_max) in fracs {
+            let r = Reduced::new(num, den).unwrap();
+            let n = r.narrow(x_max).unwrap();
+            let m = x_max as i64;
+            for x in [
+                0i64,
+                1,
+                -1,
+                (1 << 32) - 1,
+                1 << 32,
+                (1 << 32) + 1,
+                m,
+                m - 1,
+                12_345_678_901,
+            ] {
+                for x in [x.min(m), -x.min(m)] {
+                    assert_eq!(n.apply_split(x), n.apply(x), "{x}·{num}/{den}");
+                    assert_eq!(
+                        i128::from(n.apply_split(x)),
+                        reference(x.into(), num as i128, den as i128),
+                        "{x}·{num}/{den}"
+                    );
+                }
+            }
+        }
     }
 
     #[test]

@@ -119,8 +119,9 @@ fn smooth_narrow(frame: &[i32], base: &[i32], out: &mut [i32]) {
 /// Whether `v` (smoothed, ×9) exceeds `k_q8` noise σ of the smoothed residual at baseline `level`.
 ///
 /// `v > k·sqrt(19)·σ ⟺ v²·2^24 > k_q8²·19·var_q8 ⟺ v² > ⌊k_q8²·19·var_q8 / 2^24⌋` (the floor loses
-/// nothing: v² is an integer), so the usual case is two 32 × 32 → 64-bit products; wider values take
-/// the general 128-bit test (the same answer).
+/// nothing: v² is an integer), so the usual case is 32 × 32 → 64-bit products in halves (no library
+/// multiply on the M0; a variance past 2^32, as on scaled-up frames, splits into two words); wider
+/// values take the general 128-bit test (the same answer).
 fn above(v: i64, k_q8: u16, noise: &NoiseModel, level: i64) -> bool {
     if v <= 0 {
         return false;
@@ -128,9 +129,17 @@ fn above(v: i64, k_q8: u16, noise: &NoiseModel, level: i64) -> bool {
     let var = noise.var_q8(level);
     let c = u32::from(k_q8) * u32::from(k_q8); // < 2^32
     let c19 = u64::from(c) * KERNEL_SQ_SUM as u64; // < 2^37
-    match (u32::try_from(v), u32::try_from(var), u32::try_from(c19)) {
-        (Ok(v32), Ok(var32), Ok(c32)) => {
-            let rhs = super::math::mul_u32_wide(c32, var32) >> 24;
+    match (u32::try_from(v), u32::try_from(c19)) {
+        (Ok(v32), Ok(c32)) => {
+            let rhs = match u32::try_from(var) {
+                // The per-pixel case first: one product.
+                Ok(var32) => super::math::mul_u32_wide(c32, var32) >> 24,
+                Err(_) => match limit_shr24(c32, var) {
+                    Some(rhs) => rhs,
+                    // The limit is at least 2^64 > v².
+                    None => return false,
+                },
+            };
             super::math::mul_u32_wide(v32, v32) > rhs
         }
         _ => {
@@ -139,6 +148,26 @@ fn above(v: i64, k_q8: u16, noise: &NoiseModel, level: i64) -> bool {
             lhs > k * k * KERNEL_SQ_SUM * i128::from(var)
         }
     }
+}
+
+/// `⌊c · var / 2^24⌋` for `var` ≥ 0 when below 2^64, `None` when at or above it (or `var` < 0, which
+/// no variance is: `var_q8` is ≥ 1).
+///
+/// With var = v_h · 2^32 + v_l: c · var / 2^24 = c · v_h · 2^8 + c · v_l / 2^24, the first term an
+/// integer, so the floor splits exactly — two 32 × 32-bit products in halves, no 64 × 64 one.
+#[inline(always)]
+fn limit_shr24(c: u32, var: i64) -> Option<u64> {
+    let var = u64::try_from(var).ok()?;
+    let (vh, vl) = ((var >> 32) as u32, var as u32);
+    let low = super::math::mul_u32_wide(c, vl) >> 24;
+    if vh == 0 {
+        return Some(low);
+    }
+    let high = super::math::mul_u32_wide(c, vh);
+    if high >> 56 != 0 {
+        return None;
+    }
+    (high << 8).checked_add(low)
 }
 
 /// Largest `v` that [`above`] refuses at every level: `isqrt(k² · 19 · var_min / 2^24)`.
@@ -150,10 +179,15 @@ fn least_above(k_q8: u16, noise: &NoiseModel) -> i64 {
 /// (the test is `v² > ⌊k² · 19 · var / 2^24⌋`), so `above(v) ⟺ v > least_above_var(k, var)`.
 fn least_above_var(k_q8: u16, var_q8: i64) -> i64 {
     let c19 = u64::from(u32::from(k_q8) * u32::from(k_q8)) * KERNEL_SQ_SUM as u64; // < 2^37
-    if let (Ok(c32), Ok(var32)) = (u32::try_from(c19), u32::try_from(var_q8)) {
-        // One 32 × 32-bit product, as in `above`: no 128-bit one on the M0.
-        let lim = super::math::mul_u32_wide(c32, var32) >> 24;
-        return i64::try_from(super::math::isqrt_u128(u128::from(lim))).unwrap_or(i64::MAX);
+    if let Ok(c32) = u32::try_from(c19) {
+        // Products in halves, as in `above`: no 128-bit one on the M0.
+        let lim = match u32::try_from(var_q8) {
+            Ok(var32) => Some(super::math::mul_u32_wide(c32, var32) >> 24),
+            Err(_) => limit_shr24(c32, var_q8),
+        };
+        if let Some(lim) = lim {
+            return i64::try_from(super::math::isqrt_u128(u128::from(lim))).unwrap_or(i64::MAX);
+        }
     }
     let k = i128::from(k_q8);
     let lim = (k * k * KERNEL_SQ_SUM).saturating_mul(i128::from(var_q8)) >> 24;
@@ -550,7 +584,7 @@ mod tests {
     /// The 64-bit threshold test answers as the 128-bit one.
     #[test]
     fn fast_threshold_equals_the_wide_one() {
-        for sd in [0i64, 1, 7, 100, 4000, 60_000] {
+        for sd in [0i64, 1, 7, 100, 4000, 60_000, 1 << 20, 1 << 27] {
             let nm = flat_noise(sd);
             let var = nm.var_q8(0);
             for k in [256u16, 5 << 8, 3 << 8, u16::MAX] {
@@ -576,6 +610,42 @@ mod tests {
                     assert_eq!(above(v, k, &nm, 0), wide(v), "sd {sd} k {k} v {v}");
                 }
             }
+        }
+    }
+
+    /// The split limit is the 128-bit floor, or `None` exactly when that is ≥ 2^64.
+    #[test]
+    fn split_limit_equals_the_wide_product() {
+        let mut x = 0x5eed_1234_9abc_def1u64;
+        let mut cases = std::vec![];
+        for c in [0u32, 1, 19, 1 << 24, u32::MAX] {
+            for var in [
+                0i64,
+                1,
+                (1 << 32) - 1,
+                1 << 32,
+                (1 << 32) + 1,
+                1 << 56,
+                i64::MAX,
+                -1,
+            ] {
+                cases.push((c, var));
+            }
+        }
+        for _ in 0..20_000 {
+            x ^= x << 13;
+            x ^= x >> 7;
+            x ^= x << 17;
+            let c = (x as u32) >> (x % 32);
+            let var = ((x >> 1) >> ((x >> 40) % 63)) as i64;
+            cases.push((c, var));
+        }
+        for (c, var) in cases {
+            let want = u64::try_from(var)
+                .ok()
+                .map(|v| (u128::from(c) * u128::from(v)) >> 24)
+                .and_then(|w| u64::try_from(w).ok());
+            assert_eq!(limit_shr24(c, var), want, "c {c} var {var}");
         }
     }
 

@@ -35,7 +35,9 @@ const MIN_PIXELS: usize = 6;
 /// Centre movement (Q16 px) below which a step counts as settled.
 const SETTLED_Q16: i64 = 16;
 /// Window cells.
-const W: usize = 2 * MAX_HALF + 1;
+const W: usize = W_MAX;
+/// Widest window (px): 2 × [`MAX_HALF`] + 1.
+pub const W_MAX: usize = 2 * MAX_HALF + 1;
 /// Noise scatters a step may move each parameter by and still count as the last (see [`run`]).
 const SETTLE_SCATTERS: i64 = 4;
 
@@ -415,6 +417,14 @@ pub fn fit_line(
     )
 }
 
+/// Half-width (px) of a first fit's window for a start σ `s0_q16` (Q16, already within the fit's
+/// limits): 2.5 σ + 2, within 2 … [`MAX_HALF`].
+pub fn window_half(s0_q16: i64) -> usize {
+    ((5 * s0_q16.max(1 << 14)) >> 17)
+        .saturating_add(2)
+        .clamp(2, MAX_HALF as i64) as usize
+}
+
 /// [`fit_line`] with its window and weights in `scratch`. Loop bounds: as [`fit_line`].
 pub fn fit_line_in(
     d: &FitData<'_>,
@@ -429,7 +439,7 @@ pub fn fit_line_in(
     // max/min, not clamp: clamp panics on crossed bounds, and these come from the caller.
     let s_max_q16 = s_max_q16.max(s_min_q16);
     let s0 = s0_q16.max(s_min_q16).min(s_max_q16).max(1 << 14);
-    let half = ((5 * s0) >> 17).saturating_add(2).clamp(2, MAX_HALF as i64) as usize;
+    let half = window_half(s0);
     let lo = peak.saturating_sub(half);
     let hi = peak.saturating_add(half).min(n.saturating_sub(1));
     if max_steps == 0 {
@@ -1054,7 +1064,29 @@ fn center_sigma(sol: &Solved, h_ref: u32, p: &Params) -> Option<i64> {
 }
 
 /// Height (Q8) × σ (Q16) × sqrt(2π) → area in frame units × px.
+///
+/// With t = σ · sqrt(2π) = t₁ · 2^24 + t₀ (t₀ < 2^24): ⌊h · t / 2^40⌋ = ⌊(h · t₁ + ⌊h · t₀ / 2^24⌋) / 2^16⌋
+/// (nested floors by powers of two), so a height within `i32` and t below 2^55 take three split
+/// 32-bit products instead of three 128-bit ones (nine library multiplies on the M0); the same value.
 pub fn area(fit: &Fit) -> i64 {
+    let (Ok(h), Ok(s), Ok(c)) = (
+        i32::try_from(fit.height_q8),
+        u32::try_from(fit.sigma_q16),
+        u32::try_from(super::math::SQRT_2PI_Q16),
+    ) else {
+        return area_wide(fit);
+    };
+    let t = super::math::mul_u32_wide(s, c);
+    let Ok(t1) = i32::try_from(t >> 24) else {
+        return area_wide(fit);
+    };
+    let t0 = (t & 0xff_ffff) as i32;
+    let low = super::math::mul_i32_wide(h, t0) >> 24;
+    (super::math::mul_i32_wide(h, t1) + low) >> 16
+}
+
+/// [`area`] through 128-bit products, for any height and σ.
+fn area_wide(fit: &Fit) -> i64 {
     let v = i128::from(fit.height_q8)
         * i128::from(fit.sigma_q16)
         * i128::from(super::math::SQRT_2PI_Q16);
@@ -1066,6 +1098,56 @@ mod tests {
     use super::super::math::{exp_neg_q16, isqrt_u128};
     use super::super::testkit::{pixel_gauss, Rng};
     use super::*;
+
+    /// The split area is the 128-bit one, for heights and σ either side of the 32-bit limits.
+    #[test]
+    fn split_area_is_the_wide_one() {
+        let mut x = 0x0a7e_a5ee_d123_4567u64;
+        let mut cases = std::vec![];
+        for h in [
+            0i64,
+            1,
+            -1,
+            i32::MAX.into(),
+            i32::MIN.into(),
+            1 << 31,
+            -(1 << 40),
+        ] {
+            for s in [
+                0i64,
+                1,
+                1 << 16,
+                (1 << 21) - 1,
+                u32::MAX.into(),
+                1 << 32,
+                -5,
+            ] {
+                cases.push((h, s));
+            }
+        }
+        for _ in 0..20_000 {
+            x ^= x << 13;
+            x ^= x >> 7;
+            x ^= x << 17;
+            // Below 2^54 each: the wide product stays within i128.
+            let h = (x as i64) >> (10 + x % 54);
+            let s = ((x >> 8) as i64) >> (10 + (x >> 3) % 54);
+            cases.push((h, s));
+        }
+        for (h, s) in cases {
+            let f = Fit {
+                center_q16: 0,
+                center_sigma_q16: 0,
+                sigma_q16: s,
+                height_q8: h,
+                lo: 0,
+                hi: 0,
+                converged: true,
+                steps: 0,
+            };
+            assert_eq!(area(&f), area_wide(&f), "h {h} s {s}");
+        }
+    }
 
     #[test]
     fn exp_table_is_close_to_the_exact_exponential() {

@@ -78,8 +78,15 @@ pub const MIN_PIXELS: usize = 16;
 /// centroid bench's frames of 16 strong 2-px lines need ~50 (at 48, 2 of its 320 lines went without
 /// a step, reporting their half-width σ). Crowded frames (204 narrow lines, a random walk) spend it
 /// all: at 64 they cost 2.0 × a typical frame, at 56 1.93 × (the bound for such frames is 2 ×;
-/// `bash boards/measure.sh` prints the ratios).
+/// `bash boards/measure.sh` prints the ratios); wide windows also meet [`STEP_BUDGET_WINDOW_PX`].
 pub const STEP_BUDGET: usize = 56;
+/// Window pixels per step the frame's steps may cover in all ([`STEP_BUDGET`] × this is the second
+/// budget, in pixel-steps; a step's work is one pass over its window): a step of a 21-px window (an
+/// 8-px FWHM line, the widest the centroid bench has) costs 21, so frames of such lines and narrower
+/// keep their [`STEP_BUDGET`] steps (1 176 ≥ 56 × 21); only windows wider than 21 px on average — a
+/// crowded frame of lines at the widest FWHM, a random walk — run out of it first, at ~35 steps of a
+/// 33-px window instead of 56 (each ~7.9 k instructions on the M0).
+pub const STEP_BUDGET_WINDOW_PX: usize = 21;
 /// Gauss–Newton steps a line gets once the budget is spent: none — it keeps its three-pixel parabola
 /// centre and half-width σ, and reports its σ as its centre uncertainty, so the checks downstream
 /// weigh it accordingly. Only crowded frames (more than ~25 lines) get there; one step each would cost
@@ -95,6 +102,33 @@ pub const SCRATCH_PER_PIXEL: usize = 2;
 /// (≤ 1.25 px seen); a true 1.5-px line fits at ≥ 1.35 px from SNR 15, a 2-px line at ≥ 1.3 px from SNR 8
 /// (measured on `glowsim synth` traces).
 pub const SPIKE_FWHM_Q8: u32 = 160;
+
+/// FWHM (px, Q16, saturating) of a fitted σ (px, Q16): ⌊σ · 2.3548⌋ from a split 32-bit product
+/// where σ fits `u32` (every fit: σ is bounded by the search), the 64-bit one otherwise.
+fn fwhm_of_sigma_q16(sigma_q16: i64) -> u32 {
+    let wide = match u32::try_from(sigma_q16) {
+        Ok(s) => (math::mul_u32_wide(s, FWHM_PER_SIGMA_Q16 as u32) >> 16) as i64,
+        Err(_) => sigma_q16.saturating_mul(FWHM_PER_SIGMA_Q16) >> 16,
+    };
+    u32::try_from(wide).unwrap_or(u32::MAX)
+}
+
+/// Pixels in a fit's window (the pixels each of its steps passes over).
+fn fit_width(f: &fit::Fit) -> usize {
+    usize::from(f.hi.saturating_sub(f.lo)) + 1
+}
+
+/// The steps a fit over a window of `width()` px may take: the steps left, and the pixel-steps left
+/// over the width — as `run` takes at most [`fit::ITERATIONS`], no width and no division while that
+/// many at the widest window ([`fit::W_MAX`]) fit the pixel-steps left (every frame but crowded ones).
+#[inline(always)]
+fn step_allowance(budget: usize, px_budget: usize, width: impl FnOnce() -> usize) -> usize {
+    if px_budget >= fit::ITERATIONS * fit::W_MAX {
+        budget
+    } else {
+        budget.min(px_budget / width().max(1))
+    }
+}
 
 /// Finds the peaks of `frame` (any linear units, e.g. [`condition`](crate::condition) output) into `out`,
 /// sorted by centre.
@@ -118,7 +152,8 @@ pub const SPIKE_FWHM_Q8: u32 = 160;
 /// above threshold and ≤ 128 steps per candidate arriving at a full list; masking ≤ 128 candidates
 /// × (≤ 2W + 6W + 1 px); thinning ≤ 128² comparisons; ≤ 2 × 64 fits over ≤ 33 px, each ≤ 6
 /// Gauss–Newton steps (one pass and a fixed 4 × 4 elimination each, the first with a weight pass),
-/// ≤ [`STEP_BUDGET`] + 2 × 64 × [`MIN_STEPS`] steps in all (the first fits after a ≤ 2W px width
+/// ≤ [`STEP_BUDGET`] + 2 × 64 × [`MIN_STEPS`] steps in all, over ≤ [`STEP_BUDGET`] ×
+/// [`STEP_BUDGET_WINDOW_PX`] window pixels (the first fits after a ≤ 2W px width
 /// search, the refits only for lines with a neighbour in reach, taking ≤ 2 neighbour profiles out);
 /// ≤ 64 × 33 px saturation checks; blend marking ≤ 64 comparisons; one O(N) count of untrusted
 /// pixels; insertion sorts of ≤ 64 fits and ≤ 64 peaks and a selection median of ≤ 256 baseline
@@ -257,6 +292,7 @@ pub fn find_peaks(
     // First fits, each line alone, in centre order.
     fits.clear();
     let mut budget = STEP_BUDGET;
+    let mut px_budget = STEP_BUDGET * STEP_BUDGET_WINDOW_PX;
     for c in cands.iter() {
         let fresh = || half_width_sigma(&data, c.pos, fwhm_max_px);
         let raw = match tmp.get(c.pos) {
@@ -268,8 +304,10 @@ pub fn find_peaks(
         assert_eq!(raw, fresh(), "kept half-width σ at {}", c.pos);
         let s0 = raw.max(s_min).min(s_max);
         // Past the budget a line gets MIN_STEPS = 0 steps: the budget alone is the allowance.
-        let f = fit::fit_line_in(&data, c.pos, s0, s_min, s_max, budget, scratch_fit);
+        let steps = step_allowance(budget, px_budget, || 2 * fit::window_half(s0) + 1);
+        let f = fit::fit_line_in(&data, c.pos, s0, s_min, s_max, steps, scratch_fit);
         budget = budget.saturating_sub(usize::from(f.steps));
+        px_budget = px_budget.saturating_sub(usize::from(f.steps) * fit_width(&f));
         // Capacity: at most MAX_PEAKS candidates remain.
         let _ = fits.push((f, u16::try_from(c.pos).unwrap_or(u16::MAX)));
     }
@@ -289,11 +327,14 @@ pub fn find_peaks(
         let prev = prev_first.filter(touches);
         let next = next.filter(touches);
         prev_first = Some(f);
-        if budget > 0 && (prev.is_some() || next.is_some()) {
+        let w = fit_width(&f);
+        let steps = step_allowance(budget, px_budget, || w);
+        if steps > 0 && (prev.is_some() || next.is_some()) {
             data.neighbours = [prev, next];
             // From the first fit, over its window: only the neighbours' share of the data changed.
-            let refit = fit::refit_line_in(&data, &f, s_min, s_max, budget, scratch_fit);
+            let refit = fit::refit_line_in(&data, &f, s_min, s_max, steps, scratch_fit);
             budget = budget.saturating_sub(usize::from(refit.steps));
+            px_budget = px_budget.saturating_sub(usize::from(refit.steps) * w);
             if let Some(slot) = fits.get_mut(k) {
                 slot.0 = refit;
             }
@@ -302,8 +343,7 @@ pub fn find_peaks(
     let spike_limit_q16 = u32::from(cfg.fwhm_min_px_q8) * 256 * SPIKE_FWHM_Q8 / 256;
     for (f, pos) in fits.iter() {
         let pos = &usize::from(*pos);
-        let fwhm_px_q16 =
-            u32::try_from((f.sigma_q16 * FWHM_PER_SIGMA_Q16) >> 16).unwrap_or(u32::MAX);
+        let fwhm_px_q16 = fwhm_of_sigma_q16(f.sigma_q16);
         if fwhm_px_q16 < spike_limit_q16 {
             continue;
         }
@@ -392,7 +432,9 @@ fn half_width_sigma(d: &fit::FitData<'_>, pos: usize, max_px: usize) -> i64 {
     let fwhm_q16 = half_crossing_q16(left_f, left_b, true, top, half, max_px)
         + half_crossing_q16(right_f, right_b, false, top, half, max_px);
     // σ = FWHM / 2.3548 as a multiply: 2^32 / FWHM_PER_SIGMA_Q16 = 27 830.6 (relative error < 2·10⁻⁵).
-    (fwhm_q16.clamp(0, 1 << 30) * SIGMA_PER_FWHM_Q16) >> 16
+    // 0 ≤ FWHM ≤ 2^30 after the clamp: a split 32-bit product (no 64-bit library multiply).
+    let f = fwhm_q16.clamp(0, 1 << 30) as u32;
+    (math::mul_u32_wide(f, SIGMA_PER_FWHM_Q16 as u32) >> 16) as i64
 }
 
 /// Distance (Q16 px) from the top to the half-maximum crossing along one side's frame and baseline
@@ -479,6 +521,49 @@ mod tests {
     use super::math::isqrt_u128;
     use super::testkit::{pixel_gauss, Rng};
     use super::*;
+
+    /// The split FWHM and σ products are the 64-bit ones.
+    #[test]
+    fn split_width_products_are_the_wide_ones() {
+        let mut x = 0x1234_5678_9abc_def1u64;
+        let mut vals = std::vec![
+            0i64,
+            1,
+            -1,
+            1 << 30,
+            (1 << 30) + 1,
+            u32::MAX.into(),
+            1 << 32
+        ];
+        for _ in 0..20_000 {
+            x ^= x << 13;
+            x ^= x >> 7;
+            x ^= x << 17;
+            vals.push(((x as i64) >> 20) >> (x % 44));
+        }
+        for v in vals {
+            let plain = u32::try_from((v * FWHM_PER_SIGMA_Q16) >> 16).unwrap_or(u32::MAX);
+            assert_eq!(fwhm_of_sigma_q16(v), plain, "σ {v}");
+            let f = v.clamp(0, 1 << 30);
+            let plain = (f * SIGMA_PER_FWHM_Q16) >> 16;
+            let split = (math::mul_u32_wide(f as u32, SIGMA_PER_FWHM_Q16 as u32) >> 16) as i64;
+            assert_eq!(split, plain, "FWHM {v}");
+        }
+    }
+
+    /// The shortcut allowance takes as many steps as the plain one (both capped at a fit's most).
+    #[test]
+    fn step_allowance_takes_the_plain_number_of_steps() {
+        for budget in 0..=STEP_BUDGET {
+            for px in 0..=STEP_BUDGET * STEP_BUDGET_WINDOW_PX {
+                for w in 1..=fit::W_MAX {
+                    let plain = budget.min(px / w).min(fit::ITERATIONS);
+                    let got = step_allowance(budget, px, || w).min(fit::ITERATIONS);
+                    assert_eq!(got, plain, "budget {budget} px {px} w {w}");
+                }
+            }
+        }
+    }
 
     /// A synthetic line: centre (px, Q16), peak height (frame units), Gaussian σ (px, Q16).
     type Line = (i64, i64, i64);

@@ -566,7 +566,12 @@ impl LineShape {
         // u = d/σ in Q14, clamped to ±16 (far beyond e^-11, where the exponential is 0).
         const LIMIT: i64 = 16 << 14;
         let d = (p_q16 - c_q16).clamp(-(1 << 30), 1 << 30);
-        let u = ((d * self.inv_s_q14) >> 16).clamp(-LIMIT, LIMIT);
+        // |d| ≤ 2^30 and 1/σ ≤ 2^18 fit i32: the split product, not a 64-bit library multiply.
+        let prod = match i32::try_from(self.inv_s_q14) {
+            Ok(inv) => mul_i32_wide(d as i32, inv),
+            Err(_) => d.saturating_mul(self.inv_s_q14),
+        };
+        let u = (prod >> 16).clamp(-LIMIT, LIMIT);
         let half = self.inv_s_q14 >> 1; // ½ px in u
         let at = |u: i64| {
             // u²/2 in Q16: (u/2)² >> 11. From h = 38 424 on the exponent is ≥ 11, where the
@@ -947,7 +952,14 @@ mod tests {
         for sigma in [1 << 12, 9_999, 65_536, 78_643, 123_457, 400_000] {
             let shape = LineShape::new(sigma);
             let c = (30 << 16) + 4_321;
-            for d in (-(12 << 16)..(12 << 16)).step_by(61) {
+            let far = [
+                -(1i64 << 40),
+                -(1 << 31),
+                -(1 << 30) - 1,
+                (1 << 30) + 1,
+                1 << 33,
+            ];
+            for d in (-(12 << 16)..(12 << 16)).step_by(61).chain(far) {
                 assert_eq!(
                     shape.g(c + d, c),
                     g_wide(&shape, c + d, c),
