@@ -11,8 +11,8 @@
 //!
 //! Every per-pixel pass runs in 32-bit arithmetic on ADC frames (values within ±2^23), and a clean
 //! frame is read once for its noise blocks, the baseline's block levels and its range: the M0 build
-//! spends ~420 instructions per pixel on a 2048-px frame of a dozen lines, nearly half of them in
-//! the per-line fits (`bash boards/measure.sh` prints the pieces as `find_parts`).
+//! spends ~285 instructions per pixel on a 2048-px frame of a dozen lines, a third of them in the
+//! per-line fits (`bash boards/measure.sh` prints the pieces as `find_parts`).
 //!
 //! # Scales
 //! Centres and widths are px in Q16 (pixel 0 = first value, pixel i spans i − 0.5 … i + 0.5); heights and
@@ -77,8 +77,8 @@ pub const MIN_PIXELS: usize = 16;
 /// refit. The boards' typical frames (a dozen lines) give the same results at 40 as at 64; the
 /// centroid bench's frames of 16 strong 2-px lines need ~50 (at 48, 2 of its 320 lines went without
 /// a step, reporting their half-width σ). Crowded frames (204 narrow lines, a random walk) spend it
-/// all: at 64 they cost 2.0 × a typical frame, at 56 1.93 × (the bound for such frames is 2 ×;
-/// `bash boards/measure.sh` prints the ratios); wide windows also meet [`STEP_BUDGET_WINDOW_PX`].
+/// all, and wide windows also meet [`STEP_BUDGET_WINDOW_PX`]: their whole checks must stay within
+/// 2 × a typical frame's (1.71 × at most now; `bash boards/measure.sh` prints the ratios).
 pub const STEP_BUDGET: usize = 56;
 /// Window pixels per step the frame's steps may cover in all ([`STEP_BUDGET`] × this is the second
 /// budget, in pixel-steps; a step's work is one pass over its window): a step of a 21-px window (an
