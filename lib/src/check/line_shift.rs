@@ -229,13 +229,7 @@ mod tests {
     use crate::predict::Nucleus;
 
     fn line(wavelength_fm: i64) -> CatalogueLine {
-        CatalogueLine {
-            nucleus: Nucleus::H1,
-            lower: 2,
-            upper: 3,
-            wavelength_fm,
-            strength: 1,
-        }
+        CatalogueLine::test_h1(wavelength_fm, 1)
     }
 
     /// The weights are the exact rational ones (to 2^-23) and reproduce a cubic through the nodes

@@ -1896,13 +1896,7 @@ mod tests {
     }
 
     fn line(wavelength_fm: i64) -> CatalogueLine {
-        CatalogueLine {
-            nucleus: Nucleus::H1,
-            lower: 2,
-            upper: 3,
-            wavelength_fm,
-            strength: 1,
-        }
+        CatalogueLine::test_h1(wavelength_fm, 1)
     }
 
     #[test]

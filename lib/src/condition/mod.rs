@@ -286,28 +286,14 @@ impl Pixels<'_, '_> {
         // Readout counts are u16 frame counts (≥ 1).
         let ns = u32::try_from(self.ns).unwrap_or(u32::MAX);
         let nd = u32::try_from(self.nd).unwrap_or(u32::MAX);
-        let mut saturated: u16 = 0;
-        let mut clamped: u16 = 0;
+        let mut tally = (0, 0);
         for (i, (o, f)) in out.iter_mut().zip(flags.iter_mut()).enumerate() {
             let (s, d, sat) = self.counts(i);
             // Each product < 2^64 and, by the plan's bound, below 2^62: exact in i64.
             let x = mul_u32_wide(s, nd) as i64 - mul_u32_wide(d, ns) as i64;
-            let v = plan.apply_split(x);
-            let mut mark = if sat { flags::SATURATED } else { 0 };
-            if sat {
-                saturated = saturated.saturating_add(1);
-            }
-            *o = match i32::try_from(v) {
-                Ok(x) => x,
-                Err(_) => {
-                    mark |= flags::CLAMPED;
-                    clamped = clamped.saturating_add(1);
-                    v.clamp(i64::from(i32::MIN), i64::from(i32::MAX)) as i32
-                }
-            };
-            *f = mark;
+            store(plan.apply_split(x), sat, o, f, &mut tally);
         }
-        (saturated, clamped)
+        tally
     }
 
     /// Every pixel through the full 128-bit numerator and `den`. Returns (saturated, clamped).
@@ -332,27 +318,39 @@ impl Pixels<'_, '_> {
         flags: &mut [u8],
         value: &dyn Fn(usize, u32, u32) -> i128,
     ) -> (u16, u16) {
-        let mut saturated: u16 = 0;
-        let mut clamped: u16 = 0;
+        let mut tally = (0, 0);
         for (i, (o, f)) in out.iter_mut().zip(flags.iter_mut()).enumerate() {
             let (s, d, sat) = self.counts(i);
-            let v = value(i, s, d);
-            let mut mark = if sat { flags::SATURATED } else { 0 };
-            if sat {
-                saturated = saturated.saturating_add(1);
-            }
-            *o = match i32::try_from(v) {
-                Ok(x) => x,
-                Err(_) => {
-                    mark |= flags::CLAMPED;
-                    clamped = clamped.saturating_add(1);
-                    v.clamp(i128::from(i32::MIN), i128::from(i32::MAX)) as i32
-                }
-            };
-            *f = mark;
+            store(value(i, s, d), sat, o, f, &mut tally);
         }
-        (saturated, clamped)
+        tally
     }
+}
+
+/// One pixel's value into `o`, clamped to `i32` (flagged [`flags::CLAMPED`] when it had to be), its
+/// [`flags::SATURATED`] flag into `f`, and both counted in `tally` (saturated, clamped): the tail of
+/// every conditioning loop, in the loop's own width (i64 on the narrow path, i128 on the wide one).
+#[inline(always)]
+fn store<T>(v: T, sat: bool, o: &mut i32, f: &mut u8, tally: &mut (u16, u16))
+where
+    T: Copy + Ord + From<i32> + TryInto<i32>,
+{
+    let mut mark = if sat { flags::SATURATED } else { 0 };
+    if sat {
+        tally.0 = tally.0.saturating_add(1);
+    }
+    *o = match v.try_into() {
+        Ok(x) => x,
+        Err(_) => {
+            mark |= flags::CLAMPED;
+            tally.1 = tally.1.saturating_add(1);
+            // In range once clamped.
+            v.clamp(T::from(i32::MIN), T::from(i32::MAX))
+                .try_into()
+                .unwrap_or(0)
+        }
+    };
+    *f = mark;
 }
 
 /// Shot-noise slope of the output: var(y) = y · K / (G · frames), K = 16 · ref / int, G in e⁻/count.

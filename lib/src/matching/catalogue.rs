@@ -26,6 +26,21 @@ pub struct CatalogueLine {
     pub strength: u32,
 }
 
+#[cfg(test)]
+impl CatalogueLine {
+    /// A hydrogen 3 → 2 line at `wavelength_fm` with `strength`: tests that need lines at chosen
+    /// places, whatever the physics would put there.
+    pub(crate) fn test_h1(wavelength_fm: i64, strength: u32) -> CatalogueLine {
+        CatalogueLine {
+            nucleus: Nucleus::H1,
+            lower: 2,
+            upper: 3,
+            wavelength_fm,
+            strength,
+        }
+    }
+}
+
 /// Kramers' semiclassical photon rate of n → m from statistically populated levels, relative.
 ///
 /// g_n A_nm ∝ σ² g_m f_mn with f_mn ∝ 1/(m⁵ n³ (1/m² − 1/n²)³) gives 1 / (m n (n² − m²)): within about

@@ -293,13 +293,7 @@ mod tests {
     use super::*;
 
     fn line(wavelength_fm: i64) -> CatalogueLine {
-        CatalogueLine {
-            nucleus: Nucleus::H1,
-            lower: 2,
-            upper: 3,
-            wavelength_fm,
-            strength: 1000,
-        }
+        CatalogueLine::test_h1(wavelength_fm, 1000)
     }
 
     #[test]
