@@ -1031,19 +1031,8 @@ fn pivot_recip_q30(piv: i32) -> Option<i32> {
     let mut r = (q << k) >> 2;
     let rem = (1u32 << 30).wrapping_sub(r.wrapping_mul(pu));
     r = r.wrapping_add(rem.wrapping_mul(q) >> (32 - k));
-    let mut rem = (1u32 << 30).wrapping_sub(r.wrapping_mul(pu)) as i32;
-    for _ in 0..3 {
-        if rem < 0 {
-            r = r.wrapping_sub(1);
-            rem = rem.wrapping_add(piv);
-        } else if rem >= piv {
-            r = r.wrapping_add(1);
-            rem = rem.wrapping_sub(piv);
-        } else {
-            break;
-        }
-    }
-    i32::try_from(r).ok()
+    let rem = (1u32 << 30).wrapping_sub(r.wrapping_mul(pu)) as i32;
+    i32::try_from(super::math::settle_quotient(r, rem, piv, 3)).ok()
 }
 
 /// σ of the centre in px (Q16): `s · σ_ε · sqrt([N⁻¹]μμ) / A` with the whitened noise

@@ -287,15 +287,22 @@ pub fn recip_u32_max(d: u32) -> u32 {
     // floor), never above 2^32/d.
     let r1 = (i64::from(r0) + (mul_i32_wide(r0 as i32, e) >> 32)) as u32;
     // (2^32 − 1) − r·d is within ±2^19 here, exact as a wrapped i32.
-    let (mut r, di) = (r1, d as i32);
-    let mut rem = u32::MAX.wrapping_sub(r.wrapping_mul(d)) as i32;
-    for _ in 0..4 {
+    let rem = u32::MAX.wrapping_sub(r1.wrapping_mul(d)) as i32;
+    settle_quotient(r1, rem, d as i32, 4)
+}
+
+/// The exact floor quotient from an estimate `r` of it and its remainder `rem` (the dividend minus
+/// `r · d`, as a wrapped `i32`): `r` moves by ±1 while `rem` lies outside [0, `d`), at most `rounds`
+/// times (callers prove their estimate is that close). Inlined: each caller's loop stays in registers.
+#[inline(always)]
+pub(crate) fn settle_quotient(mut r: u32, mut rem: i32, d: i32, rounds: usize) -> u32 {
+    for _ in 0..rounds {
         if rem < 0 {
             r = r.wrapping_sub(1);
-            rem = rem.wrapping_add(di);
-        } else if rem >= di {
+            rem = rem.wrapping_add(d);
+        } else if rem >= d {
             r = r.wrapping_add(1);
-            rem = rem.wrapping_sub(di);
+            rem = rem.wrapping_sub(d);
         } else {
             break;
         }
