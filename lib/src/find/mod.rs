@@ -53,7 +53,6 @@ pub mod fit;
 pub mod mask;
 pub mod math;
 pub mod noise;
-mod order;
 pub mod peak;
 pub mod report;
 mod smooth;
@@ -311,7 +310,7 @@ pub fn find_peaks(
         // Capacity: at most MAX_PEAKS candidates remain.
         let _ = fits.push((f, u16::try_from(c.pos).unwrap_or(u16::MAX)));
     }
-    order::merge_sort_by_key(fits, |(f, _)| f.center_q16);
+    crate::sort::merge_sort_by_key(fits, |(f, _)| f.center_q16);
     // Lines whose windows reach a neighbour are fitted again with the neighbours' first fits taken out:
     // the next line's is still in `fits`, the previous line's is kept aside before it is replaced.
     let mut prev_first: Option<fit::Fit> = None;
