@@ -214,9 +214,7 @@ mod tests {
             for spread in [3u32, 50, 1_000_000] {
                 let v: Vec<i64> = (0..n)
                     .map(|_| {
-                        x ^= x << 13;
-                        x ^= x >> 17;
-                        x ^= x << 5;
+                        crate::test_rng::step32(&mut x);
                         i64::from(x % spread) - i64::from(spread / 2)
                     })
                     .collect();
@@ -243,9 +241,7 @@ mod tests {
             for spread in [3u32, 50, 1 << 20] {
                 let mut v: std::vec::Vec<(i64, u16, [u8; 30])> = (0..n)
                     .map(|k| {
-                        x ^= x << 13;
-                        x ^= x >> 17;
-                        x ^= x << 5;
+                        crate::test_rng::step32(&mut x);
                         (i64::from(x % spread) - 7, k as u16, [k as u8; 30])
                     })
                     .collect();

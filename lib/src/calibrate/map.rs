@@ -819,9 +819,7 @@ mod tests {
         // Rising, falling, turning inside the sensor, flat, and slopes past i64 at one end.
         let mut seed = 0x2545_f491u64;
         let mut next = |span: i64| {
-            seed ^= seed << 13;
-            seed ^= seed >> 7;
-            seed ^= seed << 17;
+            crate::test_rng::step64(&mut seed);
             (seed % (2 * span as u64 + 1)) as i64 - span
         };
         let mut cases: std::vec::Vec<(u16, [i64; 4])> = std::vec![

@@ -353,9 +353,7 @@ mod tests {
             check(((1 << 63) | (k << 55)).wrapping_sub(1) | (1 << 63));
         }
         for _ in 0..200_000 {
-            seed ^= seed << 13;
-            seed ^= seed >> 7;
-            seed ^= seed << 17;
+            crate::test_rng::step64(&mut seed);
             check(seed | 1 << 63);
         }
     }

@@ -14,10 +14,7 @@ const N: usize = 2048;
 struct Rng(u64);
 impl Rng {
     fn next(&mut self) -> u64 {
-        self.0 ^= self.0 << 13;
-        self.0 ^= self.0 >> 7;
-        self.0 ^= self.0 << 17;
-        self.0
+        crate::test_rng::step64(&mut self.0)
     }
     /// Approximately normal, σ = `sd` counts (sum of 4 uniforms).
     fn gauss(&mut self, sd: i64) -> i64 {

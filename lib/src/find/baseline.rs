@@ -474,9 +474,7 @@ mod tests {
         for n in [16usize, 37, 256, 1000] {
             let frame: std::vec::Vec<i32> = (0..n)
                 .map(|_| {
-                    x ^= x << 13;
-                    x ^= x >> 17;
-                    x ^= x << 5;
+                    crate::test_rng::step32(&mut x);
                     (x as i32) >> 12
                 })
                 .collect();
@@ -502,9 +500,7 @@ mod tests {
                 let nb = n.div_ceil(COARSE_PX);
                 let coarse: std::vec::Vec<i32> = (0..nb)
                     .map(|_| {
-                        x ^= x << 13;
-                        x ^= x >> 17;
-                        x ^= x << 5;
+                        crate::test_rng::step32(&mut x);
                         (x as i32) >> (31 - bits)
                     })
                     .collect();

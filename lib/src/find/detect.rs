@@ -526,9 +526,7 @@ mod tests {
         let mut x = 0x9e37_79b9u32;
         let smooth: std::vec::Vec<i32> = (0..300)
             .map(|_| {
-                x ^= x << 13;
-                x ^= x >> 17;
-                x ^= x << 5;
+                crate::test_rng::step32(&mut x);
                 (x as i32) >> 20
             })
             .collect();
@@ -552,9 +550,7 @@ mod tests {
             let mut frame = std::vec![0i32; n];
             let mut base = std::vec![0i32; n];
             for (f, b) in frame.iter_mut().zip(base.iter_mut()) {
-                x ^= x << 13;
-                x ^= x >> 17;
-                x ^= x << 5;
+                crate::test_rng::step32(&mut x);
                 *f = (x % (1 << 26)) as i32 - (1 << 25);
                 *b = ((x >> 3) % (1 << 20)) as i32;
             }
@@ -633,9 +629,7 @@ mod tests {
             }
         }
         for _ in 0..20_000 {
-            x ^= x << 13;
-            x ^= x >> 7;
-            x ^= x << 17;
+            crate::test_rng::step64(&mut x);
             let c = (x as u32) >> (x % 32);
             let var = ((x >> 1) >> ((x >> 40) % 63)) as i64;
             cases.push((c, var));
@@ -654,9 +648,7 @@ mod tests {
     fn least_above_is_the_edge_of_the_test() {
         let mut x = 0x0dd1_5eedu32;
         for _ in 0..3000 {
-            x ^= x << 13;
-            x ^= x >> 17;
-            x ^= x << 5;
+            crate::test_rng::step32(&mut x);
             let nm = NoiseModel {
                 floor_var_q8: i64::from(x >> (x % 28)),
                 zero_light_level: 0,
@@ -678,9 +670,7 @@ mod tests {
         let mut x = 0x5eed_1234u32;
         let smooth: std::vec::Vec<i32> = (0..400)
             .map(|i| {
-                x ^= x << 13;
-                x ^= x >> 17;
-                x ^= x << 5;
+                crate::test_rng::step32(&mut x);
                 ((x as i32) >> 22) + 300 * ((i / 37) % 3)
             })
             .collect();
@@ -712,9 +702,7 @@ mod tests {
             for style in 0..4 {
                 let s: std::vec::Vec<i32> = (0..len)
                     .map(|i| {
-                        x ^= x << 13;
-                        x ^= x >> 17;
-                        x ^= x << 5;
+                        crate::test_rng::step32(&mut x);
                         let noise = (x as i32) >> [26, 22, 20, 24][style];
                         // Lines, plateaus and a random walk's drift.
                         let line = if i % 53 < 5 {
@@ -827,9 +815,7 @@ mod tests {
         let mut x = 0x2545_f491u32;
         let mut s = [0i32; 600];
         for (i, v) in s.iter_mut().enumerate() {
-            x ^= x << 13;
-            x ^= x >> 17;
-            x ^= x << 5;
+            crate::test_rng::step32(&mut x);
             // Noise, plateaus (values rounded to 64) and a few tall lines.
             *v = (((x >> 22) as i32) & !63) + if i % 97 == 40 { 5000 } else { 0 };
         }
@@ -886,9 +872,7 @@ mod tests {
             for spread in [8u32, 300, 4096] {
                 let mut v: Vec<Candidate, MAX_CANDIDATES> = Vec::new();
                 for _ in 0..len {
-                    x ^= x << 13;
-                    x ^= x >> 17;
-                    x ^= x << 5;
+                    crate::test_rng::step32(&mut x);
                     let pos = (x % spread) as usize;
                     if v.iter().all(|c| c.pos != pos) {
                         let strength = ((x >> 12) % 50) as i32 - 10;

@@ -1115,9 +1115,7 @@ mod tests {
             }
         }
         for _ in 0..20_000 {
-            x ^= x << 13;
-            x ^= x >> 7;
-            x ^= x << 17;
+            crate::test_rng::step64(&mut x);
             // Below 2^54 each: the wide product stays within i128.
             let h = (x as i64) >> (10 + x % 54);
             let s = ((x >> 8) as i64) >> (10 + (x >> 3) % 54);

@@ -520,9 +520,7 @@ mod tests {
                 // Values within ±2^k, or within ±2^(k+1) (some out of range).
                 let v: std::vec::Vec<i32> = (0..len)
                     .map(|_| {
-                        x ^= x << 13;
-                        x ^= x >> 17;
-                        x ^= x << 5;
+                        crate::test_rng::step32(&mut x);
                         (x as i32) >> (31 - k - wider)
                     })
                     .collect();
@@ -627,9 +625,7 @@ mod tests {
     fn wide_products_are_exact_on_random_words() {
         let mut x = 0x243f_6a88_85a3_08d3u64;
         for _ in 0..200_000 {
-            x ^= x << 13;
-            x ^= x >> 7;
-            x ^= x << 17;
+            crate::test_rng::step64(&mut x);
             // Whole words and words with many top or bottom bits clear.
             let (a, b) = ((x >> 32) as u32, x as u32);
             for (a, b) in [(a, b), (a >> (b % 32), b), (a, b << (a % 32))] {
@@ -719,9 +715,7 @@ mod tests {
         };
         let mut x = 0x9e37_79b9_7f4a_7c15u64;
         let mut next = |bits: u32| {
-            x ^= x << 13;
-            x ^= x >> 7;
-            x ^= x << 17;
+            crate::test_rng::step64(&mut x);
             let v = (i128::from(x) << 64 | i128::from(x.rotate_left(29))) >> (128 - bits);
             if x & 1 == 0 {
                 -v

@@ -535,9 +535,7 @@ mod tests {
             1 << 32
         ];
         for _ in 0..20_000 {
-            x ^= x << 13;
-            x ^= x >> 7;
-            x ^= x << 17;
+            crate::test_rng::step64(&mut x);
             vals.push(((x as i64) >> 20) >> (x % 44));
         }
         for v in vals {

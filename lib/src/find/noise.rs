@@ -860,9 +860,7 @@ mod tests {
     fn variance_split_products_are_the_wide_product() {
         let mut x = 0x6a09_e667u32;
         for _ in 0..20_000 {
-            x ^= x << 13;
-            x ^= x >> 17;
-            x ^= x << 5;
+            crate::test_rng::step32(&mut x);
             let k = if x & 1 == 0 { x } else { x >> (x % 32) };
             let level = if x & 2 == 0 {
                 i64::from(x.rotate_left(7) >> (x % 24)) - 1000
@@ -1043,9 +1041,7 @@ mod tests {
     fn rejection_is_the_plain_comparison() {
         let mut x = 0x2468_ace1u32;
         let mut next = || {
-            x ^= x << 13;
-            x ^= x >> 17;
-            x ^= x << 5;
+            crate::test_rng::step32(&mut x);
             x
         };
         for _ in 0..20_000 {

@@ -510,9 +510,7 @@ mod tests {
         ] {
             let src: Vec<i32> = (0..700)
                 .map(|_| {
-                    x ^= x << 13;
-                    x ^= x >> 17;
-                    x ^= x << 5;
+                    crate::test_rng::step32(&mut x);
                     ((i64::from(x) % (2 * amp + 1)) - amp) as i32
                 })
                 .collect();
@@ -536,9 +534,7 @@ mod tests {
             for half in [0usize, 1, 2, 3, 5, 8, 16, 31, 32, 63] {
                 let src: Vec<i32> = (0..n)
                     .map(|_| {
-                        x ^= x << 13;
-                        x ^= x >> 17;
-                        x ^= x << 5;
+                        crate::test_rng::step32(&mut x);
                         (x % 2_000_001) as i32 - 1_000_000
                     })
                     .collect();
@@ -570,9 +566,7 @@ mod tests {
             (1 << 31) - 1,
         ];
         for a in edges.into_iter().chain((0..200_000).map(|_| {
-            x ^= x << 13;
-            x ^= x >> 17;
-            x ^= x << 5;
+            crate::test_rng::step32(&mut x);
             x >> (1 + x % 16)
         })) {
             assert_eq!(div3(a), a / 3, "{a}");
