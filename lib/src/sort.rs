@@ -3,7 +3,7 @@
 //!
 //! core's `sort_unstable` keeps a panic for comparators that break total order; an insertion sort
 //! over `get_mut` windows has none, and for lists this short it is as fast. Stable, O(n²), n ≤ 128
-//! in every use here (find's candidate thinning); [`merge_sort_by_key`] gives the same order in
+//! in every use here (find's candidate thinning); a merge of byte indices gives the same order in
 //! O(n log n) for lists that arrive in no order at all.
 
 /// Sorts `v` ascending by `key`, keeping the order of equal keys.
@@ -45,7 +45,7 @@ fn sort_by_index<T, K: Ord>(v: &mut [T], key: impl Fn(&T) -> K) {
 ///
 /// Loop bound: ⌈log2 n⌉ ≤ 6 merge passes over ≤ [`INDEXED_MAX`] indices, then [`permute`]. Lists
 /// longer than that (never passed) keep their tail unsorted.
-pub fn merge_sort_by_key<T, K: Ord>(v: &mut [T], key: impl Fn(&T) -> K) {
+pub(crate) fn merge_sort_by_key<T, K: Ord>(v: &mut [T], key: impl Fn(&T) -> K) {
     let n = v.len().min(INDEXED_MAX);
     let key = |k: u8| v.get(usize::from(k)).map(&key);
     let mut a = [0u8; INDEXED_MAX];
