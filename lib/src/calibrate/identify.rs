@@ -1,5 +1,9 @@
 //! Which peak is which line: a bounded robust search, then iterative refits.
 //!
+//! With a nominal map the common case (a drift that mostly shifts the lines) is tried first and
+//! cheaply: the offset most peak–line differences agree on, refined as a search result is, and
+//! taken when enough lines match well (`quick`); the search below runs only when it is not.
+//!
 //! A hypothesis maps the pixel axis to wavelength as λ = a + b·u(p), where u is the nominal map's
 //! wavelength when one is given (so its curvature is kept and only offset and scale are searched)
 //! or the pixel itself when calibrating blind. Two peaks matched to two predicted lines fix a and b;
@@ -14,7 +18,7 @@
 //! matched pairs for the strength-order tie-breaker; then a first match and ≤ 4 refit rounds over all
 //! ≤ 64 peaks (≤ 5 map fits).
 use super::error::CalibrateError;
-use super::fit::{fit_map_at, standard_frame, FitPoint, FitScratch, MapFit};
+use super::fit::{fit_correction, fit_map_at, standard_frame, FitPoint, FitScratch, MapFit};
 use super::map::{HalfWidth, WavelengthMap};
 use crate::find::math::mul_i32_wide;
 use crate::find::Peak;
@@ -160,6 +164,9 @@ pub struct IdentifyWork {
     /// Tests: every tying hypothesis' full cost (the reference the pruned sum is tested against).
     #[cfg(test)]
     full_cost: bool,
+    /// Tests: skip the quick identification (the search it stands in for, to test it against).
+    #[cfg(test)]
+    no_quick: bool,
 }
 
 /// A map fit's inputs (with each point's x on the fit's frame), its working memory and the fitted
@@ -167,6 +174,8 @@ pub struct IdentifyWork {
 struct FitRoom {
     points: Vec<FitPoint, MAX_REFERENCE_LINES>,
     xs: Vec<i64, MAX_REFERENCE_LINES>,
+    /// Each point's u (the nominal map's wavelength there, when there is one).
+    us: Vec<i64, MAX_REFERENCE_LINES>,
     scratch: FitScratch,
     /// The last fit's map (λ, slope) at each point, and each peak's point plus one (0: none; zero
     /// so that a `static` holding the work stays in `.bss`).
@@ -182,6 +191,7 @@ impl IdentifyWork {
             room: FitRoom {
                 points: Vec::new(),
                 xs: Vec::new(),
+                us: Vec::new(),
                 scratch: FitScratch::new(),
                 evals: [(0, 0); MAX_REFERENCE_LINES],
                 point_of_peak: [0; 64],
@@ -192,6 +202,8 @@ impl IdentifyWork {
             },
             #[cfg(test)]
             full_cost: false,
+            #[cfg(test)]
+            no_quick: false,
         }
     }
 }
@@ -233,15 +245,15 @@ pub fn identify_with<'w>(
         return Err(CalibrateError::NoConsistentPattern);
     }
     #[cfg(test)]
-    let prune_cost = !work.full_cost;
+    let (prune_cost, try_quick) = (!work.full_cost, !work.no_quick);
+    #[cfg(not(test))]
+    let try_quick = true;
     #[cfg(not(test))]
     let prune_cost = true;
     let IdentifyWork {
         axis, room, found, ..
     } = work;
-    axis.fill(peaks, lines, cfg)?;
-    let axis: &Axis = axis;
-    let strong_lines: Vec<u8, 20> = strongest(lines.iter().map(|l| l.strength), HYP_LINES);
+    axis.fill_positions(peaks, lines, cfg)?;
     // The peaks hypotheses are scored on, in frame order.
     // A crowded frame (more than DENSE_PEAKS peaks: a comb, a random walk, a forest of foreign
     // lines) is scored on its DENSE_SCORE strongest: there every hypothesis matches something near
@@ -257,6 +269,31 @@ pub fn identify_with<'w>(
     let strong_peaks: Vec<u8, 20> =
         crate::bounded::collect_bounded(scored.iter().take(HYP_PEAKS).copied());
     crate::sort::sort_by_key(&mut scored, |&k| k);
+    if try_quick && quick(peaks, &scored, lines, cfg, axis, room, found) {
+        return Ok(found);
+    }
+    axis.fill_slopes(peaks, cfg);
+    let chosen = (&scored[..], &strong_peaks[..]);
+    search(peaks, lines, cfg, chosen, prune_cost, axis, room, found)?;
+    Ok(found)
+}
+
+/// The hypothesis search and its refinement, into `room` and `found`: `chosen` are the scored peaks
+/// (frame order) and the hypothesis peaks (strongest first). Out of line, so that its tables are
+/// not on the stack while the quick identification fits.
+#[inline(never)]
+#[allow(clippy::too_many_arguments)]
+fn search(
+    peaks: &[Peak],
+    lines: &[ReferenceLine],
+    cfg: &IdentifyConfig,
+    (scored, strong_peaks): (&[u8], &[u8]),
+    prune_cost: bool,
+    axis: &Axis,
+    room: &mut FitRoom,
+    found: &mut Identified,
+) -> Result<(), CalibrateError> {
+    let strong_lines: Vec<u8, 20> = strongest(lines.iter().map(|l| l.strength), HYP_LINES);
     let ends = match &cfg.nominal {
         Some(m) => (
             m.wavelength_fm(0)?,
@@ -264,10 +301,10 @@ pub fn identify_with<'w>(
         ),
         None => (0, ((cfg.pixels.max(2) as i64) - 1) << 16),
     };
-    let (first_ok, second_ok) = line_masks(&strong_peaks, &strong_lines, &axis.u, lines, cfg);
+    let (first_ok, second_ok) = line_masks(strong_peaks, &strong_lines, &axis.u, lines, cfg);
     let search = Search {
         peaks,
-        scored: &scored,
+        scored,
         axis,
         lines,
         cfg,
@@ -346,8 +383,171 @@ pub fn identify_with<'w>(
     let best = best
         .filter(|h| h.net >= 3)
         .ok_or(CalibrateError::NoConsistentPattern)?;
-    refine(best, peaks, axis, lines, cfg, room, found)?;
-    Ok(found)
+    refine(best, peaks, axis, lines, cfg, room, found)
+}
+
+/// Scored peaks that must agree on one offset before the quick identification fits.
+const QUICK_VOTES: usize = 4;
+/// Fewest lines the quick identification's fit must match to be taken.
+const QUICK_LINES: usize = 4;
+
+/// The quick identification with a nominal map, into `room` and `found`: whether it was taken.
+///
+/// A stored map that drifted mostly shifts the lines: the differences λ_line − u_peak of the
+/// scored peaks then pile up at that shift. The densest window of them (the search window wide)
+/// gives the hypothesis a = shift, b = 1, refined as a search result is (fits and re-matches).
+/// It is taken when at least [`QUICK_LINES`] lines match with a weighted RMS below ¼ px and no
+/// line on the fitted sensor at least as strong as the median matched one is left without a
+/// peak ([`misses_a_line`]); otherwise the full search runs (a scale error of a few per cent,
+/// a foreign frame whose lines swamp the lamp's). A crowded frame (more than [`DENSE_PEAKS`]
+/// peaks) goes to the search at once: chance agreements there would make the quick test cost a
+/// fit before failing. Work: ≤ 16 × 48 differences into a 64-bin histogram, then [`refine`]'s
+/// bound and ≤ 48 line tests; no fit when fewer than [`QUICK_VOTES`] peaks agree. Out of line:
+/// its frame is not under the search's.
+#[inline(never)]
+fn quick(
+    peaks: &[Peak],
+    scored: &[u8],
+    lines: &[ReferenceLine],
+    cfg: &IdentifyConfig,
+    axis: &mut Axis,
+    room: &mut FitRoom,
+    found: &mut Identified,
+) -> bool {
+    let Some(m) = &cfg.nominal else {
+        return false;
+    };
+    if !axis.lines_sorted || peaks.len() > DENSE_PEAKS {
+        return false;
+    }
+    // Dispersion at the sensor centre (fm per px): windows need only its size.
+    let Ok(slope) = m.slope_fm_per_px_q16(m.center_px_q16) else {
+        return false;
+    };
+    let disp = (slope.unsigned_abs() >> 16).min(1 << 40) as i64;
+    let tol = window_of(disp, cfg.search_window_px_q8 as i64);
+    let Some(shift) = densest_offset(scored, &axis.u, lines, cfg.max_offset_fm, tol) else {
+        return false;
+    };
+    axis.fill_uniform_slope(peaks.len(), disp);
+    let h = Hypothesis {
+        a_fm: shift,
+        b_q30: 1 << 30,
+        net: 0,
+        concord: 0,
+        cost: 0,
+        lines_of: [u8::MAX; SCORE_PEAKS],
+    };
+    if refine(h, peaks, axis, lines, cfg, room, found).is_err() {
+        return false;
+    }
+    found.pairs.len() >= QUICK_LINES
+        && found.fit.rms_residual_fm <= (disp as u64) >> 2
+        && !misses_a_line(found, lines, cfg)
+}
+
+/// The middle of the densest window of differences λ_line − u_peak (scored peaks, lines within
+/// `max_offset_fm`), when at least [`QUICK_VOTES`] fall in it. The differences are counted in bins
+/// `tol_fm` wide (wider where ±`max_offset_fm` would need more than 62) and the window is the
+/// densest pair of neighbouring bins (the first on a tie): a histogram, no sort. Differences are
+/// `i32` (offsets and windows below 2^29 fm, 0.5 mm); at most 64 are kept. Lines sorted by
+/// wavelength. Out of line: its tables are not on the stack while the fits run.
+#[inline(never)]
+fn densest_offset(
+    scored: &[u8],
+    u: &[i64],
+    lines: &[ReferenceLine],
+    max_offset_fm: i64,
+    tol_fm: i64,
+) -> Option<i64> {
+    const LIMIT: i64 = 1 << 29;
+    const BINS: usize = 64;
+    if !(0..LIMIT).contains(&max_offset_fm) || !(1..LIMIT).contains(&tol_fm) {
+        return None;
+    }
+    let mut diffs: Vec<i32, 64> = Vec::new();
+    'peaks: for &k in scored {
+        let Some(&uk) = u.get(k as usize) else {
+            continue;
+        };
+        let lo = uk.saturating_sub(max_offset_fm);
+        let start = lines.partition_point(|l| l.wavelength_fm < lo);
+        for l in lines.iter().skip(start) {
+            let d = l.wavelength_fm.saturating_sub(uk);
+            if d > max_offset_fm {
+                break;
+            }
+            if d < -max_offset_fm {
+                continue;
+            }
+            // |d| < 2^29: exact in i32.
+            if diffs.push(d as i32).is_err() {
+                break 'peaks;
+            }
+        }
+    }
+    // Bin width w ≥ tol with 2 · max_offset / w < 62, and its reciprocal for the bin index:
+    // (d + max_offset) < 2^30, so ⌊(d + max_offset) · ⌈2^32 / w⌉ / 2^32⌋ is the quotient or one
+    // above it, always below BINS.
+    let (max_off, tol) = (max_offset_fm as u32, tol_fm as u32);
+    let width = tol.max(max_off / 31 + 1);
+    let recip = (1u64 << 32).div_ceil(width as u64);
+    let bin = |d: i32| -> usize {
+        let v = (d as i64 + max_offset_fm) as u64;
+        ((v * recip) >> 32).min(BINS as u64 - 1) as usize
+    };
+    let mut count = [0u8; BINS];
+    for &d in diffs.iter() {
+        if let Some(c) = count.get_mut(bin(d)) {
+            *c += 1;
+        }
+    }
+    let (mut best, mut at) = (0u32, 0usize);
+    for (i, pair) in count.windows(2).enumerate() {
+        let n = pair.iter().map(|&c| c as u32).sum::<u32>();
+        if n > best {
+            (best, at) = (n, i);
+        }
+    }
+    if (best as usize) < QUICK_VOTES {
+        return None;
+    }
+    // The window's median (a stray difference at its edge does not pull it).
+    let mut inside: Vec<i32, 64> = Vec::new();
+    for &d in diffs.iter().filter(|&&d| (at..=at + 1).contains(&bin(d))) {
+        let _ = inside.push(d);
+    }
+    let mid = inside.len() / 2;
+    crate::sort::select_kth(&mut inside, mid).map(i64::from)
+}
+
+/// Whether a line on the fitted map's sensor, at least as strong as the median of the matched
+/// ones, has no peak: a fit that took only part of the pattern (the search's miss rule, see
+/// [`score`], kept to the lines that matter: a faint line lost under a foreign band is no sign of
+/// a wrong identification, a missing strong one is).
+fn misses_a_line(found: &Identified, lines: &[ReferenceLine], cfg: &IdentifyConfig) -> bool {
+    let mut paired = [false; MAX_REFERENCE_LINES];
+    let mut strengths: Vec<u32, 48> = Vec::new();
+    for &(_, l) in &found.pairs {
+        if let Some(slot) = paired.get_mut(l as usize) {
+            *slot = true;
+        }
+        let _ = strengths.push(lines.get(l as usize).map_or(0, |r| r.strength));
+    }
+    let mid = strengths.len() / 2;
+    let Some(median) = crate::sort::select_kth(&mut strengths, mid) else {
+        return true;
+    };
+    let map = &found.fit.map;
+    let last = ((cfg.pixels.max(2) as i32) - 1) << 16;
+    let (Ok(a), Ok(b)) = (map.wavelength_fm(0), map.wavelength_fm(last)) else {
+        return true;
+    };
+    let (lo, hi) = (a.min(b), a.max(b));
+    lines
+        .iter()
+        .zip(paired.iter())
+        .any(|(l, &seen)| !seen && l.strength >= median && (lo..=hi).contains(&l.wavelength_fm))
 }
 
 /// The fixed inputs of the hypothesis search.
@@ -427,7 +627,22 @@ impl Axis {
     };
 
     /// The axis of `peaks`, written over `self` (in place: 1.5 KiB).
+    #[cfg(test)]
     fn fill(
+        &mut self,
+        peaks: &[Peak],
+        lines: &[ReferenceLine],
+        cfg: &IdentifyConfig,
+    ) -> Result<(), CalibrateError> {
+        self.fill_positions(peaks, lines, cfg)?;
+        self.fill_slopes(peaks, cfg);
+        Ok(())
+    }
+
+    /// u and x of every peak (du/dp is left empty: [`fill_slopes`](Self::fill_slopes) or
+    /// [`fill_uniform_slope`](Self::fill_uniform_slope) adds it, so a quick identification that
+    /// succeeds never works out the nominal slope at every peak).
+    fn fill_positions(
         &mut self,
         peaks: &[Peak],
         lines: &[ReferenceLine],
@@ -440,50 +655,66 @@ impl Axis {
         let hw = cfg.nominal.as_ref().map(HalfWidth::forward);
         let fit_frame = standard_frame(cfg.pixels);
         let fit_hw = HalfWidth::forward(&fit_frame);
-        // A nominal map on the fit's frame (as every stored map made by `WavelengthMap::new`) gives
-        // each peak the same x: the same centre and the same half-width divide the same pixel.
-        let shared = cfg.nominal.as_ref().is_some_and(|m| {
-            (m.center_px_q16, m.half_width_px_q16)
-                == (fit_frame.center_px_q16, fit_frame.half_width_px_q16)
-        });
+        let shared = shares_fit_frame(cfg);
         for p in peaks {
             let x_fit = fit_frame.x_q30_by(p.center_px_q16, &fit_hw);
-            let (v, d) = match (&cfg.nominal, &hw) {
+            let v = match (&cfg.nominal, &hw) {
                 (Some(m), Some(hw)) => {
-                    // wavelength_fm and slope_fm_per_px_q16 of the same pixel, sharing its x.
                     let x = if shared {
                         x_fit
                     } else {
                         m.x_q30_by(p.center_px_q16, hw)
                     };
-                    (
-                        m.wavelength_at_x(x)?,
-                        m.slope_at_x_by(x, hw).unwrap_or(0) >> 16,
-                    )
+                    m.wavelength_at_x(x)?
                 }
-                _ => (p.center_px_q16 as i64, 65_536),
+                _ => p.center_px_q16 as i64,
             };
             u.push(v).map_err(|_| CalibrateError::TooManyPoints)?;
-            du_dp.push(d).map_err(|_| CalibrateError::TooManyPoints)?;
             x.push(x_fit).map_err(|_| CalibrateError::TooManyPoints)?;
         }
-        let limit = |vals: &[i64]| {
-            let top = vals
-                .iter()
-                .map(|v| v.unsigned_abs())
-                .max()
-                .unwrap_or(0)
-                .max(1);
-            i64::MAX as u64 / top
-        };
-        self.b_max_u = limit(&self.u);
-        self.b_max_du = limit(&self.du_dp);
-        self.uniform_du = self.du_dp.windows(2).all(|w| matches!(w, [a, b] if a == b));
+        self.b_max_u = b_limit(&self.u);
         self.monotone = self.u.windows(2).all(|w| matches!(w, [a, b] if a <= b));
         self.lines_sorted = lines
             .windows(2)
             .all(|w| matches!(w, [a, b] if a.wavelength_fm <= b.wavelength_fm));
         Ok(())
+    }
+
+    /// du/dp of every peak: the nominal map's slope there (fm per px), sharing the pixel's x with
+    /// its wavelength, or 65 536 blind (u is the pixel in Q16). The search's windows need it.
+    fn fill_slopes(&mut self, peaks: &[Peak], cfg: &IdentifyConfig) {
+        let Axis { du_dp, x, .. } = self;
+        du_dp.clear();
+        let hw = cfg.nominal.as_ref().map(HalfWidth::forward);
+        // A nominal map on the fit's frame (as every stored map made by `WavelengthMap::new`) gives
+        // each peak the same x: the same centre and the same half-width divide the same pixel.
+        let shared = shares_fit_frame(cfg);
+        for (k, p) in peaks.iter().enumerate() {
+            let d = match (&cfg.nominal, &hw) {
+                (Some(m), Some(hw)) => {
+                    let x = match x.get(k) {
+                        Some(&x) if shared => x,
+                        _ => m.x_q30_by(p.center_px_q16, hw),
+                    };
+                    m.slope_at_x_by(x, hw).unwrap_or(0) >> 16
+                }
+                _ => 65_536,
+            };
+            let _ = du_dp.push(d);
+        }
+        self.b_max_du = b_limit(&self.du_dp);
+        self.uniform_du = self.du_dp.windows(2).all(|w| matches!(w, [a, b] if a == b));
+    }
+
+    /// du/dp = `d` (fm per px) at every one of `n` peaks: the quick identification's windows, from
+    /// the nominal slope at the sensor centre.
+    fn fill_uniform_slope(&mut self, n: usize, d: i64) {
+        self.du_dp.clear();
+        for _ in 0..n.min(64) {
+            let _ = self.du_dp.push(d);
+        }
+        self.b_max_du = b_limit(&self.du_dp);
+        self.uniform_du = true;
     }
 
     /// λ of peak `k` under the hypothesis: a + b · u (b in Q30), through `i64` where that is exact.
@@ -521,6 +752,26 @@ impl Axis {
 #[inline(never)]
 fn wide_q30(b: i64, v: i64) -> i128 {
     (b as i128 * v as i128) >> 30
+}
+
+/// Largest |b| (Q30) for which b · v stays within `i64` for every v in `vals`.
+fn b_limit(vals: &[i64]) -> u64 {
+    let top = vals
+        .iter()
+        .map(|v| v.unsigned_abs())
+        .max()
+        .unwrap_or(0)
+        .max(1);
+    i64::MAX as u64 / top
+}
+
+/// Whether the nominal map is on the fit's frame (centre, half-width), so a peak's x is the same on
+/// both.
+fn shares_fit_frame(cfg: &IdentifyConfig) -> bool {
+    let f = standard_frame(cfg.pixels);
+    cfg.nominal.as_ref().is_some_and(|m| {
+        (m.center_px_q16, m.half_width_px_q16) == (f.center_px_q16, f.half_width_px_q16)
+    })
 }
 
 /// Largest |(λ_b − λ_a) − du| a nominal-map hypothesis over `du` can have (see `line_masks` for
@@ -1058,12 +1309,14 @@ fn fit_pairs(
     let FitRoom {
         points: pts,
         xs,
+        us,
         scratch,
         evals,
         point_of_peak,
     } = room;
     pts.clear();
     xs.clear();
+    us.clear();
     *point_of_peak = [0; 64];
     for &(k, l) in pairs {
         let (Some(p), Some(line)) = (peaks.get(k as usize), lines.get(l as usize)) else {
@@ -1087,11 +1340,33 @@ fn fit_pairs(
         if let Some(&x) = axis.x.get(k as usize) {
             let _ = xs.push(x);
         }
+        if let Some(&u) = axis.u.get(k as usize) {
+            let _ = us.push(u);
+        }
     }
     // Fewer points than a full fit wants: drop the degree until the points just determine it.
     let max_deg = (pts.len() as i32 - 1).clamp(1, 3) as u8;
     let degree = cfg.degree.min(max_deg);
-    let done = fit_map_at(pts, Some(xs), degree, cfg.pixels, out, scratch, Some(evals));
+    // With a nominal map, u is its wavelength: the 64-bit fit of the differences where it applies.
+    let done = cfg
+        .nominal
+        .as_ref()
+        .and_then(|m| {
+            fit_correction(
+                pts,
+                xs,
+                us,
+                m,
+                degree,
+                cfg.pixels,
+                out,
+                scratch,
+                Some(&mut evals[..]),
+            )
+        })
+        .unwrap_or_else(|| {
+            fit_map_at(pts, Some(xs), degree, cfg.pixels, out, scratch, Some(evals))
+        });
     if done.is_err() {
         // No fit: no (λ, slope) of it either.
         *point_of_peak = [0; 64];
@@ -1332,6 +1607,90 @@ mod tests {
                 assert_eq!(axis.u[k], u);
             }
         }
+    }
+
+    /// Where the quick identification is taken, the search finds the same lines for the same peaks
+    /// (random subsets of the Balmer lines, foreign peaks, nominal maps up to 6 nm and 1 % off),
+    /// the maps to 200 fm, and the quick one is taken on most such frames.
+    #[test]
+    fn quick_identification_finds_what_the_search_finds() {
+        let lines = balmer();
+        let mut next = crate::test_rng::xorshift(0x5851_f42d_4c95_7f2du64);
+        let (mut taken, mut tried) = (0, 0);
+        for round in 0..400 {
+            let visible: std::vec::Vec<usize> = (0..lines.len())
+                .filter(|_| !next().is_multiple_of(5))
+                .collect();
+            let foreign: std::vec::Vec<i64> = (0..(next() % 3))
+                .map(|_| 380_000_000 + (next() % 280_000_000) as i64)
+                .collect();
+            let peaks = frame(&lines, &visible, &foreign);
+            let off = (next() % 12_000_000) as i64 - 6_000_000;
+            let scale = 165_000_000 + (next() % 3_300_000) as i64 - 1_650_000;
+            let nominal =
+                WavelengthMap::new(2048, 2, [535_000_000 + off, scale, -1_500_000, 0]).unwrap();
+            let cfg = IdentifyConfig::new(2048, 2, Some(nominal));
+            let mut with = IdentifyWork::new();
+            let mut without = IdentifyWork::new();
+            without.no_quick = true;
+            let a = identify_with(&peaks, &lines, &cfg, &mut with).cloned();
+            let b = identify_with(&peaks, &lines, &cfg, &mut without).cloned();
+            // Was the quick one taken? Then the search would not have run in `with`.
+            let mut probe = IdentifyWork::new();
+            probe.axis.fill_positions(&peaks, &lines, &cfg).unwrap();
+            let scored: Vec<u8, SCORE_PEAKS> = {
+                let mut s: Vec<u8, SCORE_PEAKS> =
+                    strongest(peaks.iter().map(|p| p.snr_q8), SCORE_PEAKS);
+                crate::sort::sort_by_key(&mut s, |&k| k);
+                s
+            };
+            let IdentifyWork {
+                axis, room, found, ..
+            } = &mut probe;
+            let quick_taken = quick(&peaks, &scored, &lines, &cfg, axis, room, found);
+            tried += usize::from(b.is_ok());
+            if quick_taken {
+                taken += 1;
+                // The search may refuse a frame with few lines (its misses count against it) that
+                // the quick one matched at least QUICK_LINES lines of, with a good RMS.
+                let a = a.unwrap();
+                let Ok(b) = b else {
+                    assert!(a.pairs.len() >= QUICK_LINES, "round {round}");
+                    continue;
+                };
+                assert_eq!(a.pairs, b.pairs, "round {round}");
+                for px in [0, 1024, 2047] {
+                    let d = a.fit.map.wavelength_fm(px << 16).unwrap()
+                        - b.fit.map.wavelength_fm(px << 16).unwrap();
+                    assert!(d.abs() <= 200, "round {round} px {px}: {d} fm");
+                }
+            }
+        }
+        assert!(taken * 2 > tried, "{taken} of {tried}");
+    }
+
+    /// The quick identification's offset histogram finds a planted shift among chance differences.
+    #[test]
+    fn densest_offset_finds_the_shift() {
+        let lines = balmer();
+        let mut next = crate::test_rng::xorshift(0x1405_7b7e_f767_814fu64);
+        for _ in 0..500 {
+            let shift = (next() % 16_000_000) as i64 - 8_000_000;
+            let mut u: std::vec::Vec<i64> = lines
+                .iter()
+                .map(|l| l.wavelength_fm - shift + (next() % 40_000) as i64)
+                .collect();
+            u.extend((0..3).map(|_| 380_000_000 + (next() % 280_000_000) as i64));
+            let scored: std::vec::Vec<u8> = (0..u.len() as u8).collect();
+            let got = densest_offset(&scored, &u, &lines, 10_000_000, 500_000).unwrap();
+            assert!((got - shift).abs() <= 500_000, "{got} vs {shift}");
+        }
+        // Fewer than QUICK_VOTES agreeing differences: none.
+        let u = [400_000_000i64, 500_000_000, 600_000_000];
+        assert_eq!(
+            densest_offset(&[0, 1, 2], &u, &lines, 10_000_000, 500_000),
+            None
+        );
     }
 
     #[test]

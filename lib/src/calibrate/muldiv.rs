@@ -183,7 +183,7 @@ const RECIPROCAL_TABLE: [u16; 256] = {
 /// memory; checked against the 64-step long division in the tests): an 11-bit table value and
 /// Newton steps to 21, 34 and 64 bits, then one exact adjustment. Every product fits its type
 /// (u64, or the full product of [`mul_64x64`]); the steps mod 2^64 are the paper's.
-fn reciprocal_word(d: u64) -> u64 {
+pub(crate) fn reciprocal_word(d: u64) -> u64 {
     let d0 = d & 1;
     let d9 = (d >> 55) as usize;
     let d40 = (d >> 24) + 1;
