@@ -451,7 +451,8 @@ fn quick(
 /// `tol_fm` wide (wider where ±`max_offset_fm` would need more than 62) and the window is the
 /// densest pair of neighbouring bins (the first on a tie): a histogram, no sort. Differences are
 /// `i32` (offsets and windows below 2^29 fm, 0.5 mm); at most 64 are kept. Lines sorted by
-/// wavelength. Out of line: its tables are not on the stack while the fits run.
+/// wavelength; `tol_fm` at least 2^14 (16 pm). Out of line: its tables are not on the stack while
+/// the fits run.
 #[inline(never)]
 fn densest_offset(
     scored: &[u8],
@@ -462,7 +463,7 @@ fn densest_offset(
 ) -> Option<i64> {
     const LIMIT: i64 = 1 << 29;
     const BINS: usize = 64;
-    if !(0..LIMIT).contains(&max_offset_fm) || !(1..LIMIT).contains(&tol_fm) {
+    if !(0..LIMIT).contains(&max_offset_fm) || !(1 << 14..LIMIT).contains(&tol_fm) {
         return None;
     }
     let mut diffs: Vec<i32, 64> = Vec::new();
@@ -486,19 +487,19 @@ fn densest_offset(
             }
         }
     }
-    // Bin width w ≥ tol with 2 · max_offset / w < 62, and its reciprocal for the bin index:
-    // (d + max_offset) < 2^30, so ⌊(d + max_offset) · ⌈2^32 / w⌉ / 2^32⌋ is the quotient or one
-    // above it, always below BINS.
+    // Bin width w ≥ tol with 2 · max_offset / w < 62, and r = ⌈2^30 / w⌉ ≤ 2^16 (w ≥ 2^14 fm) for
+    // the bin index ⌊(v >> 14) · r / 2^16⌋ ≈ v / w, v = d + max_offset < 2^30: a 32-bit product
+    // (any fixed monotone binning serves: the offset is the median of the window's differences).
     let (max_off, tol) = (max_offset_fm as u32, tol_fm as u32);
     let width = tol.max(max_off / 31 + 1);
-    let recip = (1u64 << 32).div_ceil(width as u64);
-    let bin = |d: i32| -> usize {
-        let v = (d as i64 + max_offset_fm) as u64;
-        ((v * recip) >> 32).min(BINS as u64 - 1) as usize
-    };
+    let recip = (1u32 << 30).div_ceil(width);
+    let mut bins = [0u8; 64];
     let mut count = [0u8; BINS];
-    for &d in diffs.iter() {
-        if let Some(c) = count.get_mut(bin(d)) {
+    for (&d, slot) in diffs.iter().zip(bins.iter_mut()) {
+        let v = (d as i64 + max_offset_fm) as u32;
+        let b = (((v >> 14) * recip) >> 16).min(BINS as u32 - 1) as u8;
+        *slot = b;
+        if let Some(c) = count.get_mut(b as usize) {
             *c += 1;
         }
     }
@@ -514,8 +515,10 @@ fn densest_offset(
     }
     // The window's median (a stray difference at its edge does not pull it).
     let mut inside: Vec<i32, 64> = Vec::new();
-    for &d in diffs.iter().filter(|&&d| (at..=at + 1).contains(&bin(d))) {
-        let _ = inside.push(d);
+    for (&d, &b) in diffs.iter().zip(bins.iter()) {
+        if (at..=at + 1).contains(&(b as usize)) {
+            let _ = inside.push(d);
+        }
     }
     let mid = inside.len() / 2;
     crate::sort::select_kth(&mut inside, mid).map(i64::from)
