@@ -13,16 +13,21 @@
 //! repaired pixels get no weight.
 //!
 //! Cost on a small core is mostly steps, so the fit is built to need one: it starts at the vertex of
-//! the parabola through the logarithms of the three top pixels (exact for a sampled Gaussian), takes
-//! the weights from that start in the same pass as the first step's sums, and stops once a step moved
-//! each parameter by at most four noise scatters (a step leaves ~5–10 % of its move).
+//! the parabola through the logarithms of the three top pixels (exact for a sampled Gaussian) — for
+//! a line clear of its noise, with that parabola's width and height too — takes the weights from
+//! that start in the same pass as the first step's sums, and stops once a step moved the centre and
+//! width by at most four of the centre's own scatters (from the step's normal matrix, shot noise and
+//! all) and the height by four noise scatters or 1/128 of itself (a step leaves ~5–10 % of its move,
+//! from the clear start less).
 //! The 4 × 4 step is eliminated written out, with exact table reciprocals instead of divisions.
 //!
 //! Parameters are updated in relative form (ΔA/A, Δμ/s, Δs/s, Δc/A). Values are taken in *reduced
 //! units*, the frame units shifted right until the window's largest residual is below 2^16 (a shift
 //! of 0 for all but the strongest lines of ADC frames; the noise there is far above the step).
 
-use super::math::{leading_zeros_u32, leading_zeros_u64, mul_i32_wide, recip_u32_max, Recip};
+use super::math::{
+    leading_zeros_u32, leading_zeros_u64, mul_i32_wide, mul_u32_wide, recip_u32_max, Recip,
+};
 use super::noise::NoiseModel;
 use crate::condition::flags;
 
@@ -452,13 +457,39 @@ pub fn fit_line_in(
                 .filter(|&k| k < len)
                 .map(|_| Window::raw_value(d, &shapes, i))
         };
-        let start = start_at(peak, s0, at);
+        let start = start_at(peak, s0, at, false);
         return run_none(start, lo, lo + len.saturating_sub(1));
     }
     scratch.win.fill(d, lo, hi);
     let win = &scratch.win;
-    let start = start_at(peak, s0, |i| win.raw_at(i));
+    let clear = win
+        .raw_at(peak)
+        .is_some_and(|r0| shape_is_clear(d, peak, r0, s0));
+    let mut start = start_at(peak, s0, |i| win.raw_at(i), clear);
+    start.s_q16 = start.s_q16.max(s_min_q16).min(s_max_q16).max(1 << 14);
     run(d, scratch, start, s_min_q16, s_max_q16, max_steps)
+}
+
+/// Whether the peak pixel `r0` (frame units) over its noise is at least `10 · (1 + s0²)` (s0 in
+/// px): where the three top pixels' log curvature is measured to ~10 % or better (its relative
+/// scatter grows as s²/SNR — a wide line bends little over ±1 px), so [`start_at`] may take the width
+/// and height from it. Below, the half-width search's `s0` is the better start. Compared in squares:
+/// `r0² ≥ var · snr_min²`, no root.
+fn shape_is_clear(d: &FitData<'_>, peak: usize, r0: i32, s0_q16: i64) -> bool {
+    let Ok(r) = u32::try_from(r0) else {
+        return false;
+    };
+    let base = d.base.get(peak).copied().unwrap_or(0);
+    let var_q8 = d
+        .noise
+        .var_q8(i64::from(base) + i64::from(r0))
+        .unsigned_abs();
+    // snr_min in Q8: 10 · 256 + 10 · s0² (s0 in Q8 px, ≤ 2^11 for the widest σ, so s0² < 2^22).
+    let s8 = u32::try_from(s0_q16 >> 8).unwrap_or(u32::MAX).min(1 << 11);
+    let snr_min_q8 = 2_560 + ((10 * s8 * s8) >> 8);
+    // snr_min² in Q0 (< 2^30 · 2^16 / 2^16), times the variance in frame units².
+    let snr2 = mul_u32_wide(snr_min_q8, snr_min_q8) >> 16;
+    mul_u32_wide(r, r) >= (var_q8 >> 8).saturating_mul(snr2)
 }
 
 /// The fit's start: the peak pixel's residual as height, `s0` as σ and, for the centre, the vertex
@@ -467,32 +498,77 @@ pub fn fit_line_in(
 /// Gauss–Newton step lands within a few per cent of the converged fit's scatter even at peak SNR 1000
 /// (a parabola through the values themselves is pulled up to 0.1 px toward the pixel's centre, which
 /// a step only cuts to 5–10 %). Where one of the three is not positive, the values' own parabola.
-fn start_at(peak: usize, s0: i64, at: impl Fn(usize) -> Option<i32>) -> Params {
+///
+/// With `shape` (a fit that takes steps), the same log parabola also gives the width and height:
+/// its curvature is 1/s² and its top `ln A`, exact for a sampled Gaussian too, where the peak pixel
+/// and the half-width search's `s0` are off by up to ~10 % — a start that close lets the first step
+/// settle the height and width as well as the centre, and weighs the pixels from a better model.
+/// The width is held within ¾ … 4/3 of `s0` (three noisy pixels of a weak line can say anything),
+/// the height within 1 … 2 × the peak pixel's.
+fn start_at(peak: usize, s0: i64, at: impl Fn(usize) -> Option<i32>, shape: bool) -> Params {
     let r0 = at(peak).unwrap_or(0);
     let rl = peak.checked_sub(1).and_then(&at).unwrap_or(r0);
     let rr = at(peak + 1).unwrap_or(r0);
-    start_from(peak, s0, [rl, r0, rr])
+    start_from(peak, s0, [rl, r0, rr], shape)
 }
 
 /// [`start_at`] from the three residuals left of, at and right of `peak` (one copy for every kind
 /// of `at`).
 #[inline(never)]
-fn start_from(peak: usize, s0: i64, [rl, r0, rr]: [i32; 3]) -> Params {
-    let delta_q16 = if rl > 0 && r0 > 0 && rr > 0 {
-        vertex_q16(
-            log2_q16(rl.unsigned_abs()),
-            log2_q16(r0.unsigned_abs()),
-            log2_q16(rr.unsigned_abs()),
-        )
-    } else {
-        vertex_q16(rl, r0, rr)
-    };
-    Params {
+fn start_from(peak: usize, s0: i64, [rl, r0, rr]: [i32; 3], shape: bool) -> Params {
+    let mut p = Params {
         a_q8: (i64::from(r0) << 8).max(256),
-        mu_q16: ((peak as i64) << 16) + delta_q16,
+        mu_q16: (peak as i64) << 16,
         s_q16: s0,
         c_q8: 0,
+    };
+    if !(rl > 0 && r0 > 0 && rr > 0) {
+        p.mu_q16 += vertex_q16(rl, r0, rr);
+        return p;
     }
+    let (l, m, r) = (
+        log2_q16(rl.unsigned_abs()),
+        log2_q16(r0.unsigned_abs()),
+        log2_q16(rr.unsigned_abs()),
+    );
+    let delta_q16 = vertex_q16(l, m, r);
+    p.mu_q16 += delta_q16;
+    // The curvature in log2 units (Q16 per px²); logs below 2^22, so no overflow.
+    let den = 2 * m - l - r;
+    if shape && den > 0 {
+        let (s, a_q8) = log_shape(r0, den, delta_q16);
+        // 4/3 as 87 381 / 2^16 (a multiply, not a 64-bit division).
+        p.s_q16 = s.max((3 * s0) >> 2).min((s0 * 87_381) >> 16);
+        p.a_q8 = a_q8.max(p.a_q8);
+    }
+    p
+}
+
+/// sqrt(log2 e) in Q14 (1.2011224…, Python `decimal`, rounded to nearest).
+const SQRT_LOG2E_Q14: u32 = 19_679;
+
+/// σ (Q16 px) and height (Q8) of the log parabola with curvature `den` (> 0, log2 units Q16 per
+/// px²) and vertex `delta_q16` from the peak pixel of value `r0` (> 0): `s = sqrt(log2 e / den)`
+/// through the `1/sqrt` table (0.4 %: a start), and `A = r0 · 2^(δ² · den / 2)` with the exponent
+/// held below 1 (δ ≤ ½ px) through the `2^-f` table.
+fn log_shape(r0: i32, den: i32, delta_q16: i64) -> (i64, i64) {
+    // 1/sqrt(den) = m · 2^h / 2^46; s_q16 = sqrt(log2 e) · 2^24 / sqrt(den) = C_q14 · m · 2^(h − 36).
+    let (m, h) = rsqrt_parts(den.unsigned_abs().into());
+    let s = i64::from((SQRT_LOG2E_Q14 * m.unsigned_abs()) >> 36u32.saturating_sub(h).min(31));
+    // t = δ² · den / 2 in Q16: δ² (Q32, ≤ 2^30: |δ| ≤ ½ px) · den (< 2^23) < 2^53, one split
+    // 32-bit product.
+    let d = u32::try_from(delta_q16.unsigned_abs())
+        .unwrap_or(1 << 15)
+        .min(1 << 15);
+    let t = (mul_u32_wide(d * d, den.unsigned_abs()) >> 33).min(65_535) as usize;
+    // 2^t = 2 · 2^-(1 − t), f = 1 − t in (0, 1] (Q16).
+    let f = 65_536 - t;
+    let (i, rem) = (f >> 10, ((f >> 2) & 255) as i32);
+    let t0 = i32::from(EXP2_Q15.get(i).copied().unwrap_or(0));
+    let t1 = i32::from(EXP2_Q15.get(i + 1).copied().unwrap_or(0));
+    let v = t0 - (((t0 - t1) * rem) >> 8); // 2^-f, Q15
+                                           // A_q8 = r0 · 2 · v / 2^15 · 2^8.
+    (s, mul_i32_wide(r0, v) >> 6)
 }
 
 /// Offset (Q16 px) of the vertex of the parabola through `(−1, l)`, `(0, m)`, `(1, r)` from the
@@ -662,8 +738,8 @@ fn run(
     let mut p = start;
     let mut converged = false;
     let mut steps = 0u8;
-    // The last step's solution: its centre pivot gives the centre's σ.
-    let mut last: Option<Solved> = None;
+    // The centre's σ from the last step's solution (its centre pivot).
+    let mut last_sigma: Option<i64> = None;
     let mut model = model0;
     for _ in 0..max_steps.min(ITERATIONS) {
         steps += 1;
@@ -681,7 +757,6 @@ fn run(
             break;
         };
         let [da, dmu, ds, dc] = sol.x;
-        last = Some(sol);
         let da = da.clamp(-(1 << 15), 1 << 15);
         let dmu = dmu.clamp(-(1 << 15), 1 << 15);
         let ds = ds.clamp(-(1 << 14) - (1 << 12), 1 << 14);
@@ -696,27 +771,30 @@ fn run(
         // The centre must stay inside the window, or the fit has wandered onto something else.
         if p.mu_q16 < (lo as i64) << 16 || p.mu_q16 > (hi as i64) << 16 {
             p = start;
-            last = None;
+            last_sigma = None;
             break;
         }
-        // Settled: each parameter moved by at most [`SETTLE_SCATTERS`] × its noise scatter (σ/A of
-        // a relative parameter: the centre and the width by s·σ/A, the height by σ, taken at the
-        // start). Each Gauss–Newton step leaves ~5–10 % of the distance it moved (a step from a
-        // centre 0.1 px off lands 0.005–0.01 px off: the coupled height, width and offset starts), so
-        // what is left after such a step is a fifth of the scatter or less. At least the band the
-        // 32-bit model's own rounding leaves a noiseless fit bouncing in (2^-12 px, 2^-10 relative).
-        let settled = (p.mu_q16 - before.mu_q16).abs() <= tol_mu
-            && (p.a_q8 - before.a_q8).abs() <= tol_a.max(before.a_q8 >> 10)
-            && (p.s_q16 - before.s_q16).abs() <= tol_mu.max(before.s_q16 >> 10);
+        last_sigma = center_sigma(&sol, h_ref, &p);
+        // The centre's own scatter, shot noise and all, from this step's normal matrix: for a
+        // strong line far above the reference noise `tol_mu` stands for.
+        let tol_c = tol_mu.max(last_sigma.unwrap_or(0).saturating_mul(SETTLE_SCATTERS));
+        // Settled: each parameter moved by at most [`SETTLE_SCATTERS`] × its scatter — the centre
+        // and the width by the centre's σ from this step (at least s·σ/A with the reference noise
+        // σ, taken at the start), the height by σ — or, for the height and width, by 1/128 of
+        // themselves. Each Gauss–Newton step leaves ~5–10 % of the distance it moved (a step from a
+        // centre 0.1 px off lands 0.005–0.01 px off: the coupled height, width and offset starts; from
+        // a clear start's width and height less), so what is left after such a step is a fifth of
+        // the scatter, or 0.1 % of the height and width, or less. At least the band the 32-bit
+        // model's own rounding leaves a noiseless fit bouncing in (2^-12 px).
+        let settled = (p.mu_q16 - before.mu_q16).abs() <= tol_c
+            && (p.a_q8 - before.a_q8).abs() <= tol_a.max(before.a_q8 >> 7)
+            && (p.s_q16 - before.s_q16).abs() <= tol_c.max(before.s_q16 >> 7);
         if settled {
             converged = true;
             break;
         }
     }
-    let center_sigma_q16 = last
-        .as_ref()
-        .and_then(|sol| center_sigma(sol, h_ref, &p))
-        .unwrap_or(p.s_q16);
+    let center_sigma_q16 = last_sigma.unwrap_or(p.s_q16);
     Fit {
         center_q16: p.mu_q16,
         center_sigma_q16,
@@ -1250,7 +1328,7 @@ mod tests {
             let (lo, hi) = (peak.saturating_sub(half), (peak + half).min(n - 1));
             scratch.win.fill(&d, lo, hi);
             let win = &scratch.win;
-            let start = start_at(peak, s0c, |i| win.raw_at(i));
+            let start = start_at(peak, s0c, |i| win.raw_at(i), false);
             let slow = run(&d, &mut scratch, start, 1 << 15, 8 << 16, 0);
             assert_eq!(fast, slow);
         }
@@ -1405,7 +1483,7 @@ mod tests {
                     let u = (dx << 16) / s;
                     Some((exp_neg_q16((u * u) >> 17) >> 10) as i32)
                 };
-                let p = start_at(50, s, at);
+                let p = start_at(50, s, at, false);
                 let err = p.mu_q16 - ((50i64 << 16) + off);
                 // 0.003 px: the table's 2^-14 over a curvature of ≥ 1/(2.3² · ln 2) per px².
                 assert!(err.abs() <= 200, "s {s} off {off}: log vertex off by {err}");
@@ -1416,6 +1494,125 @@ mod tests {
                 }
             }
         }
+    }
+
+    /// The log parabola's width and height against the wide arithmetic they stand for:
+    /// `s = sqrt(log2 e / den)` and `A = r0 · e^(ln 2 · δ² · den / 2)`, with log2 e = 1.442695040…
+    /// and ln 2 = 0.693147180… in Q30 (Python `decimal`, 50 digits, rounded) and the exponential
+    /// from [`exp_neg_q16`].
+    #[test]
+    fn log_shape_matches_the_wide_formula() {
+        const LOG2E_Q30: u128 = 1_549_082_005;
+        const LN2_Q30: i128 = 744_261_118;
+        let mut rng = Rng::new(37);
+        let mut checked = 0;
+        for _ in 0..5_000 {
+            let den = 64 + (rng.next_u64() % ((1 << 22) - 64)) as i32;
+            let delta = (rng.next_u64() % (1 << 16)) as i64 - (1 << 15);
+            let r0 = 1 + (rng.next_u64() % (1 << 30)) as i32;
+            let (s, a) = log_shape(r0, den, delta);
+            // s_q16² = log2 e · 2^48 / den.
+            let want_s = isqrt_u128((LOG2E_Q30 << 18) / den as u128) as i64;
+            assert!(
+                (s - want_s).abs() * 1_000 <= want_s * 5 + 2_000,
+                "den {den}: s {s} vs {want_s}"
+            );
+            // The exponent δ² · den / 2 in log2 units is held below 1.
+            let wide = i128::from(delta) * i128::from(delta) * i128::from(den);
+            if wide >= 1 << 49 {
+                continue;
+            }
+            let y_q16 = ((wide * LN2_Q30) >> 63) as i64;
+            let e_q30 = i128::from(exp_neg_q16(y_q16));
+            let want_a = ((i128::from(r0) << 38) / e_q30) as i64;
+            assert!(
+                (a - want_a).abs() * 10_000 <= want_a * 4 + 256,
+                "r0 {r0} den {den} δ {delta}: A {a} vs {want_a}"
+            );
+            checked += 1;
+        }
+        assert!(checked > 1_000, "only {checked} heights checked");
+    }
+
+    /// A noiseless point-sampled Gaussian: the clear start's width and height are the line's.
+    #[test]
+    fn clear_start_takes_width_and_height_from_the_log_parabola() {
+        for s in [60_000i64, 90_000, 140_000] {
+            for off in [-30_000i64, -8_000, 0, 21_000] {
+                let amp = 1i64 << 20;
+                let at = |i: usize| {
+                    let dx = ((i as i64) << 16) - ((50i64 << 16) + off);
+                    let u = (dx << 16) / s;
+                    Some(((amp * exp_neg_q16((u * u) >> 17)) >> 30) as i32)
+                };
+                // A half-width start 20 % wide: the parabola's σ replaces it.
+                let p = start_at(50, s + s / 5, at, true);
+                assert!(
+                    (p.s_q16 - s).abs() * 100 <= s,
+                    "s {s} off {off}: {}",
+                    p.s_q16
+                );
+                let a8 = amp << 8;
+                assert!(
+                    (p.a_q8 - a8).abs() * 500 <= a8,
+                    "s {s} off {off}: A {}",
+                    p.a_q8
+                );
+                // Without `shape`, the half-width σ and the peak pixel stay.
+                let q = start_at(50, s + s / 5, at, false);
+                assert_eq!((q.s_q16, q.mu_q16), (s + s / 5, p.mu_q16));
+                assert_eq!(q.a_q8, i64::from(at(50).unwrap()) << 8);
+            }
+        }
+    }
+
+    /// The clear-shape test is `r0² ≥ var · (10 (1 + s0²))²` in wide arithmetic, up to the
+    /// truncations of its 32-bit form (within 2 % of the boundary).
+    #[test]
+    fn clear_shape_test_is_the_wide_comparison() {
+        let nm = noise(3, 41_943);
+        let mut rng = Rng::new(41);
+        let (mut yes, mut no) = (0, 0);
+        for _ in 0..20_000 {
+            let b = (rng.next_u64() % 5_000) as i32;
+            let r0 = (rng.next_u64() % 400_000) as i32 >> (rng.next_u64() % 12) as u32;
+            let r0 = if rng.next_u64().is_multiple_of(16) {
+                -r0
+            } else {
+                r0
+            };
+            let s0 = (1 << 14) + (rng.next_u64() % ((8 << 16) - (1 << 14))) as i64;
+            let frame = std::vec![b + r0; 8];
+            let base = std::vec![b; 8];
+            let fl = std::vec![0u8; 8];
+            let d = FitData {
+                frame: &frame,
+                base: &base,
+                flag: &fl,
+                noise: &nm,
+                neighbours: [None, None],
+            };
+            let got = shape_is_clear(&d, 3, r0, s0);
+            // r0² · 2^72 ≥ var_q8 · (10 · 2^32 + 10 · s0²)².
+            let var = i128::from(nm.var_q8(i64::from(b) + i64::from(r0)));
+            let k = 10 * (1i128 << 32) + 10 * i128::from(s0) * i128::from(s0);
+            let lhs = if r0 > 0 {
+                (i128::from(r0) * i128::from(r0)) << 72
+            } else {
+                -1
+            };
+            let rhs = var * k * k;
+            let want = lhs >= rhs;
+            if got != want {
+                assert!((lhs - rhs).abs() * 50 <= rhs, "r0 {r0} s0 {s0} b {b}");
+            }
+            if got {
+                yes += 1;
+            } else {
+                no += 1;
+            }
+        }
+        assert!(yes > 2_000 && no > 2_000, "{yes} clear, {no} not");
     }
 
     #[test]
