@@ -14,7 +14,7 @@ use crate::find::{find_peaks, FindReport, Peak, PeakList};
 use crate::judge::{
     MatchedLine, Mode, Reason, Report, SpeciesShare, UnexplainedPeak, MAX_UNEXPLAINED,
 };
-use crate::matching::assign::{assign, Pair};
+use crate::matching::assign::{assign_in_order, priority, Pair};
 use crate::matching::catalogue::{build_into, CatalogueLine, MAX_NUCLEI};
 use crate::matching::feature::{group_members, prior_share, settle_placed, Feature, MAX_FEATURES};
 use crate::matching::isotope::{
@@ -42,6 +42,10 @@ pub struct Checker {
     placed: Placed,
     /// Whether `placed` holds them (verify mode, grouping succeeded).
     placed_valid: bool,
+    /// [`priority`] of `placed.features` (both modes): the order assignment visits a frame's
+    /// features in whenever their rates are the stored grouping's (verify mode, and calibrate mode
+    /// settled from the stored grouping), so no frame sorts them.
+    placed_order: Vec<u8, MAX_FEATURES>,
     /// Per catalogue line, the first line with the same nucleus and transition (itself, on a
     /// catalogue without repeats): [`same`] is equality of these. Made in `configure`.
     same_as: [u8; MAX_CATALOGUE],
@@ -255,6 +259,7 @@ impl Checker {
                 windows: Vec::new(),
             },
             placed_valid: false,
+            placed_order: Vec::new(),
             same_as: [u8::MAX; MAX_CATALOGUE],
             partner: [u8::MAX; MAX_CATALOGUE],
             drift_points: DriftPoints::NONE,
@@ -284,6 +289,7 @@ impl Checker {
         self.pair = None;
         self.refs.clear();
         self.placed_valid = false;
+        self.placed_order.clear();
         self.same_as = [u8::MAX; MAX_CATALOGUE];
         self.partner = [u8::MAX; MAX_CATALOGUE];
         self.drift_points = DriftPoints::NONE;
@@ -342,6 +348,7 @@ impl Checker {
                 self.cfg.pixels,
             );
         }
+        self.placed_order = priority(&self.placed.features);
         Ok(())
     }
 
@@ -575,7 +582,11 @@ impl Checker {
         }
         let in_use: &MapInUse = in_use;
         let window_of = |i: usize| windows.get(i).copied().unwrap_or((1 << 16, 1 << 16));
-        let pairs = assign(features, peaks, |i, _| window_of(i).1);
+        let pairs = if same_rates(features, &self.placed.features) {
+            assign_in_order(features, &self.placed_order, peaks, |i, _| window_of(i).1)
+        } else {
+            assign_in_order(features, &priority(features), peaks, |i, _| window_of(i).1)
+        };
         let pairs = self.split_resolved(features, pairs, peaks, in_use, |i| window_of(i).0);
         let estimate = self.isotope(features, &pairs, peaks, in_use, rows, readings);
         let shares = self.shares(estimate);
@@ -875,13 +886,23 @@ impl Checker {
         share_known: bool,
         report: &mut Report,
     ) -> Result<(), CheckError> {
+        // Pairs per feature (a feature matched twice is a resolved blend), and which features have
+        // another within 2.5 line widths: once for all pairs.
+        let mut matched = [0u8; MAX_FEATURES];
+        for p in pairs {
+            if let Some(n) = matched.get_mut(p.feature as usize) {
+                *n = n.saturating_add(1);
+            }
+        }
+        let fwhm_q16 = (self.cfg.line_fwhm_px_q8 as i64) << 8;
+        let near = crowded_features(features, fwhm_q16);
         for p in pairs {
             let (Some(f), Some(pk)) =
                 (features.get(p.feature as usize), peaks.get(p.peak as usize))
             else {
                 continue;
             };
-            let resolved = pairs.iter().filter(|q| q.feature == p.feature).count() > 1;
+            let resolved = matched.get(p.feature as usize).is_some_and(|&n| n > 1);
             let (line, predicted) = if resolved {
                 match self.nearest_member(f, pk, m) {
                     Some((c, _)) => (c, c.wavelength_fm),
@@ -912,16 +933,11 @@ impl Checker {
             // A line within 2.5 line widths of another feature (series-limit crowding) or sharing its
             // peak with another transition is identified, but its centre is pulled by the neighbour:
             // its position is not judged.
-            let fwhm_q16 = (self.cfg.line_fwhm_px_q8 as i64) << 8;
-            let crowded = features.iter().any(|g| {
-                g.predicted_px_q16 != f.predicted_px_q16
-                    && 2 * (g.predicted_px_q16 as i64 - f.predicted_px_q16 as i64).abs()
-                        < 5 * fwhm_q16
-            }) || f
-                .members
-                .iter()
-                .filter_map(|&i| self.catalogue.get(i as usize))
-                .any(|c| (c.lower, c.upper) != (line.lower, line.upper));
+            let crowded = (p.feature < 64 && near & (1 << p.feature) != 0)
+                || f.members
+                    .iter()
+                    .filter_map(|&i| self.catalogue.get(i as usize))
+                    .any(|c| (c.lower, c.upper) != (line.lower, line.upper));
             let judged = if crowded {
                 0
             } else if !resolved && !share_known && f.members.len() > 1 {
@@ -1241,8 +1257,9 @@ impl Checker {
             .expected()
             .find(|s| s.nucleus == b)
             .map_or((0, 1000), |s| (s.min_share_permille, s.max_share_permille));
-        let at =
-            |fb: u16| la.wavelength_fm + (lb.wavelength_fm - la.wavelength_fm) * fb as i64 / 1000;
+        let at = |fb: u16| {
+            la.wavelength_fm + div_1000((lb.wavelength_fm - la.wavelength_fm) * fb as i64)
+        };
         let (x, y) = (at(range.0), at(range.1));
         let (lo, hi) = (x.min(y), x.max(y));
         measured - measured.clamp(lo, hi)
@@ -1419,6 +1436,76 @@ fn shl32_div(v: i64, d: i64) -> i128 {
     } else {
         ((v as i128) << 32).checked_div(d as i128).unwrap_or(0)
     }
+}
+
+/// Bit k: feature k has another feature (at a different pixel) closer than 2.5 line widths
+/// (2 · |Δp| < 5 · `fwhm_q16`, px Q16), as [`Checker::fill_lines`] marks series-limit crowding.
+/// Features ordered by pixel (grouping follows the catalogue's wavelengths on a monotone map)
+/// are compared with their neighbours only, out to the first past the limit; otherwise (or past
+/// 64 features) every pair is compared. The same bits either way.
+///
+/// Work: ≤ 40 features × their neighbours within the limit (sorted), else ≤ 40 × 40 comparisons.
+fn crowded_features(features: &[Feature], fwhm_q16: i64) -> u64 {
+    let features = features.get(..features.len().min(64)).unwrap_or(&[]);
+    let px = |f: &Feature| f.predicted_px_q16 as i64;
+    let close = |a: i64, b: i64| 2 * (a - b).abs() < 5 * fwhm_q16;
+    let rising = features
+        .windows(2)
+        .all(|w| matches!(w, [a, b] if px(a) <= px(b)));
+    let falling = features
+        .windows(2)
+        .all(|w| matches!(w, [a, b] if px(a) >= px(b)));
+    let mut out = 0u64;
+    for (k, f) in features.iter().enumerate() {
+        let p = px(f);
+        let crowded = if rising || falling {
+            // Outwards on either side; past the first one beyond the limit every other is farther.
+            let after = features.iter().skip(k + 1).map(px);
+            let before = features.iter().take(k).rev().map(px);
+            side_crowds(after, p, close) || side_crowds(before, p, close)
+        } else {
+            features.iter().any(|g| px(g) != p && close(px(g), p))
+        };
+        if crowded {
+            out |= 1 << k;
+        }
+    }
+    out
+}
+
+/// Whether a pixel of `side` (going away from `p`, in order of distance) differs from `p` and is
+/// `close` to it, looking no farther than the first that is not close.
+fn side_crowds(side: impl Iterator<Item = i64>, p: i64, close: impl Fn(i64, i64) -> bool) -> bool {
+    for q in side {
+        if !close(q, p) {
+            return false;
+        }
+        if q != p {
+            return true;
+        }
+    }
+    false
+}
+
+/// ⌊v / 1000⌋ truncated towards zero, as `v / 1000`: for |v| < 2^32 from one 32 × 32-bit product
+/// (|v| · ⌈2^41 / 1000⌉ / 2^41 is exact below 2^41 / 448, beyond 2^32), else the division.
+fn div_1000(v: i64) -> i64 {
+    const M: u32 = 2_199_023_256; // ⌈2^41 / 1000⌉
+    let Ok(n) = u32::try_from(v.unsigned_abs()) else {
+        return v / 1000;
+    };
+    let q = (crate::find::math::mul_u32_wide(n, M) >> 41) as i64;
+    if v < 0 {
+        -q
+    } else {
+        q
+    }
+}
+
+/// Whether `a` and `b` list the same expected rates, in order: then [`priority`] gives both the
+/// same order.
+fn same_rates(a: &[Feature], b: &[Feature]) -> bool {
+    a.len() == b.len() && a.iter().zip(b).all(|(f, g)| f.expected == g.expected)
 }
 
 /// Per catalogue line, the index of the first line [`same`] as it (see [`Checker`]'s `same_as`).
@@ -1628,6 +1715,82 @@ mod tests {
                 strength: 1,
             })
             .collect()
+    }
+
+    /// The neighbour scan marks the features the all-pairs test of crowding marks: sorted either
+    /// way, unsorted, equal pixels, and limits from none to all.
+    #[test]
+    fn crowded_features_are_the_all_pairs_test() {
+        let mut next = crate::test_rng::xorshift(0x5851_f42d_4c95_7f2du64);
+        let (mut marked, mut clear) = (0, 0);
+        for round in 0..4000 {
+            let n = (next() % (MAX_FEATURES as u64 + 1)) as usize;
+            let spread = 1 + (next() % 400) as i32;
+            let mut px: std::vec::Vec<i32> = (0..n)
+                .map(|_| ((next() % spread as u64) as i32) << 14)
+                .collect();
+            match round % 3 {
+                0 => px.sort(),
+                1 => px.sort_by(|a, b| b.cmp(a)),
+                _ => {}
+            }
+            let features: std::vec::Vec<Feature> = px
+                .iter()
+                .map(|&p| Feature {
+                    members: Vec::new(),
+                    primary: 0,
+                    predicted_fm: 0,
+                    predicted_px_q16: p,
+                    expected: 0,
+                })
+                .collect();
+            let fwhm_q16 = (next() % (8 << 16)) as i64;
+            let got = crowded_features(&features, fwhm_q16);
+            for (k, f) in features.iter().enumerate() {
+                let want = features.iter().any(|g| {
+                    g.predicted_px_q16 != f.predicted_px_q16
+                        && 2 * (g.predicted_px_q16 as i64 - f.predicted_px_q16 as i64).abs()
+                            < 5 * fwhm_q16
+                });
+                assert_eq!(got >> k & 1 == 1, want, "round {round} feature {k}");
+                if want {
+                    marked += 1;
+                } else {
+                    clear += 1;
+                }
+            }
+        }
+        assert!(marked > 5000 && clear > 5000, "{marked} {clear}");
+    }
+
+    /// The product-and-shift quotient by 1000 is the division, across the 32-bit range, at its
+    /// ends and past it.
+    #[test]
+    fn div_1000_is_the_division() {
+        let mut next = crate::test_rng::xorshift(0x2545_f491_4f6c_dd1du64);
+        let edges = [
+            0i64,
+            1,
+            999,
+            1000,
+            1001,
+            u32::MAX as i64,
+            1 << 32,
+            i64::MAX,
+            i64::MIN + 1,
+        ];
+        for v in edges.into_iter().chain((0..200_000).map(|_| {
+            let v = (next() >> (next() % 64)) as i64;
+            if next().is_multiple_of(2) {
+                v
+            } else {
+                v.wrapping_neg()
+            }
+        })) {
+            for v in [v, v.wrapping_neg()] {
+                assert_eq!(div_1000(v), v / 1000, "{v}");
+            }
+        }
     }
 
     /// A peak the list would drop is exactly one whose push leaves the list unchanged.
