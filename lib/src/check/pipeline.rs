@@ -10,7 +10,7 @@ use crate::calibrate::{
     ReferenceLine, WavelengthMap, MAX_REFERENCE_LINES,
 };
 use crate::condition::{condition_frame, FrameSum, GainTable};
-use crate::find::{find_peaks, FindReport, Peak, PeakList};
+use crate::find::{find_peaks, FindReport, Peak, PeakList, MAX_PEAKS};
 use crate::judge::{
     MatchedLine, Mode, Reason, Report, SpeciesShare, UnexplainedPeak, MAX_UNEXPLAINED,
 };
@@ -811,8 +811,9 @@ impl Checker {
                 .and_then(|f| self.member_span_px(f, m))
                 .unwrap_or((1, 0))
         }));
+        let taken = Taken::of(&matched);
         for (k, pk) in peaks.iter().enumerate() {
-            if matched.iter().any(|p| p.peak as usize == k) {
+            if taken.has(k, &matched) {
                 continue;
             }
             let hit = matched.iter().zip(spans.iter()).find(|(p, &span)| {
@@ -976,10 +977,11 @@ impl Checker {
     ) {
         let mut total: i128 = 0;
         let mut foreign: i128 = 0;
+        let taken = Taken::of(pairs);
         for (k, pk) in peaks.iter().enumerate() {
             let area = pk.area.max(0) as i128;
             total += area;
-            if pairs.iter().any(|p| p.peak as usize == k) {
+            if taken.has(k, pairs) {
                 continue;
             }
             foreign += area;
@@ -1412,8 +1414,10 @@ fn reference_lines(
 /// otherwise).
 fn root_sum_squares(c: u128, s: u128) -> u64 {
     if c < 1 << 31 && s < 1 << 31 {
-        let (c, s) = (c as u64, s as u64);
-        return crate::fixed::isqrt_u128(u128::from(c * c + s * s)) as u64;
+        // Each square below 2^62 from one 32 × 32-bit product: the sum fits u64.
+        let (c, s) = (c as u32, s as u32);
+        let sum = crate::find::math::mul_u32_wide(c, c) + crate::find::math::mul_u32_wide(s, s);
+        return crate::fixed::isqrt_u128(u128::from(sum)) as u64;
     }
     crate::fixed::isqrt_u128(c * c + s * s) as u64
 }
@@ -1435,6 +1439,31 @@ fn shl32_div(v: i64, d: i64) -> i128 {
         i128::from((v << 32).checked_div(d).unwrap_or(0))
     } else {
         ((v as i128) << 32).checked_div(d as i128).unwrap_or(0)
+    }
+}
+
+/// Which peaks some pair holds, from one pass over the pairs (asking the pairs for each peak is
+/// ≤ 64 × 40 comparisons).
+struct Taken([bool; MAX_PEAKS]);
+
+impl Taken {
+    fn of(pairs: &[Pair]) -> Taken {
+        let mut t = [false; MAX_PEAKS];
+        for p in pairs {
+            if let Some(slot) = t.get_mut(p.peak as usize) {
+                *slot = true;
+            }
+        }
+        Taken(t)
+    }
+
+    /// Whether a pair of `pairs` (the ones this was made of) holds peak `k`; past the table, asked
+    /// of the pairs.
+    fn has(&self, k: usize, pairs: &[Pair]) -> bool {
+        match self.0.get(k) {
+            Some(&t) => t,
+            None => pairs.iter().any(|p| p.peak as usize == k),
+        }
     }
 }
 
@@ -1789,6 +1818,44 @@ mod tests {
         })) {
             for v in [v, v.wrapping_neg()] {
                 assert_eq!(div_1000(v), v / 1000, "{v}");
+            }
+        }
+    }
+
+    /// The 32-bit squares give the 128-bit root, below 2^31 and across the switch.
+    #[test]
+    fn root_sum_squares_is_the_wide_root() {
+        let mut next = crate::test_rng::xorshift(0x94d0_49bb_1331_11ebu64);
+        let wide = |c: u128, s: u128| crate::fixed::isqrt_u128(c * c + s * s) as u64;
+        for _ in 0..100_000 {
+            let c = (next() >> (next() % 64)) as u128 >> 32;
+            let s = (next() >> (next() % 64)) as u128 >> 32;
+            assert_eq!(root_sum_squares(c, s), wide(c, s), "{c} {s}");
+        }
+        for (c, s) in [
+            (0, 0),
+            ((1 << 31) - 1, (1 << 31) - 1),
+            (1 << 31, 5),
+            (7, 1 << 31),
+        ] {
+            assert_eq!(root_sum_squares(c, s), wide(c, s), "{c} {s}");
+        }
+    }
+
+    /// The table says which peaks the pairs hold, as asking the pairs does, past it too.
+    #[test]
+    fn taken_peaks_are_the_pairs_peaks() {
+        let mut next = crate::test_rng::xorshift(0xbf58_476d_1ce4_e5b9u64);
+        for _ in 0..2000 {
+            let pairs: std::vec::Vec<Pair> = (0..next() % 41)
+                .map(|_| Pair {
+                    feature: (next() % 40) as u8,
+                    peak: (next() % 80) as u8,
+                })
+                .collect();
+            let t = Taken::of(&pairs);
+            for k in 0..90 {
+                assert_eq!(t.has(k, &pairs), pairs.iter().any(|p| p.peak as usize == k));
             }
         }
     }
