@@ -64,6 +64,12 @@ struct Placed {
     features: Vec<Feature, MAX_FEATURES>,
     lines: LinePixels,
     windows: Vec<(i32, i32), MAX_FEATURES>,
+    /// Per feature, the reach of its members on the stored map (px, Q16, ≤ 128 px; see
+    /// [`blend_reach_px_q16`]): calibrate mode scales it to the fitted map (see [`scaled_window`]).
+    reach_px_q16: Vec<i32, MAX_FEATURES>,
+    /// The stored map's |slope| at its frame's centre (fm per px, Q16; 0: none), the scale's
+    /// reference.
+    mid_slope: u64,
 }
 
 /// The map a check measures with, and its uncertainty.
@@ -257,6 +263,8 @@ impl Checker {
                 features: Vec::new(),
                 lines: LinePixels::new(),
                 windows: Vec::new(),
+                reach_px_q16: Vec::new(),
+                mid_slope: 0,
             },
             placed_valid: false,
             placed_order: Vec::new(),
@@ -370,10 +378,20 @@ impl Checker {
             features,
             lines,
             windows,
+            reach_px_q16,
+            mid_slope,
         } = placed;
+        reach_px_q16.clear();
+        *mid_slope = 0;
         if group_with_windows(cfg, catalogue, priors, &mut m, features, windows, None).is_err() {
             return false;
         }
+        for f in features.iter() {
+            let far = farthest_member_fm(catalogue, f).unwrap_or(0);
+            let reach = blend_reach_px_q16(far, &m, f.predicted_px_q16).clamp(0, 128 << 16);
+            let _ = reach_px_q16.push(reach as i32);
+        }
+        *mid_slope = m.map.slope_at_x_by(0, &m.div).map_or(0, i64::unsigned_abs);
         *lines = m.lines;
         true
     }
@@ -568,8 +586,8 @@ impl Checker {
         } else {
             // Calibrate mode: the fitted map's line pixels moved from the stored ones (grouping
             // inverts the rest), and the stored grouping's settling where the members agree.
-            let from_stored = (cfg.mode == Mode::Calibrate)
-                .then_some((&self.line_shift, self.placed.features.as_slice()));
+            let from_stored =
+                (cfg.mode == Mode::Calibrate).then_some((&self.line_shift, &self.placed));
             group_with_windows(
                 cfg,
                 &self.catalogue,
@@ -1287,34 +1305,101 @@ fn group_with_windows(
     m: &mut MapInUse,
     features: &mut Vec<Feature, MAX_FEATURES>,
     windows: &mut Vec<(i32, i32), MAX_FEATURES>,
-    from_stored: Option<(&LineShift, &[Feature])>,
+    from_stored: Option<(&LineShift, &Placed)>,
 ) -> Result<(), MatchError> {
     // Closer than 1.5 line widths, two lines may show as one peak (peak finding's own blend limit);
     // a pair that does show as two is split again after matching.
     let merge_q16 = ((cfg.line_fwhm_px_q8 as i32) << 8) * 3 / 2;
     // Calibrate mode: the lines' pixels moved from the stored ones (grouping inverts the rest).
-    let from_stored = from_stored.and_then(|(shift, stored)| {
+    let from_stored = from_stored.and_then(|(shift, placed)| {
         shift
             .place(&m.map, &mut m.lines)
-            .map(|nodes| (shift, stored, nodes))
+            .map(|nodes| (shift, placed, nodes))
     });
     // Every line's pixel is found once, while grouping, for all the steps after it.
     let hw = HalfWidth::reciprocal(&m.map);
     group_members(catalogue, &m.map, &hw, merge_q16, &mut m.lines, features);
-    let settled =
-        from_stored.is_some_and(|(shift, stored, s)| shift.settle_from(stored, &s, features));
-    if !settled {
+    let settled = from_stored
+        .filter(|(shift, placed, s)| shift.settle_from(&placed.features, s, features))
+        .map(|(_, placed, _)| placed);
+    if settled.is_none() {
         for f in features.iter_mut() {
             settle_placed(f, catalogue, &m.map, &hw, priors, &m.lines)?;
         }
     }
     windows.clear();
     let one_px = m.one_px_windows(cfg.profile.max_line_error_fm);
-    for f in features.iter() {
-        let w = windows_px_q16(cfg.profile.max_line_error_fm, catalogue, f, m, one_px);
+    // Settled from the stored grouping with 1-px line windows: the blends' reaches are the stored
+    // ones scaled to this map (see `scaled_window`).
+    let scale = settled
+        .filter(|_| one_px)
+        .and_then(|placed| slope_ratio_q24(placed.mid_slope, m).map(|r| (placed, r)));
+    for (k, f) in features.iter().enumerate() {
+        let fast = scale.and_then(|(placed, r)| scaled_window(placed, k, f, m, r));
+        let w = match fast {
+            Some(w) => w,
+            None => windows_px_q16(cfg.profile.max_line_error_fm, catalogue, f, m, one_px),
+        };
         let _ = windows.push(w);
     }
     Ok(())
+}
+
+/// The stored map's |slope| at its centre over `m`'s there (`mid_slope`: the stored one, fm per px
+/// Q16), in Q24; `None` where either is 0 or the stored one reaches 2^39.
+fn slope_ratio_q24(mid_slope: u64, m: &MapInUse) -> Option<u64> {
+    let fitted = m.map.slope_at_x_by(0, &m.div).ok()?.unsigned_abs();
+    (mid_slope < 1 << 39)
+        .then(|| (mid_slope << 24).checked_div(fitted))
+        .flatten()
+        .filter(|&r| r > 0)
+}
+
+/// Calibrate mode's windows of feature `k` (settled from the stored grouping, so it has the stored
+/// feature's members and position in λ) when [`MapInUse::one_px_windows`] holds and it is on the
+/// sensor: the line's window 1 px, and the blend's reach its stored one ([`Placed`]) times the
+/// ratio of the maps' slopes at their centres (`ratio_q24`, [`slope_ratio_q24`]). A calibration
+/// moves the lines by a nearly affine shift Δ (see [`LineShift`]), which scales every pixel
+/// distance by 1 + Δ′; the centres' ratio takes Δ′ as constant. On stored maps 2 % and 6 nm off
+/// the fitted one (tested) the reach is within 1/256 of [`windows_px_q16`]'s; it is a tolerance
+/// on a peak's distance, not a measured value. `None` otherwise (then `windows_px_q16`).
+fn scaled_window(
+    placed: &Placed,
+    k: usize,
+    f: &Feature,
+    m: &MapInUse,
+    ratio_q24: u64,
+) -> Option<(i32, i32)> {
+    let on_sensor = (f.predicted_px_q16 as i64 - m.map.center_px_q16 as i64).abs()
+        <= m.map.half_width_px_q16 as i64;
+    let reach = *placed.reach_px_q16.get(k)?;
+    if !on_sensor || reach < 0 || ratio_q24 >= 1 << 32 {
+        return None;
+    }
+    // reach ≤ 128 px (Q16: < 2^24) and ratio < 2^32: the product fits u64.
+    let scaled = (mul_64x64(reach as u64, ratio_q24) >> 24) as i64;
+    Some((1 << 16, ((1 << 16) + scaled).min(64 << 16) as i32))
+}
+
+/// How far a feature's farthest member lies from its expected position (fm); `None` for no
+/// members.
+fn farthest_member_fm(catalogue: &[CatalogueLine], f: &Feature) -> Option<i64> {
+    f.members
+        .iter()
+        .filter_map(|&i| catalogue.get(i as usize))
+        .map(|c| (c.wavelength_fm - f.predicted_fm).abs())
+        .max()
+}
+
+/// A blend's reach (px, Q16): `far` (fm, [`farthest_member_fm`]) over the |slope| of `m`'s map at
+/// pixel `p_q16`, as [`windows_px_q16`] takes it on a sensor with 1-px line windows.
+fn blend_reach_px_q16(far: i64, m: &MapInUse, p_q16: i32) -> i128 {
+    if far == 0 {
+        return 0;
+    }
+    let x = m.map.x_q30_by(p_q16, &m.div);
+    let slope = m.map.slope_at_x_by(x, &m.div).unwrap_or(0).unsigned_abs();
+    shl32_div(far, slope.max(1) as i64)
 }
 
 /// Match windows of a feature (px, Q16): its line's (twice the allowed position error plus 3 σ
@@ -1331,12 +1416,7 @@ fn windows_px_q16(
     one_px: bool,
 ) -> (i32, i32) {
     // The quotient grows with the distance: the farthest member's is the largest.
-    let far = f
-        .members
-        .iter()
-        .filter_map(|&i| catalogue.get(i as usize))
-        .map(|c| (c.wavelength_fm - f.predicted_fm).abs())
-        .max();
+    let far = farthest_member_fm(catalogue, f);
     // On the sensor, where `one_px` bounds σ and the slope (|x| ≤ 1).
     let on_sensor = (f.predicted_px_q16 as i64 - m.map.center_px_q16 as i64).abs()
         <= m.map.half_width_px_q16 as i64;
@@ -1820,6 +1900,91 @@ mod tests {
                 assert_eq!(div_1000(v), v / 1000, "{v}");
             }
         }
+    }
+
+    /// Calibrate mode's scaled blend windows are [`windows_px_q16`]'s to 1/256 of the reach (and the
+    /// same line windows) on fitted maps up to 2 % and 6 nm and a tenth of the curvature off the
+    /// stored one, hydrogen and deuterium; and the scaled path is the one taken.
+    #[test]
+    fn scaled_windows_are_the_fitted_maps_windows() {
+        use crate::judge::profile;
+        const N: u16 = 2048;
+        let stored = WavelengthMap::new(N, 2, [545_000_000, 175_000_000, -1_200_000, 0]).unwrap();
+        let (mut worst, mut blends) = (0, 0);
+        for prof in [profile::HYDROGEN, profile::DEUTERIUM] {
+            let cfg = Config {
+                pixels: N,
+                condition: crate::condition::ConditionConfig::new(4095, 10_000),
+                find: crate::find::FindConfig::DEFAULT,
+                stored: super::super::config::StoredMap {
+                    map: stored,
+                    sigma_fm: 3_000,
+                },
+                mode: Mode::Calibrate,
+                degree: 2,
+                air: crate::predict::Air::Standard,
+                line_fwhm_px_q8: 3 << 8,
+                profile: prof,
+            };
+            let checker = Checker::new(cfg.clone()).unwrap();
+            for scale_ppm in [-20_000i64, -7_000, 0, 3_000, 20_000] {
+                for offset_fm in [-6_000_000i64, -1_000_000, 0, 2_500_000, 6_000_000] {
+                    for c2_ppm in [-100_000i64, 0, 100_000] {
+                        let [c0, c1, c2, _] = stored.coeff_fm;
+                        let coeff = [
+                            c0 + offset_fm,
+                            c1 + c1 * scale_ppm / 1_000_000,
+                            c2 + c2 * c2_ppm / 1_000_000,
+                            0,
+                        ];
+                        let fitted = WavelengthMap::new(N, 2, coeff).unwrap();
+                        let mut m = MapInUse::EMPTY;
+                        m.set(fitted, None, 3_000);
+                        let (mut features, mut windows) = (Vec::new(), Vec::new());
+                        group_with_windows(
+                            &cfg,
+                            &checker.catalogue,
+                            &checker.priors,
+                            &mut m,
+                            &mut features,
+                            &mut windows,
+                            Some((&checker.line_shift, &checker.placed)),
+                        )
+                        .unwrap();
+                        let one_px = m.one_px_windows(cfg.profile.max_line_error_fm);
+                        assert!(one_px);
+                        let ratio = slope_ratio_q24(checker.placed.mid_slope, &m).unwrap();
+                        for (k, (f, &(base, total))) in
+                            features.iter().zip(windows.iter()).enumerate()
+                        {
+                            // Grouping took the scaled windows where there are some (off the
+                            // sensor, the computed ones: compared below, exactly).
+                            let fast = scaled_window(&checker.placed, k, f, &m, ratio);
+                            assert!(fast.is_none_or(|w| w == (base, total)));
+                            let (b, t) = windows_px_q16(
+                                cfg.profile.max_line_error_fm,
+                                &checker.catalogue,
+                                f,
+                                &m,
+                                one_px,
+                            );
+                            assert_eq!(base, b);
+                            let reach = (t - b) as i64;
+                            let tol = reach / 256 + 1;
+                            assert!(((total - t) as i64).abs() <= tol, "{total} vs {t}");
+                            if fast.is_none() {
+                                assert_eq!(total, t);
+                            } else if reach > 0 {
+                                blends += 1;
+                                worst = worst.max((total - t).abs());
+                            }
+                        }
+                    }
+                }
+            }
+        }
+        assert!(blends > 500, "{blends}");
+        std::println!("scaled blend windows: {blends}, worst {worst} / 65536 px");
     }
 
     /// The 32-bit squares give the 128-bit root, below 2^31 and across the switch.
