@@ -36,12 +36,13 @@ pub(super) struct LineShift {
     check_q30: [i32; 4],
     /// Per catalogue line: its stored pixel (px, Q16) and its Lagrange weights (Q30).
     lines: [(i32, [i32; 4]); MAX_CATALOGUE],
-    /// Bit i: line i has a stored pixel on the sensor and weights.
-    usable: u64,
+    /// Whether line i has a stored pixel on the sensor and weights (bytes, not bits of a `u64`:
+    /// a variable 64-bit shift is a library call on the Cortex-M0).
+    usable: [bool; MAX_CATALOGUE],
     /// Per feature of the stored map's grouping: its settled pixel there (px, Q16) and weights.
     features: [(i32, [i32; 4]); MAX_FEATURES],
-    /// Bit k: feature k has a pixel on the sensor and weights.
-    features_usable: u64,
+    /// Whether feature k has a pixel on the sensor and weights.
+    features_usable: [bool; MAX_FEATURES],
 }
 
 impl LineShift {
@@ -50,9 +51,9 @@ impl LineShift {
         nodes: None,
         check_q30: [0; 4],
         lines: [(0, [0; 4]); MAX_CATALOGUE],
-        usable: 0,
+        usable: [false; MAX_CATALOGUE],
         features: [(0, [0; 4]); MAX_FEATURES],
-        features_usable: 0,
+        features_usable: [false; MAX_FEATURES],
     };
 
     /// The nodes of `stored` and each catalogue line's weights from its pixel on it in `placed`
@@ -84,7 +85,8 @@ impl LineShift {
             return;
         };
         let last = ((pixels.max(1) as i32) - 1) << 16;
-        for (i, slot) in self.lines.iter_mut().enumerate().take(catalogue.len()) {
+        let lines = self.lines.iter_mut().zip(self.usable.iter_mut());
+        for (i, (slot, usable)) in lines.enumerate().take(catalogue.len()) {
             let Some(Some(p)) = placed.recorded(i as u8) else {
                 continue;
             };
@@ -93,17 +95,21 @@ impl LineShift {
             }
             if let Some(w) = weights(&node_px, p) {
                 *slot = (p, w);
-                self.usable |= 1 << i;
+                *usable = true;
             }
         }
-        for (k, (slot, f)) in self.features.iter_mut().zip(features.iter()).enumerate() {
+        let slots = self
+            .features
+            .iter_mut()
+            .zip(self.features_usable.iter_mut());
+        for ((slot, usable), f) in slots.zip(features.iter()) {
             let p = f.predicted_px_q16;
             if !(0..=last).contains(&p) {
                 continue;
             }
             if let Some(w) = weights(&node_px, p) {
                 *slot = (p, w);
-                self.features_usable |= 1 << k;
+                *usable = true;
             }
         }
         self.check_q30 = check;
@@ -124,10 +130,13 @@ impl LineShift {
     /// Work: five map inversions and four products per line.
     pub(super) fn place(&self, fitted: &WavelengthMap, lines: &mut LinePixels) -> Option<[i32; 4]> {
         let shift = self.node_shifts(fitted)?;
-        for (i, (p, w)) in self.lines.iter().enumerate() {
-            if self.usable & (1 << i) == 0 {
-                continue;
-            }
+        for (i, ((p, w), _)) in self
+            .lines
+            .iter()
+            .zip(self.usable.iter())
+            .enumerate()
+            .filter(|(_, (_, &usable))| usable)
+        {
             let moved = *p as i64 + interpolate(w, &shift);
             lines.put(i as u8, i32::try_from(moved).ok());
         }
@@ -154,7 +163,7 @@ impl LineShift {
         // A blend whose settled wavelength is not its first member's moves off that pixel.
         let moves = |s: &Feature, f: &Feature| s.predicted_fm != f.predicted_fm;
         for (k, (s, f)) in stored.iter().zip(features.iter()).enumerate() {
-            let usable = k < 64 && self.features_usable & (1 << k) != 0;
+            let usable = self.features_usable.get(k).copied().unwrap_or(false);
             if s.members != f.members || (moves(s, f) && !usable) {
                 return false;
             }

@@ -10,11 +10,11 @@ use crate::calibrate::{
     ReferenceLine, WavelengthMap, MAX_REFERENCE_LINES,
 };
 use crate::condition::{condition_frame, FrameSum, GainTable};
-use crate::find::{find_peaks, FindReport, Peak, PeakList};
+use crate::find::{find_peaks, FindReport, Peak, PeakList, MAX_PEAKS};
 use crate::judge::{
     MatchedLine, Mode, Reason, Report, SpeciesShare, UnexplainedPeak, MAX_UNEXPLAINED,
 };
-use crate::matching::assign::{assign, Pair};
+use crate::matching::assign::{assign_in_order, priority, Pair};
 use crate::matching::catalogue::{build_into, CatalogueLine, MAX_NUCLEI};
 use crate::matching::feature::{group_members, prior_share, settle_placed, Feature, MAX_FEATURES};
 use crate::matching::isotope::{
@@ -42,6 +42,10 @@ pub struct Checker {
     placed: Placed,
     /// Whether `placed` holds them (verify mode, grouping succeeded).
     placed_valid: bool,
+    /// [`priority`] of `placed.features` (both modes): the order assignment visits a frame's
+    /// features in whenever their rates are the stored grouping's (verify mode, and calibrate mode
+    /// settled from the stored grouping), so no frame sorts them.
+    placed_order: Vec<u8, MAX_FEATURES>,
     /// Per catalogue line, the first line with the same nucleus and transition (itself, on a
     /// catalogue without repeats): [`same`] is equality of these. Made in `configure`.
     same_as: [u8; MAX_CATALOGUE],
@@ -60,6 +64,12 @@ struct Placed {
     features: Vec<Feature, MAX_FEATURES>,
     lines: LinePixels,
     windows: Vec<(i32, i32), MAX_FEATURES>,
+    /// Per feature, the reach of its members on the stored map (px, Q16, ≤ 128 px; see
+    /// [`blend_reach_px_q16`]): calibrate mode scales it to the fitted map (see [`scaled_window`]).
+    reach_px_q16: Vec<i32, MAX_FEATURES>,
+    /// The stored map's |slope| at its frame's centre (fm per px, Q16; 0: none), the scale's
+    /// reference.
+    mid_slope: u64,
 }
 
 /// The map a check measures with, and its uncertainty.
@@ -253,8 +263,11 @@ impl Checker {
                 features: Vec::new(),
                 lines: LinePixels::new(),
                 windows: Vec::new(),
+                reach_px_q16: Vec::new(),
+                mid_slope: 0,
             },
             placed_valid: false,
+            placed_order: Vec::new(),
             same_as: [u8::MAX; MAX_CATALOGUE],
             partner: [u8::MAX; MAX_CATALOGUE],
             drift_points: DriftPoints::NONE,
@@ -284,6 +297,7 @@ impl Checker {
         self.pair = None;
         self.refs.clear();
         self.placed_valid = false;
+        self.placed_order.clear();
         self.same_as = [u8::MAX; MAX_CATALOGUE];
         self.partner = [u8::MAX; MAX_CATALOGUE];
         self.drift_points = DriftPoints::NONE;
@@ -342,6 +356,7 @@ impl Checker {
                 self.cfg.pixels,
             );
         }
+        self.placed_order = priority(&self.placed.features);
         Ok(())
     }
 
@@ -363,10 +378,20 @@ impl Checker {
             features,
             lines,
             windows,
+            reach_px_q16,
+            mid_slope,
         } = placed;
+        reach_px_q16.clear();
+        *mid_slope = 0;
         if group_with_windows(cfg, catalogue, priors, &mut m, features, windows, None).is_err() {
             return false;
         }
+        for f in features.iter() {
+            let far = farthest_member_fm(catalogue, f).unwrap_or(0);
+            let reach = blend_reach_px_q16(far, &m, f.predicted_px_q16).clamp(0, 128 << 16);
+            let _ = reach_px_q16.push(reach as i32);
+        }
+        *mid_slope = m.map.slope_at_x_by(0, &m.div).map_or(0, i64::unsigned_abs);
         *lines = m.lines;
         true
     }
@@ -561,8 +586,8 @@ impl Checker {
         } else {
             // Calibrate mode: the fitted map's line pixels moved from the stored ones (grouping
             // inverts the rest), and the stored grouping's settling where the members agree.
-            let from_stored = (cfg.mode == Mode::Calibrate)
-                .then_some((&self.line_shift, self.placed.features.as_slice()));
+            let from_stored =
+                (cfg.mode == Mode::Calibrate).then_some((&self.line_shift, &self.placed));
             group_with_windows(
                 cfg,
                 &self.catalogue,
@@ -575,7 +600,11 @@ impl Checker {
         }
         let in_use: &MapInUse = in_use;
         let window_of = |i: usize| windows.get(i).copied().unwrap_or((1 << 16, 1 << 16));
-        let pairs = assign(features, peaks, |i, _| window_of(i).1);
+        let pairs = if same_rates(features, &self.placed.features) {
+            assign_in_order(features, &self.placed_order, peaks, |i, _| window_of(i).1)
+        } else {
+            assign_in_order(features, &priority(features), peaks, |i, _| window_of(i).1)
+        };
         let pairs = self.split_resolved(features, pairs, peaks, in_use, |i| window_of(i).0);
         let estimate = self.isotope(features, &pairs, peaks, in_use, rows, readings);
         let shares = self.shares(estimate);
@@ -800,8 +829,9 @@ impl Checker {
                 .and_then(|f| self.member_span_px(f, m))
                 .unwrap_or((1, 0))
         }));
+        let taken = Taken::of(&matched);
         for (k, pk) in peaks.iter().enumerate() {
-            if matched.iter().any(|p| p.peak as usize == k) {
+            if taken.has(k, &matched) {
                 continue;
             }
             let hit = matched.iter().zip(spans.iter()).find(|(p, &span)| {
@@ -875,13 +905,23 @@ impl Checker {
         share_known: bool,
         report: &mut Report,
     ) -> Result<(), CheckError> {
+        // Pairs per feature (a feature matched twice is a resolved blend), and which features have
+        // another within 2.5 line widths: once for all pairs.
+        let mut matched = [0u8; MAX_FEATURES];
+        for p in pairs {
+            if let Some(n) = matched.get_mut(p.feature as usize) {
+                *n = n.saturating_add(1);
+            }
+        }
+        let fwhm_q16 = (self.cfg.line_fwhm_px_q8 as i64) << 8;
+        let near = crowded_features(features, fwhm_q16);
         for p in pairs {
             let (Some(f), Some(pk)) =
                 (features.get(p.feature as usize), peaks.get(p.peak as usize))
             else {
                 continue;
             };
-            let resolved = pairs.iter().filter(|q| q.feature == p.feature).count() > 1;
+            let resolved = matched.get(p.feature as usize).is_some_and(|&n| n > 1);
             let (line, predicted) = if resolved {
                 match self.nearest_member(f, pk, m) {
                     Some((c, _)) => (c, c.wavelength_fm),
@@ -912,16 +952,11 @@ impl Checker {
             // A line within 2.5 line widths of another feature (series-limit crowding) or sharing its
             // peak with another transition is identified, but its centre is pulled by the neighbour:
             // its position is not judged.
-            let fwhm_q16 = (self.cfg.line_fwhm_px_q8 as i64) << 8;
-            let crowded = features.iter().any(|g| {
-                g.predicted_px_q16 != f.predicted_px_q16
-                    && 2 * (g.predicted_px_q16 as i64 - f.predicted_px_q16 as i64).abs()
-                        < 5 * fwhm_q16
-            }) || f
-                .members
-                .iter()
-                .filter_map(|&i| self.catalogue.get(i as usize))
-                .any(|c| (c.lower, c.upper) != (line.lower, line.upper));
+            let crowded = (p.feature < 64 && near & (1 << p.feature) != 0)
+                || f.members
+                    .iter()
+                    .filter_map(|&i| self.catalogue.get(i as usize))
+                    .any(|c| (c.lower, c.upper) != (line.lower, line.upper));
             let judged = if crowded {
                 0
             } else if !resolved && !share_known && f.members.len() > 1 {
@@ -960,10 +995,11 @@ impl Checker {
     ) {
         let mut total: i128 = 0;
         let mut foreign: i128 = 0;
+        let taken = Taken::of(pairs);
         for (k, pk) in peaks.iter().enumerate() {
             let area = pk.area.max(0) as i128;
             total += area;
-            if pairs.iter().any(|p| p.peak as usize == k) {
+            if taken.has(k, pairs) {
                 continue;
             }
             foreign += area;
@@ -1241,8 +1277,9 @@ impl Checker {
             .expected()
             .find(|s| s.nucleus == b)
             .map_or((0, 1000), |s| (s.min_share_permille, s.max_share_permille));
-        let at =
-            |fb: u16| la.wavelength_fm + (lb.wavelength_fm - la.wavelength_fm) * fb as i64 / 1000;
+        let at = |fb: u16| {
+            la.wavelength_fm + div_1000((lb.wavelength_fm - la.wavelength_fm) * fb as i64)
+        };
         let (x, y) = (at(range.0), at(range.1));
         let (lo, hi) = (x.min(y), x.max(y));
         measured - measured.clamp(lo, hi)
@@ -1268,34 +1305,101 @@ fn group_with_windows(
     m: &mut MapInUse,
     features: &mut Vec<Feature, MAX_FEATURES>,
     windows: &mut Vec<(i32, i32), MAX_FEATURES>,
-    from_stored: Option<(&LineShift, &[Feature])>,
+    from_stored: Option<(&LineShift, &Placed)>,
 ) -> Result<(), MatchError> {
     // Closer than 1.5 line widths, two lines may show as one peak (peak finding's own blend limit);
     // a pair that does show as two is split again after matching.
     let merge_q16 = ((cfg.line_fwhm_px_q8 as i32) << 8) * 3 / 2;
     // Calibrate mode: the lines' pixels moved from the stored ones (grouping inverts the rest).
-    let from_stored = from_stored.and_then(|(shift, stored)| {
+    let from_stored = from_stored.and_then(|(shift, placed)| {
         shift
             .place(&m.map, &mut m.lines)
-            .map(|nodes| (shift, stored, nodes))
+            .map(|nodes| (shift, placed, nodes))
     });
     // Every line's pixel is found once, while grouping, for all the steps after it.
     let hw = HalfWidth::reciprocal(&m.map);
     group_members(catalogue, &m.map, &hw, merge_q16, &mut m.lines, features);
-    let settled =
-        from_stored.is_some_and(|(shift, stored, s)| shift.settle_from(stored, &s, features));
-    if !settled {
+    let settled = from_stored
+        .filter(|(shift, placed, s)| shift.settle_from(&placed.features, s, features))
+        .map(|(_, placed, _)| placed);
+    if settled.is_none() {
         for f in features.iter_mut() {
             settle_placed(f, catalogue, &m.map, &hw, priors, &m.lines)?;
         }
     }
     windows.clear();
     let one_px = m.one_px_windows(cfg.profile.max_line_error_fm);
-    for f in features.iter() {
-        let w = windows_px_q16(cfg.profile.max_line_error_fm, catalogue, f, m, one_px);
+    // Settled from the stored grouping with 1-px line windows: the blends' reaches are the stored
+    // ones scaled to this map (see `scaled_window`).
+    let scale = settled
+        .filter(|_| one_px)
+        .and_then(|placed| slope_ratio_q24(placed.mid_slope, m).map(|r| (placed, r)));
+    for (k, f) in features.iter().enumerate() {
+        let fast = scale.and_then(|(placed, r)| scaled_window(placed, k, f, m, r));
+        let w = match fast {
+            Some(w) => w,
+            None => windows_px_q16(cfg.profile.max_line_error_fm, catalogue, f, m, one_px),
+        };
         let _ = windows.push(w);
     }
     Ok(())
+}
+
+/// The stored map's |slope| at its centre over `m`'s there (`mid_slope`: the stored one, fm per px
+/// Q16), in Q24; `None` where either is 0 or the stored one reaches 2^39.
+fn slope_ratio_q24(mid_slope: u64, m: &MapInUse) -> Option<u64> {
+    let fitted = m.map.slope_at_x_by(0, &m.div).ok()?.unsigned_abs();
+    (mid_slope < 1 << 39)
+        .then(|| (mid_slope << 24).checked_div(fitted))
+        .flatten()
+        .filter(|&r| r > 0)
+}
+
+/// Calibrate mode's windows of feature `k` (settled from the stored grouping, so it has the stored
+/// feature's members and position in λ) when [`MapInUse::one_px_windows`] holds and it is on the
+/// sensor: the line's window 1 px, and the blend's reach its stored one ([`Placed`]) times the
+/// ratio of the maps' slopes at their centres (`ratio_q24`, [`slope_ratio_q24`]). A calibration
+/// moves the lines by a nearly affine shift Δ (see [`LineShift`]), which scales every pixel
+/// distance by 1 + Δ′; the centres' ratio takes Δ′ as constant. On stored maps 2 % and 6 nm off
+/// the fitted one (tested) the reach is within 1/256 of [`windows_px_q16`]'s; it is a tolerance
+/// on a peak's distance, not a measured value. `None` otherwise (then `windows_px_q16`).
+fn scaled_window(
+    placed: &Placed,
+    k: usize,
+    f: &Feature,
+    m: &MapInUse,
+    ratio_q24: u64,
+) -> Option<(i32, i32)> {
+    let on_sensor = (f.predicted_px_q16 as i64 - m.map.center_px_q16 as i64).abs()
+        <= m.map.half_width_px_q16 as i64;
+    let reach = *placed.reach_px_q16.get(k)?;
+    if !on_sensor || reach < 0 || ratio_q24 >= 1 << 32 {
+        return None;
+    }
+    // reach ≤ 128 px (Q16: < 2^24) and ratio < 2^32: the product fits u64.
+    let scaled = (mul_64x64(reach as u64, ratio_q24) >> 24) as i64;
+    Some((1 << 16, ((1 << 16) + scaled).min(64 << 16) as i32))
+}
+
+/// How far a feature's farthest member lies from its expected position (fm); `None` for no
+/// members.
+fn farthest_member_fm(catalogue: &[CatalogueLine], f: &Feature) -> Option<i64> {
+    f.members
+        .iter()
+        .filter_map(|&i| catalogue.get(i as usize))
+        .map(|c| (c.wavelength_fm - f.predicted_fm).abs())
+        .max()
+}
+
+/// A blend's reach (px, Q16): `far` (fm, [`farthest_member_fm`]) over the |slope| of `m`'s map at
+/// pixel `p_q16`, as [`windows_px_q16`] takes it on a sensor with 1-px line windows.
+fn blend_reach_px_q16(far: i64, m: &MapInUse, p_q16: i32) -> i128 {
+    if far == 0 {
+        return 0;
+    }
+    let x = m.map.x_q30_by(p_q16, &m.div);
+    let slope = m.map.slope_at_x_by(x, &m.div).unwrap_or(0).unsigned_abs();
+    shl32_div(far, slope.max(1) as i64)
 }
 
 /// Match windows of a feature (px, Q16): its line's (twice the allowed position error plus 3 σ
@@ -1312,12 +1416,7 @@ fn windows_px_q16(
     one_px: bool,
 ) -> (i32, i32) {
     // The quotient grows with the distance: the farthest member's is the largest.
-    let far = f
-        .members
-        .iter()
-        .filter_map(|&i| catalogue.get(i as usize))
-        .map(|c| (c.wavelength_fm - f.predicted_fm).abs())
-        .max();
+    let far = farthest_member_fm(catalogue, f);
     // On the sensor, where `one_px` bounds σ and the slope (|x| ≤ 1).
     let on_sensor = (f.predicted_px_q16 as i64 - m.map.center_px_q16 as i64).abs()
         <= m.map.half_width_px_q16 as i64;
@@ -1395,8 +1494,10 @@ fn reference_lines(
 /// otherwise).
 fn root_sum_squares(c: u128, s: u128) -> u64 {
     if c < 1 << 31 && s < 1 << 31 {
-        let (c, s) = (c as u64, s as u64);
-        return crate::fixed::isqrt_u128(u128::from(c * c + s * s)) as u64;
+        // Each square below 2^62 from one 32 × 32-bit product: the sum fits u64.
+        let (c, s) = (c as u32, s as u32);
+        let sum = crate::find::math::mul_u32_wide(c, c) + crate::find::math::mul_u32_wide(s, s);
+        return crate::fixed::isqrt_u128(u128::from(sum)) as u64;
     }
     crate::fixed::isqrt_u128(c * c + s * s) as u64
 }
@@ -1419,6 +1520,101 @@ fn shl32_div(v: i64, d: i64) -> i128 {
     } else {
         ((v as i128) << 32).checked_div(d as i128).unwrap_or(0)
     }
+}
+
+/// Which peaks some pair holds, from one pass over the pairs (asking the pairs for each peak is
+/// ≤ 64 × 40 comparisons).
+struct Taken([bool; MAX_PEAKS]);
+
+impl Taken {
+    fn of(pairs: &[Pair]) -> Taken {
+        let mut t = [false; MAX_PEAKS];
+        for p in pairs {
+            if let Some(slot) = t.get_mut(p.peak as usize) {
+                *slot = true;
+            }
+        }
+        Taken(t)
+    }
+
+    /// Whether a pair of `pairs` (the ones this was made of) holds peak `k`; past the table, asked
+    /// of the pairs.
+    fn has(&self, k: usize, pairs: &[Pair]) -> bool {
+        match self.0.get(k) {
+            Some(&t) => t,
+            None => pairs.iter().any(|p| p.peak as usize == k),
+        }
+    }
+}
+
+/// Bit k: feature k has another feature (at a different pixel) closer than 2.5 line widths
+/// (2 · |Δp| < 5 · `fwhm_q16`, px Q16), as [`Checker::fill_lines`] marks series-limit crowding.
+/// Features ordered by pixel (grouping follows the catalogue's wavelengths on a monotone map)
+/// are compared with their neighbours only, out to the first past the limit; otherwise (or past
+/// 64 features) every pair is compared. The same bits either way.
+///
+/// Work: ≤ 40 features × their neighbours within the limit (sorted), else ≤ 40 × 40 comparisons.
+fn crowded_features(features: &[Feature], fwhm_q16: i64) -> u64 {
+    let features = features.get(..features.len().min(64)).unwrap_or(&[]);
+    let px = |f: &Feature| f.predicted_px_q16 as i64;
+    let close = |a: i64, b: i64| 2 * (a - b).abs() < 5 * fwhm_q16;
+    let rising = features
+        .windows(2)
+        .all(|w| matches!(w, [a, b] if px(a) <= px(b)));
+    let falling = features
+        .windows(2)
+        .all(|w| matches!(w, [a, b] if px(a) >= px(b)));
+    let mut out = 0u64;
+    for (k, f) in features.iter().enumerate() {
+        let p = px(f);
+        let crowded = if rising || falling {
+            // Outwards on either side; past the first one beyond the limit every other is farther.
+            let after = features.iter().skip(k + 1).map(px);
+            let before = features.iter().take(k).rev().map(px);
+            side_crowds(after, p, close) || side_crowds(before, p, close)
+        } else {
+            features.iter().any(|g| px(g) != p && close(px(g), p))
+        };
+        if crowded {
+            out |= 1 << k;
+        }
+    }
+    out
+}
+
+/// Whether a pixel of `side` (going away from `p`, in order of distance) differs from `p` and is
+/// `close` to it, looking no farther than the first that is not close.
+fn side_crowds(side: impl Iterator<Item = i64>, p: i64, close: impl Fn(i64, i64) -> bool) -> bool {
+    for q in side {
+        if !close(q, p) {
+            return false;
+        }
+        if q != p {
+            return true;
+        }
+    }
+    false
+}
+
+/// ⌊v / 1000⌋ truncated towards zero, as `v / 1000`: for |v| < 2^32 from one 32 × 32-bit product
+/// (|v| · ⌈2^41 / 1000⌉ / 2^41 is exact below 2^41 / 448, beyond 2^32), else the division.
+fn div_1000(v: i64) -> i64 {
+    const M: u32 = 2_199_023_256; // ⌈2^41 / 1000⌉
+    let Ok(n) = u32::try_from(v.unsigned_abs()) else {
+        return v / 1000;
+    };
+    let q = (crate::find::math::mul_u32_wide(n, M) >> 41) as i64;
+    if v < 0 {
+        -q
+    } else {
+        q
+    }
+}
+
+/// Whether `a` and `b` list the same expected rates, in order: then [`priority`] gives both the
+/// same order.
+fn same_rates(a: &[Feature], b: &[Feature]) -> bool {
+    a.len() == b.len() && a.iter().zip(b).all(|(f, g)| f.expected == g.expected)
 }
 
 /// Per catalogue line, the index of the first line [`same`] as it (see [`Checker`]'s `same_as`).
@@ -1628,6 +1824,205 @@ mod tests {
                 strength: 1,
             })
             .collect()
+    }
+
+    /// The neighbour scan marks the features the all-pairs test of crowding marks: sorted either
+    /// way, unsorted, equal pixels, and limits from none to all.
+    #[test]
+    fn crowded_features_are_the_all_pairs_test() {
+        let mut next = crate::test_rng::xorshift(0x5851_f42d_4c95_7f2du64);
+        let (mut marked, mut clear) = (0, 0);
+        for round in 0..4000 {
+            let n = (next() % (MAX_FEATURES as u64 + 1)) as usize;
+            let spread = 1 + (next() % 400) as i32;
+            let mut px: std::vec::Vec<i32> = (0..n)
+                .map(|_| ((next() % spread as u64) as i32) << 14)
+                .collect();
+            match round % 3 {
+                0 => px.sort(),
+                1 => px.sort_by(|a, b| b.cmp(a)),
+                _ => {}
+            }
+            let features: std::vec::Vec<Feature> = px
+                .iter()
+                .map(|&p| Feature {
+                    members: Vec::new(),
+                    primary: 0,
+                    predicted_fm: 0,
+                    predicted_px_q16: p,
+                    expected: 0,
+                })
+                .collect();
+            let fwhm_q16 = (next() % (8 << 16)) as i64;
+            let got = crowded_features(&features, fwhm_q16);
+            for (k, f) in features.iter().enumerate() {
+                let want = features.iter().any(|g| {
+                    g.predicted_px_q16 != f.predicted_px_q16
+                        && 2 * (g.predicted_px_q16 as i64 - f.predicted_px_q16 as i64).abs()
+                            < 5 * fwhm_q16
+                });
+                assert_eq!(got >> k & 1 == 1, want, "round {round} feature {k}");
+                if want {
+                    marked += 1;
+                } else {
+                    clear += 1;
+                }
+            }
+        }
+        assert!(marked > 5000 && clear > 5000, "{marked} {clear}");
+    }
+
+    /// The product-and-shift quotient by 1000 is the division, across the 32-bit range, at its
+    /// ends and past it.
+    #[test]
+    fn div_1000_is_the_division() {
+        let mut next = crate::test_rng::xorshift(0x2545_f491_4f6c_dd1du64);
+        let edges = [
+            0i64,
+            1,
+            999,
+            1000,
+            1001,
+            u32::MAX as i64,
+            1 << 32,
+            i64::MAX,
+            i64::MIN + 1,
+        ];
+        for v in edges.into_iter().chain((0..200_000).map(|_| {
+            let v = (next() >> (next() % 64)) as i64;
+            if next().is_multiple_of(2) {
+                v
+            } else {
+                v.wrapping_neg()
+            }
+        })) {
+            for v in [v, v.wrapping_neg()] {
+                assert_eq!(div_1000(v), v / 1000, "{v}");
+            }
+        }
+    }
+
+    /// Calibrate mode's scaled blend windows are [`windows_px_q16`]'s to 1/256 of the reach (and the
+    /// same line windows) on fitted maps up to 2 % and 6 nm and a tenth of the curvature off the
+    /// stored one, hydrogen and deuterium; and the scaled path is the one taken.
+    #[test]
+    fn scaled_windows_are_the_fitted_maps_windows() {
+        use crate::judge::profile;
+        const N: u16 = 2048;
+        let stored = WavelengthMap::new(N, 2, [545_000_000, 175_000_000, -1_200_000, 0]).unwrap();
+        let (mut worst, mut blends) = (0, 0);
+        for prof in [profile::HYDROGEN, profile::DEUTERIUM] {
+            let cfg = Config {
+                pixels: N,
+                condition: crate::condition::ConditionConfig::new(4095, 10_000),
+                find: crate::find::FindConfig::DEFAULT,
+                stored: super::super::config::StoredMap {
+                    map: stored,
+                    sigma_fm: 3_000,
+                },
+                mode: Mode::Calibrate,
+                degree: 2,
+                air: crate::predict::Air::Standard,
+                line_fwhm_px_q8: 3 << 8,
+                profile: prof,
+            };
+            let checker = Checker::new(cfg.clone()).unwrap();
+            for scale_ppm in [-20_000i64, -7_000, 0, 3_000, 20_000] {
+                for offset_fm in [-6_000_000i64, -1_000_000, 0, 2_500_000, 6_000_000] {
+                    for c2_ppm in [-100_000i64, 0, 100_000] {
+                        let [c0, c1, c2, _] = stored.coeff_fm;
+                        let coeff = [
+                            c0 + offset_fm,
+                            c1 + c1 * scale_ppm / 1_000_000,
+                            c2 + c2 * c2_ppm / 1_000_000,
+                            0,
+                        ];
+                        let fitted = WavelengthMap::new(N, 2, coeff).unwrap();
+                        let mut m = MapInUse::EMPTY;
+                        m.set(fitted, None, 3_000);
+                        let (mut features, mut windows) = (Vec::new(), Vec::new());
+                        group_with_windows(
+                            &cfg,
+                            &checker.catalogue,
+                            &checker.priors,
+                            &mut m,
+                            &mut features,
+                            &mut windows,
+                            Some((&checker.line_shift, &checker.placed)),
+                        )
+                        .unwrap();
+                        let one_px = m.one_px_windows(cfg.profile.max_line_error_fm);
+                        assert!(one_px);
+                        let ratio = slope_ratio_q24(checker.placed.mid_slope, &m).unwrap();
+                        for (k, (f, &(base, total))) in
+                            features.iter().zip(windows.iter()).enumerate()
+                        {
+                            // Grouping took the scaled windows where there are some (off the
+                            // sensor, the computed ones: compared below, exactly).
+                            let fast = scaled_window(&checker.placed, k, f, &m, ratio);
+                            assert!(fast.is_none_or(|w| w == (base, total)));
+                            let (b, t) = windows_px_q16(
+                                cfg.profile.max_line_error_fm,
+                                &checker.catalogue,
+                                f,
+                                &m,
+                                one_px,
+                            );
+                            assert_eq!(base, b);
+                            let reach = (t - b) as i64;
+                            let tol = reach / 256 + 1;
+                            assert!(((total - t) as i64).abs() <= tol, "{total} vs {t}");
+                            if fast.is_none() {
+                                assert_eq!(total, t);
+                            } else if reach > 0 {
+                                blends += 1;
+                                worst = worst.max((total - t).abs());
+                            }
+                        }
+                    }
+                }
+            }
+        }
+        assert!(blends > 500, "{blends}");
+        std::println!("scaled blend windows: {blends}, worst {worst} / 65536 px");
+    }
+
+    /// The 32-bit squares give the 128-bit root, below 2^31 and across the switch.
+    #[test]
+    fn root_sum_squares_is_the_wide_root() {
+        let mut next = crate::test_rng::xorshift(0x94d0_49bb_1331_11ebu64);
+        let wide = |c: u128, s: u128| crate::fixed::isqrt_u128(c * c + s * s) as u64;
+        for _ in 0..100_000 {
+            let c = (next() >> (next() % 64)) as u128 >> 32;
+            let s = (next() >> (next() % 64)) as u128 >> 32;
+            assert_eq!(root_sum_squares(c, s), wide(c, s), "{c} {s}");
+        }
+        for (c, s) in [
+            (0, 0),
+            ((1 << 31) - 1, (1 << 31) - 1),
+            (1 << 31, 5),
+            (7, 1 << 31),
+        ] {
+            assert_eq!(root_sum_squares(c, s), wide(c, s), "{c} {s}");
+        }
+    }
+
+    /// The table says which peaks the pairs hold, as asking the pairs does, past it too.
+    #[test]
+    fn taken_peaks_are_the_pairs_peaks() {
+        let mut next = crate::test_rng::xorshift(0xbf58_476d_1ce4_e5b9u64);
+        for _ in 0..2000 {
+            let pairs: std::vec::Vec<Pair> = (0..next() % 41)
+                .map(|_| Pair {
+                    feature: (next() % 40) as u8,
+                    peak: (next() % 80) as u8,
+                })
+                .collect();
+            let t = Taken::of(&pairs);
+            for k in 0..90 {
+                assert_eq!(t.has(k, &pairs), pairs.iter().any(|p| p.peak as usize == k));
+            }
+        }
     }
 
     /// A peak the list would drop is exactly one whose push leaves the list unchanged.
