@@ -289,15 +289,17 @@ fn first_above(values: &[i32], t: i32) -> Option<usize> {
     tail.iter().position(|&v| v > t).map(|j| k + j)
 }
 
-/// Index of the first value above `t` that is also above the value before it (`left` before the
-/// first): where a maximum or plateau can start. Out of line, as [`first_above`].
+/// Index of the first value at or below `t` or above the value before it (`left` before the
+/// first), and which of the two it is (`true`: above — where a maximum or plateau can start, as
+/// every value up to it is above `t`). Out of line, as [`first_above`].
 #[inline(never)]
-fn first_rising(values: &[i32], t: i32, mut left: i32) -> Option<usize> {
-    values.iter().position(|&v| {
-        let rises = v > t && v > left;
+fn first_rising(values: &[i32], t: i32, mut left: i32) -> Option<(usize, bool)> {
+    let k = values.iter().position(|&v| {
+        let stop = v <= t || v > left;
         left = v;
-        rises
-    })
+        stop
+    })?;
+    Some((k, values.get(k).is_some_and(|&v| v > t)))
 }
 
 /// Steps from the first value up while the next is larger: the index of the top of the climb
@@ -366,7 +368,15 @@ pub fn find_candidates(
             Some(&v) if v <= v_min32 => first_above(rest, v_min32),
             _ => {
                 let left = i.checked_sub(1).and_then(|j| smooth.get(j)).copied();
-                first_rising(rest, v_min32, left.unwrap_or(i32::MIN))
+                match first_rising(rest, v_min32, left.unwrap_or(i32::MIN)) {
+                    Some((k, true)) => Some(k),
+                    // Below the threshold again: the tight scan goes on from there.
+                    Some((k, false)) => {
+                        i += k;
+                        continue;
+                    }
+                    None => None,
+                }
             }
         };
         let Some(k) = found else {
