@@ -40,9 +40,27 @@ pub const NARROW: i32 = 1 << 25;
 /// Loop bound: one pass over `out` (five taps per pixel).
 pub fn smooth_residual(frame: &[i32], base: &[i32], out: &mut [i32]) {
     let n = out.len().min(frame.len()).min(base.len());
-    let narrow = |v: &[i32]| v.iter().all(|&x| (-NARROW..=NARROW).contains(&x));
-    let both = narrow(frame.get(..n).unwrap_or(&[])) && narrow(base.get(..n).unwrap_or(&[]));
+    let both =
+        within_narrow(frame.get(..n).unwrap_or(&[])) && within_narrow(base.get(..n).unwrap_or(&[]));
     smooth_residual_known(frame, base, out, both);
+}
+
+/// Whether every value lies in −2^25 … 2^25 − 1 (within ±[`NARROW`], the one value 2^25 aside,
+/// which the 64-bit path then takes, to the same sums): each value offset by 2^25 and or-ed into
+/// one word, which stays below 2^26 exactly then — an add and an or a value, four values a loop
+/// step, no branch (a compare and branch a value cost 3.5× this).
+#[inline(never)]
+fn within_narrow(values: &[i32]) -> bool {
+    let off = |v: i32| v.wrapping_add(NARROW) as u32;
+    let (quads, tail) = values.as_chunks::<4>();
+    let mut seen = 0u32;
+    for q in quads {
+        seen |= off(q[0]) | off(q[1]) | off(q[2]) | off(q[3]);
+    }
+    for &v in tail {
+        seen |= off(v);
+    }
+    seen < 1 << 26
 }
 
 /// [`smooth_residual`] when the caller already knows whether frame and baseline are within
@@ -116,17 +134,23 @@ fn smooth_narrow(frame: &[i32], base: &[i32], out: &mut [i32]) {
     }
 }
 
-/// Whether `v` (smoothed, ×9) exceeds `k_q8` noise σ of the smoothed residual at baseline `level`.
+/// Whether `v` (smoothed, ×9) exceeds `k_q8` noise σ of the smoothed residual at baseline `level`
+/// (the scan takes [`above_var`] with its variance kept; the tests take this).
 ///
 /// `v > k·sqrt(19)·σ ⟺ v²·2^24 > k_q8²·19·var_q8 ⟺ v² > ⌊k_q8²·19·var_q8 / 2^24⌋` (the floor loses
 /// nothing: v² is an integer), so the usual case is 32 × 32 → 64-bit products in halves (no library
 /// multiply on the M0; a variance past 2^32, as on scaled-up frames, splits into two words); wider
 /// values take the general 128-bit test (the same answer).
+#[cfg(test)]
 fn above(v: i64, k_q8: u16, noise: &NoiseModel, level: i64) -> bool {
+    above_var(v, k_q8, noise.var_q8(level))
+}
+
+/// [`above`] at a known variance `var` (Q8, ≥ 1 as every `var_q8` is).
+fn above_var(v: i64, k_q8: u16, var: i64) -> bool {
     if v <= 0 {
         return false;
     }
-    let var = noise.var_q8(level);
     let c = u32::from(k_q8) * u32::from(k_q8); // < 2^32
     let c19 = u64::from(c) * KERNEL_SQ_SUM as u64; // < 2^37
     match (u32::try_from(v), u32::try_from(c19)) {
@@ -195,6 +219,106 @@ fn least_above_var(k_q8: u16, var_q8: i64) -> i64 {
     i64::try_from(super::math::isqrt_u128(lim)).unwrap_or(i64::MAX)
 }
 
+/// A σ-scaled limit ([`least_above_var`]) kept for the last variance it was asked at: a frame's
+/// maxima on one stretch of baseline share a level, so one square root serves them all, while a
+/// variance met once (a sloping baseline) is decided by [`above_var`]'s products, no root.
+struct Edge {
+    k_q8: u16,
+    /// The variance last asked at (0 before any: every variance is ≥ 1).
+    var: i64,
+    /// The limit at `var`, once `var` was asked twice in a row.
+    limit: Option<i64>,
+}
+
+impl Edge {
+    const fn new(k_q8: u16) -> Self {
+        Self {
+            k_q8,
+            var: 0,
+            limit: None,
+        }
+    }
+
+    /// The limit at `var` when it is kept (asked for by the time before).
+    fn kept(&self, var: i64) -> Option<i64> {
+        self.limit.filter(|_| self.var == var)
+    }
+
+    /// The limit at `var`: kept, or its square root taken (and kept).
+    fn limit(&mut self, var: i64) -> i64 {
+        if let Some(t) = self.kept(var) {
+            return t;
+        }
+        let t = least_above_var(self.k_q8, var);
+        (self.var, self.limit) = (var, Some(t));
+        t
+    }
+
+    /// `above_var(v, k, var)`: by the kept limit, by its root at the second use of a variance in a
+    /// row, else by the products.
+    fn passes(&mut self, v: i64, var: i64) -> bool {
+        if self.var == var {
+            return v > self.limit(var);
+        }
+        (self.var, self.limit) = (var, None);
+        above_var(v, self.k_q8, var)
+    }
+}
+
+/// Index of the first value above `t`, four at a time (one compare and branch a pixel, the loop's
+/// own step once per four). Out of line, so the scan keeps its few values in registers.
+#[inline(never)]
+fn first_above(values: &[i32], t: i32) -> Option<usize> {
+    let (quads, tail) = values.as_chunks::<4>();
+    let mut k = 0usize;
+    for q in quads {
+        if q[0] > t {
+            return Some(k);
+        }
+        if q[1] > t {
+            return Some(k + 1);
+        }
+        if q[2] > t {
+            return Some(k + 2);
+        }
+        if q[3] > t {
+            return Some(k + 3);
+        }
+        k += 4;
+    }
+    tail.iter().position(|&v| v > t).map(|j| k + j)
+}
+
+/// Index of the first value at or below `t` or above the value before it (`left` before the
+/// first), and which of the two it is (`true`: above — where a maximum or plateau can start, as
+/// every value up to it is above `t`). Out of line, as [`first_above`].
+#[inline(never)]
+fn first_rising(values: &[i32], t: i32, mut left: i32) -> Option<(usize, bool)> {
+    let k = values.iter().position(|&v| {
+        let stop = v <= t || v > left;
+        left = v;
+        stop
+    })?;
+    Some((k, values.get(k).is_some_and(|&v| v > t)))
+}
+
+/// Steps from the first value up while the next is larger: the index of the top of the climb
+/// (0 when the second is not larger; the last index when every one is).
+#[inline(never)]
+fn climb(values: &[i32]) -> usize {
+    let Some((&v0, rest)) = values.split_first() else {
+        return 0;
+    };
+    let mut prev = v0;
+    rest.iter()
+        .position(|&v| {
+            let up = v > prev;
+            prev = v;
+            !up
+        })
+        .unwrap_or(rest.len())
+}
+
 /// Collects candidates into `out`, strongest kept when more than [`MAX_CANDIDATES`] qualify; returns
 /// whether any were dropped for lack of room.
 ///
@@ -203,7 +327,7 @@ fn least_above_var(k_q8: u16, var_q8: i64) -> i64 {
 /// Loop bounds: one pass over the N = `smooth.len()` pixels (plateau scans included); prominence
 /// walks of ≤ 2 × `reach` steps per local maximum above threshold until [`VALLEY_BUDGET_PER_REACH`] ×
 /// `reach` steps are spent, ≤ 2 × [`SHORT_REACH`] after; ≤ [`MAX_CANDIDATES`] steps for each candidate
-/// that arrives when `out` is full.
+/// that arrives when `out` is full; ≤ 2 square roots (≤ 64 steps) per local maximum above threshold.
 pub fn find_candidates(
     smooth: &[i32],
     base: &[i32],
@@ -221,85 +345,111 @@ pub fn find_candidates(
     // Strength of the weakest entry once the list is full: a candidate no stronger is dropped without
     // scanning the list (a comb of equal maxima would scan it at every one).
     let mut weakest: Option<i32> = None;
-    // The last variance the prominence limit was taken for, and the limit.
-    let mut last_root: Option<(i64, i64)> = None;
+    let (mut threshold, mut prominence) = (
+        Edge::new(cfg.threshold_sigma_q8),
+        Edge::new(cfg.prominence_sigma_q8),
+    );
+    // The last baseline level a variance was taken at, and the variance.
+    let mut last_level: Option<(i32, i64)> = None;
     // `v_min` ≥ 0 (a square root); beyond i32 no value passes.
     let Ok(v_min32) = i32::try_from(v_min.max(0)) else {
         return false;
     };
-    // The value left of `i` (below every value at the first pixel: v > v_min32 ≥ 0 there).
-    let mut left = i32::MIN;
     let mut i = 0usize;
     while i < n {
-        // Most of a frame is below every threshold or not rising: two compares per pixel there, in
-        // a tight scan for the next pixel above both the threshold and its left neighbour — the
-        // start of a maximum or of a plateau (saturated tops; every later pixel of a plateau equals
-        // its left neighbour and starts nothing).
+        // Most of a frame is below every threshold: a tight scan for the next pixel above it — it
+        // rises above its left neighbour, which is below — or, from a pixel above the threshold
+        // (a falling flank, a plateau's rest, a crowded frame), a scan for the next pixel above it
+        // that rises. Either is the foot of a climb to a maximum or plateau (saturated tops; every
+        // later pixel of a plateau equals its left neighbour and starts nothing). Nothing is left
+        // of the first pixel.
         let rest = smooth.get(i..).unwrap_or(&[]);
-        let hit = rest.iter().position(|&v| {
-            let rises = v > v_min32 && v > left;
-            left = v;
-            rises
-        });
-        let Some(k) = hit else {
+        let found = match rest.first() {
+            Some(&v) if v <= v_min32 => first_above(rest, v_min32),
+            _ => {
+                let left = i.checked_sub(1).and_then(|j| smooth.get(j)).copied();
+                match first_rising(rest, v_min32, left.unwrap_or(i32::MIN)) {
+                    Some((k, true)) => Some(k),
+                    // Below the threshold again: the tight scan goes on from there.
+                    Some((k, false)) => {
+                        i += k;
+                        continue;
+                    }
+                    None => None,
+                }
+            }
+        };
+        let Some(k) = found else {
             break;
         };
         i += k;
-        let Some(&v32) = smooth.get(i) else {
-            break;
-        };
-        let v = i64::from(v32);
-        // Plateaus count once, at their middle.
-        let mut end = i;
-        while end + 1 < n && smooth.get(end + 1) == Some(&v32) && end - i < reach {
-            end += 1;
-        }
-        let right = smooth.get(end + 1).map_or(i64::MIN, |&x| i64::from(x));
-        let pos = i + (end - i) / 2;
-        let level = i64::from(base.get(pos).copied().unwrap_or(0));
-        if v > right && above(v, cfg.threshold_sigma_q8, noise, level) {
-            // Past the frame's valley budget the search looks only as far as a line's own wings.
-            let full = valley_steps < VALLEY_BUDGET_PER_REACH * reach;
-            let r = if full { reach } else { reach.min(SHORT_REACH) };
-            valley_steps += 2 * r;
-            let prominent = if full && r > SHORT_REACH {
-                // Long walks stop once the prominence is certain: it passes exactly when both
-                // sides dip to `v − t − 1` or lower before rising above `v` (`t` the largest
-                // prominence refused at this level), so each walk ends at the first such value, and
-                // the right one is not taken when the left fails.
-                // Neighbouring lines on a flat stretch share a level: one square root for them.
-                let var = noise.var_q8(level);
-                let t = match last_root {
-                    Some((v0, t0)) if v0 == var => t0,
-                    _ => least_above_var(cfg.prominence_sigma_q8, var),
-                };
-                last_root = Some((var, t));
-                let goal = v.saturating_sub(t).saturating_sub(1);
-                dips_to(smooth, i, v32, goal, r, false) && dips_to(smooth, end, v32, goal, r, true)
-            } else {
-                let floor_l = valley(smooth, i, v32, r, false);
-                let floor_r = valley(smooth, end, v32, r, true);
-                above(
-                    v - floor_l.max(floor_r),
-                    cfg.prominence_sigma_q8,
-                    noise,
-                    level,
-                )
+        // Each pixel of a climb is the start of one in the plain scan, and none is a maximum: the
+        // climb is walked in one tight loop to its top, a plateau's first pixel, or, after a
+        // plateau, to the next top.
+        let (first, end, v32) = loop {
+            i += climb(smooth.get(i..).unwrap_or(&[]));
+            let Some(&v32) = smooth.get(i) else {
+                return dropped;
             };
-            if prominent {
-                if weakest.is_some_and(|w| v32 <= w) {
-                    dropped = true;
-                } else {
-                    let c = Candidate { pos, strength: v32 };
-                    dropped |= push_strongest(out, c);
-                    if out.is_full() {
-                        weakest = out.iter().map(|c| c.strength).min();
-                    }
+            // Plateaus count once, at their middle.
+            let first = i;
+            let mut end = i;
+            while end + 1 < n && smooth.get(end + 1) == Some(&v32) && end - first < reach {
+                end += 1;
+            }
+            i = end + 1;
+            if smooth.get(end + 1).is_none_or(|&x| x <= v32) {
+                break (first, end, v32);
+            }
+        };
+        if smooth.get(end + 1) == Some(&v32) {
+            // A plateau longer than `reach`: no maximum here.
+            continue;
+        }
+        let v = i64::from(v32);
+        let pos = first + (end - first) / 2;
+        let level = base.get(pos).copied().unwrap_or(0);
+        // Neighbouring maxima on a flat stretch share a level: one variance for them.
+        let var = match last_level {
+            Some((l, var)) if l == level => var,
+            _ => noise.var_q8(i64::from(level)),
+        };
+        last_level = Some((level, var));
+        if !threshold.passes(v, var) {
+            continue;
+        }
+        // Past the frame's valley budget the search looks only as far as a line's own wings.
+        let full = valley_steps < VALLEY_BUDGET_PER_REACH * reach;
+        let r = if full { reach } else { reach.min(SHORT_REACH) };
+        valley_steps += 2 * r;
+        let kept = prominence.kept(var);
+        let prominent = if kept.is_some() || (full && r > SHORT_REACH) {
+            // Long walks, and short ones whose limit is at hand, stop once the prominence is
+            // certain: it passes exactly when both sides dip to `v − t − 1` or lower before rising
+            // above `v` (`t` the largest prominence refused at this level), so each walk ends at
+            // the first such value, and the right one is not taken when the left fails.
+            let t = match kept {
+                Some(t) => t,
+                None => prominence.limit(var),
+            };
+            let goal = v.saturating_sub(t).saturating_sub(1);
+            dips_to(smooth, first, v32, goal, r, false) && dips_to(smooth, end, v32, goal, r, true)
+        } else {
+            let floor_l = valley(smooth, first, v32, r, false);
+            let floor_r = valley(smooth, end, v32, r, true);
+            prominence.passes(v - floor_l.max(floor_r), var)
+        };
+        if prominent {
+            if weakest.is_some_and(|w| v32 <= w) {
+                dropped = true;
+            } else {
+                let c = Candidate { pos, strength: v32 };
+                dropped |= push_strongest(out, c);
+                if out.is_full() {
+                    weakest = out.iter().map(|c| c.strength).min();
                 }
             }
         }
-        left = v32;
-        i = end + 1;
     }
     dropped
 }
@@ -315,16 +465,23 @@ fn dips_to(
     rightward: bool,
 ) -> bool {
     let hit = |v: &i32| i64::from(*v) <= goal;
+    let side = side_of(smooth, from, reach, rightward);
+    if rightward {
+        side.iter().take_while(|&&v| v <= peak).any(hit)
+    } else {
+        side.iter().rev().take_while(|&&v| v <= peak).any(hit)
+    }
+}
+
+/// The ≤ `reach` values next to `from` on one side (nearest first when read forwards on the right,
+/// backwards on the left), cut once so the walks run over a plain slice with no step counter.
+fn side_of(smooth: &[i32], from: usize, reach: usize, rightward: bool) -> &[i32] {
     if rightward {
         let side = smooth.get(from.saturating_add(1)..).unwrap_or(&[]);
-        side.iter().take(reach).take_while(|&&v| v <= peak).any(hit)
+        side.get(..reach).unwrap_or(side)
     } else {
         let side = smooth.get(..from.min(smooth.len())).unwrap_or(&[]);
-        side.iter()
-            .rev()
-            .take(reach)
-            .take_while(|&&v| v <= peak)
-            .any(hit)
+        side.get(side.len().saturating_sub(reach)..).unwrap_or(&[])
     }
 }
 
@@ -337,12 +494,11 @@ fn valley(smooth: &[i32], from: usize, peak: i32, reach: usize, rightward: bool)
         // The index walk's first step is already outside.
         return i64::from(peak);
     }
+    let side = side_of(smooth, from, reach, rightward);
     let low = if rightward {
-        let side = smooth.get(from.saturating_add(1)..).unwrap_or(&[]);
-        lowest_until_above(side.iter().take(reach), peak)
+        lowest_until_above(side.iter(), peak)
     } else {
-        let side = smooth.get(..from.min(smooth.len())).unwrap_or(&[]);
-        lowest_until_above(side.iter().rev().take(reach), peak)
+        lowest_until_above(side.iter().rev(), peak)
     };
     i64::from(low)
 }
@@ -568,6 +724,81 @@ mod tests {
         }
     }
 
+    /// The or-ed range test is the plain one over −2^25 … 2^25 − 1, at every length (quads and tail).
+    #[test]
+    fn range_test_is_the_plain_one() {
+        let mut x = 0x00c0_ffeeu32;
+        let edges = [
+            NARROW - 1,
+            NARROW,
+            -NARROW,
+            -NARROW - 1,
+            i32::MAX,
+            i32::MIN,
+            0,
+        ];
+        for n in 0..40usize {
+            for e in edges {
+                let mut v = std::vec![0i32; n];
+                for y in v.iter_mut() {
+                    crate::test_rng::step32(&mut x);
+                    *y = (x % (1 << 26)) as i32 - (1 << 25);
+                }
+                if n > 0 {
+                    v[x as usize % n] = e;
+                }
+                let plain = v.iter().all(|y| (-NARROW..NARROW).contains(y));
+                assert_eq!(within_narrow(&v), plain, "n {n} e {e}");
+            }
+        }
+    }
+
+    /// The public smoothing, with its range checked inside the 32-bit pass, gives the five-tap
+    /// 64-bit sums (clamped to i32) on rows inside, at the edges of and beyond ±NARROW.
+    #[test]
+    fn checked_smoothing_equals_the_five_tap_sums() {
+        let mut x = 0x0bad_5eedu32;
+        let edges = [
+            NARROW - 1,
+            NARROW,
+            NARROW + 1,
+            -NARROW,
+            -NARROW - 1,
+            i32::MAX,
+            i32::MIN,
+        ];
+        for n in [0usize, 1, 4, 5, 6, 9, 64, 300] {
+            for case in 0..12 {
+                let mut frame = std::vec![0i32; n];
+                let mut base = std::vec![0i32; n];
+                for (f, b) in frame.iter_mut().zip(base.iter_mut()) {
+                    crate::test_rng::step32(&mut x);
+                    *f = (x % (1 << 26)) as i32 - (1 << 25);
+                    *b = ((x >> 5) % (1 << 26)) as i32 - (1 << 25);
+                }
+                // One value at an edge of the range (or beyond), in either row, anywhere.
+                if n > 0 && case > 0 {
+                    crate::test_rng::step32(&mut x);
+                    let v = edges[case % edges.len()];
+                    let row = if case % 2 == 0 { &mut frame } else { &mut base };
+                    row[x as usize % n] = v;
+                }
+                let mut got = std::vec![7i32; n];
+                smooth_residual(&frame, &base, &mut got);
+                let r = |j: usize| i64::from(frame[j.min(n - 1)]) - i64::from(base[j.min(n - 1)]);
+                for (i, &g) in got.iter().enumerate() {
+                    let want = r(i.saturating_sub(2))
+                        + 2 * r(i.saturating_sub(1))
+                        + 3 * r(i)
+                        + 2 * r(i + 1)
+                        + r(i + 2);
+                    let want = want.clamp(i64::from(i32::MIN), i64::from(i32::MAX));
+                    assert_eq!(i64::from(g), want, "n {n} case {case} i {i}");
+                }
+            }
+        }
+    }
+
     fn flat_noise(sd: i64) -> NoiseModel {
         NoiseModel {
             floor_var_q8: sd * sd * 256,
@@ -696,6 +927,10 @@ mod tests {
     #[test]
     fn candidates_match_the_plain_scan() {
         let nm = flat_noise(3);
+        let shot = NoiseModel {
+            shot_var_per_unit_q16: 3 << 16,
+            ..flat_noise(2)
+        };
         let cfg = FindConfig::DEFAULT;
         let mut x = 0x7777_1111u32;
         for len in [1usize, 2, 5, 64, 700] {
@@ -713,13 +948,19 @@ mod tests {
                         (noise + line) & if style == 3 { !31 } else { !0 }
                     })
                     .collect();
-                let base = std::vec![0i32; len];
-                for reach in [8usize, 48] {
-                    let mut got = Vec::new();
-                    let d1 = find_candidates(&s, &base, &nm, &cfg, reach, &mut got);
-                    let mut want = Vec::new();
-                    let d2 = plain_candidates(&s, &nm, &cfg, reach, &mut want);
-                    assert_eq!((got, d1), (want, d2), "len {len} style {style}");
+                // Flat, stepped (stretches of one level) and sloping baselines, so the kept
+                // variances and limits are met again, changed and met once.
+                for (b, nm) in [(0, &nm), (1, &shot), (2, &shot)] {
+                    let base: std::vec::Vec<i32> = (0..len)
+                        .map(|i| [0, 40 * (i / 23) as i32, 5 * i as i32][b])
+                        .collect();
+                    for reach in [8usize, 48] {
+                        let mut got = Vec::new();
+                        let d1 = find_candidates(&s, &base, nm, &cfg, reach, &mut got);
+                        let mut want = Vec::new();
+                        let d2 = plain_candidates(&s, &base, nm, &cfg, reach, &mut want);
+                        assert_eq!((got, d1), (want, d2), "len {len} style {style} base {b}");
+                    }
                 }
             }
         }
@@ -729,6 +970,7 @@ mod tests {
     /// the threshold, with full valley walks.
     fn plain_candidates(
         s: &[i32],
+        base: &[i32],
         nm: &NoiseModel,
         cfg: &FindConfig,
         reach: usize,
@@ -740,7 +982,7 @@ mod tests {
         while i < n {
             let v = at(i);
             let left = if i == 0 { i64::MIN } else { at(i - 1) };
-            if !above(v, cfg.threshold_sigma_q8, nm, 0) || v <= left {
+            if v <= least_above(cfg.threshold_sigma_q8, nm) || v <= left {
                 i += 1;
                 continue;
             }
@@ -749,7 +991,8 @@ mod tests {
                 end += 1;
             }
             let right = if end + 1 < n { at(end + 1) } else { i64::MIN };
-            if v > right {
+            let level = i64::from(base[i + (end - i) / 2]);
+            if v > right && above(v, cfg.threshold_sigma_q8, nm, level) {
                 let r = if steps < VALLEY_BUDGET_PER_REACH * reach {
                     reach
                 } else {
@@ -758,7 +1001,7 @@ mod tests {
                 steps += 2 * r;
                 let fl = valley_wide(s, i, v, r, false);
                 let fr = valley_wide(s, end, v, r, true);
-                if above(v - fl.max(fr), cfg.prominence_sigma_q8, nm, 0) {
+                if above(v - fl.max(fr), cfg.prominence_sigma_q8, nm, level) {
                     let c = Candidate {
                         pos: i + (end - i) / 2,
                         strength: v as i32,

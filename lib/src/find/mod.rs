@@ -346,8 +346,10 @@ pub fn find_peaks(
         if fwhm_px_q16 < spike_limit_q16 {
             continue;
         }
-        let saturated = (usize::from(f.lo)..=usize::from(f.hi))
-            .any(|i| flag.get(i).is_some_and(|&x| x & flags::SATURATED != 0));
+        // Saturated pixels are untrusted: none when the noise pass found every pixel trusted.
+        let saturated = !all_trusted
+            && (usize::from(f.lo)..=usize::from(f.hi))
+                .any(|i| flag.get(i).is_some_and(|&x| x & flags::SATURATED != 0));
         let sd_q4 = isqrt_i64(nm.var_q8(data_base(&data, *pos))).max(1); // σ × 16
         let peak = Peak {
             center_px_q16: math::clamp_i32(f.center_q16),
@@ -482,12 +484,18 @@ fn half_crossing_q16(
 /// The fraction `num / drop` of a step in Q16 (0 ≤ `num` ≤ `drop`, else clamped to 0 … 2^16), from one
 /// 32-bit division: both are first shifted right until `drop` < 2^16, so `num · 2^16` fits 32 bits —
 /// exact for steps below 2^16 frame units, within 2^-15 of the step beyond (a starting width needs
-/// no more). The ~170-instruction reciprocal this replaces cost more than the whole width search.
+/// no more). The ~170-instruction reciprocal this replaces cost more than the whole width search;
+/// steps below 2^16 (ADC frames' lines) skip the shift's two leading-zero counts.
 fn crossing_q16(num: i64, drop: i64) -> i64 {
     let drop = drop.max(1).unsigned_abs();
     let num = num.clamp(0, drop as i64).unsigned_abs();
-    let shift = (64 - drop.leading_zeros()).saturating_sub(16);
-    let (num, drop) = ((num >> shift) as u32, ((drop >> shift) as u32).max(1));
+    let (num, drop) = if drop < 1 << 16 {
+        // No shift: 64 − leading zeros ≤ 16.
+        (num as u32, drop as u32)
+    } else {
+        let shift = (64 - drop.leading_zeros()).saturating_sub(16);
+        ((num >> shift) as u32, ((drop >> shift) as u32).max(1))
+    };
     i64::from((num << 16).checked_div(drop).unwrap_or(0).min(1 << 16))
 }
 
