@@ -39,8 +39,9 @@ pub const fn coarse_cells(n: usize) -> usize {
 /// `half` is the smoothing half-width (px): the box on the block means spans about 2 × `half` + 1 px.
 /// Untrusted pixels (saturated, repaired) are left out of the block means. Block levels beyond the
 /// 32-bit boxes' reach (far past any ADC frame) are smoothed divided by a power of two, so such a
-/// baseline loses its low bits. Loop bound: one O(N) pass
-/// for the block means, ≤ [`ROUNDS`] + 1 rounds of a clip pass and 2 box passes over ⌈N/16⌉ blocks,
+/// baseline loses its low bits. Loop bound: ≤ three O(N) passes
+/// for the block means (flags, range and 32-bit sums of a clean frame, else one careful pass after
+/// the first two), ≤ [`ROUNDS`] + 1 rounds of a clip pass and 2 box passes over ⌈N/16⌉ blocks,
 /// one O(N) interpolation, N = `base.len()` (not capped here; [`find_peaks`](super::find_peaks) keeps
 /// it ≤ MAX_PIXELS).
 pub fn estimate_baseline(
@@ -51,13 +52,24 @@ pub fn estimate_baseline(
     base: &mut [i32],
     tmp: &mut [i32],
 ) {
-    estimate_baseline_known(frame, flag, noise, half, base, tmp, false);
+    estimate_baseline_known(frame, flag, noise, half, base, tmp, Levels::Unknown);
 }
 
-/// [`estimate_baseline`] when `tmp` already holds the level of every full block of `frame`
-/// (`levels_ready`: block k's at `tmp[k]`, k < N / 16, from a clean frame's noise pass,
-/// [`NoiseBlocks::measure_clean`](super::noise::NoiseBlocks)); the block pass then only does the
-/// partial last block. `false` is always right.
+/// What the caller of [`estimate_baseline_known`] knows of `frame`'s block levels.
+#[derive(Clone, Copy, PartialEq, Eq)]
+pub(crate) enum Levels {
+    /// `tmp` holds the level of every full block (block k's at `tmp[k]`, k < N / 16), from a clean
+    /// frame's noise pass ([`NoiseBlocks::measure_clean`](super::noise::NoiseBlocks)): the block
+    /// pass only does the partial last block.
+    Ready,
+    /// Nothing: a clean frame (every pixel trusted, within ±2^23) takes the 32-bit block sums.
+    Unknown,
+    /// The frame is not clean (an untrusted pixel or a value beyond ±2^23): the careful pass at once.
+    NotClean,
+}
+
+/// [`estimate_baseline`] with what the caller knows of the block levels (`Levels::Unknown` is
+/// always right).
 pub(crate) fn estimate_baseline_known(
     frame: &[i32],
     flag: &[u8],
@@ -65,7 +77,7 @@ pub(crate) fn estimate_baseline_known(
     half: usize,
     base: &mut [i32],
     tmp: &mut [i32],
-    levels_ready: bool,
+    levels: Levels,
 ) {
     let n = frame.len().min(base.len());
     let nb = n.div_ceil(COARSE_PX);
@@ -79,7 +91,7 @@ pub(crate) fn estimate_baseline_known(
     }
     let mut cflag = [0u8; crate::condition::MAX_PIXELS.div_ceil(COARSE_PX)];
     let cflag = cflag.get_mut(..nb).unwrap_or(&mut []);
-    block_means(frame, flag, means, cflag, levels_ready);
+    block_means(frame, flag, means, cflag, levels);
     // A block value (the middle two of four 4-px means) scatters with about 1/13 of the pixel
     // variance; the clip level takes 1/16, as for a 16-px mean (a little more clipping, no bias).
     let coarse_noise = NoiseModel {
@@ -129,18 +141,19 @@ pub(crate) fn estimate_baseline_known(
 ///
 /// The middle quarters are what keep the baseline down between lines that stand closer than a block
 /// (near a series limit every 16-px block holds a line, and plain block means all ride on them).
-/// With `levels_ready` the full blocks' levels are in `means` already (trusted): only the partial
-/// last block is summed. Loop bound: one pass over `frame`.
-fn block_means(
-    frame: &[i32],
-    flag: &[u8],
-    means: &mut [i32],
-    cflag: &mut [u8],
-    levels_ready: bool,
-) {
-    // Levels already there (a clean frame's noise pass took them): the full blocks are trusted.
+/// With [`Levels::Ready`] the full blocks' levels are in `means` already (trusted), and a clean
+/// frame's are taken by [`clean_levels`]: then only the partial last block is summed. Loop bound:
+/// ≤ three passes over `frame`.
+fn block_means(frame: &[i32], flag: &[u8], means: &mut [i32], cflag: &mut [u8], levels: Levels) {
+    // Levels already there (a clean frame's noise pass took them) or taken here by 32-bit sums:
+    // the full blocks are trusted.
     let mut done = 0usize;
-    if levels_ready {
+    let ready = match levels {
+        Levels::Ready => true,
+        Levels::Unknown => clean_levels(frame, flag, means),
+        Levels::NotClean => false,
+    };
+    if ready {
         done = (frame.len() / COARSE_PX).min(means.len()).min(cflag.len());
         cflag.get_mut(..done).unwrap_or(&mut []).fill(0);
     }
@@ -208,6 +221,43 @@ fn block_means(
             _ => {}
         }
     }
+}
+
+/// Every full block's level into `means` when no pixel of `frame` is untrusted and all are within
+/// ±2^23 (the levels the 64-bit path of [`block_means`] gives them); returns whether it did (else
+/// `means` is untouched). One flag pass and one range pass, then 32-bit sums of 16 loads a block.
+/// Loop bound: three passes over `frame`.
+fn clean_levels(frame: &[i32], flag: &[u8], means: &mut [i32]) -> bool {
+    if flag.len() != frame.len() || super::math::magnitude_span(frame) >= 1 << 23 {
+        return false;
+    }
+    let mut quads = flag.chunks_exact(4);
+    let mut bad = 0u8;
+    for q in &mut quads {
+        if let [a, b, c, d] = *q {
+            bad |= a | b | c | d;
+        }
+    }
+    for &f in quads.remainder() {
+        bad |= f;
+    }
+    if flags::is_untrusted(bad) {
+        return false;
+    }
+    for (m, c) in means.iter_mut().zip(frame.chunks_exact(COARSE_PX)) {
+        let Ok(v) = <&[i32; COARSE_PX]>::try_from(c) else {
+            break;
+        };
+        let [a0, a1, a2, a3, b0, b1, b2, b3, c0, c1, c2, c3, d0, d1, d2, d3] = *v;
+        let q = |a: i32, b: i32, c: i32, d: i32| a.wrapping_add(b).wrapping_add(c).wrapping_add(d);
+        *m = middle_of_quarters(
+            q(a0, a1, a2, a3),
+            q(b0, b1, b2, b3),
+            q(c0, c1, c2, c3),
+            q(d0, d1, d2, d3),
+        );
+    }
+    true
 }
 
 /// A full block's level from its four 4-px sums `a … d`: the mean of the middle two (floor), in 32
@@ -481,14 +531,88 @@ mod tests {
             let fl = std::vec![0u8; n];
             let nb = n.div_ceil(COARSE_PX);
             let (mut m1, mut c1) = (std::vec![0i32; nb], std::vec![9u8; nb]);
-            block_means(&frame, &fl, &mut m1, &mut c1, false);
+            block_means(&frame, &fl, &mut m1, &mut c1, Levels::NotClean);
             // The full blocks' levels as the noise pass leaves them, the rest unknown.
             let mut m2: std::vec::Vec<i32> = (0..nb)
                 .map(|k| if k < n / COARSE_PX { m1[k] } else { 12_345 })
                 .collect();
             let mut c2 = std::vec![9u8; nb];
-            block_means(&frame, &fl, &mut m2, &mut c2, true);
+            block_means(&frame, &fl, &mut m2, &mut c2, Levels::Ready);
             assert_eq!((m1, c1), (m2, c2), "n {n}");
+        }
+    }
+
+    /// The block levels, fast and careful paths alike, are the plain middle-quarter means and
+    /// trusted-pixel means.
+    #[test]
+    fn block_levels_are_the_plain_means() {
+        let mut x = 0x0bad_5eedu32;
+        for n in [1usize, 15, 16, 33, 256, 1000] {
+            for (bits, dirty) in [12u32, 23, 24, 31]
+                .into_iter()
+                .flat_map(|b| [(b, false), (b, true)])
+            {
+                let frame: std::vec::Vec<i32> = (0..n)
+                    .map(|_| {
+                        crate::test_rng::step32(&mut x);
+                        (x as i32) >> (32 - bits)
+                    })
+                    .collect();
+                let fl: std::vec::Vec<u8> = (0..n)
+                    .map(|_| {
+                        crate::test_rng::step32(&mut x);
+                        match x % 40 {
+                            _ if !dirty => 0,
+                            0 => flags::SATURATED,
+                            1 => flags::REPAIRED,
+                            _ => 0,
+                        }
+                    })
+                    .collect();
+                let nb = n.div_ceil(COARSE_PX);
+                let (mut means, mut cf) = (std::vec![0i32; nb], std::vec![9u8; nb]);
+                block_means(&frame, &fl, &mut means, &mut cf, Levels::Unknown);
+                // The careful pass and (for clean frames) the 32-bit one.
+                let (mut careful, mut careful_cf) = (std::vec![0i32; nb], std::vec![9u8; nb]);
+                block_means(&frame, &fl, &mut careful, &mut careful_cf, Levels::NotClean);
+                assert_eq!((&careful, &careful_cf), (&means, &cf), "n {n} bits {bits}");
+                let mut want = std::vec![0i64; nb];
+                let mut want_cf = std::vec![0u8; nb];
+                for k in 0..nb {
+                    let lo = k * COARSE_PX;
+                    let hi = (lo + COARSE_PX).min(n);
+                    let good: std::vec::Vec<i64> = (lo..hi)
+                        .filter(|&i| !flags::is_untrusted(fl[i]))
+                        .map(|i| i64::from(frame[i]))
+                        .collect();
+                    if good.len() == COARSE_PX {
+                        let mut q: std::vec::Vec<i64> =
+                            good.chunks(4).map(|c| c.iter().sum()).collect();
+                        q.sort();
+                        want[k] = (q[1] + q[2]) >> 3;
+                    } else {
+                        want[k] = good
+                            .iter()
+                            .sum::<i64>()
+                            .div_euclid(good.len().max(1) as i64);
+                        if good.len() < MIN_TRUSTED as usize {
+                            want_cf[k] = flags::SATURATED;
+                        }
+                    }
+                }
+                // Untrusted blocks take the last trusted level before them (the first for a lead).
+                let first = (0..nb).find(|&k| want_cf[k] == 0).map(|k| want[k]);
+                let mut fill = first;
+                for k in 0..nb {
+                    if want_cf[k] == 0 {
+                        fill = Some(want[k]);
+                    } else if let Some(v) = fill {
+                        want[k] = v;
+                    }
+                }
+                let got: std::vec::Vec<i64> = means.iter().map(|&v| i64::from(v)).collect();
+                assert_eq!((got, cf), (want, want_cf), "n {n} bits {bits}");
+            }
         }
     }
 

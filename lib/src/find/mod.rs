@@ -217,7 +217,13 @@ pub fn find_peaks(
     let all_trusted = blocks.all_trusted();
     // The baseline and the smoothed residual are taken once: the noise model only sets the
     // baseline's clip level, which the lines clear by far, while detection thresholds follow it.
-    baseline::estimate_baseline_known(frame, flag, &nm, 2 * fwhm_max_px, base, tmp, levels_ready);
+    // Without the levels the frame is not clean (measure_clean's tests are clean_levels').
+    let levels = if levels_ready {
+        baseline::Levels::Ready
+    } else {
+        baseline::Levels::NotClean
+    };
+    baseline::estimate_baseline_known(frame, flag, &nm, 2 * fwhm_max_px, base, tmp, levels);
     // The baseline is made of means of frame values: within the frame's range.
     detect::smooth_residual_known(frame, base, tmp, narrow);
     // When the looks end after the first, the fits start from the mask's half-width σ (Q16 px,

@@ -187,7 +187,8 @@ impl NoiseBlocks {
     /// Loop bound: as for [`measure`](Self::measure).
     pub fn measure_in_place(&mut self, frame: &[i32], flag: &[u8], mask: &LineMask) {
         // ADC frames: sums of 64 values and their second differences stay inside 32 bits.
-        let narrow = frame.iter().all(|&v| (-NARROW..=NARROW).contains(&v));
+        // (The span's test is a little conservative: 2^23 itself takes the careful path.)
+        let narrow = super::math::magnitude_span(frame) < NARROW as u32;
         self.measure_known(frame, flag, mask, narrow);
     }
 
@@ -800,54 +801,97 @@ fn reject_inflated(blocks: &mut [Block], model: &NoiseModel) -> bool {
 /// each block's shot noise above `zero`; after each rejection round that drops a block it is taken
 /// again over the rest (≤ [`FIT_ROUNDS`] rounds). The leftover variances are sorted once, with each
 /// block's index in the low 6 bits (values ≤ 2^50), so every median after the first is a walk over
-/// that order, not a new selection. Loop bound: one insertion sort of ≤ 64 entries, ≤ FIT_ROUNDS + 1
-/// walks and rejection passes over ≤ 64 blocks.
+/// that order, not a new selection.
+///
+/// With κ fixed only the floor moves between rounds, so [`reject_inflated`]'s test
+/// `256·var > 461·max(floor + shot, 1)` is taken apart once per block: `256·var − 461·shot` is
+/// compared with `461·floor` (with `461·max(floor, 1)` for a block with no shot noise), one 64-bit
+/// comparison a block and round instead of a variance and a product. Loop bound: one insertion sort of ≤ 64 entries, ≤ FIT_ROUNDS + 1 walks and
+/// rejection passes over ≤ 64 blocks.
 fn fit_known_shot(blocks: &mut [Block], k_q16: u32, zero: i64) -> NoiseModel {
     let mut order = [0u64; MAX_BLOCKS];
+    // Per block: 256·var − 461·shot (< 0: never rejected, floors are ≥ 0), and whether it has no
+    // shot noise (its prediction is then at least 1 at a zero floor).
+    let mut excess = [(0i64, false); MAX_BLOCKS];
     let mut n = 0usize;
-    for (i, b) in blocks.iter().enumerate().filter(|(_, b)| b.kept) {
+    for ((i, b), e) in blocks.iter().enumerate().zip(excess.iter_mut()) {
+        if !b.kept {
+            continue;
+        }
+        let var = b.var_q8.clamp(0, 1 << 50);
+        let shot = shot_above(b.level, k_q16, zero);
         if let Some(slot) = order.get_mut(n) {
-            *slot = (left_after_shot(b, k_q16, zero) << 6) | (i as u64 & 63);
+            *slot = ((var.saturating_sub(shot).max(0) as u64) << 6) | (i as u64 & 63);
             n += 1;
         }
+        // 461 · 2^50 exceeds 256 · var: a larger shot never rejects (and the product fits).
+        let over = if shot < 1 << 50 {
+            (var << 8) - times_reject(shot)
+        } else {
+            -1
+        };
+        *e = (over, shot == 0);
     }
     let order = order.get_mut(..n).unwrap_or(&mut []);
     crate::sort::sort_by_key(order, |&x| x);
     // The upper median of the kept blocks' leftovers (as a selection of them would give).
-    let median = |blocks: &[Block], order: &[u64]| -> i64 {
-        let kept = |x: &&u64| blocks.get((**x & 63) as usize).is_some_and(|b| b.kept);
-        let count = order.iter().filter(kept).count();
-        order
-            .iter()
-            .filter(kept)
-            .nth(count / 2)
-            .map_or(0, |&x| (x >> 6) as i64)
+    let median = |blocks: &[Block], kept: usize| -> i64 {
+        let mut left = kept / 2;
+        for &x in order.iter() {
+            if blocks.get((x & 63) as usize).is_some_and(|b| b.kept) {
+                if left == 0 {
+                    return (x >> 6) as i64;
+                }
+                left -= 1;
+            }
+        }
+        0
     };
-    let mut model = NoiseModel {
-        floor_var_q8: median(blocks, order),
+    let mut kept = n;
+    let mut floor = median(blocks, kept);
+    for _ in 0..FIT_ROUNDS {
+        // floor ≤ 2^50: both limits fit; they differ only at a zero floor.
+        let limit = times_reject(floor);
+        let limit_shotless = times_reject(floor.max(1));
+        let before = kept;
+        for (b, &(over, shotless)) in blocks.iter_mut().zip(excess.iter()) {
+            let lim = if shotless { limit_shotless } else { limit };
+            if b.kept && over > lim {
+                b.kept = false;
+                kept = kept.saturating_sub(1);
+            }
+        }
+        // No block rejected, no change.
+        if kept == before {
+            break;
+        }
+        floor = median(blocks, kept);
+    }
+    NoiseModel {
+        floor_var_q8: floor,
         zero_light_level: zero,
         shot_var_per_unit_q16: k_q16,
         shot_from_data: false,
-    };
-    for _ in 0..FIT_ROUNDS {
-        // No block rejected, no change.
-        if !reject_inflated(blocks, &model) {
-            break;
-        }
-        model.floor_var_q8 = median(blocks, order);
     }
-    model
 }
 
-/// A block's variance less its shot noise above `zero` (≥ 0, ≤ 2^50 as the variance is).
-fn left_after_shot(b: &Block, k_q16: u32, zero: i64) -> u64 {
-    let light = b.level.saturating_sub(zero).max(0);
+/// `x · 461` ([`REJECT_ABOVE_Q8`]) for 0 ≤ x < 2^50 from 32-bit products (a 64-bit one is a
+/// library call on the M0); outside that range the low 64 bits of the product, not used.
+fn times_reject(x: i64) -> i64 {
+    let (h, l) = ((x >> 32) as u32, x as u32);
+    let r = REJECT_ABOVE_Q8 as u32;
+    ((u64::from(h.wrapping_mul(r)) << 32).wrapping_add(super::math::mul_u32_wide(l, r))) as i64
+}
+
+/// Shot variance (Q8) of a block at `level` above `zero`: `⌊light·κ / 256⌋`, clamped to i64 (the
+/// term [`NoiseModel::var_q8`] adds to the floor).
+fn shot_above(level: i64, k_q16: u32, zero: i64) -> i64 {
+    let light = level.saturating_sub(zero).max(0);
     // One 32 × 32-bit product for the levels of ADC frames; i128 beyond.
-    let shot = match u32::try_from(light) {
+    match u32::try_from(light) {
         Ok(l) => (super::math::mul_u32_wide(l, k_q16) >> 8) as i64,
         Err(_) => ((i128::from(light) * i128::from(k_q16)) >> 8).min(i128::from(i64::MAX)) as i64,
-    };
-    b.var_q8.saturating_sub(shot).max(0).unsigned_abs()
+    }
 }
 
 #[cfg(test)]
@@ -1072,12 +1116,28 @@ mod tests {
         let mut rng = Rng::new(62);
         for case in 0..400 {
             let nb = 1 + case % MAX_BLOCKS;
-            let k = (rng.u16() as u32) << (case % 9);
+            // Ordinary ADC blocks, and (every fourth case) the extremes: κ up to 2^32 − 1, levels
+            // past 2^32, variances of 0 and 2^50, shots beyond 2^50.
+            let wild = case % 4 == 3;
+            let k = if wild {
+                (rng.next_u64() >> 32) as u32
+            } else {
+                (rng.u16() as u32) << (case % 9)
+            };
             let mut blocks: Vec<Block> = (0..nb)
                 .map(|j| {
-                    let level = 500 + 40 * j as i64 + rng.gauss(300 << 16).abs();
+                    let level = if wild {
+                        (rng.u16() << (rng.u16() % 40)) - 3000
+                    } else {
+                        500 + 40 * j as i64 + rng.gauss(300 << 16).abs()
+                    };
                     let spike = if rng.u16() % 5 == 0 { 20 } else { 1 };
-                    let var = (3000 + ((level * i64::from(k)) >> 8)) * spike + rng.gauss(500 << 16);
+                    let var = if wild {
+                        let r = rng.u16();
+                        [0, 1, 1 << 50, r << 30, r << 10, r][(rng.u16() % 6) as usize]
+                    } else {
+                        (3000 + ((level * i64::from(k)) >> 8)) * spike + rng.gauss(500 << 16)
+                    };
                     Block {
                         var_q8: var.clamp(0, 1 << 50),
                         level,
@@ -1102,9 +1162,9 @@ mod tests {
                     .iter()
                     .filter(|b| b.kept)
                     .map(|b| {
-                        let shot =
-                            ((i128::from((b.level - zero).max(0)) * i128::from(k)) >> 8) as i64;
-                        (b.var_q8 - shot).max(0)
+                        let shot = ((i128::from((b.level - zero).max(0)) * i128::from(k)) >> 8)
+                            .min(i128::from(i64::MAX)) as i64;
+                        b.var_q8.saturating_sub(shot).max(0)
                     })
                     .collect();
                 v.sort();
@@ -1126,6 +1186,65 @@ mod tests {
             assert_eq!(got, want, "case {case}");
             assert!(blocks.iter().zip(&plain).all(|(a, b)| a.kept == b.kept));
         }
+    }
+
+    #[test]
+    fn times_reject_is_the_product() {
+        let mut x = 0x1357_9bdfu32;
+        for _ in 0..10_000 {
+            crate::test_rng::step32(&mut x);
+            let v = (i64::from(x) << (x % 19)) & ((1 << 50) - 1);
+            assert_eq!(times_reject(v), v * REJECT_ABOVE_Q8 as i64, "{v}");
+        }
+        assert_eq!(times_reject((1 << 50) - 1), ((1 << 50) - 1) * 461);
+    }
+
+    /// A block exactly at the rejection limit stays, one unit above it goes (with and without shot).
+    #[test]
+    fn known_shot_rejection_at_the_limit() {
+        for (k, m) in [(0u32, 1i64), (0, 1000), (3 << 16, 7), (1 << 20, 12_345)] {
+            let zero = 100;
+            // Five blocks at the floor 256·m (and no light), then one exactly at 461/256 of its
+            // prediction and one just past it, both at a level with shot noise s when κ > 0.
+            let level = zero + 4000;
+            let s = (4000 * i64::from(k)) >> 8;
+            let mut blocks: Vec<Block> = (0..5)
+                .map(|_| Block {
+                    var_q8: 256 * m,
+                    level: zero,
+                    used: true,
+                    kept: true,
+                })
+                .collect();
+            for extra in [0, 1] {
+                blocks.push(Block {
+                    // 256 · var = 461 · (256 m + s) + 256 · extra.
+                    var_q8: 461 * m + (461 * s) / 256 + extra,
+                    level,
+                    used: true,
+                    kept: true,
+                });
+            }
+            let want_at = 256 * (461 * m + (461 * s) / 256) <= 461 * (256 * m + s);
+            let got = fit_known_shot(&mut blocks, k, zero);
+            assert_eq!(got.floor_var_q8, 256 * m, "κ {k} m {m}");
+            assert_eq!(blocks[5].kept, want_at, "κ {k} m {m}");
+            assert!(!blocks[6].kept, "κ {k} m {m}");
+        }
+        // A zero floor with no shot: the prediction is 1, so a variance of 1 stays and 2 goes.
+        let mut blocks: Vec<Block> = [0, 0, 0, 1, 2]
+            .iter()
+            .map(|&v| Block {
+                var_q8: v,
+                level: 0,
+                used: true,
+                kept: true,
+            })
+            .collect();
+        let got = fit_known_shot(&mut blocks, 0, 0);
+        assert_eq!(got.floor_var_q8, 0);
+        let kept: Vec<bool> = blocks.iter().map(|b| b.kept).collect();
+        assert_eq!(kept, [true, true, true, true, false]);
     }
 
     #[test]
