@@ -231,17 +231,7 @@ fn clean_levels(frame: &[i32], flag: &[u8], means: &mut [i32]) -> bool {
     if flag.len() != frame.len() || super::math::magnitude_span(frame) >= 1 << 23 {
         return false;
     }
-    let mut quads = flag.chunks_exact(4);
-    let mut bad = 0u8;
-    for q in &mut quads {
-        if let [a, b, c, d] = *q {
-            bad |= a | b | c | d;
-        }
-    }
-    for &f in quads.remainder() {
-        bad |= f;
-    }
-    if flags::is_untrusted(bad) {
+    if flags::any_untrusted(flag) {
         return false;
     }
     for (m, c) in means.iter_mut().zip(frame.chunks_exact(COARSE_PX)) {

@@ -229,17 +229,7 @@ impl NoiseBlocks {
         if n > MAX_PIXELS || flag.len() != n || levels.len() < n / 16 {
             return None;
         }
-        let mut bad = 0u8;
-        let mut quads = flag.chunks_exact(4);
-        for q in &mut quads {
-            if let [a, b, c, d] = *q {
-                bad |= a | b | c | d;
-            }
-        }
-        for &f in quads.remainder() {
-            bad |= f;
-        }
-        if flags::is_untrusted(bad) {
+        if flags::any_untrusted(flag) {
             return None;
         }
         let (Some(&x0), Some(&x1)) = (frame.first(), frame.get(1)) else {
