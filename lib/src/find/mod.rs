@@ -11,7 +11,7 @@
 //!
 //! Every per-pixel pass runs in 32-bit arithmetic on ADC frames (values within ±2^23), and a clean
 //! frame is read once for its noise blocks, the baseline's block levels and its range: the M0 build
-//! spends ~285 instructions per pixel on a 2048-px frame of a dozen lines, a third of them in the
+//! spends ~270 instructions per pixel on a 2048-px frame of a dozen lines, a third of them in the
 //! per-line fits (`bash boards/measure.sh` prints the pieces as `find_parts`).
 //!
 //! # Scales
@@ -77,7 +77,7 @@ pub const MIN_PIXELS: usize = 16;
 /// centroid bench's frames of 16 strong 2-px lines need ~50 (at 48, 2 of its 320 lines went without
 /// a step, reporting their half-width σ). Crowded frames (204 narrow lines, a random walk) spend it
 /// all, and wide windows also meet [`STEP_BUDGET_WINDOW_PX`]: their whole checks must stay within
-/// 2 × a typical frame's (1.71 × at most now; `bash boards/measure.sh` prints the ratios).
+/// 2 × a typical frame's (1.96 × at most now; `bash boards/measure.sh` prints the ratios).
 pub const STEP_BUDGET: usize = 56;
 /// Window pixels per step the frame's steps may cover in all ([`STEP_BUDGET`] × this is the second
 /// budget, in pixel-steps; a step's work is one pass over its window): a step of a 21-px window (an
