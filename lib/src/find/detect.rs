@@ -90,7 +90,7 @@ pub(crate) fn smooth_residual_known(frame: &[i32], base: &[i32], out: &mut [i32]
 /// [`smooth_residual`] in 32 bits for `n ≥ 5` values within ±[`NARROW`] (the same integers), as two
 /// three-tap boxes, `[1, 2, 3, 2, 1] = [1, 1, 1] ∗ [1, 1, 1]`: each pixel's residual enters one
 /// running box sum and each box sum one output, four adds a pixel with the residuals and box sums
-/// in reach held in registers. The output runs two pixels behind the residual it reads, so `out`
+/// in reach carried from pixel to pixel (~16 instructions a pixel on the M0). The output runs two pixels behind the residual it reads, so `out`
 /// needs no second row; edge pixels are replicated, as in the five-tap form.
 fn smooth_narrow(frame: &[i32], base: &[i32], out: &mut [i32]) {
     let n = frame.len().min(base.len()).min(out.len());
@@ -106,31 +106,49 @@ fn smooth_narrow(frame: &[i32], base: &[i32], out: &mut [i32]) {
     if n < 5 {
         return;
     }
-    // Residuals r[j − 2], r[j − 1] and box sums p[j − 3], p[j − 2] (p[k] = r[k − 1] + r[k] + r[k + 1],
-    // indices clamped into the frame) for j = 2: r[−1] = r[0].
+    // At pixel j: the residual r[j − 1], the pair sum q = r[j − 2] + r[j − 1], the box sum
+    // pb = p[j − 2] and the pair of box sums t = p[j − 3] + p[j − 2] (p[k] = r[k − 1] + r[k] +
+    // r[k + 1], indices clamped into the frame), so a pixel is one subtraction and four adds:
+    // p[j − 1] = q + r[j], out[j − 2] = t + p[j − 1]. For j = 2: r[−1] = r[0].
     let (r0, r1) = (r(0), r(1));
-    let (mut ra, mut rb) = (r0, r1);
-    let (mut pa, mut pb) = (r0.wrapping_mul(3), r0.wrapping_add(r0).wrapping_add(r1));
-    for j in 2..n {
-        let (Some(&y), Some(&b)) = (frame.get(j), base.get(j)) else {
-            break;
-        };
-        let rj = y.wrapping_sub(b);
-        // Wrapping: exact within ±NARROW, and no overflow check left behind otherwise.
-        let pc = ra.wrapping_add(rb).wrapping_add(rj);
-        if let Some(o) = out.get_mut(j - 2) {
-            *o = pa.wrapping_add(pb).wrapping_add(pc);
+    let (pa, pb0) = (r0.wrapping_mul(3), r0.wrapping_add(r0).wrapping_add(r1));
+    let (mut rb, mut q, mut pb, mut t) = (r1, r0.wrapping_add(r1), pb0, pa.wrapping_add(pb0));
+    // Two pixels a turn, so the four values change roles instead of registers (the M0 spilled
+    // them to the stack one pixel a turn: 20 instructions a pixel).
+    let (Some(fr), Some(br), Some(head)) = (frame.get(2..), base.get(2..), out.get_mut(..n - 2))
+    else {
+        return;
+    };
+    let pairs = fr.chunks_exact(2).zip(br.chunks_exact(2));
+    for ((f, b), o) in pairs.zip(head.chunks_exact_mut(2)) {
+        if let ([y0, y1], [b0, b1], [o0, o1]) = (f, b, o) {
+            // Wrapping: exact within ±NARROW, and no overflow check left behind otherwise.
+            let r0 = y0.wrapping_sub(*b0);
+            let p0 = q.wrapping_add(r0);
+            *o0 = t.wrapping_add(p0);
+            let r1 = y1.wrapping_sub(*b1);
+            let p1 = rb.wrapping_add(r0).wrapping_add(r1);
+            *o1 = pb.wrapping_add(p0).wrapping_add(p1);
+            (rb, q, pb, t) = (r1, r0.wrapping_add(r1), p1, p0.wrapping_add(p1));
         }
-        (ra, rb, pa, pb) = (rb, rj, pb, pc);
     }
-    // The last two outputs, with r[n] = r[n + 1] = r[n − 1].
+    // The odd pixel of an odd count (j = n − 1), then the last two outputs with r[n] = r[n + 1] =
+    // r[n − 1].
+    if n % 2 == 1 {
+        let rj = r(n - 1);
+        let p = q.wrapping_add(rj);
+        if let Some(o) = out.get_mut(n - 3) {
+            *o = t.wrapping_add(p);
+        }
+        (rb, q, pb, t) = (rj, rb.wrapping_add(rj), p, pb.wrapping_add(p));
+    }
     let last = rb;
     for k in n - 2..n {
-        let pc = ra.wrapping_add(rb).wrapping_add(last);
+        let p = q.wrapping_add(last);
         if let Some(o) = out.get_mut(k) {
-            *o = pa.wrapping_add(pb).wrapping_add(pc);
+            *o = t.wrapping_add(p);
         }
-        (ra, rb, pa, pb) = (rb, last, pb, pc);
+        (rb, q, pb, t) = (last, rb.wrapping_add(last), p, pb.wrapping_add(p));
     }
 }
 
@@ -702,7 +720,7 @@ mod tests {
     #[test]
     fn narrow_smoothing_equals_the_wide_one() {
         let mut x = 0x1234_5678u32;
-        for n in [5usize, 6, 7, 40, 301] {
+        for n in [5usize, 6, 7, 8, 9, 40, 301, 302] {
             let mut frame = std::vec![0i32; n];
             let mut base = std::vec![0i32; n];
             for (f, b) in frame.iter_mut().zip(base.iter_mut()) {
