@@ -90,8 +90,9 @@ pub(crate) fn smooth_residual_known(frame: &[i32], base: &[i32], out: &mut [i32]
 /// [`smooth_residual`] in 32 bits for `n ≥ 5` values within ±[`NARROW`] (the same integers), as two
 /// three-tap boxes, `[1, 2, 3, 2, 1] = [1, 1, 1] ∗ [1, 1, 1]`: each pixel's residual enters one
 /// running box sum and each box sum one output, four adds a pixel with the residuals and box sums
-/// in reach carried from pixel to pixel (~16 instructions a pixel on the M0). The output runs two pixels behind the residual it reads, so `out`
-/// needs no second row; edge pixels are replicated, as in the five-tap form.
+/// in reach carried from pixel to pixel (~16 instructions a pixel on the M0). The output runs two
+/// pixels behind the residual it reads, so `out` needs no second row; edge pixels are replicated,
+/// as in the five-tap form.
 fn smooth_narrow(frame: &[i32], base: &[i32], out: &mut [i32]) {
     let n = frame.len().min(base.len()).min(out.len());
     // Equal lengths, so the loop's index needs no bounds checks in any of the three rows.
