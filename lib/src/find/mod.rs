@@ -77,7 +77,7 @@ pub const MIN_PIXELS: usize = 16;
 /// centroid bench's frames of 16 strong 2-px lines need ~50 (at 48, 2 of its 320 lines went without
 /// a step, reporting their half-width σ). Crowded frames (204 narrow lines, a random walk) spend it
 /// all, and wide windows also meet [`STEP_BUDGET_WINDOW_PX`]: their whole checks must stay within
-/// 2 × a typical frame's (1.96 × at most now; `bash boards/measure.sh` prints the ratios).
+/// 2 × a typical frame's (1.97 × at most now; `bash boards/measure.sh` prints the ratios).
 pub const STEP_BUDGET: usize = 56;
 /// Window pixels per step the frame's steps may cover in all ([`STEP_BUDGET`] × this is the second
 /// budget, in pixel-steps; a step's work is one pass over its window): a step of a 21-px window (an
