@@ -158,10 +158,14 @@ const fn mul_wide(a: u128, b: u128) -> (u128, u128) {
 /// The bit-by-bit floor square root of `$x` in `$t`, from the highest bit pair that can be set (small
 /// arguments skip most steps): one body for the three widths below, each as fast as written out.
 macro_rules! bitwise_isqrt {
-    ($x:expr, $t:ty) => {{
+    ($x:expr, $t:ty) => {
+        bitwise_isqrt!($x, $t, 1 << (<$t>::BITS - 2))
+    };
+    // From a known start bit (a power of four no higher than needed).
+    ($x:expr, $t:ty, $start:expr) => {{
         let mut rem: $t = $x;
         let mut root: $t = 0;
-        let mut bit: $t = 1 << (<$t>::BITS - 2);
+        let mut bit: $t = $start;
         while bit > rem {
             bit >>= 2;
         }
@@ -197,25 +201,45 @@ const fn isqrt_u64(x: u64) -> u64 {
 /// Floor square root of a u32 (at most 16 steps: a 64-bit step is several instructions on a
 /// 32-bit core), from the highest bit pair set, found by a leading-zero count rather than by
 /// stepping down to it. Out of line: inlined into the wider roots, the M0 build kept one of its three
-/// words on the stack and spent 11 instructions a step instead of 7.
+/// words on the stack (three of a step's 11 instructions were loads and stores).
 #[inline(never)]
 const fn isqrt_u32(x: u32) -> u32 {
     if x == 0 {
         return 0;
     }
-    let mut rem = x;
-    let mut root = 0u32;
-    let mut bit = 1u32 << ((31 - crate::find::math::leading_zeros_u32(x)) & !1);
-    while bit != 0 {
-        let t = root + bit;
-        root >>= 1;
-        if rem >= t {
-            rem -= t;
-            root += bit;
-        }
-        bit >>= 2;
+    bitwise_isqrt!(x, u32, 1 << ((31 - leading_zeros_u32(x)) & !1))
+}
+
+/// Leading zeros of every byte value (`CLZ8[0]` = 8), built at compile time.
+const CLZ8: [u8; 256] = {
+    let mut t = [8u8; 256];
+    let mut i = 1;
+    while i < 256 {
+        t[i] = (i as u8).leading_zeros() as u8;
+        i += 1;
     }
-    root
+    t
+};
+
+/// `v.leading_zeros()` by two compares and a byte table (~12 instructions, 256 B of flash): the
+/// Cortex-M0 has no count-leading-zeros instruction, the library routine it calls takes ~35, and
+/// five compare-and-shift steps took ~20 — and the fits' weights count one per window pixel.
+/// Out of line: it is called from many places, and a call costs four instructions.
+#[inline(never)]
+pub const fn leading_zeros_u32(v: u32) -> u32 {
+    let (n, top) = if v >= 1 << 16 {
+        if v >= 1 << 24 {
+            (0, v >> 24)
+        } else {
+            (8, v >> 16)
+        }
+    } else if v >= 1 << 8 {
+        (16, v >> 8)
+    } else {
+        (24, v)
+    };
+    // `top` < 256 on every branch; the mask lets the compiler see it (no bounds check).
+    n + CLZ8[(top & 0xff) as usize] as u32
 }
 
 /// Divides rounding to nearest (ties up); `None` for a zero divisor.

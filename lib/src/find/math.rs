@@ -211,37 +211,7 @@ pub fn clamp_i32(v: i64) -> i32 {
     v.clamp(i64::from(i32::MIN), i64::from(i32::MAX)) as i32
 }
 
-/// Leading zeros of every byte value (`CLZ8[0]` = 8), built at compile time.
-const CLZ8: [u8; 256] = {
-    let mut t = [8u8; 256];
-    let mut i = 1;
-    while i < 256 {
-        t[i] = (i as u8).leading_zeros() as u8;
-        i += 1;
-    }
-    t
-};
-
-/// `v.leading_zeros()` by two compares and a byte table (~12 instructions, 256 B of flash): the
-/// Cortex-M0 has no count-leading-zeros instruction, the library routine it calls takes ~35, and
-/// five compare-and-shift steps took ~20 — and the fits' weights count one per window pixel.
-/// Out of line: it is called from many places, and a call costs four instructions.
-#[inline(never)]
-pub const fn leading_zeros_u32(v: u32) -> u32 {
-    let (n, top) = if v >= 1 << 16 {
-        if v >= 1 << 24 {
-            (0, v >> 24)
-        } else {
-            (8, v >> 16)
-        }
-    } else if v >= 1 << 8 {
-        (16, v >> 8)
-    } else {
-        (24, v)
-    };
-    // `top` < 256 on every branch; the mask lets the compiler see it (no bounds check).
-    n + CLZ8[(top & 0xff) as usize] as u32
-}
+pub use crate::fixed::leading_zeros_u32;
 
 /// `v.leading_zeros()` for `u64` from [`leading_zeros_u32`] of its halves.
 #[inline]
